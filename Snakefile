@@ -1,0 +1,21 @@
+# flakelight: screen layered compounds for bright, strongly bound excitons.
+# This file only lists the workflow's parts; see README.md for the tour.
+from snakemake.utils import min_version
+
+min_version("9.0")
+
+
+configfile: "config/config.yaml"
+
+
+include: "workflow/rules/common.smk"
+include: "workflow/rules/keldysh.smk"
+include: "workflow/rules/screen.smk"
+include: "workflow/rules/collect.smk"
+include: "workflow/rules/report.smk"
+
+
+rule all:
+    default_target: True
+    input:
+        final_outputs(),

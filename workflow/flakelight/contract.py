@@ -1,0 +1,303 @@
+"""The input contract: schema validation plus physical checks of one record.
+
+A record is checked in two passes. The JSON Schema (workflow/schemas/
+entry.schema.json, checked with the jsonschema library) decides structure and
+types; the physical checks below decide whether the numbers make sense. Every
+problem names the field by a path such as ``valleys[2].mass.isotropic_me`` and
+gives a reason; the caller adds the file name.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any, Callable, Iterable
+
+import numpy as np
+from jsonschema import Draft202012Validator
+
+#: Masses outside this window (m_e) are treated as input errors, not physics.
+MASS_RANGE_ME = (1e-3, 100.0)
+#: Electronic dielectric constants above this are treated as input errors.
+MAX_ELECTRONIC_EPS = 200.0
+#: Static dielectric constants above this are treated as input errors.
+MAX_STATIC_EPS = 1e5
+#: Band-edge energies beyond this magnitude (eV) are treated as input errors.
+MAX_ABS_EDGE_EV = 100.0
+#: Relative asymmetry allowed in a dielectric tensor, |e_ij - e_ji| / max|e|.
+SYMMETRY_TOL = 1e-3
+#: Plausible geometry windows (Angstrom).
+SPACING_RANGE_ANGSTROM = (1.0, 60.0)
+LATTICE_RANGE_ANGSTROM = (1.0, 100.0)
+SCREENING_LENGTH_RANGE_ANGSTROM = (1e-3, 2000.0)
+MAX_ABS_SCISSOR_EV = 10.0
+#: Minimum number of k points for a mass fit from band samples.
+MIN_BAND_SAMPLES = 6
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One reason a record cannot be screened."""
+
+    field: str
+    reason: str
+
+
+def format_path(parts: Iterable[Any]) -> str:
+    """Render a JSON path as ``a.b[2].c``; the empty path is ``(record)``."""
+    out = ""
+    for part in parts:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        else:
+            out += f".{part}" if out else str(part)
+    return out or "(record)"
+
+
+def _short(text: str, limit: int = 240) -> str:
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+_ONEOF_HINTS = {
+    ("$defs", "valley"): "give exactly one of 'mass' or 'band_samples'",
+    ("$defs", "valley", "properties", "mass"):
+        "give exactly one in-plane mass form: 'isotropic_me', 'principal_me' or 'tensor_me'",
+}
+
+
+class RecordChecker:
+    """Validate parsed records against the schema and the physical rules."""
+
+    def __init__(self, schema: dict):
+        Draft202012Validator.check_schema(schema)
+        self._validator = Draft202012Validator(schema)
+
+    def schema_problems(self, record: Any) -> list[Problem]:
+        """Structural problems found by the JSON Schema, in document order."""
+        problems = []
+        for err in sorted(self._validator.iter_errors(record), key=lambda e: [str(p) for p in e.absolute_path]):
+            field = format_path(err.absolute_path)
+            if err.validator == "oneOf":
+                hint = _ONEOF_HINTS.get(tuple(err.schema_path)[:-1]) or _ONEOF_HINTS.get(
+                    tuple(p for p in err.schema_path if p not in ("items",))[:-1])
+                reason = hint or "matches none or several of the allowed forms"
+            elif err.validator == "additionalProperties":
+                reason = _short(err.message)
+            elif err.validator == "propertyNames":
+                reason = f"layer-count key {err.instance!r} is not a positive integer below 100 or 'bulk'"
+            else:
+                reason = _short(err.message)
+            problems.append(Problem(field, reason))
+        return problems
+
+    def check(self, record: Any, *, stem: str,
+              structure_exists: Callable[[str], bool]) -> list[Problem]:
+        """All problems of one record: schema first, physics only on a well-formed record."""
+        problems = self.schema_problems(record)
+        if problems:
+            return problems
+        return physical_problems(record, stem=stem, structure_exists=structure_exists)
+
+
+def _finite(value: float) -> bool:
+    return isinstance(value, (int, float)) and math.isfinite(value)
+
+
+def tensor_problems(tensor: list[list[float]], *, max_eps: float) -> list[str]:
+    """Reasons a 3x3 dielectric tensor is unusable: non-finite, asymmetric, not >= 1, absurd."""
+    arr = np.asarray(tensor, dtype=float)
+    if not np.all(np.isfinite(arr)):
+        return ["contains a non-finite component"]
+    scale = float(np.max(np.abs(arr))) or 1.0
+    if np.max(np.abs(arr - arr.T)) > SYMMETRY_TOL * scale:
+        return [f"is not symmetric (largest |e_ij - e_ji| = {np.max(np.abs(arr - arr.T)):.3g})"]
+    eig = np.linalg.eigvalsh(0.5 * (arr + arr.T))
+    if eig[0] <= 0:
+        return [f"is not positive definite (smallest eigenvalue {eig[0]:.4g})"]
+    if eig[0] < 1.0 - 1e-9:
+        return [f"has an eigenvalue {eig[0]:.4g} below 1 (a dielectric constant cannot be below vacuum's)"]
+    if eig[-1] > max_eps:
+        return [f"has an eigenvalue {eig[-1]:.4g} above the plausible limit {max_eps:g}"]
+    return []
+
+
+def mass_problems(value: float) -> str | None:
+    """Reason a mass value (m_e) is unusable, or None."""
+    if not _finite(value):
+        return "is not finite"
+    if value <= 0:
+        return f"must be positive, got {value:g}"
+    lo, hi = MASS_RANGE_ME
+    if not lo <= value <= hi:
+        return f"{value:g} m_e is outside the plausible range [{lo:g}, {hi:g}] m_e"
+    return None
+
+
+def _range_problem(value: float, window: tuple[float, float], unit: str) -> str | None:
+    if not _finite(value):
+        return "is not finite"
+    lo, hi = window
+    if not lo <= value <= hi:
+        return f"{value:g} {unit} is outside the plausible range [{lo:g}, {hi:g}] {unit}"
+    return None
+
+
+def _mass_block_problems(mass: dict, path: list) -> list[Problem]:
+    out = []
+    if "isotropic_me" in mass:
+        r = mass_problems(mass["isotropic_me"])
+        if r:
+            out.append(Problem(format_path(path + ["isotropic_me"]), r))
+    if "principal_me" in mass:
+        for i, m in enumerate(mass["principal_me"]):
+            r = mass_problems(m)
+            if r:
+                out.append(Problem(format_path(path + ["principal_me", i]), r))
+        if "angle_deg" in mass and not _finite(mass["angle_deg"]):
+            out.append(Problem(format_path(path + ["angle_deg"]), "is not finite"))
+    elif "angle_deg" in mass:
+        out.append(Problem(format_path(path + ["angle_deg"]), "only meaningful with 'principal_me'"))
+    if "tensor_me" in mass:
+        t = np.asarray(mass["tensor_me"], dtype=float)
+        p = format_path(path + ["tensor_me"])
+        if not np.all(np.isfinite(t)):
+            out.append(Problem(p, "contains a non-finite component"))
+        elif abs(t[0, 1] - t[1, 0]) > 1e-6 * max(np.max(np.abs(t)), 1e-30):
+            out.append(Problem(p, "is not symmetric"))
+        else:
+            eig = np.linalg.eigvalsh(t)
+            for e in eig:
+                r = mass_problems(float(e))
+                if r:
+                    out.append(Problem(p, f"principal mass {r}"))
+                    break
+    if "perpendicular_me" in mass:
+        r = mass_problems(mass["perpendicular_me"])
+        if r:
+            out.append(Problem(format_path(path + ["perpendicular_me"]), r))
+    if "relative_uncertainty" in mass:
+        r = _range_problem(mass["relative_uncertainty"], (0.0, 1.0), "(relative)")
+        if r:
+            out.append(Problem(format_path(path + ["relative_uncertainty"]), r))
+    return out
+
+
+def _samples_problems(samples: dict, path: list) -> list[Problem]:
+    k = samples["k_per_angstrom"]
+    e = samples["energy_ev"]
+    out = []
+    if len(k) != len(e):
+        out.append(Problem(format_path(path), f"{len(k)} k points but {len(e)} energies"))
+    if len({len(row) for row in k}) > 1:
+        out.append(Problem(format_path(path + ["k_per_angstrom"]), "mixes 2- and 3-component k points"))
+    if len(k) < MIN_BAND_SAMPLES:
+        out.append(Problem(format_path(path + ["k_per_angstrom"]),
+                           f"{len(k)} points are too few for a mass fit (need at least {MIN_BAND_SAMPLES})"))
+    if not all(_finite(x) for row in k for x in row):
+        out.append(Problem(format_path(path + ["k_per_angstrom"]), "contains a non-finite value"))
+    if not all(_finite(x) and abs(x) <= MAX_ABS_EDGE_EV for x in e):
+        out.append(Problem(format_path(path + ["energy_ev"]), f"contains a non-finite value or one beyond {MAX_ABS_EDGE_EV:g} eV"))
+    return out
+
+
+def physical_problems(record: dict, *, stem: str,
+                      structure_exists: Callable[[str], bool]) -> list[Problem]:
+    """Physical and cross-field checks of a schema-valid record."""
+    out: list[Problem] = []
+    if record["id"] != stem:
+        out.append(Problem("id", f"identifier {record['id']!r} differs from the file name {stem!r}.json"))
+
+    diel = record["dielectric"]
+    for key, max_eps in (("electronic", MAX_ELECTRONIC_EPS), ("static", MAX_STATIC_EPS)):
+        if key in diel:
+            for reason in tensor_problems(diel[key], max_eps=max_eps):
+                out.append(Problem(f"dielectric.{key}", f"tensor {reason}"))
+    if "normal" in diel:
+        n = np.asarray(diel["normal"], dtype=float)
+        if not np.all(np.isfinite(n)) or np.linalg.norm(n) < 1e-8:
+            out.append(Problem("dielectric.normal", "must be a finite, non-zero vector"))
+        if diel["frame"] == "layer":
+            out.append(Problem("dielectric.normal", "only meaningful with frame 'crystal' (in the layer frame the normal is z)"))
+    if "relative_uncertainty" in diel:
+        r = _range_problem(diel["relative_uncertainty"], (0.0, 1.0), "(relative)")
+        if r:
+            out.append(Problem("dielectric.relative_uncertainty", r))
+
+    has_structure = "structure_file" in record
+    if has_structure and not structure_exists(record["structure_file"]):
+        out.append(Problem("structure_file", f"referenced structure {record['structure_file']!r} not found in structures/"))
+    for key, window in (("layer_spacing_angstrom", SPACING_RANGE_ANGSTROM),
+                        ("inplane_lattice_angstrom", LATTICE_RANGE_ANGSTROM)):
+        if key in record:
+            r = _range_problem(record[key], window, "Angstrom")
+            if r:
+                out.append(Problem(key, r))
+        elif not has_structure:
+            out.append(Problem(key, "required when no structure_file is given"))
+    for key in ("scissor_ev", "scissor_uncertainty_ev"):
+        if key in record:
+            r = _range_problem(record[key], (-MAX_ABS_SCISSOR_EV if key == "scissor_ev" else 0.0, MAX_ABS_SCISSOR_EV), "eV")
+            if r:
+                out.append(Problem(key, r))
+
+    screening = record.get("monolayer_screening", {})
+    if screening:
+        if set(screening) == {"relative_uncertainty"}:
+            out.append(Problem("monolayer_screening", "give 'polarizability_2d_angstrom' or 'screening_length_angstrom'"))
+        for key in ("polarizability_2d_angstrom", "screening_length_angstrom"):
+            if key in screening:
+                window = SCREENING_LENGTH_RANGE_ANGSTROM if key.startswith("screening") else \
+                    tuple(x / (2 * math.pi) for x in SCREENING_LENGTH_RANGE_ANGSTROM)
+                r = _range_problem(screening[key], window, "Angstrom")
+                if r:
+                    out.append(Problem(f"monolayer_screening.{key}", r))
+        if {"polarizability_2d_angstrom", "screening_length_angstrom"} <= set(screening):
+            out.append(Problem("monolayer_screening", "give the polarizability or the screening length, not both"))
+        if "relative_uncertainty" in screening:
+            r = _range_problem(screening["relative_uncertainty"], (0.0, 1.0), "(relative)")
+            if r:
+                out.append(Problem("monolayer_screening.relative_uncertainty", r))
+
+    bands = {"valence": 0, "conduction": 0}
+    seen: dict[tuple[str, str], int] = {}
+    for i, valley in enumerate(record["valleys"]):
+        base = ["valleys", i]
+        bands[valley["band"]] += 1
+        key = (valley["label"], valley["band"])
+        if key in seen:
+            out.append(Problem(format_path(base + ["label"]),
+                               f"{valley['band']} valley {valley['label']!r} already given at valleys[{seen[key]}]"))
+        seen.setdefault(key, i)
+        for layer_key, energy in valley["edge_ev"].items():
+            if not _finite(energy) or abs(energy) > MAX_ABS_EDGE_EV:
+                out.append(Problem(format_path(base + ["edge_ev", layer_key]),
+                                   f"edge energy {energy!r} is not finite or beyond {MAX_ABS_EDGE_EV:g} eV"))
+        if "edge_uncertainty_ev" in valley:
+            r = _range_problem(valley["edge_uncertainty_ev"], (0.0, 5.0), "eV")
+            if r:
+                out.append(Problem(format_path(base + ["edge_uncertainty_ev"]), r))
+        if "mass" in valley:
+            out.extend(_mass_block_problems(valley["mass"], base + ["mass"]))
+        if "band_samples" in valley:
+            out.extend(_samples_problems(valley["band_samples"], base + ["band_samples"]))
+    for band, count in bands.items():
+        if count == 0:
+            out.append(Problem("valleys", f"no {band} valley given; need at least one valence and one conduction valley"))
+
+    if not out and bands["valence"] and bands["conduction"]:
+        out.extend(_gap_problems(record["valleys"]))
+    return out
+
+
+def _gap_problems(valleys: list[dict]) -> list[Problem]:
+    """A conduction edge at or below a valence edge at a given layer count means no gap."""
+    out = []
+    layer_keys = sorted({k for v in valleys for k in v["edge_ev"]}, key=lambda k: (k == "bulk", k.zfill(3)))
+    for key in layer_keys:
+        vb = [v["edge_ev"][key] for v in valleys if v["band"] == "valence" and key in v["edge_ev"]]
+        cb = [v["edge_ev"][key] for v in valleys if v["band"] == "conduction" and key in v["edge_ev"]]
+        if vb and cb and min(cb) <= max(vb):
+            out.append(Problem(f"valleys[*].edge_ev.{key}",
+                               f"lowest conduction edge {min(cb):g} eV is not above highest valence edge {max(vb):g} eV "
+                               "(no gap: a metal, or bands mislabelled)"))
+    return out

@@ -1,0 +1,222 @@
+"""Normalise one validated record into flat rows for the screen.
+
+Input: a record that passed :mod:`flakelight.contract`, plus the result of the
+structure analysis of its CIF (if any). Output: one entry row and one row per
+valley, in internal units and in the layer frame, ready to be stacked into
+columnar tables. Masses given as band samples are fitted here
+(:mod:`flakelight.bandfit`). Anything that makes the record unusable at this
+stage raises :class:`Rejected` with the field and reason.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from flakelight import bandfit, dielectric, masses
+from flakelight.contract import Problem
+from flakelight.structure import LayerGeometry
+
+#: Layer-frame tensor components stored in the entry table (symmetric tensor).
+TENSOR_COMPONENTS = (("xx", 0, 0), ("yy", 1, 1), ("zz", 2, 2), ("xy", 0, 1), ("xz", 0, 2), ("yz", 1, 2))
+
+
+class Rejected(Exception):
+    """A record that cannot be screened; carries its problems."""
+
+    def __init__(self, problems: list[Problem]):
+        super().__init__("; ".join(f"{p.field}: {p.reason}" for p in problems))
+        self.problems = problems
+
+
+@dataclass
+class NormalizedRecord:
+    """Flat rows of one record (internal units, layer frame)."""
+
+    entry: dict
+    valleys: list[dict]
+    warnings: list[str] = field(default_factory=list)
+
+
+def edge_column(layers: int) -> str:
+    """Column name of the band edge at a layer count (0 = bulk)."""
+    return "edge_bulk_ev" if layers == 0 else f"edge_{layers}l_ev"
+
+
+def _normal(record: dict, geometry: LayerGeometry | None, warnings: list[str]) -> tuple[np.ndarray, str]:
+    diel = record["dielectric"]
+    if diel["frame"] == "layer":
+        return np.array([0.0, 0.0, 1.0]), "layer frame"
+    if "normal" in diel:
+        n = np.asarray(diel["normal"], dtype=float)
+        return n / np.linalg.norm(n), "record"
+    if geometry is not None and geometry.layer_normal is not None:
+        return np.asarray(geometry.layer_normal, dtype=float), "structure"
+    warnings.append("dielectric.frame is 'crystal' without a normal or a layered structure; "
+                    "the layer normal is assumed along Cartesian z (c axis of a standard setting)")
+    return np.array([0.0, 0.0, 1.0]), "assumed z"
+
+
+def _tensor_columns(prefix: str, tensor: np.ndarray | None) -> dict:
+    if tensor is None:
+        return {f"{prefix}_{name}": math.nan for name, _, _ in TENSOR_COMPONENTS}
+    return {f"{prefix}_{name}": float(tensor[i, j]) for name, i, j in TENSOR_COMPONENTS}
+
+
+def _inverse_mass(valley: dict, path: str, warnings: list[str]) -> tuple[np.ndarray, dict]:
+    """In-plane inverse-mass tensor (1/m_e, carrier sign) and fit diagnostics."""
+    if "mass" in valley:
+        m = valley["mass"]
+        if "isotropic_me" in m:
+            inv = masses.inverse_mass_tensor_2d_from_scalar(np.array([m["isotropic_me"]]))[0]
+        elif "principal_me" in m:
+            m1, m2 = m["principal_me"]
+            inv = masses.inverse_mass_tensor_2d_from_principal(
+                np.array([m1]), np.array([m2]), np.array([m.get("angle_deg", 0.0)]))[0]
+        else:
+            inv = masses.inverse_mass_tensor_2d_from_tensor(np.array([m["tensor_me"]], dtype=float))[0]
+        return inv, {"mass_source": "given", "mass_fit_rms_ev": math.nan, "mass_nonparabolic": False}
+    samples = valley["band_samples"]
+    k = np.asarray(samples["k_per_angstrom"], dtype=float)
+    e = np.asarray(samples["energy_ev"], dtype=float)
+    try:
+        fit = bandfit.fit_effective_mass(k, e, valley["band"],
+                                         fix_k0=bool(samples.get("extremum_at_origin", False)))
+    except bandfit.MassFitError as exc:
+        raise Rejected([Problem(f"{path}.band_samples", f"mass fit failed: {exc}")]) from exc
+    if fit.nonparabolic:
+        warnings.append(f"{path}: band samples show a notable non-parabolic (quartic) term; "
+                        "the fitted mass describes the band bottom only")
+    return np.asarray(fit.inverse_mass_tensor, dtype=float), {
+        "mass_source": "fitted", "mass_fit_rms_ev": float(fit.rms_residual_ev),
+        "mass_nonparabolic": bool(fit.nonparabolic)}
+
+
+def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: int,
+              geometry: LayerGeometry | None, structure_hash: str | None,
+              non_layered: str, reconcile_rel_tol: float) -> NormalizedRecord:
+    """Flatten a contract-valid record; raise :class:`Rejected` when it cannot be screened."""
+    warnings: list[str] = []
+    ident = record["id"]
+
+    if geometry is not None and not geometry.is_layered:
+        reason = (f"structure {record['structure_file']!r} shows no 2D-bonded layers "
+                  f"(dimensionality {geometry.dimensionality})")
+        if non_layered == "reject":
+            raise Rejected([Problem("structure_file", reason)])
+        warnings.append(reason)
+    if geometry is not None:
+        warnings.extend(f"structure: {w}" for w in geometry.warnings)
+
+    spacing = record.get("layer_spacing_angstrom")
+    lattice = record.get("inplane_lattice_angstrom")
+    spacing_source = "record" if spacing is not None else None
+    lattice_source = "record" if lattice is not None else None
+    if geometry is not None:
+        if spacing is None and geometry.repeat_distance_angstrom:
+            spacing, spacing_source = geometry.repeat_distance_angstrom, "structure"
+        if lattice is None and geometry.inplane_lattice_angstrom:
+            lattice, lattice_source = geometry.inplane_lattice_angstrom, "structure"
+        for name, given, derived in (("layer_spacing_angstrom", record.get("layer_spacing_angstrom"),
+                                      geometry.repeat_distance_angstrom),
+                                     ("inplane_lattice_angstrom", record.get("inplane_lattice_angstrom"),
+                                      geometry.inplane_lattice_angstrom)):
+            if given is not None and derived and abs(given - derived) > reconcile_rel_tol * derived:
+                warnings.append(f"{name}: record gives {given:.3f} A, structure gives {derived:.3f} A "
+                                f"(beyond {reconcile_rel_tol:.0%}); the record's value is used")
+    missing = [Problem(name, "not given and not derivable from the structure")
+               for name, value in (("layer_spacing_angstrom", spacing), ("inplane_lattice_angstrom", lattice))
+               if value is None]
+    if missing:
+        raise Rejected(missing)
+
+    normal, normal_source = _normal(record, geometry, warnings)
+    diel = record["dielectric"]
+    eps_inf = np.asarray(diel["electronic"], dtype=float)
+    eps_0 = np.asarray(diel["static"], dtype=float) if "static" in diel else None
+    if diel["frame"] == "crystal":
+        eps_inf = dielectric.to_layer_frame(eps_inf[None], normal[None])[0]
+        eps_0 = None if eps_0 is None else dielectric.to_layer_frame(eps_0[None], normal[None])[0]
+
+    screening = record.get("monolayer_screening", {})
+    if "screening_length_angstrom" in screening:
+        r0, r0_source = screening["screening_length_angstrom"], "record r0"
+    elif "polarizability_2d_angstrom" in screening:
+        r0, r0_source = 2.0 * math.pi * screening["polarizability_2d_angstrom"], "record alpha_2D"
+    else:
+        r0, r0_source = math.nan, "bulk estimate"
+
+    entry = {
+        "entry_id": ident,
+        "source_file": source_file,
+        "input_hash": input_hash,
+        "formula": record.get("formula", ""),
+        "provenance": record.get("provenance", ""),
+        "energy_reference": record["energy_reference"],
+        "structure_file": record.get("structure_file", ""),
+        "structure_hash": structure_hash or "",
+        "dielectric_frame": diel["frame"],
+        "normal_x": float(normal[0]), "normal_y": float(normal[1]), "normal_z": float(normal[2]),
+        "normal_source": normal_source,
+        **_tensor_columns("eps_inf", eps_inf),
+        **_tensor_columns("eps_static", eps_0),
+        "eps_rel_unc": float(diel.get("relative_uncertainty", math.nan)),
+        "spacing_angstrom": float(spacing),
+        "spacing_source": spacing_source,
+        "lattice_angstrom": float(lattice),
+        "lattice_source": lattice_source,
+        "is_layered_structure": None if geometry is None else bool(geometry.is_layered),
+        "vdw_gap_angstrom": math.nan if geometry is None or geometry.vdw_gap_angstrom is None
+        else float(geometry.vdw_gap_angstrom),
+        "r0_given_angstrom": float(r0),
+        "r0_source": r0_source,
+        "r0_rel_unc": float(screening.get("relative_uncertainty", math.nan)),
+        "scissor_ev": float(record.get("scissor_ev", 0.0)),
+        "scissor_unc_ev": float(record.get("scissor_uncertainty_ev", math.nan)),
+    }
+
+    valleys = []
+    for i, valley in enumerate(record["valleys"]):
+        path = f"valleys[{i}]"
+        inv, fit_info = _inverse_mass(valley, path, warnings)
+        mass = valley.get("mass", {})
+        ignored = [k for k in valley["edge_ev"] if k != "bulk" and int(k) > max_layers]
+        if ignored:
+            warnings.append(f"{path}.edge_ev: layer counts {', '.join(ignored)} exceed max_layers and are not used")
+        row = {
+            "entry_id": ident,
+            "valley_index": i,
+            "input_hash": input_hash,
+            "label": valley["label"],
+            "band": valley["band"],
+            **{edge_column(n): float(valley["edge_ev"].get(str(n), math.nan)) for n in range(1, max_layers + 1)},
+            edge_column(0): float(valley["edge_ev"]["bulk"]),
+            "inv_mass_xx": float(inv[0, 0]), "inv_mass_xy": float(inv[0, 1]), "inv_mass_yy": float(inv[1, 1]),
+            "mass_perp_me": float(mass.get("perpendicular_me", math.nan)),
+            **fit_info,
+            "mass_rel_unc": float(mass.get("relative_uncertainty", math.nan)),
+            "edge_unc_ev": float(valley.get("edge_uncertainty_ev", math.nan)),
+        }
+        valleys.append(row)
+    entry["warnings"] = " | ".join(warnings)
+    return NormalizedRecord(entry, valleys, warnings)
+
+
+ENTRY_COLUMNS = [
+    "entry_id", "source_file", "input_hash", "formula", "provenance", "energy_reference",
+    "structure_file", "structure_hash", "dielectric_frame", "normal_x", "normal_y", "normal_z",
+    "normal_source", *[f"eps_inf_{c}" for c, _, _ in TENSOR_COMPONENTS],
+    *[f"eps_static_{c}" for c, _, _ in TENSOR_COMPONENTS], "eps_rel_unc", "spacing_angstrom",
+    "spacing_source", "lattice_angstrom", "lattice_source", "is_layered_structure", "vdw_gap_angstrom",
+    "r0_given_angstrom", "r0_source", "r0_rel_unc", "scissor_ev", "scissor_unc_ev", "warnings",
+]
+
+
+def valley_columns(max_layers: int) -> list[str]:
+    """Columns of the valley table for a screen of 1..max_layers layers plus bulk."""
+    return ["entry_id", "valley_index", "input_hash", "label", "band",
+            *[edge_column(n) for n in range(1, max_layers + 1)], edge_column(0),
+            "inv_mass_xx", "inv_mass_xy", "inv_mass_yy", "mass_perp_me", "mass_source",
+            "mass_fit_rms_ev", "mass_nonparabolic", "mass_rel_unc", "edge_unc_ev"]

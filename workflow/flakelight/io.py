@@ -1,0 +1,244 @@
+"""File formats: JSON records, CIF text, Parquet tables with units, manifests.
+
+This is the only library module that touches the file system. Everything it
+returns is plain Python, numpy or pandas, ready for the physics modules.
+Writes are atomic (temporary file plus rename) so an interrupted run never
+leaves a partial table behind.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Mapping
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+#: Records larger than this are rejected before parsing (bytes).
+MAX_RECORD_BYTES = 2_000_000
+#: Structures larger than this are rejected before parsing (bytes).
+MAX_CIF_BYTES = 5_000_000
+
+LIBRARY_DIR = Path(__file__).resolve().parent
+SCHEMA_DIR = LIBRARY_DIR.parent / "schemas"
+
+
+@dataclass(frozen=True)
+class RawRecord:
+    """A record file as read: its bytes' hash and either the parsed object or a reason."""
+
+    path: str
+    sha256: str
+    data: Any = None
+    error: str | None = None
+
+
+def sha256_bytes(data: bytes) -> str:
+    """Hex SHA-256 of a byte string."""
+    return hashlib.sha256(data).hexdigest()
+
+
+def sha256_file(path: str | os.PathLike) -> str:
+    """Hex SHA-256 of a file's bytes."""
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def canonical_json_hash(obj: Any) -> str:
+    """Hex SHA-256 of a JSON-serialisable object with sorted keys (for config hashes)."""
+    text = json.dumps(obj, sort_keys=True, separators=(",", ":"), default=str)
+    return sha256_bytes(text.encode("utf-8"))
+
+
+def _reject_constant(name: str) -> float:
+    raise ValueError(f"non-finite number '{name}' is not allowed")
+
+
+def read_record(path: str | os.PathLike) -> RawRecord:
+    """Read and parse one JSON record file, never raising for bad content.
+
+    Empty, oversized, non-UTF-8, syntactically broken files and non-finite
+    numbers (NaN, Infinity) come back with ``error`` set to a reason.
+    """
+    path = str(path)
+    try:
+        size = os.path.getsize(path)
+        if size > MAX_RECORD_BYTES:
+            with open(path, "rb") as fh:
+                head = fh.read(65536)
+            return RawRecord(path, sha256_bytes(head + str(size).encode()),
+                             error=f"file is {size} bytes, larger than the {MAX_RECORD_BYTES}-byte limit")
+        with open(path, "rb") as fh:
+            raw = fh.read()
+    except OSError as exc:
+        return RawRecord(path, "", error=f"cannot read file: {exc.strerror or exc}")
+    digest = sha256_bytes(raw)
+    if not raw.strip():
+        return RawRecord(path, digest, error="file is empty")
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        return RawRecord(path, digest, error=f"not UTF-8 text (byte {exc.start}: {exc.reason})")
+    if text.startswith("\ufeff"):
+        text = text[1:]
+    try:
+        data = json.loads(text, parse_constant=_reject_constant)
+    except json.JSONDecodeError as exc:
+        return RawRecord(path, digest, error=f"invalid JSON at line {exc.lineno} column {exc.colno}: {exc.msg}")
+    except (ValueError, RecursionError) as exc:
+        return RawRecord(path, digest, error=f"invalid JSON: {exc}")
+    return RawRecord(path, digest, data=data)
+
+
+def read_text_limited(path: str | os.PathLike, limit: int = MAX_CIF_BYTES) -> tuple[bytes | None, str | None]:
+    """Bytes of a file, or a reason when it is missing, unreadable or too large."""
+    try:
+        size = os.path.getsize(path)
+    except OSError:
+        return None, "file not found"
+    if size > limit:
+        return None, f"file is {size} bytes, larger than the {limit}-byte limit"
+    try:
+        with open(path, "rb") as fh:
+            return fh.read(), None
+    except OSError as exc:
+        return None, f"cannot read file: {exc.strerror or exc}"
+
+
+def load_schema(name: str) -> dict:
+    """Load a JSON schema shipped in workflow/schemas by file name."""
+    with open(SCHEMA_DIR / name, encoding="utf-8") as fh:
+        return json.load(fh)
+
+
+def library_digest(modules: list[str] | None = None) -> str:
+    """Short content hash of the library sources (all modules, or the named ones).
+
+    Used as the code version of every result row and as part of cache keys, so
+    a change of the physics code invalidates cached results.
+    """
+    names = sorted(modules) if modules else sorted(p.name for p in LIBRARY_DIR.glob("*.py"))
+    h = hashlib.sha256()
+    for name in names:
+        h.update(name.encode())
+        h.update((LIBRARY_DIR / name).read_bytes())
+    return h.hexdigest()[:16]
+
+
+def _atomic_target(path: str | os.PathLike) -> tuple[Path, str]:
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    os.close(fd)
+    return path, tmp
+
+
+def write_parquet(frame: pd.DataFrame, path: str | os.PathLike,
+                  units: Mapping[str, str] | None = None,
+                  descriptions: Mapping[str, str] | None = None,
+                  table_metadata: Mapping[str, str] | None = None) -> None:
+    """Write a DataFrame to Parquet atomically, units and descriptions in Arrow field metadata."""
+    units = units or {}
+    descriptions = descriptions or {}
+    table = pa.Table.from_pandas(frame, preserve_index=False)
+    fields = []
+    for field in table.schema:
+        meta = dict(field.metadata or {})
+        if field.name in units:
+            meta[b"unit"] = units[field.name].encode()
+        if field.name in descriptions:
+            meta[b"description"] = descriptions[field.name].encode()
+        fields.append(field.with_metadata(meta) if meta else field)
+    schema_meta = dict(table.schema.metadata or {})
+    for key, value in (table_metadata or {}).items():
+        schema_meta[key.encode()] = str(value).encode()
+    table = table.cast(pa.schema(fields, metadata=schema_meta))
+    target, tmp = _atomic_target(path)
+    try:
+        pq.write_table(table, tmp, compression="zstd")
+        os.replace(tmp, target)
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+
+
+def read_parquet(path: str | os.PathLike) -> pd.DataFrame:
+    """Read a Parquet table into pandas."""
+    return pd.read_parquet(path)
+
+
+def parquet_units(path: str | os.PathLike) -> dict[str, str]:
+    """The unit of every field that carries one, from the Arrow field metadata."""
+    schema = pq.read_schema(path)
+    return {f.name: f.metadata[b"unit"].decode() for f in schema
+            if f.metadata and b"unit" in f.metadata}
+
+
+def write_text(text: str, path: str | os.PathLike) -> None:
+    """Write text atomically (UTF-8)."""
+    target, tmp = _atomic_target(path)
+    try:
+        with open(tmp, "w", encoding="utf-8") as fh:
+            fh.write(text)
+        os.replace(tmp, target)
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+
+
+def _json_default(obj: Any) -> Any:
+    if isinstance(obj, (np.integer,)):
+        return int(obj)
+    if isinstance(obj, (np.floating,)):
+        value = float(obj)
+        return value if math.isfinite(value) else None
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    if isinstance(obj, Path):
+        return str(obj)
+    raise TypeError(f"not JSON serialisable: {type(obj).__name__}")
+
+
+def write_json(obj: Any, path: str | os.PathLike) -> None:
+    """Write an object as indented JSON atomically."""
+    write_text(json.dumps(obj, indent=2, sort_keys=True, default=_json_default) + "\n", path)
+
+
+def write_csv(frame: pd.DataFrame, path: str | os.PathLike) -> None:
+    """Write a CSV table atomically."""
+    target, tmp = _atomic_target(path)
+    try:
+        frame.to_csv(tmp, index=False)
+        os.replace(tmp, target)
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+
+
+def save_arrays(arrays: Mapping[str, np.ndarray], path: str | os.PathLike) -> None:
+    """Save named numpy arrays to an .npz file atomically."""
+    target, tmp = _atomic_target(path)
+    try:
+        with open(tmp, "wb") as fh:
+            np.savez(fh, **arrays)
+        os.replace(tmp, target)
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+
+
+def load_arrays(path: str | os.PathLike) -> dict[str, np.ndarray]:
+    """Load named numpy arrays from an .npz file."""
+    with np.load(path, allow_pickle=False) as data:
+        return {key: data[key] for key in data.files}

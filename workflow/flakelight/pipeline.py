@@ -1,0 +1,328 @@
+"""Orchestration of the workflow stages: files in, tables out.
+
+This layer sits between the Snakemake adapters (workflow/scripts) and the
+library: it reads files through :mod:`flakelight.io`, keeps the per-record
+result cache, calls the pure modules and writes tables. It holds no physics.
+
+Per-record cache
+----------------
+A shard job re-runs when any of its records changes. To keep that cheap, every
+result row carries ``input_hash`` (record bytes plus its CIF bytes),
+``physics_hash`` (the physics settings) and ``code_version`` (the library
+sources). After a shard finishes, its tables are copied to a cache folder; the
+next run of the shard reuses the rows whose three stamps still match and
+recomputes only the rest. Changing the code or a physics setting changes the
+stamps, so nothing stale is ever reused.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import logging
+import os
+from pathlib import Path
+from typing import Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+
+from flakelight import contract, ingest, io, screen, structure
+from flakelight.keldysh import KeldyshTable
+
+log = logging.getLogger("flakelight")
+
+SHARD_TABLES = ("entries", "valleys", "rejects", "long", "wide")
+
+REJECT_COLUMNS = ["entry_id", "source_file", "field", "reason", "stage",
+                  "input_hash", "physics_hash", "code_version"]
+
+
+def _empty_rejects() -> pd.DataFrame:
+    return pd.DataFrame({c: pd.Series(dtype="string") for c in REJECT_COLUMNS})
+
+
+def _reject_rows(stem: str, source: str, problems: Sequence[contract.Problem], stage: str,
+                 input_hash: str, stamps: Mapping[str, str]) -> list[dict]:
+    return [{"entry_id": stem, "source_file": source, "field": p.field, "reason": p.reason,
+             "stage": stage, "input_hash": input_hash, **stamps} for p in problems]
+
+
+def _load_cache(cache_dir: Path, stamps: Mapping[str, str]) -> dict[str, pd.DataFrame]:
+    """Cached shard tables restricted to rows computed with the current stamps."""
+    out = {}
+    for name in SHARD_TABLES:
+        path = cache_dir / f"{name}.parquet"
+        if not path.exists():
+            return {}
+        try:
+            frame = io.read_parquet(path)
+        except Exception as exc:  # a damaged cache is ignored, never trusted
+            log.warning("ignoring unreadable cache %s: %s", path, exc)
+            return {}
+        if len(frame):
+            keep = (frame["physics_hash"] == stamps["physics_hash"]) & (frame["code_version"] == stamps["code_version"])
+            frame = frame[keep]
+        out[name] = frame
+    return out
+
+
+def _structure_geometry(cif_bytes: bytes, cif_hash: str, memo: dict) -> tuple[object, str | None]:
+    if cif_hash not in memo:
+        try:
+            memo[cif_hash] = (structure.analyse_cif_text(cif_bytes), None)
+        except structure.StructureError as exc:
+            memo[cif_hash] = (None, str(exc))
+    return memo[cif_hash]
+
+
+def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, table_path: str,
+              cache_dir: str, outputs: Mapping[str, str]) -> dict[str, int]:
+    """Validate, normalise and screen the records of one shard; write its tables.
+
+    Parameters
+    ----------
+    entry_paths : record files of this shard.
+    campaign : campaign folder (its structures/ holds the CIFs).
+    settings : the physics config sections (see workflow/rules/common.smk).
+    table_path : Keldysh table (.npz) built by the keldysh_table rule.
+    cache_dir : folder of this shard's per-record cache.
+    outputs : paths for 'entries', 'valleys', 'rejects', 'long', 'wide'.
+
+    Returns counts of screened, rejected and reused records.
+    """
+    stamps = {"physics_hash": io.canonical_json_hash(dict(settings))[:16],
+              "code_version": io.library_digest()}
+    max_layers = settings["layers"]["max_layers"]
+    structures_dir = Path(campaign) / "structures"
+    checker = contract.RecordChecker(io.load_schema("entry.schema.json"))
+    cache = _load_cache(Path(cache_dir), stamps)
+    cached_hashes = set()
+    if cache:
+        cached_hashes = set(cache["entries"]["input_hash"]) | set(cache["rejects"]["input_hash"])
+
+    reused: set[str] = set()
+    new_entries, new_valleys, reject_rows = [], [], []
+    seen: dict[str, str] = {}
+    memo: dict = {}
+    for path in sorted(entry_paths):
+        stem = Path(path).stem
+        source = os.path.basename(path)
+        raw = io.read_record(path)
+        cif_bytes, cif_hash = None, ""
+        if raw.error is None and isinstance(raw.data, dict) and isinstance(raw.data.get("structure_file"), str):
+            name = raw.data["structure_file"]
+            if "/" not in name and "\\" not in name and not name.startswith("."):
+                cif_bytes, _ = io.read_text_limited(structures_dir / name)
+                if cif_bytes is not None:
+                    cif_hash = io.sha256_bytes(cif_bytes)
+        input_hash = io.sha256_bytes((raw.sha256 + cif_hash).encode())[:32]
+
+        key = stem.casefold()
+        if key in seen:
+            reject_rows += _reject_rows(stem, source, [contract.Problem(
+                "id", f"duplicate identifier: {seen[key]!r} already names a record (identifiers are "
+                      "compared without regard to case)")], "duplicate", input_hash, stamps)
+            continue
+        seen[key] = stem
+        if input_hash in cached_hashes:
+            reused.add(input_hash)
+            continue
+        if raw.error is not None:
+            reject_rows += _reject_rows(stem, source, [contract.Problem("(file)", raw.error)], "read",
+                                        input_hash, stamps)
+            continue
+        problems = checker.check(raw.data, stem=stem,
+                                 structure_exists=lambda n: (structures_dir / n).is_file()
+                                 and "/" not in n and not n.startswith("."))
+        if problems:
+            reject_rows += _reject_rows(stem, source, problems, "contract", input_hash, stamps)
+            continue
+        geometry = None
+        if cif_bytes is not None:
+            geometry, error = _structure_geometry(cif_bytes, cif_hash, memo)
+            if error:
+                reject_rows += _reject_rows(stem, source, [contract.Problem(
+                    "structure_file", f"{raw.data['structure_file']}: {error}")], "structure", input_hash, stamps)
+                continue
+        try:
+            norm = ingest.normalize(raw.data, source_file=source, input_hash=input_hash, max_layers=max_layers,
+                                    geometry=geometry, structure_hash=cif_hash or None,
+                                    non_layered=settings["structure"]["non_layered"],
+                                    reconcile_rel_tol=settings["structure"]["reconcile_rel_tol"])
+        except ingest.Rejected as exc:
+            reject_rows += _reject_rows(stem, source, exc.problems, "normalise", input_hash, stamps)
+            continue
+        new_entries.append({**norm.entry, **stamps})
+        new_valleys.extend({**v, **stamps} for v in norm.valleys)
+
+    entries_new = pd.DataFrame(new_entries, columns=ingest.ENTRY_COLUMNS + list(stamps))
+    valleys_new = pd.DataFrame(new_valleys, columns=ingest.valley_columns(max_layers) + list(stamps))
+    table = KeldyshTable.from_arrays(io.load_arrays(table_path))
+    long_new, wide_new = screen.screen_entries(entries_new, valleys_new, settings, table)
+    for frame in (long_new, wide_new):
+        frame["physics_hash"] = stamps["physics_hash"]
+        frame["code_version"] = stamps["code_version"]
+
+    def merged(name: str, fresh: pd.DataFrame) -> pd.DataFrame:
+        parts = [fresh]
+        if cache:
+            old = cache[name]
+            parts.append(old[old["input_hash"].isin(reused)])
+        parts = [p for p in parts if len(p)]
+        if not parts:
+            return fresh
+        frame = pd.concat(parts, ignore_index=True) if len(parts) > 1 else parts[0]
+        order = [c for c in ("entry_id", "valley_index", "layers", "environment", "field") if c in frame.columns]
+        return frame.sort_values(order, kind="stable").reset_index(drop=True)
+
+    rejects_new = pd.DataFrame(reject_rows) if reject_rows else _empty_rejects()
+    tables = {
+        "entries": merged("entries", entries_new),
+        "valleys": merged("valleys", valleys_new),
+        "rejects": merged("rejects", rejects_new),
+        "long": merged("long", long_new),
+        "wide": merged("wide", wide_new),
+    }
+    for name, frame in tables.items():
+        io.write_parquet(frame, outputs[name], units=screen.units_for(frame.columns),
+                         descriptions=screen.DESCRIPTIONS, table_metadata=stamps)
+    cache_path = Path(cache_dir)
+    for name, frame in tables.items():
+        io.write_parquet(frame, cache_path / f"{name}.parquet", table_metadata=stamps)
+    counts = {"screened": int(len(tables["entries"])),
+              "rejected": int(tables["rejects"]["entry_id"].nunique()) if len(tables["rejects"]) else 0,
+              "reused": len(reused), "computed": len(new_entries)}
+    log.info("shard done: %s", counts)
+    return counts
+
+
+def start_log(path: str) -> None:
+    """Send logging and stderr of an adapter process to its Snakemake log file."""
+    import sys
+
+    Path(path).parent.mkdir(parents=True, exist_ok=True)
+    stream = open(path, "a", encoding="utf-8")  # noqa: SIM115 - lives as long as the process
+    sys.stderr = stream
+    logging.basicConfig(stream=stream, level=logging.INFO, force=True,
+                        format="%(asctime)s %(levelname)s %(message)s")
+    import warnings
+
+    logging.captureWarnings(True)
+    warnings.simplefilter("default")
+
+
+def build_keldysh_table(path: str) -> None:
+    """Compute the Rytova-Keldysh table with the accurate solver and save it."""
+    from flakelight import keldysh
+
+    table = keldysh.build_table()
+    io.save_arrays(table.to_arrays(), path)
+    log.info("Keldysh table written: %d grid points", len(table.to_arrays()["s"]) if "s" in table.to_arrays() else -1)
+
+
+def _concat(paths: Sequence[str]) -> pd.DataFrame:
+    frames = [io.read_parquet(p) for p in paths]
+    nonempty = [f for f in frames if len(f)]
+    if not nonempty:
+        return frames[0] if frames else pd.DataFrame()
+    return pd.concat(nonempty, ignore_index=True) if len(nonempty) > 1 else nonempty[0]
+
+
+def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], settings: Mapping,
+             config_hash: str) -> dict[str, int]:
+    """Combine shard tables, add survival columns, rank, write final tables and the shortlist."""
+    from flakelight import ranking
+
+    entries = _concat(inputs["entries"]).sort_values("entry_id", kind="stable").reset_index(drop=True)
+    valleys = _concat(inputs["valleys"])
+    rejects = _concat(inputs["rejects"])
+    long = _concat(inputs["long"])
+    wide = _concat(inputs["wide"]).sort_values("entry_id", kind="stable").reset_index(drop=True)
+    probabilities = _concat(inputs["uncertainty"]) if inputs.get("uncertainty") else None
+    if len(valleys):
+        valleys = valleys.sort_values(["entry_id", "valley_index"], kind="stable").reset_index(drop=True)
+    if len(rejects):
+        rejects = rejects.sort_values(["entry_id", "field"], kind="stable").reset_index(drop=True)
+    long = ranking.add_survival(long, wide, settings)
+    long = long.sort_values(["entry_id"], kind="stable").reset_index(drop=True)
+    ranked = ranking.rank(long, wide, settings, probabilities)
+    for frame in (long, ranked):
+        frame["config_hash"] = config_hash
+    units = {**screen.UNITS, **ranking.SURVIVAL_UNITS, **ranking.RANK_UNITS}
+    meta = {"config_hash": config_hash}
+    io.write_parquet(entries, outputs["entries"], table_metadata=meta)
+    io.write_parquet(valleys, outputs["valleys"], table_metadata=meta)
+    io.write_parquet(rejects, outputs["rejects"], table_metadata=meta)
+    io.write_csv(rejects, outputs["rejects_csv"])
+    io.write_parquet(long, outputs["long"], units={**screen.units_for(long.columns), **units},
+                     descriptions=screen.DESCRIPTIONS, table_metadata=meta)
+    io.write_parquet(ranked, outputs["wide"], units={**screen.units_for(ranked.columns), **units},
+                     descriptions=screen.DESCRIPTIONS, table_metadata=meta)
+    io.write_csv(ranking.shortlist(ranked, settings), outputs["shortlist"])
+    counts = {"screened": len(wide), "rejected": int(rejects["entry_id"].nunique()) if len(rejects) else 0,
+              "candidates": int(ranked["meets_all_criteria"].sum()) if len(ranked) else 0}
+    log.info("ranked: %s", counts)
+    return counts
+
+
+def package_versions() -> dict[str, str]:
+    """Versions of the packages the screen depends on."""
+    from importlib import metadata
+
+    out = {}
+    for name in ("snakemake", "numpy", "scipy", "pandas", "pyarrow", "pymatgen", "jsonschema", "PyYAML"):
+        try:
+            out[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            out[name] = "not installed"
+    import platform
+
+    out["python"] = platform.python_version()
+    return out
+
+
+def git_version(workdir: str) -> str:
+    """``git describe`` of the workflow checkout, or 'unknown' outside git."""
+    import subprocess
+
+    try:
+        res = subprocess.run(["git", "-C", workdir, "describe", "--always", "--dirty", "--tags"],
+                             capture_output=True, text=True, timeout=10, check=False)
+    except (OSError, subprocess.SubprocessError):
+        return "unknown"
+    return res.stdout.strip() or "unknown"
+
+
+def write_manifest(entry_paths: Sequence[str], structure_paths: Sequence[str], wide_path: str,
+                   config: Mapping, config_hash: str, workdir: str, output: str) -> None:
+    """Run manifest: input hashes, config and its hash, code version, package versions, counts."""
+    import datetime
+
+    wide = io.read_parquet(wide_path)
+    manifest = {
+        "tool": "flakelight",
+        "written_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
+        "code_version": io.library_digest(),
+        "git": git_version(workdir),
+        "config_hash": config_hash,
+        "config": dict(config),
+        "packages": package_versions(),
+        "inputs": {
+            "entries": {os.path.basename(p): io.sha256_file(p) for p in entry_paths},
+            "structures": {os.path.basename(p): io.sha256_file(p) for p in structure_paths},
+        },
+        "counts": {"records": len(entry_paths), "screened": len(wide),
+                   "candidates": int(wide["meets_all_criteria"].sum()) if len(wide) else 0},
+        "cautions": CAUTIONS,
+    }
+    io.write_json(manifest, output)
+
+
+#: Cautions shown with every output handed to experimental teams.
+CAUTIONS = [
+    "All numbers are model estimates from first-principles inputs, not measurements.",
+    "Binding energies carry the uncertainty of the masses, dielectric constants and screening model; "
+    "treat differences below about 20 % as not significant.",
+    "Follow your local laboratory safety rules when preparing samples, handling chemicals and using lasers; "
+    "these results do not replace a licensed safety assessment.",
+]

@@ -1,0 +1,203 @@
+"""Do excitons survive? Thermal ionisation (2D Saha), Mott density, Wannier validity.
+
+Energies in eV, temperatures in K, areal densities in cm^-2, lengths in
+Angstrom, masses in m_e. All functions are pure and broadcast over compounds
+(and over configured temperatures/densities).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from flakelight.units import (
+    HBAR2_OVER_2ME_EV_A2,
+    PER_CM2_TO_PER_ANGSTROM2,
+    thermal_energy_ev,
+)
+
+__all__ = [
+    "thermal_energy_ev",
+    "binding_over_kt",
+    "saha_constant_2d_per_cm2",
+    "bound_fraction_2d",
+    "mott_density_2d_per_cm2",
+    "is_wannier",
+]
+
+
+def binding_over_kt(eb_ev, temperature_k):
+    """Ratio E_b / (k_B T) (dimensionless; +inf at T = 0 for E_b > 0).
+
+    Parameters
+    ----------
+    eb_ev : array_like
+        Exciton binding energy in eV.
+    temperature_k : array_like
+        Temperature in K.
+
+    Returns
+    -------
+    numpy.ndarray
+
+    References
+    ----------
+    k_B from CODATA via :mod:`flakelight.units`.
+    """
+    with np.errstate(divide="ignore"):
+        return np.asarray(eb_ev, dtype=float) / thermal_energy_ev(np.asarray(temperature_k, dtype=float))
+
+
+def saha_constant_2d_per_cm2(eb_ev, mu_me, temperature_k):
+    """Right-hand side of the 2D Saha equation, S = (mu k T / (2 pi hbar^2)) exp(-E_b / kT), cm^-2.
+
+    Law of mass action n_e n_h / n_X = S for non-degenerate (Boltzmann)
+    electrons, holes and excitons in 2D, in equilibrium at temperature T.
+    Degeneracy assumption: the spin/valley degeneracy of the exciton equals the
+    product of electron and hole degeneracies (g_X = g_e g_h, every pair state
+    has an exciton partner, bright or dark), so the degeneracy factors cancel;
+    only the ground exciton level is counted. The mass factor
+    m_e m_h / (m_e + m_h) is the reduced mass mu; for anisotropic bands use
+    the density-of-states (geometric-mean) mass, as returned by
+    :func:`flakelight.masses.inplane_average_mass_me`.
+
+    Parameters
+    ----------
+    eb_ev : array_like
+        Binding energy in eV.
+    mu_me : array_like
+        Reduced (density-of-states) mass in m_e.
+    temperature_k : array_like
+        Temperature in K.
+
+    Returns
+    -------
+    numpy.ndarray
+        S in cm^-2 (0 at T = 0).
+
+    References
+    ----------
+    M. N. Saha, Phil. Mag. 40, 472 (1920); for 2D electron-hole plasmas e.g.
+    H. Haug and S. W. Koch, *Quantum Theory of the Optical and Electronic
+    Properties of Semiconductors* (World Scientific), ionisation equilibrium.
+    """
+    kt = thermal_energy_ev(np.asarray(temperature_k, dtype=float))
+    mu = np.asarray(mu_me, dtype=float)
+    # mu m_e kT / (2 pi hbar^2) = mu kT / (4 pi hbar^2/(2 m_e)), in Angstrom^-2
+    pref = mu * kt / (4.0 * np.pi * HBAR2_OVER_2ME_EV_A2) / PER_CM2_TO_PER_ANGSTROM2
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        return pref * np.exp(-np.asarray(eb_ev, dtype=float) / kt)
+
+
+def _log_saha_ratio(eb_ev, mu_me, temperature_k, density_per_cm2):
+    """log(n / S) computed without forming S (safe for E_b >> kT and T -> 0)."""
+    kt = thermal_energy_ev(np.asarray(temperature_k, dtype=float))
+    mu = np.asarray(mu_me, dtype=float)
+    n = np.asarray(density_per_cm2, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_pref = np.log(mu * kt / (4.0 * np.pi * HBAR2_OVER_2ME_EV_A2) / PER_CM2_TO_PER_ANGSTROM2)
+        return np.log(n) - log_pref + np.asarray(eb_ev, dtype=float) / kt
+
+
+def bound_fraction_2d(eb_ev, mu_me, temperature_k, density_per_cm2):
+    """Fraction of electron-hole pairs bound as excitons, from the 2D Saha equation.
+
+    With total pair density n (conserved), n_X = x n and n_e = n_h = (1 - x) n:
+    n (1 - x)^2 = S x. With r = n / S and s = sqrt(1 + 4 r), the root in [0, 1] is
+
+        x = 4 r / (1 + s)^2          (r <= 1)
+        x = 4 / (e^{-L/2} + sqrt(e^{-L} + 4))^2,  L = ln r   (r > 1),
+
+    both free of cancellation; L is formed in logarithms, so E_b/kT of
+    thousands (or T = 0) gives x = 1 without overflow.
+
+    Parameters
+    ----------
+    eb_ev : array_like
+        Exciton binding energy in eV.
+    mu_me : array_like
+        Reduced (density-of-states) mass in m_e.
+    temperature_k : array_like
+        Temperature in K (>= 0).
+    density_per_cm2 : array_like
+        Total electron-hole pair density in cm^-2 (> 0).
+
+    Returns
+    -------
+    numpy.ndarray
+        Bound fraction in [0, 1] (1 at T = 0 for E_b > 0).
+
+    References
+    ----------
+    Saha ionisation equilibrium, see :func:`saha_constant_2d_per_cm2`.
+    """
+    L = _log_saha_ratio(eb_ev, mu_me, temperature_k, density_per_cm2)
+    with np.errstate(over="ignore", invalid="ignore"):
+        r = np.exp(np.minimum(L, 0.0))
+        low = 4.0 * r / (1.0 + np.sqrt(1.0 + 4.0 * r)) ** 2
+        em = np.exp(-np.maximum(L, 0.0))
+        high = 4.0 / (np.sqrt(em) + np.sqrt(em + 4.0)) ** 2
+    return np.where(L <= 0.0, low, high)
+
+
+def mott_density_2d_per_cm2(radius_angstrom, prefactor=1.0):
+    """2D Mott density estimate n_Mott = prefactor / (pi a_B^2), in cm^-2.
+
+    Criterion: excitons overlap (and screening/phase-space filling dissolve
+    them) when each occupies its own disc of radius a_B, i.e. n pi a_B^2 ~ 1.
+    This is an order-of-magnitude estimate (common practice); published
+    criteria differ by factors of a few, which ``prefactor`` absorbs. Pass the
+    radius of the model actually used (e.g. the 2D 1s decay length of
+    :func:`flakelight.hydrogenic.bohr_radius_2d_angstrom`).
+
+    Parameters
+    ----------
+    radius_angstrom : array_like
+        Exciton radius in Angstrom.
+    prefactor : float or array_like, optional
+        Dimensionless prefactor (default 1).
+
+    Returns
+    -------
+    numpy.ndarray
+        Density in cm^-2.
+
+    References
+    ----------
+    N. F. Mott, *Metal-Insulator Transitions* (Taylor & Francis, 1974) (the
+    overlap criterion); the 2D disc form is common practice.
+    """
+    a = np.asarray(radius_angstrom, dtype=float)
+    per_a2 = np.asarray(prefactor, dtype=float) / (np.pi * a * a)
+    return per_a2 / PER_CM2_TO_PER_ANGSTROM2
+
+
+def is_wannier(radius_angstrom, lattice_constant_angstrom, threshold=2.0):
+    """Whether the effective-mass (Wannier-Mott) picture is self-consistent.
+
+    True where radius > threshold * lattice constant: the envelope must extend
+    over several unit cells for continuum effective masses and a macroscopic
+    dielectric constant to apply. The default threshold 2 is a choice (common
+    practice uses "several" lattice constants); NaN inputs give False.
+
+    Parameters
+    ----------
+    radius_angstrom : array_like
+        Exciton radius in Angstrom (in-plane, for layered compounds).
+    lattice_constant_angstrom : array_like
+        In-plane lattice constant in Angstrom.
+    threshold : float, optional
+        Required ratio radius / lattice constant.
+
+    Returns
+    -------
+    numpy.ndarray of bool
+
+    References
+    ----------
+    G. H. Wannier, Phys. Rev. 52, 191 (1937); R. S. Knox, *Theory of Excitons*
+    (1963), ch. 2 (validity of the effective-mass exciton).
+    """
+    r = np.asarray(radius_angstrom, dtype=float)
+    a = np.asarray(lattice_constant_angstrom, dtype=float)
+    with np.errstate(invalid="ignore"):
+        return r > threshold * a

@@ -1,0 +1,17 @@
+# Stage 0: the Rytova-Keldysh reduced binding table, built once and cached.
+
+
+rule keldysh_table:
+    input:
+        code=library_files("keldysh"),
+    output:
+        "results/cache/keldysh_table.npz",
+    log:
+        "results/logs/keldysh_table/keldysh_table.log",
+    benchmark:
+        "results/benchmarks/keldysh_table/keldysh_table.tsv"
+    threads: 1
+    conda:
+        "../../envs/flakelight.yaml"
+    script:
+        "../scripts/keldysh_table.py"

@@ -1,0 +1,26 @@
+# Stage 3: the HTML summary for experimental teams and the run-to-run change report.
+
+
+localrules:
+    write_summary,
+
+
+rule write_summary:
+    input:
+        long=rules.rank_candidates.output.long,
+        wide=rules.rank_candidates.output.wide,
+        rejects=rules.rank_candidates.output.rejects,
+        manifest=rules.write_manifest.output[0],
+        code=library_files("report", "ranking"),
+    output:
+        html="results/summary.html",
+        changes="results/tables/changes.parquet",
+    params:
+        settings=config,
+        history="results/history",
+    log:
+        "results/logs/write_summary/write_summary.log",
+    conda:
+        "../../envs/flakelight.yaml"
+    script:
+        "../scripts/write_summary.py"

@@ -1,0 +1,14 @@
+"""Adapter of rule rank_candidates: combine shards, add survival, rank, shortlist."""
+import sys
+from pathlib import Path
+
+sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
+from flakelight import pipeline  # noqa: E402
+
+pipeline.start_log(snakemake.log[0])  # noqa: F821
+pipeline.run_rank(
+    inputs={k: list(v) for k, v in snakemake.input.items() if k != "code"},  # noqa: F821
+    outputs=dict(snakemake.output.items()),  # noqa: F821
+    settings=snakemake.params.settings,  # noqa: F821
+    config_hash=snakemake.params.config_hash,  # noqa: F821
+)

@@ -1,0 +1,17 @@
+"""Adapter of rule write_manifest: record what this run was made from."""
+import sys
+from pathlib import Path
+
+sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
+from flakelight import pipeline  # noqa: E402
+
+pipeline.start_log(snakemake.log[0])  # noqa: F821
+pipeline.write_manifest(
+    entry_paths=list(snakemake.input.entries),  # noqa: F821
+    structure_paths=list(snakemake.input.structures),  # noqa: F821
+    wide_path=snakemake.input.tables,  # noqa: F821
+    config=snakemake.params.config,  # noqa: F821
+    config_hash=snakemake.params.config_hash,  # noqa: F821
+    workdir=snakemake.params.workdir,  # noqa: F821
+    output=snakemake.output[0],  # noqa: F821
+)
