@@ -16,16 +16,14 @@ from typing import Any, Callable, Iterable
 import numpy as np
 from jsonschema import Draft202012Validator
 
-#: Masses outside this window (m_e) are treated as input errors, not physics.
-MASS_RANGE_ME = (1e-3, 100.0)
+from flakelight import dielectric, masses
+
 #: Electronic dielectric constants above this are treated as input errors.
 MAX_ELECTRONIC_EPS = 200.0
 #: Static dielectric constants above this are treated as input errors.
 MAX_STATIC_EPS = 1e5
 #: Band-edge energies beyond this magnitude (eV) are treated as input errors.
 MAX_ABS_EDGE_EV = 100.0
-#: Relative asymmetry allowed in a dielectric tensor, |e_ij - e_ji| / max|e|.
-SYMMETRY_TOL = 1e-3
 #: Plausible geometry windows (Angstrom).
 SPACING_RANGE_ANGSTROM = (1.0, 60.0)
 LATTICE_RANGE_ANGSTROM = (1.0, 100.0)
@@ -104,33 +102,22 @@ def _finite(value: float) -> bool:
 
 
 def tensor_problems(tensor: list[list[float]], *, max_eps: float) -> list[str]:
-    """Reasons a 3x3 dielectric tensor is unusable: non-finite, asymmetric, not >= 1, absurd."""
-    arr = np.asarray(tensor, dtype=float)
-    if not np.all(np.isfinite(arr)):
-        return ["contains a non-finite component"]
-    scale = float(np.max(np.abs(arr))) or 1.0
-    if np.max(np.abs(arr - arr.T)) > SYMMETRY_TOL * scale:
-        return [f"is not symmetric (largest |e_ij - e_ji| = {np.max(np.abs(arr - arr.T)):.3g})"]
-    eig = np.linalg.eigvalsh(0.5 * (arr + arr.T))
-    if eig[0] <= 0:
-        return [f"is not positive definite (smallest eigenvalue {eig[0]:.4g})"]
-    if eig[0] < 1.0 - 1e-9:
-        return [f"has an eigenvalue {eig[0]:.4g} below 1 (a dielectric constant cannot be below vacuum's)"]
-    if eig[-1] > max_eps:
-        return [f"has an eigenvalue {eig[-1]:.4g} above the plausible limit {max_eps:g}"]
+    """Reasons a 3x3 dielectric tensor is unusable: those of
+    :func:`flakelight.dielectric.validate_tensor` plus an implausibly large eigenvalue."""
+    reason = dielectric.validate_tensor(np.asarray(tensor, dtype=float)[None])[0]
+    if reason:
+        return [reason]
+    largest = float(np.linalg.eigvalsh(np.asarray(tensor, dtype=float))[-1])
+    if largest > max_eps:
+        return [f"has an eigenvalue {largest:.4g} above the plausible limit {max_eps:g}"]
     return []
 
 
 def mass_problems(value: float) -> str | None:
-    """Reason a mass value (m_e) is unusable, or None."""
+    """Reason a mass value (m_e) is unusable, or None (see :func:`flakelight.masses.validate_masses`)."""
     if not _finite(value):
         return "is not finite"
-    if value <= 0:
-        return f"must be positive, got {value:g}"
-    lo, hi = MASS_RANGE_ME
-    if not lo <= value <= hi:
-        return f"{value:g} m_e is outside the plausible range [{lo:g}, {hi:g}] m_e"
-    return None
+    return masses.validate_masses(np.array([float(value)]))[0]
 
 
 def _range_problem(value: float, window: tuple[float, float], unit: str) -> str | None:
@@ -211,7 +198,7 @@ def physical_problems(record: dict, *, stem: str,
     for key, max_eps in (("electronic", MAX_ELECTRONIC_EPS), ("static", MAX_STATIC_EPS)):
         if key in diel:
             for reason in tensor_problems(diel[key], max_eps=max_eps):
-                out.append(Problem(f"dielectric.{key}", f"tensor {reason}"))
+                out.append(Problem(f"dielectric.{key}", f"tensor: {reason}"))
     if "normal" in diel:
         n = np.asarray(diel["normal"], dtype=float)
         if not np.all(np.isfinite(n)) or np.linalg.norm(n) < 1e-8:

@@ -422,7 +422,8 @@ def solve_reduced(s, n_states=3, method="real-space", **options):
     s : float
         Screening parameter ``r0 mu / (kappa^2 a0)`` (>= 0).
     n_states : int
-        Number of s states (1s, 2s, ...), at most 5 for the default domain.
+        Number of s states (1s, 2s, ...), 1 to 5 (the default domains are
+        checked to 1e-10 for up to 5s).
     method : {"real-space", "gaussian"}
         ``"real-space"``: log-mesh finite differences with Richardson
         extrapolation (accurate, ~1e-10 relative). ``"gaussian"``: Galerkin
@@ -449,6 +450,8 @@ def solve_reduced(s, n_states=3, method="real-space", **options):
     s = float(s)
     if not s >= 0:
         raise ValueError(f"s must be >= 0, got {s}")
+    if not 1 <= n_states <= 5:
+        raise ValueError(f"n_states must be 1..5, got {n_states}")
     if method == "real-space":
         return _solve_real_space(s, n_states, **options)
     if method == "gaussian":
@@ -646,7 +649,7 @@ def build_table(s_grid=None):
     ----------
     s_grid : array_like, optional
         Grid starting at 0 and increasing; default :func:`default_s_grid`
-        (0 plus 321 points, 1e-5 ... 1e5). Takes about 20 s on one core.
+        (0 plus 321 points, 1e-5 ... 1e5). Takes about 5 s on one core.
 
     Returns
     -------
