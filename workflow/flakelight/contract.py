@@ -56,11 +56,13 @@ def _short(text: str, limit: int = 240) -> str:
     return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
-_ONEOF_HINTS = {
-    ("$defs", "valley"): "give exactly one of 'mass' or 'band_samples'",
-    ("$defs", "valley", "properties", "mass"):
-        "give exactly one in-plane mass form: 'isotropic_me', 'principal_me' or 'tensor_me'",
-}
+def _oneof_hint(path: list) -> str:
+    """Readable reason for a failed ``oneOf`` at a record path."""
+    if path and path[-1] == "mass":
+        return "give exactly one in-plane mass form: 'isotropic_me', 'principal_me' or 'tensor_me'"
+    if len(path) == 2 and path[0] == "valleys":
+        return "give exactly one of 'mass' or 'band_samples'"
+    return "matches none or several of the allowed forms"
 
 
 class RecordChecker:
@@ -76,12 +78,10 @@ class RecordChecker:
         for err in sorted(self._validator.iter_errors(record), key=lambda e: [str(p) for p in e.absolute_path]):
             field = format_path(err.absolute_path)
             if err.validator == "oneOf":
-                hint = _ONEOF_HINTS.get(tuple(err.schema_path)[:-1]) or _ONEOF_HINTS.get(
-                    tuple(p for p in err.schema_path if p not in ("items",))[:-1])
-                reason = hint or "matches none or several of the allowed forms"
+                reason = _oneof_hint(list(err.absolute_path))
             elif err.validator == "additionalProperties":
                 reason = _short(err.message)
-            elif err.validator == "propertyNames":
+            elif "propertyNames" in err.relative_schema_path:
                 reason = f"layer-count key {err.instance!r} is not a positive integer below 100 or 'bulk'"
             else:
                 reason = _short(err.message)

@@ -215,6 +215,12 @@ def write_json(obj: Any, path: str | os.PathLike) -> None:
     write_text(json.dumps(obj, indent=2, sort_keys=True, default=_json_default) + "\n", path)
 
 
+def read_json(path: str | os.PathLike) -> Any:
+    """Read a JSON file written by :func:`write_json`."""
+    with open(path, encoding="utf-8") as fh:
+        return json.load(fh)
+
+
 def write_csv(frame: pd.DataFrame, path: str | os.PathLike) -> None:
     """Write a CSV table atomically."""
     target, tmp = _atomic_target(path)

@@ -127,6 +127,7 @@ __all__ = [
     "STATES",
     "KeldyshTable",
     "build_table",
+    "default_s_grid",
     "keldysh_binding_ev",
     "keldysh_potential_ev",
     "keldysh_radius_angstrom",

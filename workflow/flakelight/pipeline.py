@@ -67,12 +67,31 @@ def _load_cache(cache_dir: Path, stamps: Mapping[str, str]) -> dict[str, pd.Data
 
 
 def _structure_geometry(cif_bytes: bytes, cif_hash: str, memo: dict) -> tuple[object, str | None]:
+    """Layer geometry of a CIF, memoised by content hash (``memo`` persists between runs)."""
     if cif_hash not in memo:
         try:
-            memo[cif_hash] = (structure.analyse_cif_text(cif_bytes), None)
+            geometry = structure.analyse_cif_text(cif_bytes)
+            memo[cif_hash] = {"geometry": dataclasses.asdict(geometry), "error": None}
         except structure.StructureError as exc:
-            memo[cif_hash] = (None, str(exc))
-    return memo[cif_hash]
+            memo[cif_hash] = {"geometry": None, "error": str(exc)}
+    entry = memo[cif_hash]
+    if entry["error"]:
+        return None, entry["error"]
+    g = dict(entry["geometry"])
+    g["layer_normal"] = None if g["layer_normal"] is None else tuple(g["layer_normal"])
+    g["warnings"] = tuple(g["warnings"])
+    return structure.LayerGeometry(**g), None
+
+
+def _load_structure_memo(path: Path, code_version: str) -> dict:
+    """Structure analyses of earlier runs, keyed by CIF content hash (same code version only)."""
+    if not path.exists():
+        return {}
+    try:
+        data = io.read_json(path)
+    except (OSError, ValueError):
+        return {}
+    return data.get("analyses", {}) if data.get("code_version") == code_version else {}
 
 
 def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, table_path: str,
@@ -103,7 +122,9 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
     reused: set[str] = set()
     new_entries, new_valleys, reject_rows = [], [], []
     seen: dict[str, str] = {}
-    memo: dict = {}
+    memo_path = Path(cache_dir) / "structures.json"
+    memo: dict = _load_structure_memo(memo_path, stamps["code_version"])
+    memo_size = len(memo)
     for path in sorted(entry_paths):
         stem = Path(path).stem
         source = os.path.basename(path)
@@ -189,6 +210,8 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
     cache_path = Path(cache_dir)
     for name, frame in tables.items():
         io.write_parquet(frame, cache_path / f"{name}.parquet", table_metadata=stamps)
+    if len(memo) != memo_size:
+        io.write_json({"code_version": stamps["code_version"], "analyses": memo}, memo_path)
     counts = {"screened": int(len(tables["entries"])),
               "rejected": int(tables["rejects"]["entry_id"].nunique()) if len(tables["rejects"]) else 0,
               "reused": len(reused), "computed": len(new_entries)}
@@ -259,6 +282,8 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     io.write_parquet(ranked, outputs["wide"], units={**screen.units_for(ranked.columns), **units},
                      descriptions=screen.DESCRIPTIONS, table_metadata=meta)
     io.write_csv(ranking.shortlist(ranked, settings), outputs["shortlist"])
+    if len(memo) != memo_size:
+        io.write_json({"code_version": stamps["code_version"], "analyses": memo}, memo_path)
     counts = {"screened": len(wide), "rejected": int(rejects["entry_id"].nunique()) if len(rejects) else 0,
               "candidates": int(ranked["meets_all_criteria"].sum()) if len(ranked) else 0}
     log.info("ranked: %s", counts)

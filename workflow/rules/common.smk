@@ -99,3 +99,8 @@ def config_hash():
     from flakelight.io import canonical_json_hash
 
     return canonical_json_hash(config)[:16]
+
+
+def campaign_param(wildcards):
+    """Campaign folder as a rule parameter (the adapter finds structures/ in it)."""
+    return str(campaign_dir())

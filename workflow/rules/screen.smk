@@ -17,7 +17,7 @@ rule screen_shard:
         wide="results/shards/{shard}/exciton_wide.parquet",
     params:
         settings=physics_settings(),
-        campaign=str(campaign_dir()),
+        campaign=campaign_param,
         cache="results/cache/shards/{shard}",
     log:
         "results/logs/screen_shard/{shard}.log",

@@ -1,0 +1,145 @@
+"""The input contract: one bad-input case per rule, each message naming the field.
+
+File names are added by the shard job (see test_pipeline_rejects_name_file_and_field).
+"""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from flakelight import io
+
+
+def _set(path, value):
+    def mutate(rec):
+        obj = rec
+        for key in path[:-1]:
+            obj = obj[key]
+        if value is _DELETE:
+            del obj[path[-1]]
+        else:
+            obj[path[-1]] = value
+    return mutate
+
+
+_DELETE = object()
+
+# (case, mutation, expected field, words expected in the reason)
+CASES = [
+    ("missing id", _set(["id"], _DELETE), "(record)", "'id' is a required property"),
+    ("unsafe id", _set(["id"], "../etc"), "id", "does not match"),
+    ("markup id", _set(["id"], "<b>x</b>"), "id", "does not match"),
+    ("id differs from file", _set(["id"], "fixture-b"), "id", "differs from the file name"),
+    ("wrong format tag", _set(["record_format"], "v0"), "record_format", "was expected"),
+    ("unknown field", _set(["colour"], "red"), "(record)", "Additional properties"),
+    ("string mass", _set(["valleys", 0, "mass", "isotropic_me"], "0.5"), "valleys[0].mass.isotropic_me",
+     "is not of type 'number'"),
+    ("zero mass", _set(["valleys", 0, "mass", "isotropic_me"], 0.0), "valleys[0].mass.isotropic_me", "<= 0"),
+    ("negative mass", _set(["valleys", 2, "mass", "isotropic_me"], -0.3), "valleys[2].mass.isotropic_me", "<= 0"),
+    ("absurd mass", _set(["valleys", 2, "mass", "isotropic_me"], 5e3), "valleys[2].mass.isotropic_me", "100"),
+    ("bad principal", _set(["valleys", 3, "mass", "principal_me"], [0.6, -1.0]), "valleys[3].mass.principal_me[1]",
+     "<= 0"),
+    ("two mass forms", _set(["valleys", 0, "mass", "principal_me"], [0.5, 0.6]), "valleys[0].mass",
+     "exactly one in-plane mass form"),
+    ("mass and samples", _set(["valleys", 0, "band_samples"], {"k_per_angstrom": [[0, 0]], "energy_ev": [0]}),
+     "valleys[0]", "exactly one of 'mass' or 'band_samples'"),
+    ("asymmetric tensor", _set(["dielectric", "electronic"], [[10, 1, 0], [0, 10, 0], [0, 0, 5]]),
+     "dielectric.electronic", "not symmetric"),
+    ("indefinite tensor", _set(["dielectric", "electronic"], [[10, 0, 0], [0, -2, 0], [0, 0, 5]]),
+     "dielectric.electronic", "positive definite"),
+    ("eigenvalue below one", _set(["dielectric", "electronic"], [[10, 0, 0], [0, 0.7, 0], [0, 0, 5]]),
+     "dielectric.electronic", "< 1"),
+    ("absurd tensor", _set(["dielectric", "electronic"], [[1e4, 0, 0], [0, 1e4, 0], [0, 0, 5]]),
+     "dielectric.electronic", "plausible limit"),
+    ("short tensor", _set(["dielectric", "electronic"], [[10, 0, 0], [0, 10, 0]]), "dielectric.electronic",
+     "too short"),
+    ("normal in layer frame", _set(["dielectric", "normal"], [0, 0, 1]), "dielectric.normal", "only meaningful"),
+    ("no conduction", lambda r: r.update(valleys=[v for v in r["valleys"] if v["band"] == "valence"]),
+     "valleys", "no conduction valley"),
+    ("no valence", lambda r: r.update(valleys=[v for v in r["valleys"] if v["band"] == "conduction"]),
+     "valleys", "no valence valley"),
+    ("duplicate valley", lambda r: r["valleys"].append(dict(r["valleys"][0])), "valleys[4].label",
+     "already given"),
+    ("layer key zero", _set(["valleys", 0, "edge_ev", "0"], -5.0), "valleys[0].edge_ev", "layer-count key '0'"),
+    ("layer key word", _set(["valleys", 0, "edge_ev", "two"], -5.0), "valleys[0].edge_ev", "layer-count key 'two'"),
+    ("missing bulk edge", _set(["valleys", 1, "edge_ev", "bulk"], _DELETE), "valleys[1].edge_ev",
+     "'bulk' is a required property"),
+    ("absurd edge", _set(["valleys", 1, "edge_ev", "1"], -1e5), "valleys[1].edge_ev.1", "beyond"),
+    ("no gap", _set(["valleys", 2, "edge_ev", "1"], -7.0), "valleys[*].edge_ev.1", "no gap"),
+    ("spacing missing", _set(["layer_spacing_angstrom"], _DELETE), "layer_spacing_angstrom",
+     "required when no structure_file"),
+    ("spacing absurd", _set(["layer_spacing_angstrom"], 500.0), "layer_spacing_angstrom", "plausible range"),
+    ("missing cif", _set(["structure_file"], "absent.cif"), "structure_file", "not found"),
+    ("cif path traversal", _set(["structure_file"], "../x.cif"), "structure_file", "does not match"),
+    ("both screening forms", _set(["monolayer_screening", "polarizability_2d_angstrom"], 6.0),
+     "monolayer_screening", "not both"),
+    ("negative r0", _set(["monolayer_screening", "screening_length_angstrom"], -4.0),
+     "monolayer_screening.screening_length_angstrom", "plausible range"),
+    ("uncertainty above one", _set(["valleys", 0, "mass", "relative_uncertainty"], 3.0),
+     "valleys[0].mass.relative_uncertainty", "plausible range"),
+    ("too few band samples", lambda r: r["valleys"][2].update(
+        band_samples={"k_per_angstrom": [[0, 0], [0.1, 0]], "energy_ev": [0, 0.1]}) or r["valleys"][2].pop("mass"),
+     "valleys[2].band_samples.k_per_angstrom", "too few"),
+    ("sample count mismatch", lambda r: r["valleys"][2].update(
+        band_samples={"k_per_angstrom": [[0, 0]] * 7, "energy_ev": [0.0] * 6}) or r["valleys"][2].pop("mass"),
+     "valleys[2].band_samples", "7 k points but 6 energies"),
+]
+
+
+@pytest.mark.parametrize("case, mutate, field, words", CASES, ids=[c[0] for c in CASES])
+def test_each_rule_names_field_and_reason(checker, record, case, mutate, field, words):
+    mutate(record)
+    problems = checker.check(record, stem="fixture-a", structure_exists=lambda name: False)
+    assert problems, f"{case}: no problem reported"
+    matching = [p for p in problems if p.field == field]
+    assert matching, f"{case}: fields reported {[p.field for p in problems]}, expected {field!r}"
+    assert any(words in p.reason for p in matching), [p.reason for p in matching]
+
+
+def test_valid_record_passes(checker, record):
+    assert checker.check(record, stem="fixture-a", structure_exists=lambda name: False) == []
+
+
+def test_every_schema_property_is_described():
+    """Every property in the record schema documents itself (the README reference is built on it)."""
+    schema = io.load_schema("entry.schema.json")
+
+    def walk(node, path):
+        for name, sub in node.get("properties", {}).items():
+            assert "description" in sub or "$ref" in sub, f"{path}.{name} has no description"
+            walk(sub, f"{path}.{name}")
+        for name, sub in node.get("$defs", {}).items():
+            walk(sub, f"$defs.{name}")
+
+    walk(schema, "record")
+
+
+@pytest.mark.parametrize("content, words", [
+    (b"", "empty"),
+    (b"   \n", "empty"),
+    (b"\xff\xfe{\x00}\x00", "not UTF-8"),
+    (b'{"id": NaN}', "non-finite number 'NaN'"),
+    (b'{"id": Infinity}', "non-finite number 'Infinity'"),
+    (b'{"id": ', "invalid JSON at line 1"),
+    (b"[" * 100000 + b"]" * 100000, "invalid JSON"),
+])
+def test_read_record_reasons(tmp_path, content, words):
+    path = tmp_path / "x.json"
+    path.write_bytes(content)
+    raw = io.read_record(path)
+    assert raw.data is None and words in raw.error
+
+
+def test_read_record_size_limit(tmp_path):
+    path = tmp_path / "big.json"
+    path.write_text(json.dumps({"pad": "x" * (io.MAX_RECORD_BYTES + 10)}))
+    raw = io.read_record(path)
+    assert "larger than" in raw.error
+
+
+def test_read_record_accepts_bom(tmp_path, record):
+    path = tmp_path / "fixture-a.json"
+    path.write_bytes(b"\xef\xbb\xbf" + json.dumps(record).encode())
+    assert io.read_record(path).data == record
