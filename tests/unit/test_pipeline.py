@@ -1,0 +1,101 @@
+"""Shard orchestration: rejects carry file and field, the per-record cache is exact."""
+
+from __future__ import annotations
+
+import json
+
+import pandas as pd
+import pytest
+
+from flakelight import io, keldysh, pipeline
+
+SETTINGS = {
+    "layers": {"max_layers": 4, "fit_exponent": False},
+    "structure": {"non_layered": "warn", "reconcile_rel_tol": 0.05},
+    "environments": {"suspended": {"top": 1.0, "bottom": 1.0}},
+    "monolayer": {"hydrogenic_eps": 0.0, "few_layer_r0_scaling": True},
+    "emission_bands": [{"name": "visible", "min_nm": 380, "max_nm": 750}],
+}
+
+
+@pytest.fixture(scope="module")
+def table_path(tmp_path_factory):
+    path = tmp_path_factory.mktemp("table") / "k.npz"
+    io.save_arrays(keldysh.build_table().to_arrays(), path)
+    return str(path)
+
+
+def _campaign(tmp_path, record, extra=()):
+    entries = tmp_path / "campaign" / "entries"
+    entries.mkdir(parents=True)
+    for i in range(3):
+        rec = dict(record, id=f"ok-{i}", scissor_ev=0.1 * i)
+        (entries / f"ok-{i}.json").write_text(json.dumps(rec))
+    for name, text in extra:
+        (entries / name).write_text(text)
+    return entries
+
+
+def _run(tmp_path, entries, table_path, settings=SETTINGS, tag="out"):
+    outs = {k: str(tmp_path / tag / f"{k}.parquet") for k in pipeline.SHARD_TABLES}
+    counts = pipeline.run_shard(sorted(str(p) for p in entries.glob("*.json")), str(entries.parent), settings,
+                                table_path, str(tmp_path / "cache"), outs)
+    return counts, {k: io.read_parquet(v) for k, v in outs.items()}
+
+
+def test_rejects_name_file_and_field(tmp_path, record, table_path):
+    bad = dict(record, id="bad-mass")
+    bad["valleys"] = [dict(v) for v in record["valleys"]]
+    bad["valleys"][0] = dict(bad["valleys"][0], mass={"isotropic_me": -1.0})
+    entries = _campaign(tmp_path, record, [("bad-mass.json", json.dumps(bad)), ("broken.json", "{")])
+    counts, tables = _run(tmp_path, entries, table_path)
+    assert counts["screened"] == 3 and counts["rejected"] == 2
+    rej = tables["rejects"].set_index("source_file")
+    assert rej.loc["bad-mass.json", "field"] == "valleys[0].mass.isotropic_me"
+    assert rej.loc["broken.json", "field"] == "(file)"
+    assert "invalid JSON" in rej.loc["broken.json", "reason"]
+    assert set(tables["wide"]["entry_id"]) == {"ok-0", "ok-1", "ok-2"}
+
+
+def test_case_insensitive_duplicate_is_rejected(tmp_path, record, table_path):
+    entries = _campaign(tmp_path, record, [("OK-1.json", json.dumps(dict(record, id="OK-1")))])
+    counts, tables = _run(tmp_path, entries, table_path)
+    dup = tables["rejects"]
+    assert list(dup["source_file"]) == ["ok-1.json"] or list(dup["source_file"]) == ["OK-1.json"]
+    assert "duplicate identifier" in dup["reason"].iloc[0]
+
+
+def test_cache_reuses_unchanged_and_recomputes_revised(tmp_path, record, table_path):
+    entries = _campaign(tmp_path, record)
+    first, t1 = _run(tmp_path, entries, table_path, tag="a")
+    assert first["computed"] == 3 and first["reused"] == 0
+    rec = json.loads((entries / "ok-1.json").read_text())
+    rec["valleys"][0]["mass"]["isotropic_me"] = 0.9
+    (entries / "ok-1.json").write_text(json.dumps(rec))
+    second, t2 = _run(tmp_path, entries, table_path, tag="b")
+    assert second["computed"] == 1 and second["reused"] == 2
+    # The reused rows equal a fresh computation of the same inputs.
+    fresh_counts, t3 = _run(tmp_path / "fresh", entries, table_path, tag="c")
+    for name in ("long", "wide", "entries", "valleys"):
+        pd.testing.assert_frame_equal(t2[name], t3[name])
+    assert (t2["wide"].set_index("entry_id").loc["ok-1", "mu_1l_me"]
+            != t1["wide"].set_index("entry_id").loc["ok-1", "mu_1l_me"])
+
+
+def test_physics_change_invalidates_cache(tmp_path, record, table_path):
+    entries = _campaign(tmp_path, record)
+    _run(tmp_path, entries, table_path, tag="a")
+    changed = json.loads(json.dumps(SETTINGS))
+    changed["environments"]["suspended"]["bottom"] = 3.9
+    counts, tables = _run(tmp_path, entries, table_path, settings=changed, tag="b")
+    assert counts["computed"] == 3 and counts["reused"] == 0
+    assert (tables["long"]["kappa"][tables["long"]["environment"] == "suspended"] == 2.45).all()
+
+
+def test_units_in_parquet_metadata(tmp_path, record, table_path):
+    entries = _campaign(tmp_path, record)
+    _run(tmp_path, entries, table_path)
+    units = io.parquet_units(tmp_path / "out" / "long.parquet")
+    assert units["binding_ev"] == "eV" and units["emission_nm"] == "nm" and units["r0_angstrom"] == "Angstrom"
+    wide_units = io.parquet_units(tmp_path / "out" / "wide.parquet")
+    assert wide_units["binding_1l_ev__suspended"] == "eV"

@@ -1,0 +1,133 @@
+"""The assembled screen against independent references and a worked example.
+
+The record is the hand-written fixture tests/unit/data/record_valid.json:
+K valleys with m_e = m_h = 0.5 (mu = 0.25 m_e), a layer-frame tensor
+diag(10, 10, 5), r0 = 40 Angstrom, scissor 0.5 eV.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import constants as sc
+
+from flakelight import ingest, keldysh, screen
+
+# CODATA via scipy.constants, independent of flakelight.units.
+RY_EV = sc.value("Rydberg constant times hc in eV")
+HC_EV_NM = sc.h * sc.c / sc.e * 1e9
+
+SETTINGS = {
+    "layers": {"max_layers": 6, "fit_exponent": False},
+    "structure": {"non_layered": "warn", "reconcile_rel_tol": 0.05},
+    "environments": {"suspended": {"top": 1.0, "bottom": 1.0}, "hbn": {"top": 4.5, "bottom": 4.5}},
+    "monolayer": {"hydrogenic_eps": 0.0, "few_layer_r0_scaling": True},
+    "emission_bands": [{"name": "visible", "min_nm": 380, "max_nm": 750},
+                       {"name": "near-infrared", "min_nm": 750, "max_nm": 1260}],
+}
+
+
+@pytest.fixture(scope="module")
+def table():
+    return keldysh.build_table()
+
+
+def frames(*records):
+    entries, valleys = [], []
+    for rec in records:
+        norm = ingest.normalize(rec, source_file=f"{rec['id']}.json", input_hash="h" + rec["id"], max_layers=6,
+                                geometry=None, structure_hash=None, non_layered="warn", reconcile_rel_tol=0.05)
+        entries.append(norm.entry)
+        valleys.extend(norm.valleys)
+    return (pd.DataFrame(entries, columns=ingest.ENTRY_COLUMNS),
+            pd.DataFrame(valleys, columns=ingest.valley_columns(6)))
+
+
+def _screen(record, table):
+    e, v = frames(record)
+    return screen.screen_entries(e, v, SETTINGS, table)
+
+
+def test_bulk_and_quasi2d_against_hydrogen_formulas(record, table):
+    long, wide = _screen(record, table)
+    mu, eps = 0.25, math.sqrt(10.0 * 5.0)
+    # 3D Wannier-Mott: E_b = Ry mu / eps^2, a = a0 eps / mu (hydrogen scaled; CODATA via scipy.constants)
+    np.testing.assert_allclose(wide["bulk_binding_ev"], RY_EV * mu / eps**2, rtol=1e-12)
+    np.testing.assert_allclose(wide["bulk_radius_angstrom"], sc.physical_constants["Bohr radius"][0] / 1e-10 * eps / mu,
+                               rtol=1e-12)
+    # Strict 2D ground state binds four times the 3D one (common practice; Yang et al. PRA 43, 1186 (1991)).
+    np.testing.assert_allclose(wide["quasi2d_binding_ev"], 4 * wide["bulk_binding_ev"], rtol=1e-12)
+
+
+def test_monolayer_keldysh_matches_direct_solve(record, table):
+    long, _ = _screen(record, table)
+    for env, kappa in (("suspended", 1.0), ("hbn", 4.5)):
+        row = long[(long["layers"] == 1) & (long["environment"] == env)].iloc[0]
+        levels = keldysh.solve_levels_ev(0.25, 40.0, kappa)
+        direct = np.asarray(levels[0] if isinstance(levels, tuple) else levels).ravel()[0]
+        np.testing.assert_allclose(row["binding_ev"], direct, rtol=1e-5)
+        # r0(N) = N r0(1): the bilayer uses 80 Angstrom (stated approximation).
+        bi = long[(long["layers"] == 2) & (long["environment"] == env)].iloc[0]
+        assert bi["r0_angstrom"] == pytest.approx(80.0)
+        assert bi["binding_ev"] < row["binding_ev"]
+
+
+def test_optical_gap_and_wavelength(record, table):
+    long, _ = _screen(record, table)
+    row = long[(long["layers"] == 1) & (long["environment"] == "hbn")].iloc[0]
+    # monolayer K-K gap with scissor: (-4.1 + 0.5) - (-5.9) = 2.3 eV
+    assert row["direct_gap_ev"] == pytest.approx(2.3)
+    assert row["optical_gap_ev"] == pytest.approx(2.3 - row["binding_ev"])
+    # lambda = hc / E with hc from CODATA (scipy.constants): 1239.84198 eV nm
+    assert row["emission_nm"] == pytest.approx(HC_EV_NM / row["optical_gap_ev"], rel=1e-12)
+
+
+def test_worked_example_gap_character_by_layer_count(record, table):
+    """Hand-worked example: chain factors 1, 1/2, 1 - cos(pi/4), 1 - cos(pi/5) for N = 1..4.
+
+    N=3: Gamma valence -5.6 - 0.8*0.2929 = -5.834 < K valence -5.8 - 0.1*0.2929 = -5.829 -> direct at K.
+    N=4: Gamma -5.6 - 0.8*0.1910 = -5.753 > K -5.819 -> the maximum moves to Gamma: indirect.
+    Bulk: Gamma valence, Q conduction (-4.2 < -4.15): indirect.
+    """
+    long, wide = _screen(record, table)
+    per_layer = long[long["environment"].isin(["suspended", screen.BULK_ENVIRONMENT])].set_index("layers")
+    assert list(per_layer.loc[[1, 2, 3], "gap_character"]) == ["direct"] * 3
+    assert per_layer.loc[4, "gap_character"] == "indirect"
+    assert per_layer.loc[4, "vbm_label"] == "G" and per_layer.loc[4, "cbm_label"] == "K"
+    assert per_layer.loc[0, "vbm_label"] == "G" and per_layer.loc[0, "cbm_label"] == "Q"
+    assert int(wide["direct_through_layers"].iloc[0]) == 3
+    assert int(wide["character_switch_layers"].iloc[0]) == 4
+    assert wide["thinning_verdict"].iloc[0] == "direct below 4 layers, indirect from 4"
+
+
+def test_crystal_frame_tensor_is_rotated(record, table):
+    """A uniaxial tensor tilted by 30 degrees about y, given with its normal, screens like the layer one."""
+    tilt = math.radians(30.0)
+    n = np.array([math.sin(tilt), 0.0, math.cos(tilt)])
+    eps = 10.0 * np.eye(3) + (5.0 - 10.0) * np.outer(n, n)
+    tilted = dict(record, id="fixture-b",
+                  dielectric={"frame": "crystal", "normal": n.tolist(), "electronic": eps.tolist()})
+    e, v = frames(record, tilted)
+    _, wide = screen.screen_entries(e, v, SETTINGS, table)
+    np.testing.assert_allclose(wide["eps_parallel"], [10.0, 10.0], rtol=1e-12)
+    np.testing.assert_allclose(wide["eps_perpendicular"], [5.0, 5.0], rtol=1e-12)
+    np.testing.assert_allclose(wide["bulk_binding_ev"].iloc[0], wide["bulk_binding_ev"].iloc[1], rtol=1e-12)
+
+
+def test_batch_equals_one_at_a_time(record, table):
+    other = dict(record, id="fixture-c", scissor_ev=0.1)
+    e, v = frames(record, other)
+    long2, wide2 = screen.screen_entries(e, v, SETTINGS, table)
+    long1, wide1 = _screen(other, table)
+    pd.testing.assert_frame_equal(wide2[wide2["entry_id"] == "fixture-c"].reset_index(drop=True), wide1)
+
+
+def test_empty_screen_has_columns(table):
+    e = pd.DataFrame(columns=ingest.ENTRY_COLUMNS)
+    v = pd.DataFrame(columns=ingest.valley_columns(6))
+    long, wide = screen.screen_entries(e, v, SETTINGS, table)
+    assert len(long) == 0 and len(wide) == 0
+    assert "binding_ev" in long.columns and "bulk_binding_ev" in wide.columns
