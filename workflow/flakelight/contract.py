@@ -56,6 +56,19 @@ def _short(text: str, limit: int = 240) -> str:
     return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
+def _schema_message(err) -> str:
+    """A schema error's message with a long leading instance repr shortened, so the
+    reason itself ("is not of type 'object'", "is too short") is never cut off."""
+    message = err.message
+    try:
+        shown = repr(err.instance)
+    except RecursionError:
+        shown = ""
+    if len(shown) > 60 and message.startswith(shown):
+        message = _short(shown, 60) + message[len(shown):]
+    return _short(message)
+
+
 def _oneof_hint(path: list) -> str:
     """Readable reason for a failed ``oneOf`` at a record path."""
     if path and path[-1] == "mass":
@@ -84,7 +97,7 @@ class RecordChecker:
             elif "propertyNames" in err.relative_schema_path:
                 reason = f"layer-count key {err.instance!r} is not a positive integer below 100 or 'bulk'"
             else:
-                reason = _short(err.message)
+                reason = _schema_message(err)
             problems.append(Problem(field, reason))
         return problems
 

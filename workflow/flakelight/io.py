@@ -65,6 +65,17 @@ def _reject_constant(name: str) -> float:
     raise ValueError(f"non-finite number '{name}' is not allowed")
 
 
+def _parse_int(text: str) -> int | float:
+    """JSON integer; one beyond the float range becomes +-inf so the contract reports
+    the field as not finite (instead of an OverflowError when it is converted)."""
+    value = int(text)
+    try:
+        float(value)
+    except OverflowError:
+        return -math.inf if value < 0 else math.inf
+    return value
+
+
 def read_record(path: str | os.PathLike) -> RawRecord:
     """Read and parse one JSON record file, never raising for bad content.
 
@@ -93,7 +104,7 @@ def read_record(path: str | os.PathLike) -> RawRecord:
     if text.startswith("\ufeff"):
         text = text[1:]
     try:
-        data = json.loads(text, parse_constant=_reject_constant)
+        data = json.loads(text, parse_constant=_reject_constant, parse_int=_parse_int)
     except json.JSONDecodeError as exc:
         return RawRecord(path, digest, error=f"invalid JSON at line {exc.lineno} column {exc.colno}: {exc.msg}")
     except (ValueError, RecursionError) as exc:
