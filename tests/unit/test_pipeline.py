@@ -99,3 +99,45 @@ def test_units_in_parquet_metadata(tmp_path, record, table_path):
     assert units["binding_ev"] == "eV" and units["emission_nm"] == "nm" and units["r0_angstrom"] == "Angstrom"
     wide_units = io.parquet_units(tmp_path / "out" / "wide.parquet")
     assert wide_units["binding_1l_ev__suspended"] == "eV"
+
+
+def _cif(kind: str) -> str:
+    """CIF text of 2H-MoS2 (a = 3.16, c = 12.30 Angstrom, S z = 0.621; from memory) or rock-salt NaCl (a = 5.64)."""
+    from pymatgen.core import Lattice, Structure
+    from pymatgen.io.cif import CifWriter
+
+    if kind == "mos2":
+        s = Structure.from_spacegroup("P6_3/mmc", Lattice.hexagonal(3.16, 12.30), ["Mo", "S"],
+                                      [[1 / 3, 2 / 3, 0.25], [1 / 3, 2 / 3, 0.621]])
+    else:
+        s = Structure.from_spacegroup("Fm-3m", Lattice.cubic(5.64), ["Na", "Cl"], [[0, 0, 0], [0.5, 0.5, 0.5]])
+    return str(CifWriter(s))
+
+
+@pytest.mark.parametrize("policy", ["warn", "reject"])
+def test_structure_supplies_geometry_and_flags_non_layered(tmp_path, record, table_path, policy):
+    entries = _campaign(tmp_path, record)
+    structures = entries.parent / "structures"
+    structures.mkdir()
+    (structures / "mos2.cif").write_text(_cif("mos2"))
+    (structures / "nacl.cif").write_text(_cif("nacl"))
+    (structures / "junk.cif").write_bytes(b"\x00\x01 not a cif")
+    for name, cif in (("layered", "mos2.cif"), ("rocksalt", "nacl.cif"), ("junk", "junk.cif")):
+        rec = {k: v for k, v in record.items() if name == "rocksalt"
+               or k not in ("layer_spacing_angstrom", "inplane_lattice_angstrom")}
+        rec.update(id=name, structure_file=cif)
+        (entries / f"{name}.json").write_text(json.dumps(rec))
+    settings = json.loads(json.dumps(SETTINGS))
+    settings["structure"]["non_layered"] = policy
+    _, tables = _run(tmp_path, entries, table_path, settings=settings)
+    ent = tables["entries"].set_index("entry_id")
+    # 2H stacking: two layers per c, repeat distance c/2 = 6.15 Angstrom; in-plane lattice a = 3.16.
+    assert ent.loc["layered", "spacing_angstrom"] == pytest.approx(6.15, abs=1e-6)
+    assert ent.loc["layered", "lattice_angstrom"] == pytest.approx(3.16, abs=1e-6)
+    assert ent.loc["layered", "spacing_source"] == "structure"
+    rejects = tables["rejects"].set_index("entry_id")
+    assert "junk" in rejects.index and rejects.loc["junk", "field"] == "structure_file"
+    if policy == "reject":
+        assert "rocksalt" in rejects.index and "no 2D-bonded layers" in rejects.loc["rocksalt", "reason"]
+    else:
+        assert "no 2D-bonded layers" in ent.loc["rocksalt", "warnings"]

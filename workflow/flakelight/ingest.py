@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from flakelight import bandfit, dielectric, masses
+from flakelight import bandfit, dielectric, masses, structure
 from flakelight.contract import Problem
 from flakelight.structure import LayerGeometry
 
@@ -110,22 +110,13 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
     if geometry is not None:
         warnings.extend(f"structure: {w}" for w in geometry.warnings)
 
-    spacing = record.get("layer_spacing_angstrom")
-    lattice = record.get("inplane_lattice_angstrom")
-    spacing_source = "record" if spacing is not None else None
-    lattice_source = "record" if lattice is not None else None
-    if geometry is not None:
-        if spacing is None and geometry.repeat_distance_angstrom:
-            spacing, spacing_source = geometry.repeat_distance_angstrom, "structure"
-        if lattice is None and geometry.inplane_lattice_angstrom:
-            lattice, lattice_source = geometry.inplane_lattice_angstrom, "structure"
-        for name, given, derived in (("layer_spacing_angstrom", record.get("layer_spacing_angstrom"),
-                                      geometry.repeat_distance_angstrom),
-                                     ("inplane_lattice_angstrom", record.get("inplane_lattice_angstrom"),
-                                      geometry.inplane_lattice_angstrom)):
-            if given is not None and derived and abs(given - derived) > reconcile_rel_tol * derived:
-                warnings.append(f"{name}: record gives {given:.3f} A, structure gives {derived:.3f} A "
-                                f"(beyond {reconcile_rel_tol:.0%}); the record's value is used")
+    given_spacing = record.get("layer_spacing_angstrom")
+    given_lattice = record.get("inplane_lattice_angstrom")
+    spacing, lattice, messages = structure.compare_geometry(given_spacing, given_lattice, geometry,
+                                                            rel_tol=reconcile_rel_tol)
+    warnings.extend(m for m in messages if "not given" not in m)
+    spacing_source = "record" if given_spacing is not None else "structure"
+    lattice_source = "record" if given_lattice is not None else "structure"
     missing = [Problem(name, "not given and not derivable from the structure")
                for name, value in (("layer_spacing_angstrom", spacing), ("inplane_lattice_angstrom", lattice))
                if value is None]

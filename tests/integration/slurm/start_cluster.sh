@@ -54,7 +54,7 @@ for tool in munged mungekey mariadbd mariadb-install-db mariadb slurmdbd slurmct
 done
 
 mkdir -p "$state"/{pids,run,log,munge,mysql,slurmctld,slurmd}
-chmod 0700 "$state/munge"
+chmod 0755 "$state/munge"
 
 # start NAME LOGFILE COMMAND... : run COMMAND in the background, record its pid.
 start() {
@@ -139,7 +139,8 @@ FLUSH PRIVILEGES;
 EOF
 
 # 3. slurmdbd, then the cluster in the accounting database (slurmctld registers with it).
-start slurmdbd "$state/log/slurmdbd.out" slurmdbd -D -f "$state/slurmdbd.conf"
+# slurmdbd reads slurmdbd.conf from the folder of $SLURM_CONF.
+start slurmdbd "$state/log/slurmdbd.out" slurmdbd -D
 wait_for "slurmdbd" 60 slurmdbd timeout 5 sacctmgr -n list cluster
 sacctmgr -i add cluster "$cluster" >/dev/null
 

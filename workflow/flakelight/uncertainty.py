@@ -1,0 +1,724 @@
+"""Monte Carlo propagation of input uncertainties through the exciton screen.
+
+Pure numpy/pandas; no file I/O. Input: the normalised entry and valley tables
+of one shard (:mod:`flakelight.ingest`, columns ``ENTRY_COLUMNS`` and
+``valley_columns``), the config sections ``uncertainty``, ``survival``,
+``ranking``, ``layers``, ``monolayer``, ``environments`` and the Rytova-Keldysh
+table. Output: one row per entry with percentiles of the target-layer binding
+energy, optical gap and emission wavelength, of the bulk 3D binding energy, and
+the probabilities that the gap is direct at the target layer count and that
+every ranking criterion is met (:data:`OUTPUT_COLUMNS`).
+
+Uncertain inputs and their distributions
+----------------------------------------
+Given per record where present (``NaN`` = not given), else the config default:
+
+* effective masses (``mass_rel_unc``, relative; default ``default_mass_rel``):
+  one log-normal factor per valley with median 1 multiplies the valley's whole
+  in-plane mass tensor (all principal values together, the orientation is
+  kept); valleys are independent of each other;
+* dielectric tensor (``eps_rel_unc``, relative; ``default_eps_rel``): one
+  log-normal factor per entry with median 1 multiplies the whole electronic
+  tensor, so eps_parallel, eps_perpendicular and sqrt(eps_par eps_perp) move
+  together; the factor is truncated below at 1/lambda_min (lambda_min the
+  smallest eigenvalue of the tensor) so every eigenvalue stays >= 1. The
+  truncated normal is obtained from the standard normal draw by the exact
+  inverse-CDF map, so no rejection loop is needed;
+* screening length (``r0_rel_unc``, relative; ``default_r0_rel``): one
+  log-normal factor per entry with median 1 multiplies r0 (> 0 always). When
+  r0 is not given it is the bulk estimate d (eps_par - 1)/2 of the *sampled*
+  eps_par, times this factor (the estimate is itself approximate);
+* band edges (``edge_unc_ev``, absolute eV; ``default_edge_ev``): one normal
+  shift per valley, the same for every layer count of that valley (a common
+  choice: the dominant error of a first-principles edge is a level offset of
+  the valley, not layer-to-layer noise). The layer fill of
+  :func:`flakelight.layers.fill_edges` is exactly covariant under a common
+  shift (``E(N) = E_bulk + A x(N)**p`` with ``A, p`` fitted to
+  ``E(N) - E_bulk``), so the nominal fill is computed once and shifted per
+  sample;
+* scissor shift (``scissor_unc_ev``, absolute eV; ``default_scissor_ev`` only
+  where a record applies a non-zero shift without an uncertainty): one normal
+  shift per entry, added to every conduction edge.
+
+A log-normal factor with relative standard uncertainty u has
+``sigma_ln = sqrt(ln(1 + u**2))`` (:func:`lognormal_sigma`): its relative
+standard deviation is exactly u and its median is 1, so the median of a
+quantity monotonic in one input is its point estimate. Zero uncertainty gives
+factors of exactly 1 and shifts of exactly 0: the point estimate of
+:func:`flakelight.screen.screen_entries` is then reproduced bit for bit.
+
+Model per sample (the choices of :mod:`flakelight.screen`)
+----------------------------------------------------------
+Gap character at ``ranking.target_layers`` and in bulk from
+:func:`flakelight.layers.gap_character` (scissor included); the bright pair is
+the lowest direct (same-label) pair at that layer count, its reduced mass the
+geometric mean of the principal in-plane reduced masses
+(:func:`flakelight.masses.inplane_average_mass_me`); r0(N) = N r0(1) when
+``monolayer.few_layer_r0_scaling``; kappa of ``ranking.environment``;
+Rytova-Keldysh binding from the interpolated table; optical gap = direct gap -
+binding; emission = hc / optical gap; E_b/kT at ``survival.temperature_k``;
+bulk binding = 3D hydrogenic with sqrt(eps_par eps_perp) and the bulk
+bright-pair mass. The four ranking criteria of :func:`flakelight.ranking.rank`
+are re-implemented vectorized in :func:`criteria` (a unit test checks they
+agree). Label ties (direct gaps degenerate within 1e-9 eV) resolve to the
+lexically smallest label of the entry, so results never depend on which other
+entries share the shard.
+
+Determinism and memory
+----------------------
+Entry e draws from ``numpy.random.default_rng(SeedSequence([seed, h(e)]))``
+with h the first 8 bytes (big-endian) of SHA-256 of its UTF-8 identifier
+(:func:`entry_seed_sequence`): one (samples, 3 + 2 k) array of standard
+normals (columns: eps, r0, scissor, k valley masses, k valley edges; valleys
+in ``valley_index`` order), drawn in sample chunks that concatenate to the
+same stream. Results therefore do not depend on shard composition, entry
+order or chunking. Work proceeds in blocks of at most
+:data:`BLOCK_CELLS` = 65,536 (entry x sample) cells: ``BLOCK_CELLS // samples``
+entries with all their samples, or one entry in chunks of ``BLOCK_CELLS``
+samples when ``samples > BLOCK_CELLS``. Each block is reshaped into the
+compound axis (entry-major, then sample) so the vectorized layer and exciton
+functions run on it unchanged; peak memory is set by the block, not by the
+shard size or the sample count.
+
+Percentiles use linear interpolation between order statistics (numpy's
+default) over the finite samples; probabilities count a sample with a
+missing value as failing.
+
+References
+----------
+JCGM 101:2008, *Evaluation of measurement data - Supplement 1 to the GUM:
+propagation of distributions using a Monte Carlo method* (the method, the
+coverage interval from percentiles); JCGM 100:2008 (GUM), sec. 5.1 (first-order
+law of propagation used by :func:`first_order_binding_rel_unc`). Log-normal
+moments: N. L. Johnson, S. Kotz and N. Balakrishnan, *Continuous Univariate
+Distributions*, vol. 1, 2nd ed. (1994), ch. 14. Inverse-CDF sampling of a
+truncated distribution: L. Devroye, *Non-Uniform Random Variate Generation*
+(1986), ch. 2.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from typing import Iterator, Mapping, NamedTuple
+
+import numpy as np
+import pandas as pd
+from scipy import special
+
+from flakelight import dielectric, hydrogenic, keldysh, layers as layer_model, masses, survival
+from flakelight.ingest import TENSOR_COMPONENTS, edge_column
+
+__all__ = [
+    "BLOCK_CELLS",
+    "PERCENTILES",
+    "QUANTITIES",
+    "OUTPUT_COLUMNS",
+    "UNITS",
+    "DESCRIPTIONS",
+    "lognormal_sigma",
+    "first_order_binding_rel_unc",
+    "reduced_mass_rel_unc",
+    "entry_seed_sequence",
+    "criteria",
+    "row_percentiles",
+    "propagate_samples",
+    "propagate_uncertainty",
+]
+
+#: Largest number of (entry x sample) cells evaluated at once (memory bound).
+BLOCK_CELLS: int = 65_536
+#: Percentiles reported for every quantity (16/84 bracket a 68 % interval).
+PERCENTILES: tuple[float, ...] = (16.0, 50.0, 84.0)
+#: Per-sample quantities summarised by percentiles.
+QUANTITIES: tuple[str, ...] = ("target_binding_ev", "target_optical_gap_ev", "target_emission_nm",
+                               "bulk_binding_ev")
+_PROBABILITIES = ("p_direct_target", "p_meets_all", "p_pass_margin", "p_pass_binding", "p_pass_window")
+_UNIT_OF = {"target_binding_ev": "eV", "target_optical_gap_ev": "eV", "target_emission_nm": "nm",
+            "bulk_binding_ev": "eV"}
+_TEXT_OF = {"target_binding_ev": "Rytova-Keldysh binding at the target layer count in the ranking environment",
+            "target_optical_gap_ev": "optical gap (direct gap - binding) at the target layer count",
+            "target_emission_nm": "emission wavelength at the target layer count",
+            "bulk_binding_ev": "bulk 3D hydrogenic binding (geometric-mean dielectric constant)"}
+
+
+def _pcol(quantity: str, q: float) -> str:
+    return f"{quantity}_p{int(q)}"
+
+
+#: Columns of the table returned by :func:`propagate_uncertainty`, in order.
+OUTPUT_COLUMNS: list[str] = (["entry_id", "input_hash"]
+                             + [_pcol(name, q) for name in QUANTITIES for q in PERCENTILES]
+                             + list(_PROBABILITIES) + ["n_samples", "seed"])
+
+#: Units of the output columns (for Parquet field metadata).
+UNITS: dict[str, str] = {**{_pcol(n, q): _UNIT_OF[n] for n in QUANTITIES for q in PERCENTILES},
+                         **{p: "1" for p in _PROBABILITIES}, "n_samples": "1"}
+
+#: One-line descriptions of the output columns.
+DESCRIPTIONS: dict[str, str] = {
+    **{_pcol(n, q): f"{int(q)}th percentile (Monte Carlo) of the {_TEXT_OF[n]}"
+       for n in QUANTITIES for q in PERCENTILES},
+    "p_direct_target": "probability that the gap is direct at the target layer count",
+    "p_meets_all": "probability that every ranking criterion is met",
+    "p_pass_margin": "probability that the direct-indirect margin criterion is met",
+    "p_pass_binding": "probability that the binding/kT criterion is met",
+    "p_pass_window": "probability that the emission lies in the target window",
+    "n_samples": "Monte Carlo samples per entry (0 = propagation disabled)",
+    "seed": "campaign seed; each entry's stream also depends on its identifier",
+    "input_hash": "content hash of the record the row was computed from",
+}
+
+
+# --------------------------------------------------------------------------- #
+# Small pure helpers
+# --------------------------------------------------------------------------- #
+def lognormal_sigma(rel_unc):
+    """Log-space width of a median-1 log-normal factor with relative std ``rel_unc``.
+
+    Parameters
+    ----------
+    rel_unc : array_like
+        Relative standard uncertainty u >= 0 (dimensionless).
+
+    Returns
+    -------
+    numpy.ndarray
+        ``sqrt(ln(1 + u**2))``; exactly 0 for u = 0, ~u for small u.
+
+    References
+    ----------
+    Johnson, Kotz and Balakrishnan, *Continuous Univariate Distributions*,
+    vol. 1 (1994), ch. 14 (coefficient of variation ``sqrt(exp(sigma^2) - 1)``).
+    """
+    u = np.asarray(rel_unc, dtype=float)
+    return np.sqrt(np.log1p(u * u))
+
+
+def first_order_binding_rel_unc(mu_rel_unc, eps_rel_unc, eps_power=2.0):
+    """First-order relative uncertainty of a hydrogenic binding E ~ mu / eps**p.
+
+    ``(sigma_E/E)**2 = (sigma_mu/mu)**2 + p**2 (sigma_eps/eps)**2`` for
+    independent mu and eps (p = 2 for the 3D and strict-2D hydrogenic models;
+    for Rytova-Keldysh in the 2D-hydrogen limit eps is the fixed kappa of the
+    surroundings and only the mass term remains).
+
+    Parameters
+    ----------
+    mu_rel_unc : array_like
+        Relative standard uncertainty of the reduced mass.
+    eps_rel_unc : array_like
+        Relative standard uncertainty of the dielectric constant.
+    eps_power : float, optional
+        Power of eps in the denominator (default 2).
+
+    Returns
+    -------
+    numpy.ndarray
+        Relative standard uncertainty of the binding energy.
+
+    References
+    ----------
+    JCGM 100:2008 (GUM), eq. (10) with sensitivity coefficients of a product
+    of powers (sec. 5.1.6).
+    """
+    mu = np.asarray(mu_rel_unc, dtype=float)
+    eps = np.asarray(eps_rel_unc, dtype=float)
+    return np.sqrt(mu * mu + (eps_power * eps) ** 2)
+
+
+def reduced_mass_rel_unc(m_electron_me, m_hole_me, rel_electron, rel_hole):
+    """First-order relative uncertainty of mu = m_e m_h / (m_e + m_h).
+
+    ``d ln mu = (mu/m_e) d ln m_e + (mu/m_h) d ln m_h`` for independent masses.
+
+    Parameters
+    ----------
+    m_electron_me, m_hole_me : array_like
+        Electron and hole masses in m_e.
+    rel_electron, rel_hole : array_like
+        Their relative standard uncertainties.
+
+    Returns
+    -------
+    numpy.ndarray
+        Relative standard uncertainty of the reduced mass.
+
+    References
+    ----------
+    JCGM 100:2008 (GUM), eq. (10).
+    """
+    me = np.asarray(m_electron_me, dtype=float)
+    mh = np.asarray(m_hole_me, dtype=float)
+    mu = me * mh / (me + mh)
+    return np.hypot(mu / me * np.asarray(rel_electron, dtype=float),
+                    mu / mh * np.asarray(rel_hole, dtype=float))
+
+
+def entry_seed_sequence(seed: int, entry_id: str) -> np.random.SeedSequence:
+    """Seed sequence of one entry: ``SeedSequence([seed, sha256(id)[:8] as big-endian int])``.
+
+    Stable across runs, machines and shard layouts.
+
+    References
+    ----------
+    NumPy ``SeedSequence`` (entropy pooling of integer lists); common practice.
+    """
+    digest = hashlib.sha256(str(entry_id).encode("utf-8")).digest()
+    return np.random.SeedSequence([int(seed), int.from_bytes(digest[:8], "big")])
+
+
+def criteria(is_direct, complete, direct_margin_ev, binding_over_kt, emission_nm,
+             ranking: Mapping) -> dict[str, np.ndarray]:
+    """The four ranking tests of :func:`flakelight.ranking.rank`, vectorized.
+
+    Parameters
+    ----------
+    is_direct, complete : array_like of bool
+        Direct character and "both band edges present" at the target layer
+        count (:class:`flakelight.layers.GapCharacter` fields).
+    direct_margin_ev : array_like
+        Indirect minus direct gap, eV (NaN fails).
+    binding_over_kt : array_like
+        E_b / kT (NaN fails).
+    emission_nm : array_like
+        Emission wavelength, nm (NaN fails).
+    ranking : mapping
+        The ``ranking`` config section (require_direct, min_direct_margin_ev,
+        min_binding_over_kt, window_nm).
+
+    Returns
+    -------
+    dict of numpy.ndarray of bool
+        ``pass_direct``, ``pass_margin``, ``pass_binding``, ``pass_window``,
+        ``meets_all``.
+
+    References
+    ----------
+    Common practice (thresholds are the configured criteria).
+    """
+    comp = np.asarray(complete, dtype=bool)
+    direct = np.asarray(is_direct, dtype=bool) & comp
+    lo, hi = sorted(float(x) for x in ranking["window_nm"])
+    margin = np.nan_to_num(np.asarray(direct_margin_ev, dtype=float), nan=-np.inf)
+    e_kt = np.nan_to_num(np.asarray(binding_over_kt, dtype=float), nan=-np.inf)
+    lam = np.asarray(emission_nm, dtype=float)
+    out = {
+        "pass_direct": direct if ranking["require_direct"] else comp,
+        "pass_margin": margin >= float(ranking["min_direct_margin_ev"]),
+        "pass_binding": e_kt >= float(ranking["min_binding_over_kt"]),
+        "pass_window": (lam >= lo) & (lam <= hi),
+    }
+    out["meets_all"] = out["pass_direct"] & out["pass_margin"] & out["pass_binding"] & out["pass_window"]
+    return out
+
+
+def row_percentiles(values, q) -> np.ndarray:
+    """Percentiles along the last axis, ignoring non-finite values (linear interpolation).
+
+    Same definition as ``numpy.nanpercentile(..., method="linear")`` but fully
+    vectorized; rows without a finite value give NaN.
+
+    Parameters
+    ----------
+    values : array_like, shape (..., n)
+    q : sequence of float
+        Percentiles in [0, 100].
+
+    Returns
+    -------
+    numpy.ndarray, shape (len(q), ...)
+
+    References
+    ----------
+    R. J. Hyndman and Y. Fan, Am. Stat. 50, 361 (1996), definition 7.
+    """
+    v = np.asarray(values, dtype=float)
+    v = np.sort(np.where(np.isfinite(v), v, np.nan), axis=-1)  # NaN sorts last
+    n_f = np.sum(np.isfinite(v), axis=-1)
+    out = np.full((len(q),) + v.shape[:-1], np.nan)
+    has = n_f > 0
+    last = np.maximum(n_f - 1, 0)
+    for i, qq in enumerate(q):
+        pos = float(qq) / 100.0 * last
+        lo = np.floor(pos).astype(np.int64)
+        hi = np.minimum(lo + 1, last)
+        frac = pos - lo
+        a = np.take_along_axis(v, lo[..., None], axis=-1)[..., 0]
+        b = np.take_along_axis(v, hi[..., None], axis=-1)[..., 0]
+        with np.errstate(invalid="ignore"):
+            val = np.where(frac == 0.0, a, a + (b - a) * frac)
+        out[i] = np.where(has, val, np.nan)
+    return out
+
+
+# --------------------------------------------------------------------------- #
+# Preparation of the nominal inputs (once per shard)
+# --------------------------------------------------------------------------- #
+class _Prepared(NamedTuple):
+    ids: np.ndarray
+    input_hash: np.ndarray
+    vstart: np.ndarray          # (n+1,) valley offsets per entry
+    eps_par: np.ndarray
+    eps_bulk: np.ndarray
+    spacing: np.ndarray
+    r0_given: np.ndarray
+    scissor: np.ndarray
+    sig_eps: np.ndarray         # log-normal width
+    p_eps_lo: np.ndarray        # standard-normal CDF at the truncation point (0 = none)
+    sig_r0: np.ndarray
+    sig_scissor: np.ndarray     # eV
+    code: np.ndarray            # (V,) label code, lexical within the entry
+    is_cond: np.ndarray
+    inv: np.ndarray             # (V, 2, 2)
+    edges: np.ndarray           # (V, 2) filled edges at [target, bulk]
+    sig_mass: np.ndarray
+    sig_edge: np.ndarray        # eV
+    n_labels: int
+    kappa: float
+    r0_scale: float
+    temperature_k: float
+    ranking: Mapping
+
+
+def _given_or(values, default) -> np.ndarray:
+    v = np.asarray(values, dtype=float)
+    return np.where(np.isfinite(v), v, float(default))
+
+
+def _prepare(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping) -> _Prepared:
+    unc = settings["uncertainty"]
+    rk = settings["ranking"]
+    max_layers = int(settings["layers"]["max_layers"])
+    target = int(rk["target_layers"])
+    if not 1 <= target <= max_layers:
+        raise ValueError(f"ranking.target_layers = {target} is outside 1..layers.max_layers = {max_layers}")
+    env = settings["environments"][rk["environment"]]
+    kappa = (env["top"] + env["bottom"]) / 2
+    lay = np.array(list(range(1, max_layers + 1)) + [layer_model.BULK])
+
+    entries = entries.reset_index(drop=True)
+    n = len(entries)
+    ids = entries["entry_id"].to_numpy(dtype=object)
+    if pd.Index(ids).has_duplicates:
+        raise ValueError("entry_id values must be unique within a shard")
+
+    t = np.full((n, 3, 3), np.nan)
+    for name, i, j in TENSOR_COMPONENTS:
+        t[:, i, j] = t[:, j, i] = entries[f"eps_inf_{name}"].to_numpy(dtype=float)
+    eps = dielectric.layer_constants(t)
+    finite_t = np.all(np.isfinite(t), axis=(1, 2))
+    lam_min = np.full(n, np.nan)
+    if finite_t.any():
+        lam_min[finite_t] = np.linalg.eigvalsh(t[finite_t])[:, 0]
+    sig_eps = lognormal_sigma(_given_or(entries["eps_rel_unc"], unc["default_eps_rel"]))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z_lo = np.where((sig_eps > 0) & (lam_min > 0), np.log(1.0 / lam_min) / sig_eps, -np.inf)
+    p_eps_lo = special.ndtr(z_lo)
+
+    scissor = entries["scissor_ev"].to_numpy(dtype=float)
+    sc_unc = entries["scissor_unc_ev"].to_numpy(dtype=float)
+    sc_default = np.where(scissor != 0.0, float(unc["default_scissor_ev"]), 0.0)
+    sig_sc = np.where(np.isfinite(sc_unc), sc_unc, sc_default)
+
+    owner = pd.Index(ids).get_indexer(valleys["entry_id"])
+    keep = owner >= 0
+    vt = valleys[keep]
+    owner = owner[keep]
+    order = np.lexsort((vt["valley_index"].to_numpy(), owner))
+    vt = vt.iloc[order].reset_index(drop=True)
+    owner = owner[order]
+    counts = np.bincount(owner, minlength=n) if len(owner) else np.zeros(n, dtype=np.int64)
+    vstart = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+
+    # label codes: lexical order within each entry (shard-independent tie-breaking)
+    labels = vt["label"].astype(str).to_numpy()
+    code = np.zeros(len(vt), dtype=np.int64)
+    n_labels = 1
+    if len(vt):
+        _, lex = np.unique(labels, return_inverse=True)        # global lexical code
+        o2 = np.lexsort((lex, owner))
+        step = np.ones(len(vt), dtype=np.int64)
+        step[1:] = (owner[o2][1:] != owner[o2][:-1]) | (lex[o2][1:] != lex[o2][:-1])
+        dense = np.cumsum(step)
+        start = np.ones(len(vt), dtype=bool)
+        start[1:] = owner[o2][1:] != owner[o2][:-1]
+        base = np.maximum.accumulate(np.where(start, dense, 0))
+        code[o2] = dense - base                                 # dense rank within the entry
+        n_labels = int(code.max()) + 1
+
+    inv = np.empty((len(vt), 2, 2))
+    inv[:, 0, 0] = vt["inv_mass_xx"].to_numpy(dtype=float)
+    inv[:, 0, 1] = inv[:, 1, 0] = vt["inv_mass_xy"].to_numpy(dtype=float)
+    inv[:, 1, 1] = vt["inv_mass_yy"].to_numpy(dtype=float)
+    raw = vt[[edge_column(int(x)) for x in lay]].to_numpy(dtype=float).reshape(len(vt), len(lay))
+    fill = layer_model.fill_edges(raw, lay, fit_exponent=bool(settings["layers"]["fit_exponent"]))
+    edges = fill.filled_ev[:, [target - 1, len(lay) - 1]]
+
+    return _Prepared(
+        ids=ids, input_hash=entries["input_hash"].to_numpy(dtype=object), vstart=vstart,
+        eps_par=np.asarray(eps.eps_parallel, dtype=float), eps_bulk=np.asarray(eps.eps_bulk_effective, dtype=float),
+        spacing=entries["spacing_angstrom"].to_numpy(dtype=float),
+        r0_given=entries["r0_given_angstrom"].to_numpy(dtype=float), scissor=scissor,
+        sig_eps=sig_eps, p_eps_lo=p_eps_lo,
+        sig_r0=lognormal_sigma(_given_or(entries["r0_rel_unc"], unc["default_r0_rel"])),
+        sig_scissor=sig_sc, code=code, is_cond=(vt["band"] == "conduction").to_numpy(dtype=bool),
+        inv=inv, edges=edges,
+        sig_mass=lognormal_sigma(_given_or(vt["mass_rel_unc"], unc["default_mass_rel"])),
+        sig_edge=_given_or(vt["edge_unc_ev"], unc["default_edge_ev"]),
+        n_labels=n_labels, kappa=kappa,
+        r0_scale=float(target) if settings["monolayer"]["few_layer_r0_scaling"] else 1.0,
+        temperature_k=float(settings["survival"]["temperature_k"]), ranking=rk)
+
+
+def _truncate_below(z, p_lo):
+    """Map standard normals z to a standard normal truncated below at ndtri(p_lo) (exact inverse CDF).
+
+    Rows with p_lo == 0 are returned unchanged. Both tails are mapped through
+    the CDF on their own side, so no precision is lost for large |z|.
+    """
+    p = np.broadcast_to(p_lo[:, None], z.shape)
+    act = p > 0.0
+    if not act.any():
+        return z
+    out = z.copy()
+    za, pa = z[act], p[act]
+    upper = za > 0
+    res = np.empty_like(za)
+    res[upper] = -special.ndtri((1.0 - pa[upper]) * special.ndtr(-za[upper]))
+    res[~upper] = special.ndtri(pa[~upper] + (1.0 - pa[~upper]) * special.ndtr(za[~upper]))
+    out[act] = np.maximum(res, special.ndtri(pa))
+    return out
+
+
+def _pick(table, labels):
+    """table[c, labels[c, j]] for every compound c and column j; NaN where NO_LABEL."""
+    rows = np.arange(table.shape[0])[:, None]
+    safe = np.where(labels < 0, 0, labels)
+    out = table[rows, safe]
+    out[labels < 0] = np.nan
+    return out
+
+
+# --------------------------------------------------------------------------- #
+# One block of (entry x sample) cells
+# --------------------------------------------------------------------------- #
+def _evaluate_block(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, table) -> dict[str, np.ndarray]:
+    """Per-sample results for entries a..b-1; z_ent (3, E, S), z_mass/z_edge (V_block, S)."""
+    n_e = b - a
+    n_s = z_ent.shape[2]
+    n_c = n_e * n_s
+    k = np.diff(prep.vstart[a:b + 1])
+    off = prep.vstart[a:b] - prep.vstart[a]
+    v0 = prep.vstart[a]
+
+    # valleys repeated per sample, ordered (entry, sample, valley): owner sorted ascending
+    per_entry = k * n_s
+    ent = np.repeat(np.arange(n_e), per_entry)
+    first = np.repeat(np.cumsum(per_entry) - per_entry, per_entry)
+    r = np.arange(ent.size) - first
+    kk = k[ent]
+    s = r // np.maximum(kk, 1)
+    p = off[ent] + r % np.maximum(kk, 1)             # valley index within the block
+    gp = v0 + p                                       # valley index within the shard
+    owner = ent * n_s + s
+    edges = prep.edges[gp] + (prep.sig_edge[gp] * z_edge[p, s])[:, None]
+    f_mass = np.exp(prep.sig_mass[gp] * z_mass[p, s])
+    inv = prep.inv[gp] / f_mass[:, None, None]        # mass x f  <=>  inverse mass / f
+    code = prep.code[gp]
+    cond = prep.is_cond[gp]
+
+    sl = slice(a, b)
+    f_eps = np.exp(prep.sig_eps[sl, None] * _truncate_below(z_ent[0], prep.p_eps_lo[sl])).reshape(-1)
+    f_r0 = np.exp(prep.sig_r0[sl, None] * z_ent[1]).reshape(-1)
+    scissor = (prep.scissor[sl, None] + prep.sig_scissor[sl, None] * z_ent[2]).reshape(-1)
+    rep = np.repeat(np.arange(a, b), n_s)
+    eps_par = prep.eps_par[rep] * f_eps
+    eps_bulk = prep.eps_bulk[rep] * f_eps
+    r0_given = prep.r0_given[rep]
+    r0_1 = np.where(np.isfinite(r0_given), r0_given,
+                    keldysh.screening_length_from_bulk_angstrom(eps_par, prep.spacing[rep])) * f_r0
+
+    gc = layer_model.gap_character(owner, code, cond, edges, scissor_ev=scissor, n_compounds=n_c)
+
+    tab = np.full((2, n_c, prep.n_labels, 2, 2), np.nan)
+    tab[cond.astype(int), owner, code] = inv
+    w = _pick(tab[1], gc.direct_label) + _pick(tab[0], gc.direct_label)   # (C, 2, 2, 2)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mu = masses.inplane_average_mass_me(w)                              # (C, 2): target, bulk
+    kappa = np.full(n_c, prep.kappa)
+    eb = keldysh.keldysh_binding_ev(mu[:, 0], r0_1 * prep.r0_scale, kappa, table)
+    opt = layer_model.optical_gap_ev(gc.direct_gap_ev[:, 0], eb)
+    lam = layer_model.emission_wavelength_nm(opt)
+    bulk = hydrogenic.binding_3d_ev(mu[:, 1], eps_bulk)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        e_kt = survival.binding_over_kt(eb, prep.temperature_k)
+    crit = criteria(gc.is_direct[:, 0], gc.complete[:, 0], gc.direct_margin_ev[:, 0], e_kt, lam, prep.ranking)
+    out = {"target_binding_ev": eb, "target_optical_gap_ev": opt, "target_emission_nm": lam,
+           "bulk_binding_ev": bulk, "direct_target": gc.is_direct[:, 0] & gc.complete[:, 0], **crit}
+    return {key: np.asarray(v).reshape(n_e, n_s) for key, v in out.items()}
+
+
+def _blocks(n: int, samples: int, block_cells: int) -> Iterator[tuple[int, int, int, int]]:
+    if samples <= block_cells:
+        step = max(1, block_cells // samples)
+        for a in range(0, n, step):
+            yield a, min(a + step, n), 0, samples
+    else:
+        for e in range(n):
+            for s0 in range(0, samples, block_cells):
+                yield e, e + 1, s0, min(s0 + block_cells, samples)
+
+
+def _iter_entry_samples(prep: _Prepared, table, samples: int, seed: int,
+                        block_cells: int) -> Iterator[tuple[int, int, dict[str, np.ndarray]]]:
+    """Yield (a, b, per-sample arrays (b-a, samples)) for consecutive entry ranges."""
+    n = len(prep.ids)
+    gens: dict[int, np.random.Generator] = {}
+    pending: list[dict[str, np.ndarray]] = []
+    for a, b, s0, s1 in _blocks(n, samples, block_cells):
+        n_s = s1 - s0
+        k = np.diff(prep.vstart[a:b + 1])
+        z_ent = np.empty((3, b - a, n_s))
+        z_mass = np.empty((int(k.sum()), n_s))
+        z_edge = np.empty_like(z_mass)
+        pos = 0
+        for i, e in enumerate(range(a, b)):
+            if s0 == 0:
+                gens[e] = np.random.default_rng(entry_seed_sequence(seed, prep.ids[e]))
+            ke = int(k[i])
+            z = gens[e].standard_normal((n_s, 3 + 2 * ke))
+            z_ent[:, i, :] = z[:, :3].T
+            z_mass[pos:pos + ke] = z[:, 3:3 + ke].T
+            z_edge[pos:pos + ke] = z[:, 3 + ke:].T
+            pos += ke
+            if s1 == samples:
+                del gens[e]
+        res = _evaluate_block(prep, a, b, z_ent, z_mass, z_edge, table)
+        if s0 == 0 and s1 == samples:
+            yield a, b, res
+            continue
+        pending.append(res)
+        if s1 == samples:
+            yield a, b, {key: np.concatenate([r[key] for r in pending], axis=1) for key in res}
+            pending = []
+
+
+def _settings_samples_seed(settings: Mapping, samples: int | None, seed: int | None) -> tuple[int, int]:
+    unc = settings["uncertainty"]
+    return (int(unc["samples"]) if samples is None else int(samples),
+            int(unc["seed"]) if seed is None else int(seed))
+
+
+def propagate_samples(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping,
+                      table: keldysh.KeldyshTable, samples: int | None = None, seed: int | None = None,
+                      block_cells: int = BLOCK_CELLS) -> dict[str, np.ndarray]:
+    """Every Monte Carlo sample of every entry (for checks and small shards).
+
+    Parameters
+    ----------
+    entries, valleys : pandas.DataFrame
+        Normalised shard tables (:data:`flakelight.ingest.ENTRY_COLUMNS`,
+        :func:`flakelight.ingest.valley_columns`).
+    settings : mapping
+        Config sections uncertainty, survival, ranking, layers, monolayer,
+        environments.
+    table : flakelight.keldysh.KeldyshTable
+    samples, seed : int, optional
+        Override ``uncertainty.samples`` / ``uncertainty.seed``.
+    block_cells : int, optional
+        Memory bound (entry x sample cells per block); never changes results.
+
+    Returns
+    -------
+    dict
+        ``entry_id`` (n,) and, each of shape (n, samples): the
+        :data:`QUANTITIES` (eV or nm), ``direct_target``, ``pass_direct``,
+        ``pass_margin``, ``pass_binding``, ``pass_window``, ``meets_all``
+        (bool). Memory grows with n x samples; use
+        :func:`propagate_uncertainty` for large shards.
+
+    References
+    ----------
+    JCGM 101:2008 (propagation of distributions by Monte Carlo).
+    """
+    samples, seed = _settings_samples_seed(settings, samples, seed)
+    prep = _prepare(entries, valleys, settings)
+    parts = list(_iter_entry_samples(prep, table, samples, seed, block_cells)) if samples > 0 else []
+    out: dict[str, np.ndarray] = {"entry_id": prep.ids}
+    keys = list(QUANTITIES) + ["direct_target", "pass_direct", "pass_margin", "pass_binding",
+                               "pass_window", "meets_all"]
+    for key in keys:
+        dtype = float if key in QUANTITIES else bool
+        out[key] = (np.concatenate([p[2][key] for p in parts], axis=0) if parts
+                    else np.zeros((len(prep.ids), max(samples, 0)), dtype=dtype))
+    return out
+
+
+def propagate_uncertainty(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping,
+                          table: keldysh.KeldyshTable, samples: int | None = None, seed: int | None = None,
+                          block_cells: int = BLOCK_CELLS) -> pd.DataFrame:
+    """Per-entry percentiles and probabilities from a Monte Carlo over the input uncertainties.
+
+    Method, distributions, seeding and chunking: see the module docstring.
+
+    Parameters
+    ----------
+    entries, valleys : pandas.DataFrame
+        Normalised shard tables (:data:`flakelight.ingest.ENTRY_COLUMNS`,
+        :func:`flakelight.ingest.valley_columns`), including the uncertainty
+        columns ``eps_rel_unc``, ``r0_rel_unc``, ``scissor_unc_ev`` (entries)
+        and ``mass_rel_unc``, ``edge_unc_ev`` (valleys); NaN = not given.
+    settings : mapping
+        Config sections uncertainty (samples, seed, default_mass_rel,
+        default_eps_rel, default_edge_ev, default_r0_rel, default_scissor_ev),
+        survival, ranking, layers, monolayer, environments.
+    table : flakelight.keldysh.KeldyshTable
+        Rytova-Keldysh table of the keldysh_table rule.
+    samples, seed : int, optional
+        Override ``uncertainty.samples`` / ``uncertainty.seed``.
+    block_cells : int, optional
+        At most this many (entry x sample) cells are evaluated at once
+        (default :data:`BLOCK_CELLS`); it bounds memory and never changes results.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per entry, sorted by entry_id, columns :data:`OUTPUT_COLUMNS`:
+        ``entry_id``, ``input_hash``, ``<q>_p16``, ``<q>_p50``, ``<q>_p84`` for
+        q in :data:`QUANTITIES` (eV or nm), ``p_direct_target``,
+        ``p_meets_all``, ``p_pass_margin``, ``p_pass_binding``,
+        ``p_pass_window`` (fractions of samples), ``n_samples``, ``seed``.
+        With ``samples = 0`` the rows are present with NaN values and
+        ``n_samples = 0``.
+
+    References
+    ----------
+    JCGM 101:2008, *Supplement 1 to the GUM* (Monte Carlo propagation,
+    percentile coverage intervals).
+    """
+    samples, seed = _settings_samples_seed(settings, samples, seed)
+    if samples < 0:
+        raise ValueError("uncertainty.samples must be >= 0")
+    if block_cells < 1:
+        raise ValueError("block_cells must be >= 1")
+    prep = _prepare(entries, valleys, settings)
+    n = len(prep.ids)
+    stats = {c: np.full(n, np.nan) for c in OUTPUT_COLUMNS[2:-2]}
+    if samples > 0:
+        for a, b, res in _iter_entry_samples(prep, table, samples, seed, block_cells):
+            for name in QUANTITIES:
+                pct = row_percentiles(res[name], PERCENTILES)
+                for i, q in enumerate(PERCENTILES):
+                    stats[_pcol(name, q)][a:b] = pct[i]
+            stats["p_direct_target"][a:b] = res["direct_target"].mean(axis=1)
+            stats["p_meets_all"][a:b] = res["meets_all"].mean(axis=1)
+            for key in ("pass_margin", "pass_binding", "pass_window"):
+                stats[f"p_{key}"][a:b] = res[key].mean(axis=1)
+    frame = pd.DataFrame({
+        "entry_id": pd.Series(prep.ids, dtype=object),
+        "input_hash": pd.Series(prep.input_hash, dtype=object),
+        **{c: pd.Series(v, dtype="float64") for c, v in stats.items()},
+        "n_samples": pd.Series(np.full(n, samples), dtype="int32"),
+        "seed": pd.Series(np.full(n, seed), dtype="int64"),
+    })
+    return frame[OUTPUT_COLUMNS].sort_values("entry_id", kind="stable").reset_index(drop=True)
