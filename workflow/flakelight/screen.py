@@ -27,7 +27,7 @@ from typing import Mapping
 import numpy as np
 import pandas as pd
 
-from flakelight import dielectric, hydrogenic, keldysh, layers as layer_model, masses
+from flakelight import dielectric, hydrogenic, keldysh, layers as layer_model, masses, survival
 from flakelight.ingest import TENSOR_COMPONENTS, edge_column
 
 BULK = layer_model.BULK
@@ -56,7 +56,10 @@ for _name, _unit, _desc in [
     ("mu_large_me", "m_e", "larger principal in-plane reduced mass of the bright pair"),
     ("mu_dark_me", "m_e", "in-plane reduced mass of the fundamental (VBM, CBM) pair"),
     ("r0_angstrom", "Angstrom", "Rytova-Keldysh screening length of the N-layer stack"),
-    ("kappa", "1", "mean dielectric constant of the surroundings"),
+    ("kappa", "1", "mean dielectric constant of the surroundings (bulk rows: the crystal's sqrt(eps_par eps_perp))"),
+    ("mu_angle_deg", "deg", "angle of the light principal reduced-mass axis from the layer-frame x axis"),
+    ("binding_3s_ev", "eV", "3s binding energy (Rytova-Keldysh; 3D hydrogenic n=3 for bulk)"),
+    ("dark_exciton_ev", "eV", "fundamental gap - dark binding: energy of the momentum-dark exciton (indirect cases)"),
     ("binding_ev", "eV", "bright-exciton binding energy of the row's model (binding_model)"),
     ("binding_2s_ev", "eV", "2s binding energy (Rytova-Keldysh; 3D hydrogenic n=2 for bulk)"),
     ("radius_angstrom", "Angstrom", "exciton radius of the row's model (rms for Rytova-Keldysh, Bohr radius for bulk)"),
@@ -94,6 +97,10 @@ for _name, _unit, _desc in [
     ("quasi2d_binding_ev", "eV", "2D hydrogenic binding with the bulk constant (4x bulk)"),
     ("quasi2d_radius_angstrom", "Angstrom", "2D Bohr radius (1s decay length) with the bulk constant"),
     ("bulk_optical_gap_ev", "eV", "bulk direct gap - bulk binding"),
+    ("edge_fit_rms_ev", "eV", "largest rms residual of the layer-count confinement fit over the compound's valleys"),
+    ("binding_1l_ev", "eV", "monolayer Rytova-Keldysh binding in environment <env>"),
+    ("optical_gap_1l_ev", "eV", "monolayer bright exciton energy in environment <env>"),
+    ("emission_1l_nm", "nm", "monolayer emission wavelength in environment <env>"),
 ]:
     _col(_name, _unit, _desc)
 
@@ -193,11 +200,11 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
     mu = np.full(flat.shape[0], np.nan)
     mu_small = np.full(flat.shape[0], np.nan)
     mu_large = np.full(flat.shape[0], np.nan)
+    mu_angle = np.full(flat.shape[0], np.nan)
     if good.any():
         mu[good] = masses.inplane_average_mass_me(flat[good])
-        pm = masses.principal_masses(flat[good])
-        mu_small[good], mu_large[good] = pm[0], pm[1]
-    mu, mu_small, mu_large = (a.reshape(n, len(lay)) for a in (mu, mu_small, mu_large))
+        mu_small[good], mu_large[good], mu_angle[good] = masses.principal_masses(flat[good])
+    mu, mu_small, mu_large, mu_angle = (a.reshape(n, len(lay)) for a in (mu, mu_small, mu_large, mu_angle))
     flat_d = w_dark.reshape(-1, 2, 2)
     good_d = np.all(np.isfinite(flat_d), axis=(1, 2))
     mu_dark = np.full(flat_d.shape[0], np.nan)
@@ -235,6 +242,7 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
     mu_dark_n = np.broadcast_to(mu_dark[:, :-1, None], r0.shape)
     eb_rk = keldysh.keldysh_binding_ev(mu_n, r0, kap, table, state="1s")
     eb_rk2 = keldysh.keldysh_binding_ev(mu_n, r0, kap, table, state="2s")
+    eb_rk3 = keldysh.keldysh_binding_ev(mu_n, r0, kap, table, state="3s")
     rad_rk = keldysh.keldysh_radius_angstrom(mu_n, r0, kap, table, state="1s")
     eb_dark = keldysh.keldysh_binding_ev(mu_dark_n, r0, kap, table, state="1s")
     h_eps = float(settings["monolayer"]["hydrogenic_eps"])
@@ -255,21 +263,24 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
         "environment": np.broadcast_to(np.array(env_names, dtype=object)[None, None, :], r0.shape),
         "kappa": kap, "r0_angstrom": r0,
         "binding_model": np.full(r0.shape, "rytova-keldysh", dtype=object),
-        "binding_ev": eb_rk, "binding_2s_ev": eb_rk2, "radius_angstrom": rad_rk,
+        "binding_ev": eb_rk, "binding_2s_ev": eb_rk2, "binding_3s_ev": eb_rk3, "radius_angstrom": rad_rk,
         "binding_2d_hydrogenic_ev": eb_h2d, "binding_olsen_ev": eb_olsen, "binding_fractional_ev": eb_frac,
         "dark_binding_ev": np.where(gc_field(gc.is_direct), np.nan, eb_dark),
         "mu_inplane_me": mu_n, "mu_small_me": gc_field(mu_small), "mu_large_me": gc_field(mu_large),
+        "mu_angle_deg": gc_field(mu_angle),
         "mu_dark_me": mu_dark_n, "optical_gap_ev": opt_n,
     }
     bulk_rows = {
         "layers": np.full(n, BULK), "environment": np.full(n, BULK_ENVIRONMENT, dtype=object),
         "kappa": eps_bulk, "r0_angstrom": np.full(n, np.nan),
         "binding_model": bulk_model, "binding_ev": bulk_best, "binding_2s_ev": bulk_eb2,
+        "binding_3s_ev": hydrogenic.binding_3d_ev(mu_b, eps_bulk, n=3),
         "radius_angstrom": bulk_a, "binding_2d_hydrogenic_ev": q2d_eb, "binding_olsen_ev": np.full(n, np.nan),
         "binding_fractional_ev": np.full(n, np.nan),
         "dark_binding_ev": np.where(gc.is_direct[:, jb], np.nan,
                                     hydrogenic.binding_3d_ev(mu_dark[:, jb], eps_bulk)),
         "mu_inplane_me": mu_b, "mu_small_me": mu_small[:, jb], "mu_large_me": mu_large[:, jb],
+        "mu_angle_deg": mu_angle[:, jb],
         "mu_dark_me": mu_dark[:, jb],
         "optical_gap_ev": layer_model.optical_gap_ev(gc.direct_gap_ev[:, jb], bulk_best),
     }
@@ -300,6 +311,7 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
     long["emission_band"] = layer_model.spectral_band(long["emission_nm"].to_numpy(dtype=float), bands) \
         if len(long) else np.zeros(0, dtype=object)
     long["mott_density_per_cm2"] = _mott(long)
+    long["dark_exciton_ev"] = long["fundamental_gap_ev"] - long["dark_binding_ev"]
     order_key = np.where(long["layers"].to_numpy() == BULK, 10_000, long["layers"].to_numpy())
     env_rank = {e: i for i, e in enumerate(env_names + [BULK_ENVIRONMENT])}
     long = long.assign(_l=order_key, _e=long["environment"].map(env_rank).astype(int)) \
@@ -334,21 +346,25 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
         "bulk_binding_ev": bulk_eb, "bulk_radius_angstrom": bulk_a, "bulk_binding_aniso_ev": bulk_aniso,
         "quasi2d_binding_ev": q2d_eb, "quasi2d_radius_angstrom": q2d_a,
         "bulk_optical_gap_ev": bulk_rows["optical_gap_ev"],
+        "edge_fit_rms_ev": _per_compound_max(fill.residual_ev, owner, n),
         "warnings": entries["warnings"].to_numpy(dtype=object),
     })
     for e, name in enumerate(env_names):
         wide[f"binding_1l_ev__{name}"] = eb_rk[:, 0, e]
         wide[f"optical_gap_1l_ev__{name}"] = opt_n[:, 0, e]
         wide[f"emission_1l_nm__{name}"] = layer_model.emission_wavelength_nm(opt_n[:, 0, e])
-    for name in ("binding_1l_ev", "optical_gap_1l_ev", "emission_1l_nm"):
-        UNITS.setdefault(name, "nm" if name.endswith("_nm") else "eV")
     wide = wide.sort_values("entry_id", kind="stable").reset_index(drop=True)
     return long, wide
 
 
-def _mott(long: pd.DataFrame) -> np.ndarray:
-    from flakelight import survival
+def _per_compound_max(values: np.ndarray, owner: np.ndarray, n: int) -> np.ndarray:
+    """Largest finite value per compound (NaN for a compound without any)."""
+    out = np.full(n, -np.inf)
+    np.maximum.at(out, owner, np.where(np.isfinite(values), values, -np.inf))
+    return np.where(np.isfinite(out), out, np.nan)
 
+
+def _mott(long: pd.DataFrame) -> np.ndarray:
     return survival.mott_density_2d_per_cm2(long["radius_angstrom"].to_numpy(dtype=float))
 
 

@@ -1,0 +1,241 @@
+"""Crash-resume, determinism and selective re-runs of the workflow through Snakemake's CLI.
+
+* Kill: the workflow is started with ``subprocess.Popen`` in its own process
+  group on a 40-record, 4-shard campaign and the whole group is SIGKILLed at a
+  point (after 1 s, after 3 s, once the first shard table exists). Right after
+  the kill every ``.parquet`` under results/ must be readable (writes are
+  atomic); after ``--unlock`` and a re-run with ``--rerun-incomplete`` the final
+  tables must equal those of an uninterrupted run and no temporary ``*.part``
+  file may be left behind.
+* Determinism: two runs from scratch in separate working directories, on
+  separate copies of the campaign, give identical tables (the manifest is not
+  compared: it carries a timestamp).
+* Selective re-runs (dry runs, parsed from ``snakemake -n`` output): revising
+  one record schedules only its shard's screen_shard job plus downstream
+  aggregation; changing only ``survival.temperature_k`` schedules no
+  screen_shard job at all.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import shutil
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pandas as pd
+import pyarrow.parquet as pq
+import pytest
+import yaml
+
+from flakelight import sharding
+
+REPO = Path(__file__).resolve().parents[2]
+SNAKEMAKE = [sys.executable, "-m", "snakemake"]
+TARGETS = ("results/manifest.json", "results/shortlist.csv")
+TABLES = ("entries", "valleys", "rejects", "screen_long", "screen_wide")
+N_RECORDS = 40
+N_SHARDS = 4
+#: Jobs allowed downstream of the shards (aggregation, manifest, report, per-shard uncertainty).
+DOWNSTREAM = {"rank_candidates", "write_manifest", "write_summary", "propagate_shard"}
+
+pytestmark = pytest.mark.slow
+
+
+def command(workdir: Path, *args: str, configfile: str = "config.yaml") -> list[str]:
+    return SNAKEMAKE + ["-s", str(REPO / "Snakefile"), "--directory", str(workdir),
+                        "--configfile", str(workdir / configfile), "--cores", "2", *args]
+
+
+def snakemake(workdir: Path, *args: str, configfile: str = "config.yaml") -> subprocess.CompletedProcess:
+    res = subprocess.run(command(workdir, *args, configfile=configfile), capture_output=True, text=True,
+                         cwd=workdir, timeout=900, check=False)
+    if res.returncode != 0:
+        logs = [f"--- {p}\n{p.read_text(errors='replace')[-3000:]}"
+                for p in sorted((workdir / "results" / "logs").rglob("*.log"))
+                if "Traceback" in p.read_text(errors="replace")]
+        raise AssertionError(f"snakemake {' '.join(args)} failed ({res.returncode}):\n"
+                             f"{res.stdout[-3000:]}\n{res.stderr[-5000:]}\n" + "\n".join(logs))
+    return res
+
+
+def write_config(workdir: Path, campaign: Path, name: str = "config.yaml", **changes) -> dict:
+    config = yaml.safe_load((REPO / "config" / "config.yaml").read_text())
+    config["campaign"] = str(campaign)
+    config["sharding"]["shards"] = N_SHARDS
+    config["uncertainty"]["samples"] = 50
+    for section, values in changes.items():
+        config[section].update(values)
+    workdir.mkdir(parents=True, exist_ok=True)
+    (workdir / name).write_text(yaml.safe_dump(config))
+    return config
+
+
+def read_tables(workdir: Path) -> dict[str, pd.DataFrame]:
+    return {name: pd.read_parquet(workdir / "results" / "tables" / f"{name}.parquet") for name in TABLES}
+
+
+def assert_tables_equal(got: dict[str, pd.DataFrame], want: dict[str, pd.DataFrame]) -> None:
+    for name in TABLES:
+        pd.testing.assert_frame_equal(got[name], want[name], check_exact=True, obj=name)
+
+
+def parquet_damage(results: Path) -> list[str]:
+    """Unreadable .parquet files under results/ (a kill must never leave a partial table)."""
+    bad = []
+    for path in sorted(results.rglob("*.parquet")):
+        try:
+            pq.read_table(path)
+        except Exception as exc:  # noqa: BLE001 - any failure to read is damage
+            bad.append(f"{path.relative_to(results)}: {exc}")
+    return bad
+
+
+def temp_leftovers(results: Path) -> list[str]:
+    return sorted(str(p.relative_to(results)) for p in results.rglob("*.part"))
+
+
+def planned_jobs(output: str) -> set[tuple[str, str]]:
+    """(rule, shard or '') of every job a ``snakemake -n`` run lists."""
+    jobs, rule = set(), None
+    for line in output.splitlines():
+        m = re.match(r"^\s*(?:local)?rule (\w+):\s*$", line)
+        if m:
+            if rule is not None:
+                jobs.add((rule, ""))
+            rule = m.group(1)
+            continue
+        m = re.match(r"^\s*wildcards: .*\bshard=(\d+)", line)
+        if m and rule is not None:
+            jobs.add((rule, m.group(1)))
+            rule = None
+    if rule is not None:
+        jobs.add((rule, ""))
+    # a rule seen once with and once without a shard is the same job
+    return {j for j in jobs if j[1] or not any(k[0] == j[0] and k[1] for k in jobs)}
+
+
+@pytest.fixture(scope="module")
+def campaign(tmp_path_factory) -> Path:
+    out = tmp_path_factory.mktemp("campaign") / "c40"
+    subprocess.run([sys.executable, str(REPO / "inputs" / "make_campaign.py"), "--out", str(out),
+                    "--count", str(N_RECORDS), "--no-broken", "--cif-fraction", "0.1", "--seed", "11"],
+                   check=True, capture_output=True)
+    return out
+
+
+@pytest.fixture(scope="module")
+def reference(tmp_path_factory, campaign) -> tuple[Path, dict[str, pd.DataFrame]]:
+    """An uninterrupted run; its tables are read at once (later tests must not change them)."""
+    work = tmp_path_factory.mktemp("reference")
+    write_config(work, campaign)
+    snakemake(work, *TARGETS)
+    return work, read_tables(work)
+
+
+def _wait_for(condition, timeout: float) -> bool:
+    end = time.monotonic() + timeout
+    while time.monotonic() < end:
+        if condition():
+            return True
+        time.sleep(0.05)
+    return False
+
+
+KILL_POINTS = {
+    "after-1s": lambda work: False,
+    "after-3s": lambda work: False,
+    "first-shard-output": lambda work: any((work / "results" / "shards").glob("*/*.parquet")),
+}
+KILL_DELAYS = {"after-1s": 1.0, "after-3s": 3.0, "first-shard-output": 120.0}
+
+
+@pytest.mark.parametrize("point", list(KILL_POINTS))
+def test_sigkill_then_resume_gives_the_same_tables(point, tmp_path, campaign, reference):
+    work = tmp_path / "work"
+    write_config(work, campaign)
+    proc = subprocess.Popen(command(work, *TARGETS), cwd=work, stdout=subprocess.DEVNULL,
+                            stderr=subprocess.DEVNULL, start_new_session=True)
+    try:
+        hit = _wait_for(lambda: KILL_POINTS[point](work) or proc.poll() is not None, KILL_DELAYS[point])
+        assert proc.poll() is None, f"the run ended (exit {proc.returncode}) before the kill point {point}"
+        if point == "first-shard-output":
+            assert hit, "no shard table appeared"
+        os.killpg(proc.pid, signal.SIGKILL)
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+        proc.wait(timeout=60)
+    results = work / "results"
+    assert not parquet_damage(results), parquet_damage(results)
+
+    snakemake(work, "--unlock")
+    snakemake(work, "--rerun-incomplete", *TARGETS)
+    assert_tables_equal(read_tables(work), reference[1])
+    assert not parquet_damage(results), parquet_damage(results)
+    assert not temp_leftovers(results), f"temporary files left behind: {temp_leftovers(results)}"
+
+
+@pytest.fixture(scope="module")
+def second_run(tmp_path_factory, campaign) -> tuple[Path, Path, dict[str, pd.DataFrame]]:
+    """A second run from scratch: own working directory, own copy of the campaign."""
+    base = tmp_path_factory.mktemp("second")
+    copy = base / "campaign-copy"
+    shutil.copytree(campaign, copy)
+    work = base / "work"
+    write_config(work, copy)
+    snakemake(work, *TARGETS)
+    return work, copy, read_tables(work)
+
+
+def test_two_runs_from_scratch_give_identical_tables(reference, second_run):
+    assert_tables_equal(second_run[2], reference[1])
+
+
+def test_noop_rerun_schedules_nothing(second_run):
+    work, _, _ = second_run
+    res = snakemake(work, "-n", *TARGETS)
+    assert planned_jobs(res.stdout + res.stderr) == set(), res.stdout + res.stderr
+
+
+def test_revising_one_record_reruns_only_its_shard(second_run):
+    work, campaign, before = second_run
+    path = sorted((campaign / "entries").glob("*.json"))[N_RECORDS // 2]
+    record = json.loads(path.read_text())
+    record["valleys"][0]["mass"]["isotropic_me"] = round(record["valleys"][0]["mass"]["isotropic_me"] * 1.25, 4)
+    path.write_text(json.dumps(record, indent=1) + "\n")
+    shard = sharding.shard_name(sharding.shard_of(path.stem, N_SHARDS))
+
+    res = snakemake(work, "-n", *TARGETS)
+    jobs = planned_jobs(res.stdout + res.stderr)
+    assert {j for j in jobs if j[0] == "screen_shard"} == {("screen_shard", shard)}, jobs
+    assert ("rank_candidates", "") in jobs
+    assert {rule for rule, _ in jobs} <= {"screen_shard"} | DOWNSTREAM, jobs
+    assert all(s in ("", shard) for _, s in jobs), jobs
+
+    # and the real re-run changes that record only
+    snakemake(work, *TARGETS)
+    after = read_tables(work)
+    for name in ("entries", "screen_wide", "screen_long", "valleys"):
+        old = before[name][before[name]["entry_id"] != path.stem].reset_index(drop=True)
+        new = after[name][after[name]["entry_id"] != path.stem].reset_index(drop=True)
+        pd.testing.assert_frame_equal(new, old, check_exact=True, obj=name)
+    changed = after["valleys"][after["valleys"]["entry_id"] == path.stem]
+    assert not changed.equals(before["valleys"][before["valleys"]["entry_id"] == path.stem])
+
+
+def test_temperature_change_reranks_without_rescreening(second_run):
+    work, campaign, _ = second_run
+    snakemake(work, *TARGETS)  # up to date first, whatever ran before
+    config = write_config(work, campaign, name="config-77k.yaml", survival={"temperature_k": 77.0})
+    assert config["survival"]["temperature_k"] == 77.0
+    res = snakemake(work, "-n", *TARGETS, configfile="config-77k.yaml")
+    jobs = planned_jobs(res.stdout + res.stderr)
+    assert not {j for j in jobs if j[0] in ("screen_shard", "keldysh_table")}, jobs
+    assert ("rank_candidates", "") in jobs, res.stdout + res.stderr
+    assert {rule for rule, _ in jobs} <= DOWNSTREAM, jobs
