@@ -7,9 +7,9 @@
   atomic); after ``--unlock`` and a re-run with ``--rerun-incomplete`` the final
   tables must equal those of an uninterrupted run and no temporary ``*.part``
   file may be left behind.
-* Determinism: two runs from scratch in separate working directories, on
-  separate copies of the campaign, give identical tables (the manifest is not
-  compared: it carries a timestamp).
+* Determinism: two runs from scratch in separate working directories (each with
+  its own copy of the campaign, named relative to the working directory) give
+  identical tables (the manifest is not compared: it carries a timestamp).
 * Selective re-runs (dry runs, parsed from ``snakemake -n`` output): revising
   one record schedules only its shard's screen_shard job plus downstream
   aggregation; changing only ``survival.temperature_k`` schedules no
@@ -65,8 +65,12 @@ def snakemake(workdir: Path, *args: str, configfile: str = "config.yaml") -> sub
 
 
 def write_config(workdir: Path, campaign: Path, name: str = "config.yaml", **changes) -> dict:
+    """Config of a run in ``workdir``; the campaign is copied to ``workdir/campaign`` (once) and
+    named relative to the working directory, so every run has the same config and config hash."""
     config = yaml.safe_load((REPO / "config" / "config.yaml").read_text())
-    config["campaign"] = str(campaign)
+    if not (workdir / "campaign").exists():
+        shutil.copytree(campaign, workdir / "campaign")
+    config["campaign"] = "campaign"
     config["sharding"]["shards"] = N_SHARDS
     config["uncertainty"]["samples"] = 50
     for section, values in changes.items():
@@ -184,13 +188,10 @@ def test_sigkill_then_resume_gives_the_same_tables(point, tmp_path, campaign, re
 @pytest.fixture(scope="module")
 def second_run(tmp_path_factory, campaign) -> tuple[Path, Path, dict[str, pd.DataFrame]]:
     """A second run from scratch: own working directory, own copy of the campaign."""
-    base = tmp_path_factory.mktemp("second")
-    copy = base / "campaign-copy"
-    shutil.copytree(campaign, copy)
-    work = base / "work"
-    write_config(work, copy)
+    work = tmp_path_factory.mktemp("second") / "work"
+    write_config(work, campaign)
     snakemake(work, *TARGETS)
-    return work, copy, read_tables(work)
+    return work, work / "campaign", read_tables(work)
 
 
 def test_two_runs_from_scratch_give_identical_tables(reference, second_run):

@@ -76,7 +76,7 @@ def test_rows_are_traceable(small_run):
     for col in ("input_hash", "physics_hash", "code_version", "config_hash"):
         assert long[col].notna().all() and (long[col].str.len() > 0).all(), col
     assert (long["config_hash"] == manifest["config_hash"]).all()
-    assert (long["code_version"] == manifest["code_version"]).all()
+    assert (long["code_version"] == manifest["screen_code_version"]).all()
     assert len(manifest["inputs"]["entries"]) == 19
     assert manifest["packages"]["snakemake"]
 

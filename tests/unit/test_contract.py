@@ -143,3 +143,18 @@ def test_read_record_accepts_bom(tmp_path, record):
     path = tmp_path / "fixture-a.json"
     path.write_bytes(b"\xef\xbb\xbf" + json.dumps(record).encode())
     assert io.read_record(path).data == record
+
+
+@pytest.mark.parametrize("case, mutate, field, words", CASES, ids=[c[0] for c in CASES])
+def test_compiled_gate_agrees_with_jsonschema(checker, record, case, mutate, field, words):
+    """The compiled fast path and the jsonschema reference give the same verdict on every case."""
+    mutate(record)
+    reference = not list(checker._validator.iter_errors(record))
+    assert checker.is_schema_valid(record) == reference
+
+
+@pytest.mark.parametrize("value", [True, None, "1", [1], {"a": 1}, 1e308])
+def test_gate_agrees_on_types(checker, record, value):
+    record["scissor_ev"] = value
+    reference = not list(checker._validator.iter_errors(record))
+    assert checker.is_schema_valid(record) == reference

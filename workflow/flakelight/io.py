@@ -226,6 +226,19 @@ def write_json(obj: Any, path: str | os.PathLike) -> None:
     write_text(json.dumps(obj, indent=2, sort_keys=True, default=_json_default) + "\n", path)
 
 
+def copy_file(source: str | os.PathLike, target: str | os.PathLike) -> None:
+    """Copy a file atomically (temporary file plus rename)."""
+    import shutil
+
+    target, tmp = _atomic_target(target)
+    try:
+        shutil.copyfile(source, tmp)
+        os.replace(tmp, target)
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+
+
 def read_json(path: str | os.PathLike) -> Any:
     """Read a JSON file written by :func:`write_json`."""
     with open(path, encoding="utf-8") as fh:

@@ -26,7 +26,7 @@ from typing import Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from flakelight import contract, ingest, io, screen, structure
+from flakelight import SHARD_MODULES, contract, ingest, io, screen, structure
 from flakelight.keldysh import KeldyshTable
 
 log = logging.getLogger("flakelight")
@@ -110,7 +110,7 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
     Returns counts of screened, rejected and reused records.
     """
     stamps = {"physics_hash": io.canonical_json_hash(dict(settings))[:16],
-              "code_version": io.library_digest()}
+              "code_version": io.library_digest([f"{m}.py" for m in SHARD_MODULES])}
     max_layers = settings["layers"]["max_layers"]
     structures_dir = Path(campaign) / "structures"
     checker = contract.RecordChecker(io.load_schema("entry.schema.json"))
@@ -207,9 +207,8 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
     for name, frame in tables.items():
         io.write_parquet(frame, outputs[name], units=screen.units_for(frame.columns),
                          descriptions=screen.DESCRIPTIONS, table_metadata=stamps)
-    cache_path = Path(cache_dir)
-    for name, frame in tables.items():
-        io.write_parquet(frame, cache_path / f"{name}.parquet", table_metadata=stamps)
+    for name in tables:
+        io.copy_file(outputs[name], Path(cache_dir) / f"{name}.parquet")
     if len(memo) != memo_size:
         io.write_json({"code_version": stamps["code_version"], "analyses": memo}, memo_path)
     counts = {"screened": int(len(tables["entries"])),
@@ -328,6 +327,7 @@ def write_manifest(entry_paths: Sequence[str], structure_paths: Sequence[str], w
         "tool": "flakelight",
         "written_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
         "code_version": io.library_digest(),
+        "screen_code_version": io.library_digest([f"{m}.py" for m in SHARD_MODULES]),
         "git": git_version(workdir),
         "config_hash": config_hash,
         "config": dict(config),

@@ -5,6 +5,7 @@ from pathlib import Path
 from snakemake.utils import validate
 
 sys.path.insert(0, str(Path(workflow.basedir) / "workflow"))
+from flakelight import SHARD_MODULES  # noqa: E402
 from flakelight.sharding import shard_name, shard_of  # noqa: E402
 
 
@@ -53,11 +54,8 @@ def shard_entries(wildcards):
 
 def library_files(*modules):
     """Library source files a rule imports, declared as inputs so code changes re-run it."""
-    return [str(LIBRARY / f"{m}.py") for m in ("__init__", "units", "io") + modules]
-
-
-PHYSICS_MODULES = ("contract", "sharding", "structure", "bandfit", "dielectric", "masses",
-                   "hydrogenic", "keldysh", "layers", "ingest", "screen", "pipeline")
+    names = dict.fromkeys(("__init__", "units", "io") + modules)
+    return [str(LIBRARY / f"{m}.py") for m in names]
 
 
 def physics_settings():

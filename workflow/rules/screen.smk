@@ -8,7 +8,7 @@ rule screen_shard:
         entries=shard_entries,
         structures=structure_files(),
         table=rules.keldysh_table.output[0],
-        code=library_files(*PHYSICS_MODULES),
+        code=library_files(*SHARD_MODULES),
     output:
         entries="results/shards/{shard}/entries.parquet",
         valleys="results/shards/{shard}/valleys.parquet",

@@ -72,7 +72,8 @@ wait_for() {
     shift 3
     local pid
     pid="$(cat "$state/pids/$name.pid")"
-    for ((i = 0; i < limit * 2; i++)); do
+    local deadline=$((SECONDS + limit))
+    while ((SECONDS < deadline)); do
         if "$@" >/dev/null 2>&1; then
             return 0
         fi

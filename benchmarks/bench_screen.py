@@ -1,0 +1,261 @@
+"""Benchmark the whole screen: Snakemake runs against the bare in-process lower bound.
+
+Run from the repository root (a script, never a test; nothing here asserts):
+
+    .venv/bin/python benchmarks/bench_screen.py                      # 1k and 10k, 4 shards
+    .venv/bin/python benchmarks/bench_screen.py --sizes 1000 10000 100000 --shards 8
+
+For each campaign size N it
+
+1. generates N synthetic records (inputs/make_campaign.py --no-broken --cif-fraction 0);
+2. times a full screen through the Snakemake CLI (``--cores 2``; targets
+   results/tables/screen_wide.parquet results/shortlist.csv) in a fresh working
+   directory, including the Keldysh table build;
+3. times a no-op re-run, then a re-run after revising one record (one mass changed);
+4. times the bare lower bound: one Python process that builds the Keldysh table,
+   calls ``flakelight.pipeline.run_shard`` on all records at once and then
+   ``pipeline.run_rank`` (no Snakemake, no sharding);
+5. records peak memory two ways: the largest single process (``/usr/bin/time -v``,
+   i.e. ``ru_maxrss`` of the waited process tree; install with ``apt-get install
+   time``) and the sum of RSS over the process tree sampled every 0.1 s
+   (``psutil``; may miss peaks shorter than that).
+
+Results are printed as a Markdown table and written to ``<out>/bench_screen.json``;
+working folders live under ``--out`` (default benchmarks/out/, ignored by git) and
+are removed unless ``--keep``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import platform
+import shutil
+import subprocess
+import sys
+import threading
+import time
+from pathlib import Path
+
+import psutil
+import yaml
+
+ROOT = Path(__file__).resolve().parents[1]
+PYTHON = sys.executable
+TARGETS = ("results/tables/screen_wide.parquet", "results/shortlist.csv")
+
+BARE = r"""
+import sys, time, json
+from pathlib import Path
+sys.path.insert(0, sys.argv[1])
+from flakelight import pipeline, io
+cfg = json.loads(Path(sys.argv[2]).read_text())
+work = Path(sys.argv[3])
+entries = sorted(str(p) for p in (Path(cfg["campaign"]) / "entries").glob("*.json"))
+t0 = time.perf_counter()
+pipeline.build_keldysh_table(str(work / "keldysh_table.npz"))
+t1 = time.perf_counter()
+keys = ("layers", "structure", "environments", "monolayer", "emission_bands")
+shard = {n: str(work / "shard" / f"{n}.parquet") for n in pipeline.SHARD_TABLES}
+pipeline.run_shard(entries, cfg["campaign"], {k: cfg[k] for k in keys}, str(work / "keldysh_table.npz"),
+                   str(work / "cache"), shard)
+t2 = time.perf_counter()
+inputs = {"entries": [shard["entries"]], "valleys": [shard["valleys"]], "rejects": [shard["rejects"]],
+          "long": [shard["long"]], "wide": [shard["wide"]]}
+outputs = {n: str(work / "tables" / f"{n}.parquet") for n in ("entries", "valleys", "rejects", "long", "wide")}
+outputs.update(rejects_csv=str(work / "tables" / "rejects.csv"), shortlist=str(work / "shortlist.csv"))
+pipeline.run_rank(inputs, outputs, {k: cfg[k] for k in ("survival", "ranking", "environments")},
+                  io.canonical_json_hash(cfg)[:16])
+t3 = time.perf_counter()
+print(json.dumps({"table_s": t1 - t0, "shard_s": t2 - t1, "rank_s": t3 - t2}))
+"""
+
+
+class TreeSampler:
+    """Peak of the summed RSS of a process and all its descendants, sampled periodically."""
+
+    def __init__(self, pid: int, interval: float = 0.1):
+        self.pid, self.interval, self.peak = pid, interval, 0
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._run, daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        try:
+            root = psutil.Process(self.pid)
+        except psutil.NoSuchProcess:
+            return
+        while not self._stop.is_set():
+            total = 0
+            try:
+                procs = [root] + root.children(recursive=True)
+            except psutil.NoSuchProcess:
+                break
+            for p in procs:
+                try:
+                    total += p.memory_info().rss
+                except (psutil.NoSuchProcess, psutil.AccessDenied):
+                    pass
+            self.peak = max(self.peak, total)
+            self._stop.wait(self.interval)
+
+    def stop(self) -> int:
+        self._stop.set()
+        self._thread.join()
+        return self.peak
+
+
+def timed(cmd: list[str], cwd: Path, log: Path) -> dict:
+    """Wall time, summed-RSS peak and largest-process peak of one command (raises on failure).
+
+    The largest single process comes from GNU time (``/usr/bin/time -v``: the
+    ``ru_maxrss`` of wait4, the maximum over the waited process tree), when installed.
+    """
+    gnu_time = shutil.which("time", path="/usr/bin:/bin")
+    rusage = log.with_suffix(".time")
+    full = [gnu_time, "-v", "-o", str(rusage), *cmd] if gnu_time else cmd
+    t0 = time.perf_counter()
+    with open(log, "w") as fh:
+        proc = subprocess.Popen(full, cwd=cwd, stdout=fh, stderr=subprocess.STDOUT)
+        sampler = TreeSampler(proc.pid)
+        rc = proc.wait()
+        peak_sum = sampler.stop()
+    wall = time.perf_counter() - t0
+    if rc != 0:
+        raise RuntimeError(f"{' '.join(cmd)} failed with exit {rc}; see {log}")
+    single = None
+    if gnu_time and rusage.exists():
+        for line in rusage.read_text().splitlines():
+            if "Maximum resident set size" in line:
+                single = int(line.rsplit(":", 1)[1]) / 1024  # kB -> MiB
+    return {"wall_s": wall, "peak_sum_mib": peak_sum / 2**20, "peak_single_mib": single,
+            "stdout": log.read_text()}
+
+
+def snakemake_cmd(work: Path) -> list[str]:
+    return [PYTHON, "-m", "snakemake", "-s", str(ROOT / "Snakefile"), "--directory", str(work),
+            "--configfile", str(work / "config.yaml"), "--cores", "2", *TARGETS]
+
+
+def revise_one(campaign: Path) -> str:
+    """Rewrite one record with a changed mass; return its stem."""
+    files = sorted((campaign / "entries").glob("*.json"))
+    path = files[len(files) // 2]
+    record = json.loads(path.read_text())
+    mass = record["valleys"][0]["mass"]
+    mass["isotropic_me"] = round(mass["isotropic_me"] * 1.1, 4)
+    path.write_text(json.dumps(record, indent=1) + "\n")
+    return path.stem
+
+
+def job_seconds(work: Path) -> dict:
+    """Sum of the per-job wall times Snakemake's benchmark: files recorded, per rule."""
+    out: dict[str, float] = {}
+    for tsv in (work / "results" / "benchmarks").rglob("*.tsv"):
+        lines = tsv.read_text().splitlines()
+        if len(lines) >= 2:
+            out[tsv.parent.name] = out.get(tsv.parent.name, 0.0) + float(lines[-1].split("\t")[0])
+    return out
+
+
+def bench_size(n: int, shards: int, out: Path) -> dict:
+    base = out / f"n{n}"
+    if base.exists():
+        shutil.rmtree(base)
+    base.mkdir(parents=True)
+    campaign = base / "campaign"
+    t0 = time.perf_counter()
+    subprocess.run([PYTHON, str(ROOT / "inputs" / "make_campaign.py"), "--out", str(campaign), "--count", str(n),
+                    "--no-broken", "--cif-fraction", "0"], check=True)
+    generate_s = time.perf_counter() - t0
+
+    config = yaml.safe_load((ROOT / "config" / "config.yaml").read_text())
+    config["campaign"] = str(campaign)
+    config["sharding"]["shards"] = shards
+    work = base / "work"
+    work.mkdir()
+    (work / "config.yaml").write_text(yaml.safe_dump(config))
+
+    row: dict = {"n": n, "shards": shards, "generate_s": generate_s}
+    print(f"[n={n}] full screen ...", flush=True)
+    full = timed(snakemake_cmd(work), work, base / "full.log")
+    row["full"] = {k: v for k, v in full.items() if k != "stdout"}
+    row["full_jobs_s"] = job_seconds(work)
+    print(f"[n={n}] no-op re-run ...", flush=True)
+    noop = timed(snakemake_cmd(work), work, base / "noop.log")
+    row["noop"] = {k: v for k, v in noop.items() if k != "stdout"}
+    stem = revise_one(campaign)
+    print(f"[n={n}] re-run after revising {stem} ...", flush=True)
+    rev = timed(snakemake_cmd(work), work, base / "revise.log")
+    row["revise"] = {k: v for k, v in rev.items() if k != "stdout"}
+    row["revise_jobs_s"] = {k: v - row["full_jobs_s"].get(k, 0.0) for k, v in job_seconds(work).items()}
+
+    print(f"[n={n}] bare lower bound ...", flush=True)
+    bare_dir = base / "bare"
+    bare_dir.mkdir()
+    (bare_dir / "config.json").write_text(json.dumps(config))
+    (bare_dir / "bare.py").write_text(BARE)
+    bare = timed([PYTHON, str(bare_dir / "bare.py"), str(ROOT / "workflow"), str(bare_dir / "config.json"),
+                  str(bare_dir)], bare_dir, base / "bare.log")
+    row["bare"] = {k: v for k, v in bare.items() if k != "stdout"}
+    row["bare"].update(json.loads(bare["stdout"].strip().splitlines()[-1]))
+    row["ratios"] = {"full_over_bare": full["wall_s"] / bare["wall_s"],
+                     "revise_over_full": rev["wall_s"] / full["wall_s"],
+                     "noop_over_full": noop["wall_s"] / full["wall_s"]}
+    return row
+
+
+def machine() -> dict:
+    model = "unknown"
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("model name"):
+                model = line.split(":", 1)[1].strip()
+                break
+    except OSError:
+        pass
+    from importlib import metadata
+
+    return {"nproc": os.cpu_count(), "cpu": model, "ram_gib": round(psutil.virtual_memory().total / 2**30, 1),
+            "python": platform.python_version(), "snakemake": metadata.version("snakemake"),
+            "os": platform.platform()}
+
+
+def table(rows: list[dict]) -> str:
+    head = ("| records | shards | full screen (s) | bare bound (s) | full / bare | no-op re-run (s) | no-op / full "
+            "| revise-one re-run (s) | revise / full | peak RSS, sum (MiB) | peak RSS, largest process (MiB) |")
+    lines = [head, "|" + "---|" * 11]
+    for r in rows:
+        peak = max(r["full"]["peak_sum_mib"], r["bare"]["peak_sum_mib"])
+        single = max(x for x in (r["full"]["peak_single_mib"], r["bare"]["peak_single_mib"], 0) if x)
+        lines.append(f"| {r['n']:,} | {r['shards']} | {r['full']['wall_s']:.1f} | {r['bare']['wall_s']:.1f} "
+                     f"| {r['ratios']['full_over_bare']:.2f} | {r['noop']['wall_s']:.1f} "
+                     f"| {r['ratios']['noop_over_full']:.0%} | {r['revise']['wall_s']:.1f} "
+                     f"| {r['ratios']['revise_over_full']:.0%} | {peak:.0f} | {single:.0f} |")
+    return "\n".join(lines)
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--sizes", type=int, nargs="+", default=[1000, 10000])
+    parser.add_argument("--shards", type=int, default=4, help="config sharding.shards")
+    parser.add_argument("--out", type=Path, default=ROOT / "benchmarks" / "out")
+    parser.add_argument("--keep", action="store_true", help="keep campaigns and working folders")
+    args = parser.parse_args()
+    args.out.mkdir(parents=True, exist_ok=True)
+    rows = []
+    for n in args.sizes:
+        rows.append(bench_size(n, args.shards, args.out))
+        if not args.keep:
+            shutil.rmtree(args.out / f"n{n}" / "campaign", ignore_errors=True)
+            shutil.rmtree(args.out / f"n{n}" / "work", ignore_errors=True)
+            shutil.rmtree(args.out / f"n{n}" / "bare", ignore_errors=True)
+    result = {"machine": machine(), "rows": rows}
+    (args.out / "bench_screen.json").write_text(json.dumps(result, indent=2))
+    print(json.dumps(result["machine"], indent=2))
+    print(table(rows))
+
+
+if __name__ == "__main__":
+    main()

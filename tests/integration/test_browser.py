@@ -1,0 +1,282 @@
+"""The HTML summary in a real headless Chromium, made by the real workflow.
+
+A small invented campaign (inputs/make_campaign.py --count 12, plus one record
+whose formula and provenance carry script-injection attempts) is run through the
+Snakemake command line twice -- the second time after revising one record and
+deleting another, so the change report has something to show -- and the page is
+then driven with Selenium: console errors, table rows, plots, filter, toggle,
+sort, tooltips, the injection attempts, and a full-page screenshot kept as a
+test artifact (in $FLAKELIGHT_ARTIFACTS when set, else pytest's tmp_path; the
+path is printed).
+
+Needs: Debian packages ``chromium`` and ``chromium-driver`` (/usr/bin/chromium,
+/usr/bin/chromedriver) and ``selenium`` from envs/requirements-browser.txt.
+When any of them is missing the tests FAIL if the environment variable CI is
+set, and are skipped otherwise.
+"""
+
+from __future__ import annotations
+
+import base64
+import json
+import os
+import shutil
+import subprocess
+import sys
+import tempfile
+from pathlib import Path
+
+import pandas as pd
+import pytest
+import yaml
+
+ROOT = Path(__file__).resolve().parents[2]
+PWN = ['<script>window.__pwned=1</script>', '<img src=x onerror="window.__pwned=1">']
+HOSTILE_ID = "hostile-0001"
+CHROMIUM = os.environ.get("FLAKELIGHT_CHROMIUM", "/usr/bin/chromium")
+CHROMEDRIVER = os.environ.get("FLAKELIGHT_CHROMEDRIVER", "/usr/bin/chromedriver")
+
+pytestmark = pytest.mark.slow
+
+
+def _require_browser():
+    """Skip (or fail on CI) unless Chromium, its driver and selenium are present."""
+    missing = [p for p in (CHROMIUM, CHROMEDRIVER) if not (os.path.isfile(p) and os.access(p, os.X_OK))]
+    try:
+        import selenium  # noqa: F401
+    except ImportError:
+        missing.append("python package selenium")
+    if missing:
+        message = ("headless browser test needs " + ", ".join(missing) + ": apt-get install -y chromium "
+                   "chromium-driver; pip install -r envs/requirements-browser.txt")
+        if os.environ.get("CI"):
+            pytest.fail(message)
+        pytest.skip(message)
+
+
+def _snakemake(workdir: Path, config: Path) -> None:
+    cmd = [sys.executable, "-m", "snakemake", "--snakefile", str(ROOT / "Snakefile"), "--directory", str(workdir),
+           "--configfile", str(config), "--cores", "2", "results/summary.html", "results/shortlist.csv"]
+    res = subprocess.run(cmd, capture_output=True, text=True, timeout=900, check=False)
+    if res.returncode != 0:
+        logs = "\n".join(f"--- {p}\n{p.read_text(errors='replace')[-3000:]}"
+                         for p in sorted((workdir / "results" / "logs").rglob("*.log")))
+        pytest.fail(f"workflow failed ({res.returncode}):\n{res.stderr[-4000:]}\n{logs}")
+
+
+@pytest.fixture(scope="module")
+def run(tmp_path_factory):
+    """Run the real workflow twice on a small campaign; return paths and final tables."""
+    _require_browser()
+    base = tmp_path_factory.mktemp("browser")
+    campaign, workdir = base / "campaign", base / "work"
+    subprocess.run([sys.executable, str(ROOT / "inputs" / "make_campaign.py"), "--out", str(campaign),
+                    "--count", "12"], check=True, capture_output=True, timeout=300)
+    entries = campaign / "entries"
+    donor = sorted(p for p in entries.glob("*.json") if not p.name.startswith("broken"))[0]
+    record = json.loads(donor.read_text(encoding="utf-8"))
+    record.update(id=HOSTILE_ID, formula="".join(PWN), provenance=" ".join(PWN) + " \u2028 & </script>")
+    (entries / f"{HOSTILE_ID}.json").write_text(json.dumps(record, indent=1), encoding="utf-8")
+
+    with open(ROOT / "config" / "config.yaml", encoding="utf-8") as fh:
+        config = yaml.safe_load(fh)
+    config["campaign"] = str(campaign)
+    (workdir / "config").mkdir(parents=True)
+    config_path = workdir / "config" / "config.yaml"
+    config_path.write_text(yaml.safe_dump(config, sort_keys=False), encoding="utf-8")
+    _snakemake(workdir, config_path)
+
+    # Second run: revise one record, delete another -> the change report has rows.
+    valid = sorted(p for p in entries.glob("lumen-*.json"))
+    revised = json.loads(valid[1].read_text(encoding="utf-8"))
+    revised["valleys"][0]["edge_ev"]["1"] = revised["valleys"][0]["edge_ev"]["1"] + 0.25
+    valid[1].write_text(json.dumps(revised, indent=1), encoding="utf-8")
+    removed = valid[2].stem
+    valid[2].unlink()
+    _snakemake(workdir, config_path)
+
+    results = workdir / "results"
+    return {
+        "html": results / "summary.html",
+        "wide": pd.read_parquet(results / "tables" / "screen_wide.parquet"),
+        "changes": pd.read_parquet(results / "tables" / "changes.parquet"),
+        "revised": valid[1].stem,
+        "removed": removed,
+    }
+
+
+@pytest.fixture(scope="module")
+def driver(run):
+    """Headless Chromium on the summary page (fresh profile, no network services)."""
+    from selenium import webdriver
+    from selenium.webdriver.chrome.service import Service
+
+    os.environ.setdefault("SE_OFFLINE", "true")  # never let Selenium Manager go online
+    profile = tempfile.mkdtemp(prefix="flakelight-chromium-")
+    options = webdriver.ChromeOptions()
+    options.binary_location = CHROMIUM
+    for flag in ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+                 "--disable-background-networking", "--disable-component-update", "--disable-sync",
+                 f"--user-data-dir={profile}", "--window-size=1440,1000"):
+        options.add_argument(flag)
+    options.set_capability("goog:loggingPrefs", {"browser": "ALL"})
+    drv = webdriver.Chrome(service=Service(CHROMEDRIVER), options=options)
+    try:
+        drv.get(run["html"].resolve().as_uri())
+        yield drv
+    finally:
+        drv.quit()
+        shutil.rmtree(profile, ignore_errors=True)
+
+
+def _visible_rows(drv) -> int:
+    return drv.execute_script(
+        "return Array.from(document.querySelectorAll('#screen-table tbody tr')).filter(r => !r.hidden).length;")
+
+
+def _header(drv, label: str):
+    from selenium.webdriver.common.by import By
+
+    for th in drv.find_elements(By.CSS_SELECTOR, "#screen-table thead th"):
+        if th.text.split("\n")[0].strip() == label:
+            return th
+    raise AssertionError(f"no column header {label!r}")
+
+
+def _column_values(drv, index: int) -> list[str]:
+    return drv.execute_script(
+        "return Array.from(document.querySelectorAll('#screen-table tbody tr'))"
+        f".map(r => r.cells[{index}].getAttribute('data-v'));")
+
+
+def test_page_runs_without_console_errors(driver):
+    assert driver.execute_script("return document.documentElement.getAttribute('data-ready')") == "1"
+    severe = [e for e in driver.get_log("browser") if e.get("level") == "SEVERE"]
+    assert not severe, severe
+
+
+def test_rows_match_the_ranked_table(driver, run):
+    wide = run["wide"]
+    assert driver.execute_script("return document.querySelectorAll('#screen-table tbody tr').length") == len(wide)
+    n_cand = driver.execute_script("return document.querySelectorAll('#screen-table tbody tr[data-candidate=\"1\"]').length")
+    assert n_cand == int(wide["meets_all_criteria"].sum())
+    ids = driver.execute_script("return Array.from(document.querySelectorAll('#screen-table tbody tr'))"
+                                ".map(r => r.getAttribute('data-id'));")
+    assert ids == wide.sort_values("rank")["entry_id"].tolist()
+
+
+def test_plots_are_drawn_with_their_data(driver, run):
+    wide = run["wide"]
+    count = driver.execute_script
+    finite = int((wide["target_optical_gap_ev"].notna() & wide["target_binding_ev"].notna()).sum())
+    assert count("return document.querySelectorAll('#plot-binding-gap circle.pt').length") == finite
+    assert count("return document.querySelectorAll('#plot-gap-layers polyline').length") >= 1
+    assert count("return document.querySelectorAll('#plot-emission rect.bar-all').length") >= 1
+    assert count("return document.querySelectorAll('#plot-environment circle.pt').length") >= len(wide)
+    box = count("var b = document.getElementById('plot-binding-gap').getBoundingClientRect(); return [b.width, b.height];")
+    assert box[0] > 200 and box[1] > 100
+
+
+def test_filter_and_candidate_toggle(driver, run):
+    from selenium.webdriver.common.by import By
+
+    wide = run["wide"]
+    box = driver.find_element(By.ID, "filter")
+    target = wide.sort_values("rank")["entry_id"].iloc[-1]
+    box.clear()
+    box.send_keys(target)
+    assert _visible_rows(driver) == 1
+    assert driver.find_element(By.ID, "shown").text.startswith("1 of")
+    box.clear()
+    box.send_keys("no-such-compound-anywhere")
+    assert _visible_rows(driver) == 0
+    driver.execute_script("var f = document.getElementById('filter'); f.value = '';"
+                          "f.dispatchEvent(new Event('input'));")
+    assert _visible_rows(driver) == len(wide)
+    toggle = driver.find_element(By.ID, "only-cand")
+    toggle.click()
+    assert _visible_rows(driver) == int(wide["meets_all_criteria"].sum())
+    dimmed = driver.execute_script("return document.querySelectorAll('#plot-binding-gap circle.pt.dim').length")
+    assert dimmed == int((~wide["meets_all_criteria"]).sum())
+    toggle.click()
+    assert _visible_rows(driver) == len(wide)
+
+
+def test_sorting_by_clicking_headers(driver, run):
+    th = _header(driver, "Score")
+    index = driver.execute_script("return Array.prototype.indexOf.call(arguments[0].parentNode.children, arguments[0]);", th)
+    th.click()
+    up = [float(v) for v in _column_values(driver, index) if v]
+    assert up == sorted(up) and len(up) == len(run["wide"])
+    th.click()
+    down = [float(v) for v in _column_values(driver, index) if v]
+    assert down == sorted(down, reverse=True)
+    assert th.get_attribute("aria-sort") == "descending"
+    name = _header(driver, "Compound")
+    name.click()
+    ids = driver.execute_script("return Array.from(document.querySelectorAll('#screen-table tbody tr'))"
+                                ".map(r => r.getAttribute('data-id'));")
+    assert ids == sorted(ids, key=str.lower)
+    _header(driver, "Rank").click()  # back to the ranked order for the screenshot
+
+
+def test_tooltip_names_the_compound(driver):
+    from selenium.webdriver.common.action_chains import ActionChains
+    from selenium.webdriver.common.by import By
+
+    dot = driver.find_element(By.CSS_SELECTOR, "#plot-binding-gap circle.pt")
+    driver.execute_script("arguments[0].scrollIntoView({block: 'center'});", dot)
+    ActionChains(driver).move_to_element(dot).perform()
+    tip = driver.find_element(By.ID, "tip")
+    assert tip.is_displayed()
+    assert dot.get_attribute("data-id") in tip.text
+    ActionChains(driver).move_by_offset(0, 300).perform()
+
+
+def test_injection_attempts_stay_text(driver):
+    from selenium.webdriver.common.by import By
+
+    assert driver.execute_script("return typeof window.__pwned") == "undefined"
+    assert driver.execute_script("return document.querySelectorAll('img').length") == 0
+    scripts = driver.execute_script("return document.scripts.length")
+    assert scripts == 2  # the JSON data block and the page's own script
+    formula = driver.find_element(By.CSS_SELECTOR, f"#row-{HOSTILE_ID} .formula")
+    assert formula.get_attribute("textContent") == "".join(PWN)
+    # The hostile record appears in the plots' tooltips as text too.
+    tips = driver.execute_script(
+        f"return Array.from(document.querySelectorAll('[data-id=\"{HOSTILE_ID}\"][data-tip]')).map(e => e.getAttribute('data-tip'));")
+    assert tips and all("<script>" in t for t in tips[:1])
+    assert driver.execute_script("return typeof window.__pwned") == "undefined"
+
+
+def test_change_report_lists_the_revision(driver, run):
+    from selenium.webdriver.common.by import By
+
+    changes = run["changes"]
+    assert run["removed"] in set(changes["entry_id"])
+    assert changes.set_index("entry_id").loc[run["revised"], "input_revised"]
+    section = driver.find_element(By.ID, "changes").text
+    assert run["removed"] in section and run["revised"] in section
+    assert "removed" in section
+
+
+def test_screenshot_artifact(driver, tmp_path):
+    folder = Path(os.environ.get("FLAKELIGHT_ARTIFACTS") or tmp_path)
+    folder.mkdir(parents=True, exist_ok=True)
+    driver.execute_script("window.scrollTo(0, 0);")
+    height = driver.execute_script("return document.documentElement.scrollHeight")
+    driver.execute_cdp_cmd("Emulation.setDeviceMetricsOverride",
+                           {"width": 1440, "height": int(height), "deviceScaleFactor": 1, "mobile": False})
+    try:
+        shot = driver.execute_cdp_cmd("Page.captureScreenshot", {"format": "png", "captureBeyondViewport": True})
+        path = folder / "summary.png"
+        path.write_bytes(base64.b64decode(shot["data"]))
+        driver.execute_cdp_cmd("Emulation.setEmulatedMedia", {"media": "print"})
+        pdf = driver.execute_cdp_cmd("Page.printToPDF", {"printBackground": True, "preferCSSPageSize": False})
+        (folder / "summary-print.pdf").write_bytes(base64.b64decode(pdf["data"]))
+    finally:
+        driver.execute_cdp_cmd("Emulation.setEmulatedMedia", {"media": ""})
+        driver.execute_cdp_cmd("Emulation.clearDeviceMetricsOverride", {})
+    assert path.stat().st_size > 10_000 and path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    print(f"summary screenshot: {path}")
+    print(f"summary print preview: {folder / 'summary-print.pdf'}")

@@ -1,0 +1,408 @@
+"""Tests for flakelight.report: the change report, the HTML summary and its safety."""
+
+import base64
+import hashlib
+import html
+import json
+import re
+from html.parser import HTMLParser
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import yaml
+
+from flakelight import io, report
+
+ROOT = Path(__file__).resolve().parents[2]
+HOSTILE = ['<script>alert(1)</script>', '"><img src=x onerror=alert(1)>', "</script><script>alert(2)</script>",
+           "<!-- \u2028 \u2029 & ' \""]
+SECTIONS = ("make-first", "overview", "table", "plots", "changes", "rejects", "methods", "cautions")
+
+
+@pytest.fixture(scope="module")
+def settings():
+    with open(ROOT / "config" / "config.yaml", encoding="utf-8") as fh:
+        return yaml.safe_load(fh)
+
+
+def _ranked(ids, settings, formulas=None, warnings=None, extra=None):
+    """A small ranked table with the columns the report reads (invented numbers)."""
+    n = len(ids)
+    rng = np.random.default_rng(3)
+    cand = np.arange(n) % 3 != 2
+    frame = pd.DataFrame({
+        "entry_id": ids,
+        "formula": formulas if formulas is not None else [f"Ab{i}Cd2 (invented)" for i in range(n)],
+        "input_hash": [f"h{i:04d}" for i in range(n)],
+        "rank_environment": settings["ranking"]["environment"],
+        "rank_layers": settings["ranking"]["target_layers"],
+        "target_gap_character": np.where(cand, "direct", "indirect"),
+        "target_optical_gap_ev": rng.uniform(1.2, 2.4, n),
+        "target_emission_nm": rng.uniform(520, 1100, n),
+        "target_emission_band": "visible",
+        "target_binding_ev": rng.uniform(0.1, 0.4, n),
+        "target_binding_over_kt": rng.uniform(2, 12, n),
+        "target_direct_margin_ev": np.where(cand, 0.2, -0.1),
+        "target_bound_fraction": rng.uniform(0.5, 1, n),
+        "pass_direct": cand, "pass_margin": cand, "pass_binding": True, "pass_window": cand,
+        "meets_all_criteria": cand,
+        "score_binding": 1.0, "score_margin": np.where(cand, 1.0, 0.0), "score_window": 0.8,
+        "thinning_verdict": "direct below 2 layers, indirect from 2",
+        "warnings": warnings if warnings is not None else [""] * n,
+    })
+    frame["score"] = (0.4 * frame["score_binding"] + 0.3 * frame["score_margin"] + 0.3 * frame["score_window"])
+    frame = frame.sort_values(["meets_all_criteria", "score", "entry_id"], ascending=[False, False, True])
+    frame["rank"] = np.arange(1, n + 1, dtype="int32")
+    for name, values in (extra or {}).items():
+        frame[name] = values
+    return frame.reset_index(drop=True)
+
+
+def _long(ranked, settings):
+    rows = []
+    envs = list(settings["environments"])
+    for eid, gap, eb in zip(ranked["entry_id"], ranked["target_optical_gap_ev"], ranked["target_binding_ev"]):
+        for n in range(1, settings["layers"]["max_layers"] + 1):
+            for k, env in enumerate(envs):
+                rows.append({"entry_id": eid, "layers": n, "environment": env,
+                             "optical_gap_ev": gap + 0.02 * n, "binding_ev": eb * (1.5 - 0.3 * k) / n})
+        rows.append({"entry_id": eid, "layers": 0, "environment": "bulk crystal",
+                     "optical_gap_ev": gap - 0.3, "binding_ev": eb / 5})
+    return pd.DataFrame(rows, columns=["entry_id", "layers", "environment", "optical_gap_ev", "binding_ev"])
+
+
+def _rejects(texts=("tensor: not symmetric",)):
+    return pd.DataFrame({"entry_id": [f"bad-{i}" for i in range(len(texts))],
+                         "source_file": [f"bad-{i}.json" for i in range(len(texts))],
+                         "field": ["dielectric.electronic"] * len(texts), "reason": list(texts),
+                         "stage": ["contract"] * len(texts)})
+
+
+MANIFEST = {"config_hash": "abc123", "code_version": "c0de", "git": "v1-3-gdeadbee",
+            "written_utc": "2026-01-01T00:00:00+00:00", "packages": {"numpy": "2.4.6", "python": "3.11.7"},
+            "inputs": {"entries": {"a.json": "x"}, "structures": {}}, "config": {"campaign": "inputs/demo"},
+            "cautions": ["All numbers are model estimates from first-principles inputs, not measurements."]}
+
+
+def _snap(rows):
+    """Snapshot from (entry_id, input_hash, rank, candidate, score) tuples."""
+    frame = pd.DataFrame(rows, columns=["entry_id", "input_hash", "rank", "meets_all_criteria", "score"])
+    frame["target_optical_gap_ev"] = 1.5
+    return report.snapshot(frame)
+
+
+# ---------------------------------------------------------------------------
+# compare_runs
+# ---------------------------------------------------------------------------
+
+def _assert_typed(changes):
+    assert list(changes.columns) == list(report.CHANGE_DTYPES)
+    for name, dtype in report.CHANGE_DTYPES.items():
+        assert str(changes[name].dtype) == dtype, name
+
+
+def test_first_run_gives_empty_well_typed_table():
+    current = _snap([("a", "h1", 1, True, 0.9)])
+    changes = report.compare_runs(None, current)
+    assert len(changes) == 0
+    _assert_typed(changes)
+
+
+def test_identical_runs_report_nothing():
+    snap = _snap([("a", "h1", 1, True, 0.9), ("b", "h2", 2, False, 0.5)])
+    changes = report.compare_runs(snap, snap.copy())
+    assert len(changes) == 0
+    _assert_typed(changes)
+
+
+def test_every_kind_of_change():
+    previous = _snap([
+        ("keep", "h0", 1, True, 0.95),
+        ("gone", "h1", 2, True, 0.90),
+        ("lost", "h2", 3, True, 0.80),
+        ("revised", "h3", 4, False, 0.60),
+        ("gained", "h4", 5, False, 0.50),
+        ("slip", "h5", 6, False, 0.45),
+        ("climb", "h6", 7, False, 0.40),
+    ])
+    current = _snap([
+        ("keep", "h0", 1, True, 0.95),
+        ("gained", "h4", 2, True, 0.85),
+        ("new", "h9", 3, True, 0.80),
+        ("revised", "h3x", 4, False, 0.62),
+        ("climb", "h6", 5, False, 0.44),
+        ("lost", "h2", 6, False, 0.43),
+        ("slip", "h5", 7, False, 0.30),
+    ])
+    changes = report.compare_runs(previous, current).set_index("entry_id")
+    kinds = changes["change"].to_dict()
+    assert kinds["new"] == "added"
+    assert kinds["gone"] == "removed"
+    assert kinds["gained"] == "became candidate"
+    assert kinds["lost"] == "dropped from candidates"
+    assert kinds["revised"] == "input revised"
+    assert kinds["climb"] == "rank moved" and kinds["slip"] == "rank moved"
+    assert "keep" not in kinds
+    assert changes.loc["revised", "input_revised"]
+    assert changes.loc["revised", "old_input_hash"] == "h3" and changes.loc["revised", "new_input_hash"] == "h3x"
+    assert changes.loc["climb", "rank_change"] == 2 and changes.loc["slip", "rank_change"] == -1
+    assert changes.loc["climb", "old_rank"] == 7 and changes.loc["climb", "new_rank"] == 5
+    assert pd.isna(changes.loc["new", "old_rank"]) and changes.loc["new", "new_rank"] == 3
+    assert pd.isna(changes.loc["gone", "new_rank"]) and changes.loc["gone", "old_rank"] == 2
+    assert changes.loc["lost", "was_candidate"] and not changes.loc["lost", "is_candidate"]
+    # Most important kinds first.
+    order = [report.CHANGE_KINDS.index(k) for k in report.compare_runs(previous, current)["change"]]
+    assert order == sorted(order)
+    _assert_typed(report.compare_runs(previous, current))
+
+
+def test_revised_input_that_also_becomes_candidate_keeps_both_facts():
+    previous = _snap([("a", "h1", 2, False, 0.4), ("b", "h2", 1, True, 0.9)])
+    current = _snap([("a", "h1-new", 1, True, 0.95), ("b", "h2", 2, True, 0.9)])
+    row = report.compare_runs(previous, current).set_index("entry_id").loc["a"]
+    assert row["change"] == "became candidate"
+    assert row["input_revised"]
+    assert "record or structure file changed" in row["detail"]
+
+
+def test_shift_from_an_addition_alone_is_not_a_move():
+    previous = _snap([("a", "h1", 1, True, 0.9), ("b", "h2", 2, True, 0.8)])
+    current = _snap([("new", "h0", 1, True, 0.99), ("a", "h1", 2, True, 0.9), ("b", "h2", 3, True, 0.8)])
+    changes = report.compare_runs(previous, current)
+    assert changes["change"].tolist() == ["added"]
+
+
+def test_previous_run_with_no_compounds_marks_all_added():
+    previous = _snap([])
+    current = _snap([("a", "h1", 1, True, 0.9)])
+    changes = report.compare_runs(previous, current)
+    assert changes["change"].tolist() == ["added"]
+
+
+def test_change_table_survives_parquet(tmp_path):
+    previous = _snap([("a", "h1", 1, True, 0.9)])
+    current = _snap([("b", "h2", 1, True, 0.9)])
+    for changes in (report.compare_runs(previous, current), report.empty_changes()):
+        path = tmp_path / "changes.parquet"
+        io.write_parquet(changes, path)
+        back = io.read_parquet(path)
+        assert list(back.columns) == list(report.CHANGE_DTYPES)
+        assert len(back) == len(changes)
+
+
+# ---------------------------------------------------------------------------
+# HTML summary
+# ---------------------------------------------------------------------------
+
+class _Collector(HTMLParser):
+    """Collects tags, attributes and script bodies of a page."""
+
+    def __init__(self):
+        super().__init__(convert_charrefs=True)
+        self.tags, self.scripts, self._in_script = [], [], None
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append((tag, dict(attrs)))
+        if tag == "script":
+            self._in_script = dict(attrs)
+            self.scripts.append([dict(attrs), ""])
+
+    def handle_endtag(self, tag):
+        if tag == "script":
+            self._in_script = None
+
+    def handle_data(self, data):
+        if self._in_script is not None:
+            self.scripts[-1][1] += data
+
+
+def _page(settings, ranked=None, long=None, rejects=None, changes=None, baseline=None, manifest=None):
+    ranked = _ranked([f"cmp-{i:02d}" for i in range(9)], settings) if ranked is None else ranked
+    long = _long(ranked, settings) if long is None else long
+    return report.build_html(ranked, long, _rejects() if rejects is None else rejects,
+                             MANIFEST if manifest is None else manifest,
+                             report.empty_changes() if changes is None else changes, settings, baseline=baseline)
+
+
+def test_page_has_every_section_and_the_caution_near_the_top(settings):
+    page = _page(settings)
+    for section in SECTIONS:
+        assert f'<section id="{section}"' in page, section
+    top = page.index('class="caution-top"')
+    assert top < page.index('<section id="make-first"')
+    assert "not measurements" in page[top:top + 400]
+    assert "licensed safety practice" in page
+    for ref in ("Keldysh, JETP Lett. 29, 658 (1979)", "Phys. Rev. B 84, 085406 (2011)", "Phys. Rev. A 43, 1186",
+                "Phys. Rev. B 43, 2063", "Phys. Rev. Lett. 116, 056401", "Phys. Rev. 98, 915",
+                "Phys. Rev. Materials 3, 034003", "Rytova", "Ong et al."):
+        assert ref in page, ref
+    for plot in ("plot-binding-gap", "plot-gap-layers", "plot-emission", "plot-environment"):
+        assert f'id="{plot}"' in page
+
+
+def test_hostile_text_is_escaped_everywhere(settings):
+    n = len(HOSTILE)
+    ranked = _ranked([f"x{i}" for i in range(n)], settings, formulas=HOSTILE, warnings=HOSTILE)
+    # Identifiers of real records are restricted by the schema, but the page must not rely on it.
+    ranked.loc[0, "entry_id"] = HOSTILE[0]
+    ranked.loc[1, "entry_id"] = HOSTILE[1]
+    manifest = dict(MANIFEST, git=HOSTILE[0], config_hash=HOSTILE[1], config={"campaign": HOSTILE[2]},
+                    packages={HOSTILE[0]: HOSTILE[1]}, cautions=[HOSTILE[1]])
+    changes = report.compare_runs(_snap([(HOSTILE[0], "old", 1, False, 0.1)]), report.snapshot(ranked))
+    baseline = {"run_utc": HOSTILE[2], "config_hash": HOSTILE[0], "config_hash_now": HOSTILE[1],
+                "config_changed": True}
+    page = _page(settings, ranked=ranked, rejects=_rejects(HOSTILE), changes=changes, baseline=baseline,
+                 manifest=manifest)
+    for text in HOSTILE[:3]:
+        assert text not in page
+    assert html.escape(HOSTILE[1], quote=True) in page
+    parsed = _Collector()
+    parsed.feed(page)
+    assert not [t for t, _ in parsed.tags if t == "img"]
+    assert not [(t, a) for t, attrs in parsed.tags for a in attrs if a.lower().startswith("on")]
+    # Exactly our two scripts: the JSON data block and the page script.
+    assert len(parsed.scripts) == 2
+    assert parsed.scripts[0][0] == {"type": "application/json", "id": "flakelight-data"}
+    data = json.loads(parsed.scripts[0][1])
+    assert HOSTILE[0] in data["rows"]          # the data round-trips exactly ...
+    assert "<" not in parsed.scripts[0][1]     # ... with no raw '<' in the block
+    assert parsed.scripts[1][1].strip() == report.SCRIPT.strip()
+
+
+def test_script_json_escapes_markup_and_line_separators():
+    text = report.script_json({"a": "</script><!--&\u2028\u2029", "b": float("nan")})
+    for bad in ("<", ">", "&", "\u2028", "\u2029"):
+        assert bad not in text
+    assert json.loads(text) == {"a": "</script><!--&\u2028\u2029", "b": None}
+
+
+def test_content_security_policy_allows_only_the_page_script(settings):
+    page = _page(settings)
+    digest = base64.b64encode(hashlib.sha256(report.SCRIPT.encode()).digest()).decode()
+    meta = html.unescape(re.search(r'http-equiv="Content-Security-Policy" content="([^"]+)"', page).group(1))
+    assert f"'sha256-{digest}'" in meta and "default-src 'none'" in meta
+    assert "unsafe-inline" not in meta.split("script-src")[1].split(";")[0]
+
+
+def test_page_loads_nothing_from_the_network(settings):
+    page = _page(settings)
+    parsed = _Collector()
+    parsed.feed(page)
+    for tag, attrs in parsed.tags:
+        for name in ("src", "href", "action", "data", "poster"):
+            value = (attrs.get(name) or "").strip().lower()
+            assert not value.startswith(("http:", "https:", "//", "ftp:")), (tag, name, value)
+    assert not re.search(r"""(?:src|href)\s*=\s*["']?\s*(?:https?:)?//""", page, re.I)
+    assert "@import" not in page and not re.search(r"url\(\s*['\"]?(?:https?:)?//", page, re.I)
+
+
+def test_empty_screen_renders(settings):
+    ranked = _ranked(["a"], settings).iloc[0:0]
+    long = _long(ranked, settings)
+    rejects = _rejects(()).iloc[0:0]
+    page = report.build_html(ranked, long, rejects, {}, report.empty_changes(), settings, baseline=None)
+    for section in SECTIONS:
+        assert f'<section id="{section}"' in page
+    assert "No compound was screened" in page
+    assert "0 of 0 shown" in page
+    # Even a table without any columns (nothing was screened at all) renders.
+    page = report.build_html(pd.DataFrame(), pd.DataFrame(), pd.DataFrame(), {}, report.empty_changes(), settings)
+    assert '<section id="table"' in page
+
+
+def test_candidate_rows_and_plot_points_match_the_table(settings):
+    ranked = _ranked([f"cmp-{i:02d}" for i in range(9)], settings)
+    page = _page(settings, ranked=ranked)
+    assert page.count('data-candidate="1"') == int(ranked["meets_all_criteria"].sum())
+    assert page.count("<tr id=\"row-") == len(ranked)
+    scatter = page.split('id="plot-binding-gap"')[1].split("</svg>")[0]
+    assert scatter.count("<circle") == len(ranked)
+
+
+def test_uncertainty_columns_shown_only_when_present(settings):
+    ids = [f"cmp-{i:02d}" for i in range(6)]
+    plain = _page(settings, ranked=_ranked(ids, settings))
+    assert "P(meets all)" not in plain and 'class="errbar"' not in plain
+    base = _ranked(ids, settings)
+    extra = {"p_meets_all": np.linspace(0.2, 0.9, 6), "p_direct_target": np.full(6, 0.7)}
+    for name in ("target_binding_ev", "target_optical_gap_ev", "target_emission_nm"):
+        for q, f in (("p16", 0.9), ("p50", 1.0), ("p84", 1.1)):
+            extra[f"{name}_{q}"] = base[name].to_numpy() * f
+    page = _page(settings, ranked=_ranked(ids, settings, extra=extra))
+    assert "P(meets all)" in page and "P(direct target)" in page
+    assert 'class="errbar"' in page
+    assert report.uncertainty_columns(list(extra))["quantiles"] == [
+        "target_binding_ev", "target_emission_nm", "target_optical_gap_ev"]
+
+
+def test_no_candidates_says_so(settings):
+    ranked = _ranked([f"cmp-{i:02d}" for i in range(4)], settings)
+    ranked["meets_all_criteria"] = False
+    ranked["pass_window"] = False
+    page = _page(settings, ranked=ranked)
+    assert "No compound meets every criterion" in page
+    assert "Misses:" in page
+
+
+# ---------------------------------------------------------------------------
+# Orchestration: history written only after the page
+# ---------------------------------------------------------------------------
+
+def _write_inputs(folder, settings, ranked):
+    paths = {"wide": folder / "wide.parquet", "long": folder / "long.parquet",
+             "rejects": folder / "rejects.parquet", "manifest": folder / "manifest.json"}
+    io.write_parquet(ranked, paths["wide"])
+    io.write_parquet(_long(ranked, settings), paths["long"])
+    io.write_parquet(_rejects(), paths["rejects"])
+    io.write_json(MANIFEST, paths["manifest"])
+    return {k: str(v) for k, v in paths.items()}
+
+
+def test_write_summary_keeps_history_and_reports_changes(tmp_path, settings):
+    ids = [f"cmp-{i:02d}" for i in range(6)]
+    outputs = {"html": str(tmp_path / "out" / "summary.html"), "changes": str(tmp_path / "out" / "changes.parquet")}
+    history = tmp_path / "history"
+    first = _write_inputs(tmp_path, settings, _ranked(ids, settings))
+    report.write_summary(first, outputs, settings, str(history))
+    assert len(io.read_parquet(outputs["changes"])) == 0
+    assert (history / report.LAST_SNAPSHOT).exists()
+    assert "first run recorded" in Path(outputs["html"]).read_text(encoding="utf-8")
+
+    revised = _ranked(ids[1:] + ["cmp-new"], settings)
+    revised.loc[revised["entry_id"] == "cmp-03", "input_hash"] = "changed"
+    second = _write_inputs(tmp_path, settings, revised)
+    report.write_summary(second, outputs, settings, str(history))
+    changes = io.read_parquet(outputs["changes"])
+    assert {"added", "removed"} <= set(changes["change"])
+    assert changes.set_index("entry_id").loc["cmp-03", "input_revised"]
+    assert (history / report.PREVIOUS_SNAPSHOT).exists()
+
+    # Repeating the same run compares with the run before it, so the report is not wiped.
+    report.write_summary(second, outputs, settings, str(history))
+    assert len(io.read_parquet(outputs["changes"])) == len(changes)
+
+
+def test_failed_page_leaves_history_alone(tmp_path, settings, monkeypatch):
+    inputs = _write_inputs(tmp_path, settings, _ranked(["a", "b"], settings))
+    outputs = {"html": str(tmp_path / "s.html"), "changes": str(tmp_path / "c.parquet")}
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("page failed")
+
+    monkeypatch.setattr(report, "build_html", broken)
+    with pytest.raises(RuntimeError):
+        report.write_summary(inputs, outputs, settings, str(tmp_path / "history"))
+    assert not (tmp_path / "history").exists()
+
+
+def test_unreadable_history_counts_as_first_run(tmp_path, settings):
+    inputs = _write_inputs(tmp_path, settings, _ranked(["a", "b"], settings))
+    history = tmp_path / "history"
+    history.mkdir()
+    (history / report.LAST_SNAPSHOT).write_bytes(b"not parquet")
+    outputs = {"html": str(tmp_path / "s.html"), "changes": str(tmp_path / "c.parquet")}
+    report.write_summary(inputs, outputs, settings, str(history))
+    assert len(io.read_parquet(outputs["changes"])) == 0
+    assert len(io.read_parquet(history / report.LAST_SNAPSHOT)) == 2
