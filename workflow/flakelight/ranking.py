@@ -104,7 +104,8 @@ def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
     out["score"] = (wb * s_bind + wm * s_margin + ww * s_window) / total
 
     if probabilities is not None and len(probabilities):
-        out = out.merge(probabilities, on="entry_id", how="left")
+        extra = [c for c in probabilities.columns if c == "entry_id" or c not in out.columns]
+        out = out.merge(probabilities[extra], on="entry_id", how="left")
     by_probability = r.get("order_by", "score") == "probability" and "p_meets_all" in out.columns
     keys = ["meets_all_criteria", "p_meets_all", "score"] if by_probability else ["meets_all_criteria", "score"]
     frame = out.assign(_id=out["entry_id"])

@@ -1,0 +1,93 @@
+"""Survival columns, criteria, score and order of the emitter ranking."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import constants as sc
+
+from flakelight import ranking
+
+SETTINGS = {
+    "survival": {"temperature_k": 300.0, "pair_density_per_cm2": 1e12, "wannier_ratio": 2.0},
+    "environments": {"hbn": {"top": 4.5, "bottom": 4.5}},
+    "ranking": {"environment": "hbn", "target_layers": 1, "require_direct": True, "min_direct_margin_ev": 0.05,
+                "min_binding_over_kt": 3.0, "window_nm": [600, 900],
+                "weights": {"binding": 0.4, "margin": 0.3, "window": 0.3}, "shortlist_size": 2,
+                "order_by": "score"},
+}
+
+
+def tables(rows):
+    """Minimal long/wide tables: one monolayer row in 'hbn' per compound."""
+    long = pd.DataFrame([{
+        "entry_id": r[0], "layers": 1, "environment": "hbn", "gap_character": r[1], "binding_ev": r[2],
+        "direct_margin_ev": r[3], "emission_nm": r[4], "optical_gap_ev": sc.h * sc.c / sc.e / (r[4] * 1e-9),
+        "emission_band": "x", "mu_inplane_me": 0.25, "radius_angstrom": 15.0} for r in rows])
+    wide = pd.DataFrame({"entry_id": [r[0] for r in rows], "formula": "F", "lattice_angstrom": 3.2,
+                         "thinning_verdict": "v"})
+    return ranking.add_survival(long, wide, SETTINGS), wide
+
+
+def test_binding_over_kt_uses_codata_boltzmann():
+    long, _ = tables([("a", "direct", 0.2, 0.1, 700.0)])
+    kt = sc.k * 300.0 / sc.e  # 25.85 meV at room temperature (common practice: ~26 meV)
+    assert long["binding_over_kt"].iloc[0] == pytest.approx(0.2 / kt, rel=1e-12)
+    assert kt == pytest.approx(0.02585, abs=1e-5)
+    assert long["wannier_ok"].iloc[0]  # 15 A > 2 x 3.2 A
+
+
+@pytest.mark.parametrize("row, failing", [
+    (("a", "direct", 0.2, 0.1, 700.0), set()),
+    (("b", "indirect", 0.2, -0.1, 700.0), {"pass_direct", "pass_margin"}),
+    (("c", "direct", 0.05, 0.1, 700.0), {"pass_binding"}),      # 0.05 eV < 3 kT = 0.078 eV
+    (("d", "direct", 0.2, 0.01, 700.0), {"pass_margin"}),
+    (("e", "direct", 0.2, 0.1, 1000.0), {"pass_window"}),
+])
+def test_each_criterion(row, failing):
+    long, wide = tables([row])
+    ranked = ranking.rank(long, wide, SETTINGS)
+    passes = {c for c in ("pass_direct", "pass_margin", "pass_binding", "pass_window") if not ranked[c].iloc[0]}
+    assert passes == failing
+    assert bool(ranked["meets_all_criteria"].iloc[0]) == (not failing)
+
+
+def test_score_components_and_weights():
+    long, wide = tables([("a", "direct", 0.2, 0.1, 750.0)])
+    r = ranking.rank(long, wide, SETTINGS).iloc[0]
+    kt = sc.k * 300.0 / sc.e
+    assert r["score_binding"] == pytest.approx(min(0.2 / kt / 6.0, 1.0))
+    assert r["score_margin"] == pytest.approx(0.1 / ranking.MARGIN_FULL_EV)
+    assert r["score_window"] == pytest.approx(1.0)  # window centre
+    assert r["score"] == pytest.approx(0.4 * r["score_binding"] + 0.3 * r["score_margin"] + 0.3)
+
+
+def test_candidates_first_and_ties_by_identifier():
+    rows = [("z", "direct", 0.3, 0.3, 750.0), ("a", "direct", 0.3, 0.3, 750.0),
+            ("m", "indirect", 0.9, -0.2, 750.0), ("b", "direct", 0.3, 0.1, 750.0)]
+    long, wide = tables(rows)
+    ranked = ranking.rank(long, wide, SETTINGS)
+    assert list(ranked["entry_id"]) == ["a", "z", "b", "m"]
+    assert list(ranked["rank"]) == [1, 2, 3, 4]
+    again = ranking.rank(long.sample(frac=1, random_state=1), wide.sample(frac=1, random_state=2), SETTINGS)
+    assert list(again["entry_id"]) == ["a", "z", "b", "m"]
+
+
+def test_order_by_probability():
+    rows = [("a", "direct", 0.3, 0.3, 750.0), ("b", "direct", 0.3, 0.1, 750.0)]
+    long, wide = tables(rows)
+    probs = pd.DataFrame({"entry_id": ["a", "b"], "p_meets_all": [0.4, 0.9]})
+    settings = {**SETTINGS, "ranking": {**SETTINGS["ranking"], "order_by": "probability"}}
+    assert list(ranking.rank(long, wide, settings, probs)["entry_id"]) == ["b", "a"]
+    assert list(ranking.rank(long, wide, SETTINGS, probs)["entry_id"]) == ["a", "b"]
+
+
+def test_shortlist_has_plain_headers_with_units():
+    rows = [("a", "direct", 0.3, 0.3, 750.0), ("b", "direct", 0.3, 0.1, 750.0), ("c", "direct", 0.3, 0.2, 700.0)]
+    long, wide = tables(rows)
+    short = ranking.shortlist(ranking.rank(long, wide, SETTINGS), SETTINGS)
+    assert len(short) == 2
+    assert "Emission wavelength (nm)" in short.columns and "Binding energy (meV)" in short.columns
+    assert (short["Status"] == "model estimate, not a measurement").all()
+    np.testing.assert_allclose(short["Binding energy (meV)"], [300.0, 300.0])
