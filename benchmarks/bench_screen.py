@@ -149,10 +149,12 @@ def revise_one(campaign: Path) -> str:
     return path.stem
 
 
-def job_seconds(work: Path) -> dict:
-    """Sum of the per-job wall times Snakemake's benchmark: files recorded, per rule."""
+def job_seconds(work: Path, since: float = 0.0) -> dict:
+    """Sum per rule of the job wall times in Snakemake's benchmark files written after ``since``."""
     out: dict[str, float] = {}
     for tsv in (work / "results" / "benchmarks").rglob("*.tsv"):
+        if tsv.stat().st_mtime < since:
+            continue
         lines = tsv.read_text().splitlines()
         if len(lines) >= 2:
             out[tsv.parent.name] = out.get(tsv.parent.name, 0.0) + float(lines[-1].split("\t")[0])
@@ -187,9 +189,10 @@ def bench_size(n: int, shards: int, out: Path) -> dict:
     row["noop"] = {k: v for k, v in noop.items() if k != "stdout"}
     stem = revise_one(campaign)
     print(f"[n={n}] re-run after revising {stem} ...", flush=True)
+    start = time.time()
     rev = timed(snakemake_cmd(work), work, base / "revise.log")
     row["revise"] = {k: v for k, v in rev.items() if k != "stdout"}
-    row["revise_jobs_s"] = {k: v - row["full_jobs_s"].get(k, 0.0) for k, v in job_seconds(work).items()}
+    row["revise_jobs_s"] = job_seconds(work, since=start)
 
     print(f"[n={n}] bare lower bound ...", flush=True)
     bare_dir = base / "bare"

@@ -281,8 +281,6 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     io.write_parquet(ranked, outputs["wide"], units={**screen.units_for(ranked.columns), **units},
                      descriptions=screen.DESCRIPTIONS, table_metadata=meta)
     io.write_csv(ranking.shortlist(ranked, settings), outputs["shortlist"])
-    if len(memo) != memo_size:
-        io.write_json({"code_version": stamps["code_version"], "analyses": memo}, memo_path)
     counts = {"screened": len(wide), "rejected": int(rejects["entry_id"].nunique()) if len(rejects) else 0,
               "candidates": int(ranked["meets_all_criteria"].sum()) if len(ranked) else 0}
     log.info("ranked: %s", counts)

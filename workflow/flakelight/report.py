@@ -434,6 +434,32 @@ def _empty_plot(message: str, plot_id: str) -> str:
             f'{_e(message)}</text></svg>')
 
 
+#: At most this many compounds are drawn in the binding-versus-gap plot (candidates first).
+SCATTER_POINT_CAP = 2500
+#: At most this many compounds are drawn per group of the surroundings plot (candidates first).
+GROUP_POINT_CAP = 400
+
+
+def _plot_subset(priority: np.ndarray, cap: int) -> np.ndarray:
+    """Indices to draw: every priority point (up to ``cap``), then evenly spaced others."""
+    priority = np.asarray(priority, dtype=bool)
+    first = np.flatnonzero(priority)[:cap]
+    rest = np.flatnonzero(~priority)
+    room = cap - len(first)
+    if room <= 0 or not len(rest):
+        return np.sort(first)
+    if len(rest) > room:
+        rest = rest[np.linspace(0, len(rest) - 1, room).round().astype(int)]
+    return np.sort(np.concatenate([first, rest]))
+
+
+def _sample_note(ax: "_Axes", shown: int, total: int) -> str:
+    if shown >= total:
+        return ""
+    return (f'<text class="note" x="{ax.x1:.1f}" y="{ax.y1 - 4:.1f}" text-anchor="end">'
+            f'showing {shown} of {total}: every candidate, then an even sample</text>')
+
+
 def _tip(*lines: str) -> str:
     return _e("\n".join(lines))
 
@@ -480,10 +506,10 @@ def plot_binding_vs_gap(ranked: pd.DataFrame, settings: Mapping) -> str:
     cand = ranked["meets_all_criteria"].to_numpy(dtype=bool)
     ids = ranked["entry_id"].astype(str).to_numpy()
     formula = ranked["formula"].astype(str).to_numpy() if "formula" in ranked.columns else np.full(len(ranked), "")
-    order = np.argsort(cand.astype(int), kind="stable")  # candidates drawn last, on top
+    drawn = np.flatnonzero(ok)[_plot_subset(cand[ok], SCATTER_POINT_CAP)]
+    body.append(_sample_note(ax, len(drawn), int(ok.sum())))
+    order = drawn[np.argsort(cand[drawn].astype(int), kind="stable")]  # candidates drawn last, on top
     for i in order:
-        if not ok[i]:
-            continue
         cx, cy = ax.x(gap[i]), ax.y(eb[i])
         colour = GAP_COLOURS.get(character[i], GAP_COLOURS["unknown"])
         if gap_band or eb_band:
@@ -502,7 +528,7 @@ def plot_binding_vs_gap(ranked: pd.DataFrame, settings: Mapping) -> str:
                    f"binding {eb[i]:.0f} meV" + ("  \u2014 candidate" if cand[i] else ""))
         cls = "pt cand" if cand[i] else "pt"
         body.append(f'<circle class="{cls}" data-id="{_e(ids[i])}" data-tip="{tip}" cx="{cx:.1f}" cy="{cy:.1f}" '
-                    f'r="{5.5 if cand[i] else 4.2}" fill="{colour}"><title>{tip}</title></circle>')
+                    f'r="{5.5 if cand[i] else 4.2}" fill="{colour}"/>')
     return _svg(ax, body, "Binding energy against optical gap", "plot-binding-gap")
 
 
@@ -556,7 +582,7 @@ def plot_gap_vs_layers(ranked: pd.DataFrame, long: pd.DataFrame, settings: Mappi
             where = "bulk crystal" if x == bulk_x else f"{x} layer(s)"
             tip = _tip(eid, formula, f"{where}: optical gap {y:.3f} eV")
             body.append(f'<circle class="pt" data-id="{_e(eid)}" data-tip="{tip}" cx="{ax.x(x):.1f}" '
-                        f'cy="{ax.y(y):.1f}" r="3.6" fill="{colour}"><title>{tip}</title></circle>')
+                        f'cy="{ax.y(y):.1f}" r="3.6" fill="{colour}"/>')
         body.append("</g>")
         ly = ax.y1 + 6 + k * 17
         body.append(f'<g class="legend" data-id="{_e(eid)}"><line x1="{ax.x1 + 12:.1f}" x2="{ax.x1 + 30:.1f}" '
@@ -646,15 +672,19 @@ def plot_binding_by_environment(ranked: pd.DataFrame, long: pd.DataFrame, settin
         body.append(f'<text class="{cls}" x="{cx:.1f}" y="{ax.y0 + 18:.1f}" text-anchor="middle">{_e(label)}</text>')
         if not len(vals):
             continue
-        order = np.argsort(vals)
+        is_cand = np.array([cand.get(x, False) for x in ids], dtype=bool)
+        keep = _plot_subset(is_cand, GROUP_POINT_CAP)
+        if len(keep) < len(vals):
+            body.append(f'<text class="note" x="{cx:.1f}" y="{ax.y1 + 2:.1f}" text-anchor="middle">'
+                        f'{len(keep)} of {len(vals)} drawn</text>')
+        order = keep[np.argsort(vals[keep], kind="stable")]
         span = (ax.x(1) - ax.x(0)) * 0.34
         for j, i in enumerate(order):
             jitter = ((j * 0.618034) % 1.0 - 0.5) * 2 * span
             is_c = cand.get(ids[i], False)
             tip = _tip(f"#{rank_of.get(ids[i], 0)}  {ids[i]}", f"{g}: binding {vals[i]:.0f} meV")
             body.append(f'<circle class="pt{" cand" if is_c else " other"}" data-id="{_e(ids[i])}" data-tip="{tip}" '
-                        f'cx="{cx + jitter:.1f}" cy="{ax.y(vals[i]):.1f}" r="{4.2 if is_c else 3.2}">'
-                        f'<title>{tip}</title></circle>')
+                        f'cx="{cx + jitter:.1f}" cy="{ax.y(vals[i]):.1f}" r="{4.2 if is_c else 3.2}"/>')
         med = float(np.median(vals))
         my = ax.y(med)
         body.append(f'<line class="median" x1="{cx - span - 6:.1f}" x2="{cx + span + 6:.1f}" y1="{my:.1f}" y2="{my:.1f}">'
@@ -823,14 +853,10 @@ def _score_bar(row: Mapping, weights: Mapping) -> str:
     parts = [("binding", wb * _num(row.get("score_binding")) / total, "sb"),
              ("margin", wm * _num(row.get("score_margin")) / total, "sm"),
              ("window", ww * _num(row.get("score_window")) / total, "sw")]
-    x, segs = 0.0, []
-    for _, value, cls in parts:
-        value = value if math.isfinite(value) else 0.0
-        segs.append(f'<rect class="{cls}" x="{x * 60:.1f}" y="0" width="{value * 60:.1f}" height="8"/>')
-        x += value
+    segs = "".join(f'<i class="{cls}" style="width:{(value if math.isfinite(value) else 0.0) * 60:.0f}px"></i>'
+                   for _, value, cls in parts)
     title = " + ".join(f"{name} {_fmt(row.get('score_' + name), 2)}" for name in ("binding", "margin", "window"))
-    return (f'<svg class="scorebar" viewBox="0 0 60 8" width="60" height="8" aria-hidden="true">'
-            f'<rect class="track" x="0" y="0" width="60" height="8"/>{"".join(segs)}<title>{_e(title)}</title></svg>')
+    return f'<span class="scorebar" title="parts: {_e(title)}" aria-hidden="true">{segs}</span>'
 
 
 def _band_text(row: Mapping, base: str, digits: int, scale: float = 1.0) -> str:
@@ -961,7 +987,7 @@ def _section_plots(ranked, long, settings) -> str:
     html_figs = "".join(f'<figure class="plot"><figcaption><strong>{_e(t)}</strong> {_e(c)}'
                         f'{"<span class=keys>" + k + "</span>" if k else ""}</figcaption>{svg}</figure>'
                         for t, svg, c, k in figs)
-    return (f'<section id="plots"><h2>Plots</h2><p class="note-text">Hover a dot for the compound; click it to '
+    return (f'<section id="plots"><h2>Plots</h2><p class="note-text noprint">Hover a dot for the compound; click it to '
             f'jump to its row. The table filter also dims the plots.</p><div class="plots">{html_figs}</div></section>')
 
 
@@ -1180,8 +1206,9 @@ td.verdict{font-size:.8rem;min-width:11em;max-width:16em}
 .badge{display:inline-block;padding:1px 8px;border-radius:10px;font-size:.78rem;white-space:nowrap}
 .badge.yes{background:var(--goodbg);color:var(--good);font-weight:600}.badge.no{background:#f0eee8;color:var(--muted)}
 .sr{position:absolute;left:-9999px}
-svg.scorebar{vertical-align:middle;margin-right:4px}
-svg.scorebar .track{fill:#ece8dd}svg.scorebar .sb{fill:#c4532b}svg.scorebar .sm{fill:#3a6f9a}svg.scorebar .sw{fill:#5f8f3e}
+.scorebar{display:inline-flex;width:60px;height:8px;background:#ece8dd;vertical-align:middle;margin-right:4px}
+.scorebar i{display:block;height:8px}.scorebar .sb{background:#c4532b}.scorebar .sm{background:#3a6f9a}
+.scorebar .sw{background:#5f8f3e}
 .plots{display:grid;grid-template-columns:1fr 1fr;gap:18px}
 figure.plot{margin:0;background:var(--card);border:1px solid var(--line);border-radius:6px;padding:10px 12px}
 figure.plot figcaption{font-size:.85rem;color:var(--muted);margin-bottom:4px}
@@ -1226,6 +1253,9 @@ a{color:#2c5d86}a.jump{white-space:nowrap}
  header.top{background:none;color:var(--ink);padding:0}header.top p{color:var(--muted)}
  header.top h1 .brand{color:var(--accent)}
  .scroll{overflow:visible;border:none}table.grid th{position:static}
+ table.grid{font-size:9px}table.grid td,table.grid th{padding:2px 4px}.scorebar{display:none}
+ td.verdict{min-width:9em;max-width:12em}.idcell .formula,.idcell .prov{max-width:10em}
+ .badge{padding:0 4px}.bandname,.band{font-size:8px}
  .plots{grid-template-columns:1fr 1fr}figure.plot,.card,tr{break-inside:avoid}
  section{break-inside:auto}h2{break-after:avoid}a{color:inherit;text-decoration:none}
 }

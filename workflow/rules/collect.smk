@@ -14,7 +14,7 @@ rule rank_candidates:
         rejects=shard_outputs("rejects"),
         long=shard_outputs("exciton_long"),
         wide=shard_outputs("exciton_wide"),
-        #uncertainty=shard_outputs("uncertainty"),
+        uncertainty=shard_outputs("uncertainty"),
         code=library_files("survival", "ranking", "pipeline"),
     output:
         entries="results/tables/entries.parquet",

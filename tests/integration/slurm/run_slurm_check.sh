@@ -60,9 +60,9 @@ on_exit() {
     trap - EXIT INT TERM
     if [ "$rc" -ne 0 ] && [ -d "$work/cluster/log" ]; then
         log "failed (exit $rc); last lines of the daemon and SLURM job logs:"
-        for f in "$work"/cluster/log/*.log "$work"/slurm-run/.snakemake/slurm_logs/*/*/*.log; do
-            [ -f "$f" ] && { echo "--- $f"; tail -n 15 "$f"; }
-        done
+        find "$work/cluster/log" "$work/slurm-run/.snakemake/slurm_logs" \
+            "$work/slurm-run/results/logs" -name '*.log' -type f 2>/dev/null \
+            | while read -r f; do echo "--- $f"; tail -n 15 "$f"; done
     fi
     "$here/stop_cluster.sh" "$work/cluster"
     [ -n "$made_policy" ] && rm -f /usr/sbin/policy-rc.d
@@ -99,7 +99,7 @@ if [ "${#missing[@]}" -gt 0 ]; then
         -o DPkg::Lock::Timeout=300 "${missing[@]}" >/dev/null
     if [ -n "$made_policy" ]; then rm -f /usr/sbin/policy-rc.d; made_policy=""; fi
 fi
-log "SLURM $(sinfo --version | awk '{print $2}')"
+log "SLURM $(dpkg-query -W -f='${Version}' slurmctld)"
 "$venv/bin/python" -m pip install -q --disable-pip-version-check \
     -r "$repo/envs/requirements-slurm.txt" -c "$repo/envs/constraints.txt"
 log "executor plugin $("$venv/bin/python" -m pip show snakemake-executor-plugin-slurm \

@@ -8,7 +8,8 @@
 # to STATE_DIR/pids/<daemon>.pid the moment the daemon is started, so stop_cluster.sh
 # can stop exactly what was started even when a later step fails. All configuration,
 # sockets, databases, spool folders and logs live under STATE_DIR; nothing under /etc
-# or /var is touched. Writes STATE_DIR/env.sh, which exports SLURM_CONF for clients.
+# or /var is touched. Writes STATE_DIR/env.sh, which exports SLURM_CONF for clients and
+# puts STATE_DIR/bin (an srun wrapper, see below) first on PATH.
 #
 # Must run as root (the daemons and the jobs run as root). The Debian packages
 # slurmctld slurmd slurm-client munge slurmdbd mariadb-server must be installed
@@ -49,11 +50,11 @@ die() { log "ERROR: $*"; exit 1; }
 
 [ "$(id -u)" -eq 0 ] || die "must run as root"
 for tool in munged mungekey mariadbd mariadb-install-db mariadb slurmdbd slurmctld slurmd \
-            sacctmgr sinfo; do
+            sacctmgr sinfo srun; do
     command -v "$tool" >/dev/null || die "$tool not found; install the SLURM packages first"
 done
 
-mkdir -p "$state"/{pids,run,log,munge,mysql,slurmctld,slurmd}
+mkdir -p "$state"/{bin,pids,run,log,munge,mysql,slurmctld,slurmd}
 chmod 0755 "$state/munge"
 
 # start NAME LOGFILE COMMAND... : run COMMAND in the background, record its pid.
@@ -103,8 +104,20 @@ fill() {  # fill TEMPLATE OUTPUT: replace the @NAME@ fields of a config template
 fill "$here/slurm.conf.in" "$state/slurm.conf"
 ( umask 077 && fill "$here/slurmdbd.conf.in" "$state/slurmdbd.conf" )
 export SLURM_CONF="$state/slurm.conf"
+
+# Inside a job, snakemake-executor-plugin-slurm-jobstep starts the rule with srun after
+# removing every SLURM_* variable, SLURM_CONF included (plugin issue #164), so srun
+# would look for /etc/slurm/slurm.conf. Real clusters keep their config there (or run
+# configless); this cluster's config stays in STATE_DIR, so an srun first on PATH puts
+# SLURM_CONF back. SLURM passes PATH on to the jobs.
+cat >"$state/bin/srun" <<EOF
+#!/bin/sh
+SLURM_CONF="$SLURM_CONF" exec "$(command -v srun)" "\$@"
+EOF
+chmod +x "$state/bin/srun"
 cat >"$state/env.sh" <<EOF
 export SLURM_CONF="$SLURM_CONF"
+export PATH="$state/bin:\$PATH"
 EOF
 
 # 1. munge: a fresh key for this cluster only, on a private socket.
