@@ -124,12 +124,15 @@ def timed(cmd: list[str], cwd: Path, log: Path) -> dict:
     wall = time.perf_counter() - t0
     if rc != 0:
         raise RuntimeError(f"{' '.join(cmd)} failed with exit {rc}; see {log}")
-    single = None
+    single, cpu = None, None
     if gnu_time and rusage.exists():
+        cpu = 0.0
         for line in rusage.read_text().splitlines():
             if "Maximum resident set size" in line:
                 single = int(line.rsplit(":", 1)[1]) / 1024  # kB -> MiB
-    return {"wall_s": wall, "peak_sum_mib": peak_sum / 2**20, "peak_single_mib": single,
+            elif line.strip().startswith(("User time", "System time")):
+                cpu += float(line.rsplit(":", 1)[1])
+    return {"wall_s": wall, "cpu_s": cpu, "peak_sum_mib": peak_sum / 2**20, "peak_single_mib": single,
             "stdout": log.read_text()}
 
 
@@ -203,6 +206,11 @@ def bench_size(n: int, shards: int, out: Path) -> dict:
                   str(bare_dir)], bare_dir, base / "bare.log")
     row["bare"] = {k: v for k, v in bare.items() if k != "stdout"}
     row["bare"].update(json.loads(bare["stdout"].strip().splitlines()[-1]))
+    if full["cpu_s"] and bare["cpu_s"]:
+        row["cpu_ratios"] = {"full_over_bare": full["cpu_s"] / bare["cpu_s"],
+                             "revise_over_full": rev["cpu_s"] / full["cpu_s"],
+                             "noop_over_full": noop["cpu_s"] / full["cpu_s"]}
+    row["load_avg_1min_at_end"] = os.getloadavg()[0]  # other tenants of the machine skew wall times
     row["ratios"] = {"full_over_bare": full["wall_s"] / bare["wall_s"],
                      "revise_over_full": rev["wall_s"] / full["wall_s"],
                      "noop_over_full": noop["wall_s"] / full["wall_s"]}
@@ -227,15 +235,16 @@ def machine() -> dict:
 
 def table(rows: list[dict]) -> str:
     head = ("| records | shards | full screen (s) | bare bound (s) | full / bare | no-op re-run (s) | no-op / full "
-            "| revise-one re-run (s) | revise / full | peak RSS, sum (MiB) | peak RSS, largest process (MiB) |")
-    lines = [head, "|" + "---|" * 11]
+            "| revise-one re-run (s) | revise / full | CPU full / bare | peak RSS, sum (MiB) | peak RSS, largest process (MiB) |")
+    lines = [head, "|" + "---|" * 12]
     for r in rows:
         peak = max(r["full"]["peak_sum_mib"], r["bare"]["peak_sum_mib"])
         single = max(x for x in (r["full"]["peak_single_mib"], r["bare"]["peak_single_mib"], 0) if x)
         lines.append(f"| {r['n']:,} | {r['shards']} | {r['full']['wall_s']:.1f} | {r['bare']['wall_s']:.1f} "
                      f"| {r['ratios']['full_over_bare']:.2f} | {r['noop']['wall_s']:.1f} "
                      f"| {r['ratios']['noop_over_full']:.0%} | {r['revise']['wall_s']:.1f} "
-                     f"| {r['ratios']['revise_over_full']:.0%} | {peak:.0f} | {single:.0f} |")
+                     f"| {r['ratios']['revise_over_full']:.0%} "
+                     f"| {r.get('cpu_ratios', {}).get('full_over_bare', float('nan')):.2f} | {peak:.0f} | {single:.0f} |")
     return "\n".join(lines)
 
 

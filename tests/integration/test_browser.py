@@ -10,7 +10,7 @@ test artifact (in $FLAKELIGHT_ARTIFACTS when set, else pytest's tmp_path; the
 path is printed).
 
 Needs: Debian packages ``chromium`` and ``chromium-driver`` (/usr/bin/chromium,
-/usr/bin/chromedriver) and ``selenium`` from envs/requirements-browser.txt.
+/usr/bin/chromedriver) and ``selenium`` from envs/requirements-test.txt.
 When any of them is missing the tests FAIL if the environment variable CI is
 set, and are skipped otherwise.
 """
@@ -48,7 +48,7 @@ def _require_browser():
         missing.append("python package selenium")
     if missing:
         message = ("headless browser test needs " + ", ".join(missing) + ": apt-get install -y chromium "
-                   "chromium-driver; pip install -r envs/requirements-browser.txt")
+                   "chromium-driver; pip install -r envs/requirements-test.txt")
         if os.environ.get("CI"):
             pytest.fail(message)
         pytest.skip(message)

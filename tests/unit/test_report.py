@@ -324,14 +324,14 @@ def test_candidate_rows_and_plot_points_match_the_table(settings):
 def test_uncertainty_columns_shown_only_when_present(settings):
     ids = [f"cmp-{i:02d}" for i in range(6)]
     plain = _page(settings, ranked=_ranked(ids, settings))
-    assert "P(meets all)" not in plain and 'class="errbar"' not in plain
+    assert "P(all met)" not in plain and 'class="errbar"' not in plain
     base = _ranked(ids, settings)
     extra = {"p_meets_all": np.linspace(0.2, 0.9, 6), "p_direct_target": np.full(6, 0.7)}
     for name in ("target_binding_ev", "target_optical_gap_ev", "target_emission_nm"):
         for q, f in (("p16", 0.9), ("p50", 1.0), ("p84", 1.1)):
             extra[f"{name}_{q}"] = base[name].to_numpy() * f
     page = _page(settings, ranked=_ranked(ids, settings, extra=extra))
-    assert "P(meets all)" in page and "P(direct target)" in page
+    assert "P(all met)" in page and "chance this criterion holds" in page
     assert 'class="errbar"' in page
     assert report.uncertainty_columns(list(extra))["quantiles"] == [
         "target_binding_ev", "target_emission_nm", "target_optical_gap_ev"]
@@ -406,3 +406,19 @@ def test_unreadable_history_counts_as_first_run(tmp_path, settings):
     report.write_summary(inputs, outputs, settings, str(history))
     assert len(io.read_parquet(outputs["changes"])) == 0
     assert len(io.read_parquet(history / report.LAST_SNAPSHOT)) == 2
+
+
+def test_large_screen_lists_the_best_ranked_rows(settings):
+    ids = [f"cmp-{i:03d}" for i in range(30)]
+    ranked = _ranked(ids, settings)
+    assert int(ranked["meets_all_criteria"].sum()) == 20
+    page = report.build_html(ranked, _long(ranked, settings), _rejects(), MANIFEST, report.empty_changes(),
+                             settings, max_table_rows=15)
+    assert page.count('<tr id="row-') == 15
+    assert page.count('data-candidate="1"') == 15
+    assert "5 further candidate(s) and 10 other compound(s)" in page
+    assert "cmp-" in page and '"rows"' in page
+    data = json.loads(re.search(r'id="flakelight-data">(.*?)</script>', page).group(1))
+    assert len(data["rows"]) == 15
+    scatter = page.split('id="plot-binding-gap"')[1].split("</svg>")[0]
+    assert scatter.count("<circle") == len(ranked)  # plots still show every compound

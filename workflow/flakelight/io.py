@@ -27,6 +27,9 @@ MAX_RECORD_BYTES = 2_000_000
 #: Structures larger than this are rejected before parsing (bytes).
 MAX_CIF_BYTES = 5_000_000
 
+_UMASK = os.umask(0)
+os.umask(_UMASK)
+
 LIBRARY_DIR = Path(__file__).resolve().parent
 SCHEMA_DIR = LIBRARY_DIR.parent / "schemas"
 
@@ -152,6 +155,7 @@ def _atomic_target(path: str | os.PathLike) -> tuple[Path, str]:
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     os.close(fd)
+    os.chmod(tmp, 0o666 & ~_UMASK)  # mkstemp makes 0600; results are shared like any file
     return path, tmp
 
 

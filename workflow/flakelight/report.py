@@ -308,7 +308,7 @@ def _sort_value(x: Any, scale: float = 1.0) -> str:
         return ""
     if math.isinf(value):
         return "1e300" if value > 0 else "-1e300"
-    return repr(value * scale)
+    return f"{value * scale:.7g}"
 
 
 def _text(x: Any) -> str:
@@ -434,6 +434,14 @@ def _empty_plot(message: str, plot_id: str) -> str:
             f'{_e(message)}</text></svg>')
 
 
+#: Probability columns shown inside the criterion cells of the compound table.
+CRITERION_PROBABILITY = {"pass_direct": "p_direct_target", "pass_margin": "p_pass_margin",
+                         "pass_binding": "p_pass_binding", "pass_window": "p_pass_window"}
+PROBABILITY_LABELS = {"p_meets_all": "P(all met)"}
+
+#: The compound table lists the best-ranked compounds up to this many rows, so a screen of
+#: tens of thousands still gives a page that opens in seconds (plots and counts use all).
+MAX_TABLE_ROWS = 3000
 #: At most this many compounds are drawn in the binding-versus-gap plot (candidates first).
 SCATTER_POINT_CAP = 2500
 #: At most this many compounds are drawn per group of the surroundings plot (candidates first).
@@ -853,7 +861,7 @@ def _score_bar(row: Mapping, weights: Mapping) -> str:
     parts = [("binding", wb * _num(row.get("score_binding")) / total, "sb"),
              ("margin", wm * _num(row.get("score_margin")) / total, "sm"),
              ("window", ww * _num(row.get("score_window")) / total, "sw")]
-    segs = "".join(f'<i class="{cls}" style="width:{(value if math.isfinite(value) else 0.0) * 60:.0f}px"></i>'
+    segs = "".join(f'<i class="{cls}" style="width:{(value if math.isfinite(value) else 0.0) * 48:.0f}px"></i>'
                    for _, value, cls in parts)
     title = " + ".join(f"{name} {_fmt(row.get('score_' + name), 2)}" for name in ("binding", "margin", "window"))
     return f'<span class="scorebar" title="parts: {_e(title)}" aria-hidden="true">{segs}</span>'
@@ -866,7 +874,17 @@ def _band_text(row: Mapping, base: str, digits: int, scale: float = 1.0) -> str:
     return ""
 
 
-def _section_table(ranked: pd.DataFrame, settings: Mapping, entries: pd.DataFrame | None) -> str:
+def _listed_rows(ranked: pd.DataFrame, max_rows: int | None) -> tuple[pd.DataFrame, int]:
+    """The best-ranked rows for the compound table, and the candidates and others left out."""
+    if max_rows is None or len(ranked) <= max_rows:
+        return ranked, (0, 0)
+    rest = ranked.iloc[max_rows:]
+    n_cand = int(rest["meets_all_criteria"].astype(bool).sum())
+    return ranked.head(max_rows), (n_cand, len(rest) - n_cand)
+
+
+def _section_table(ranked: pd.DataFrame, settings: Mapping, entries: pd.DataFrame | None,
+                   left_out: tuple[int, int] = (0, 0)) -> str:
     r = settings["ranking"]
     t_k = float(settings["survival"]["temperature_k"])
     n = int(r["target_layers"])
@@ -881,7 +899,10 @@ def _section_table(ranked: pd.DataFrame, settings: Mapping, entries: pd.DataFram
     heads += [("score", "Score", "num"), ("gap", "Optical gap|eV", "num"), ("nm", "Emission|nm, band", "num"),
               ("eb", "Binding|meV", "num"), ("ebkt", f"E_b/kT|at {t_k:g} K", "num"),
               ("thin", "Thinning", "text")]
-    heads += [(p, "P(" + p[2:].replace("_", " ") + ")|%", "num") for p in probs]
+    in_cells = {key: col for key, col in CRITERION_PROBABILITY.items() if col in probs}
+    extra_probs = sorted((p for p in probs if p not in in_cells.values()), key=lambda p: p != "p_meets_all")
+    heads += [(p, PROBABILITY_LABELS.get(p, "P(" + p[2:].replace("_", " ") + ")") + "|%", "num")
+              for p in extra_probs]
     sentences = {k: w for k, _, w in words}
 
     def header(key: str, label: str, kind: str) -> str:
@@ -925,9 +946,12 @@ def _section_table(ranked: pd.DataFrame, settings: Mapping, entries: pd.DataFram
         }
         for key, _, _ in words:
             ok = bool(d.get(key))
+            chance = _num(d.get(in_cells[key])) if key in in_cells else math.nan
+            prob = (f'<span class="pc" title="chance this criterion holds">{chance * 100:.0f}%</span>'
+                    if math.isfinite(chance) else "")
             cells.append(f'<td class="crit {"ok" if ok else "bad"}" data-v="{1 if ok else 0}" '
                          f'title="{_e(details[key])}">{TICK if ok else CROSS}'
-                         f'<span class="sr"> {"pass" if ok else "fail"}</span></td>')
+                         f'<span class="sr"> {"pass" if ok else "fail"}</span>{prob}</td>')
         cells += [
             f'<td class="num" data-v="{_sort_value(d.get("score"))}">{_score_bar(d, weights)} {_fmt(d.get("score"), 3)}</td>',
             f'<td class="num" data-v="{_sort_value(d.get("target_optical_gap_ev"))}">{_fmt(d.get("target_optical_gap_ev"), 3)}'
@@ -938,18 +962,24 @@ def _section_table(ranked: pd.DataFrame, settings: Mapping, entries: pd.DataFram
             f'<td class="num" data-v="{_sort_value(d.get("target_binding_ev"), MEV_PER_EV)}">'
             f'{_fmt(d.get("target_binding_ev"), 0, MEV_PER_EV)}{_band_text(d, "target_binding_ev", 0, MEV_PER_EV)}</td>',
             f'<td class="num" data-v="{_sort_value(d.get("target_binding_over_kt"))}">{_fmt(d.get("target_binding_over_kt"), 1)}</td>',
-            f'<td class="verdict" data-v="{_e(_text(d.get("thinning_verdict")))}">{_e(_text(d.get("thinning_verdict")))}</td>',
+            f'<td class="verdict">{_e(_text(d.get("thinning_verdict")))}</td>',
         ]
-        for p in probs:
+        for p in extra_probs:
             v = _num(d.get(p))
-            cells.append(f'<td class="num" data-v="{_sort_value(v)}">{_fmt(v * 100, 0)}{" %" if math.isfinite(v) else ""}</td>')
+            cells.append(f'<td class="num" data-v="{_sort_value(v)}">{_fmt(v * 100, 0)}{"%" if math.isfinite(v) else ""}</td>')
         body.append(f'<tr id="row-{_e(eid)}" data-id="{_e(eid)}" data-candidate="{1 if cand else 0}" '
                     f'data-search="{_e(search)}" class="{"is-cand" if cand else ""}">{"".join(cells)}</tr>')
     empty = ('<p class="empty-note">No compound was screened in this run.</p>' if not len(ranked) else "")
+    if sum(left_out):
+        empty += (f'<p class="note-text" id="left-out">Only the {len(ranked)} best-ranked compounds are listed, to '
+                  f'keep the page quick to open: {left_out[0]} further candidate(s) and {left_out[1]} other '
+                  'compound(s) are left out here but counted and plotted; every compound is in '
+                  'results/tables/screen_wide.parquet and the candidates in results/shortlist.csv.</p>')
     prob_note = ""
     if probs:
-        prob_note = ("<p class=\"note-text\">P(\u2026) columns are Monte Carlo probabilities from the input "
-                     "uncertainties; small grey ranges under the values are the 16th\u201384th percentiles.</p>")
+        prob_note = ("<p class=\"note-text\">With input uncertainties: the percentages under the \u2713/\u2717 and "
+                     "in the P(\u2026) columns are Monte Carlo chances that a criterion (or all of them) holds; "
+                     "the small grey ranges under values are 16th\u201384th percentiles.</p>")
     return (
         f'<section id="table"><h2>All screened compounds</h2>'
         f'<p class="note-text">Values at {n} layer(s), {_e(r["environment"])}. Click a column header to sort; '
@@ -1198,15 +1228,16 @@ text-overflow:ellipsis}
 .idcell .prov{display:block;font-size:.75rem;color:var(--muted);max-width:15em;overflow:hidden;text-overflow:ellipsis;white-space:nowrap}
 .idcell .warn{display:inline-block;font-size:.72rem;color:var(--warn);background:var(--warnbg);padding:0 5px;
 border-radius:3px;cursor:help}
-td.verdict{font-size:.8rem;min-width:11em;max-width:16em}
+td.verdict{font-size:.8rem;min-width:9.5em;max-width:15em}
 .bandname{display:block;color:var(--muted);font-size:.75rem}
 .sw-key{display:inline-block;width:10px;height:8px;margin:0 3px 0 6px}.sw-key.sb{background:#c4532b}
 .sw-key.sm{background:#3a6f9a}.sw-key.sw{background:#5f8f3e}
 .band{display:block;color:var(--muted);font-size:.75rem}
+td.crit .pc{display:block;font-weight:400;font-size:.72rem;color:var(--muted)}
 .badge{display:inline-block;padding:1px 8px;border-radius:10px;font-size:.78rem;white-space:nowrap}
 .badge.yes{background:var(--goodbg);color:var(--good);font-weight:600}.badge.no{background:#f0eee8;color:var(--muted)}
 .sr{position:absolute;left:-9999px}
-.scorebar{display:inline-flex;width:60px;height:8px;background:#ece8dd;vertical-align:middle;margin-right:4px}
+.scorebar{display:inline-flex;width:48px;height:8px;background:#ece8dd;vertical-align:middle;margin-right:4px}
 .scorebar i{display:block;height:8px}.scorebar .sb{background:#c4532b}.scorebar .sm{background:#3a6f9a}
 .scorebar .sw{background:#5f8f3e}
 .plots{display:grid;grid-template-columns:1fr 1fr;gap:18px}
@@ -1303,7 +1334,8 @@ SCRIPT = r"""
     Array.prototype.forEach.call(th.parentNode.children, function (h) { h.setAttribute("aria-sort", "none"); });
     th.setAttribute("aria-sort", dir === 1 ? "ascending" : "descending");
     var keyed = rows.map(function (tr, i) {
-      var v = tr.cells[idx] ? tr.cells[idx].getAttribute("data-v") : "";
+      var cell = tr.cells[idx];
+      var v = !cell ? "" : (cell.hasAttribute("data-v") ? cell.getAttribute("data-v") : cell.textContent);
       return { tr: tr, i: i, v: v, n: v === "" || v === null ? NaN : Number(v) };
     });
     keyed.sort(function (a, b) {
@@ -1317,7 +1349,9 @@ SCRIPT = r"""
       }
       return c !== 0 ? dir * c : a.i - b.i;
     });
-    keyed.forEach(function (k) { tbody.appendChild(k.tr); });
+    var frag = document.createDocumentFragment();
+    keyed.forEach(function (k) { frag.appendChild(k.tr); });
+    tbody.appendChild(frag);
   }
   if (table) {
     Array.prototype.forEach.call(table.tHead.rows[0].cells, function (th) {
@@ -1431,7 +1465,7 @@ def _csp(script: str) -> str:
 
 def build_html(ranked: pd.DataFrame, long: pd.DataFrame, rejects: pd.DataFrame, manifest: Mapping,
                changes: pd.DataFrame, settings: Mapping, baseline: Mapping | None = None,
-               entries: pd.DataFrame | None = None) -> str:
+               entries: pd.DataFrame | None = None, max_table_rows: int | None = MAX_TABLE_ROWS) -> str:
     """The self-contained HTML summary of one run (pure: no file access).
 
     Parameters
@@ -1444,6 +1478,8 @@ def build_html(ranked: pd.DataFrame, long: pd.DataFrame, rejects: pd.DataFrame, 
     settings : the full workflow config.
     baseline : facts about the run compared with ('run_utc', 'config_hash', ...), None on a first run.
     entries : optional entries table; when given, provenance text is shown under each compound.
+    max_table_rows : the compound table lists the best-ranked compounds up to this many rows
+        (None: all). Plots and counts always use every compound.
 
     Returns
     -------
@@ -1461,7 +1497,8 @@ def build_html(ranked: pd.DataFrame, long: pd.DataFrame, rejects: pd.DataFrame, 
                 f"{int(r['target_layers'])}-layer flakes, {r['environment']}, at "
                 f"{float(settings['survival']['temperature_k']):g} K \u00b7 config {manifest.get('config_hash', '')}"
                 f" \u00b7 written {written}")
-    data_json = script_json(_page_data(ranked, manifest))
+    listed, left_out = _listed_rows(ranked, max_table_rows)
+    data_json = script_json(_page_data(listed, manifest))
     nav = "".join(f'<a href="#{k}">{_e(v)}</a>' for k, v in (
         ("make-first", "Make first"), ("overview", "Overview"), ("table", "All compounds"), ("plots", "Plots"),
         ("changes", "Changes"), ("rejects", "Rejects"), ("methods", "Methods"), ("cautions", "Cautions")))
@@ -1482,7 +1519,7 @@ def build_html(ranked: pd.DataFrame, long: pd.DataFrame, rejects: pd.DataFrame, 
         _changes_digest(changes, baseline),
         _section_make_first(ranked, settings),
         _section_overview(ranked, rejects, manifest, settings),
-        _section_table(ranked, settings, entries),
+        _section_table(listed, settings, entries, left_out),
         _section_plots(ranked, long, settings),
         _section_changes(changes, baseline),
         _section_rejects(rejects),

@@ -10,6 +10,7 @@ rule write_summary:
         long=rules.rank_candidates.output.long,
         wide=rules.rank_candidates.output.wide,
         rejects=rules.rank_candidates.output.rejects,
+        entries=rules.rank_candidates.output.entries,
         manifest=rules.write_manifest.output[0],
         code=library_files("report", "ranking"),
     output:

@@ -122,33 +122,43 @@ sharding:
   shards: $shards
 EOF
 "$venv/bin/python" "$here/make_profile.py" "$repo/workflow/profiles/slurm" \
-    "$work/profile-slurm" "$partition" "$account" 3
+    "$work/profile-slurm" "$partition" "$account" 10
 common=(--snakefile "$repo/Snakefile"
         --configfile "$repo/config/config.yaml" "$work/demo.yaml")
 
+# screen NAME PROFILE: run the demo in $work/NAME with the profile, within the limit.
+screen() {
+    local name="$1" profile="$2" rc=0
+    mkdir -p "$work/$name"
+    timeout -k 30 "$limit" "$venv/bin/python" -m snakemake "${common[@]}" \
+        --directory "$work/$name" --profile "$profile" -- "${targets[@]}" \
+        >"$work/$name.log" 2>&1 || rc=$?
+    if [ "$rc" -ne 0 ]; then
+        tail -n 40 "$work/$name.log"
+        if [ "$rc" -eq 124 ] || [ "$rc" -eq 137 ]; then
+            die "$name: snakemake did not finish within ${limit}s"
+        fi
+        die "$name: snakemake failed (exit $rc); log: $work/$name.log"
+    fi
+}
+
 log "demo through SLURM in $work/slurm-run (limit ${limit}s)"
-mkdir -p "$work/slurm-run"
-timeout -k 30 "$limit" snakemake "${common[@]}" --directory "$work/slurm-run" \
-    --profile "$work/profile-slurm" -- "${targets[@]}" \
-    >"$work/slurm-run.log" 2>&1 || { tail -n 40 "$work/slurm-run.log"; die "SLURM run failed"; }
+screen slurm-run "$work/profile-slurm"
 # The cluster is new: every job it knows was submitted by this run. Expect the table
-# job plus one job per shard (the shard's rules are grouped by the profile).
-jobs() { sacct -n -X -a -S 2000-01-01 -o "$1"; }
-submitted="$(jobs JobID | wc -l)"
-log "SLURM run done: $submitted jobs, states: $(jobs State | sort | uniq -c | xargs)"
+# job plus one job per shard (the profile groups each shard's rules into one job).
+cluster_jobs() { sacct -n -X -a -S 2000-01-01 -o "$1"; }
+submitted="$(cluster_jobs JobID | wc -l)"
+log "SLURM run done: $submitted jobs, states: $(cluster_jobs State | sort | uniq -c | xargs)"
 [ "$submitted" -ge $((shards + 1)) ] \
     || die "expected at least $((shards + 1)) SLURM jobs, found $submitted"
-if jobs State | grep -qv COMPLETED; then
+if cluster_jobs State | grep -qv COMPLETED; then
     die "not every SLURM job completed"
 fi
 phase slurm
 
 # 4. the same demo locally ----------------------------------------------------------
 log "demo locally in $work/local-run"
-mkdir -p "$work/local-run"
-timeout -k 30 "$limit" snakemake "${common[@]}" --directory "$work/local-run" \
-    --profile "$repo/workflow/profiles/local" -- "${targets[@]}" \
-    >"$work/local-run.log" 2>&1 || { tail -n 40 "$work/local-run.log"; die "local run failed"; }
+screen local-run "$repo/workflow/profiles/local"
 phase local
 
 # 5. identical tables ---------------------------------------------------------------

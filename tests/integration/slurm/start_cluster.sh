@@ -54,6 +54,12 @@ for tool in munged mungekey mariadbd mariadb-install-db mariadb slurmdbd slurmct
     command -v "$tool" >/dev/null || die "$tool not found; install the SLURM packages first"
 done
 
+for port in "$db_port" "$dbd_port" "$ctld_port" "$slurmd_port"; do
+    if (exec 3<>"/dev/tcp/127.0.0.1/$port") 2>/dev/null; then
+        die "port $port is in use (another cluster?); set FLAKELIGHT_SLURM_PORT_BASE"
+    fi
+done
+
 mkdir -p "$state"/{bin,pids,run,log,munge,mysql,slurmctld,slurmd}
 chmod 0755 "$state/munge"
 

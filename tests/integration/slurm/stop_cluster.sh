@@ -25,9 +25,9 @@ stop() {
     # Only signal the pid if it still belongs to that daemon (pids can be reused).
     if [ -n "$pid" ] && [ "$(cat "/proc/$pid/comm" 2>/dev/null)" = "$name" ]; then
         kill -TERM "$pid" 2>/dev/null
-        for ((i = 0; i < 40; i++)); do
+        for ((i = 0; i < 100; i++)); do
             kill -0 "$pid" 2>/dev/null || break
-            sleep 0.5
+            sleep 0.2
         done
         if kill -0 "$pid" 2>/dev/null; then
             log "$name (pid $pid) ignored TERM; killing it"
