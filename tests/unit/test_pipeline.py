@@ -141,3 +141,35 @@ def test_structure_supplies_geometry_and_flags_non_layered(tmp_path, record, tab
         assert "rocksalt" in rejects.index and "no 2D-bonded layers" in rejects.loc["rocksalt", "reason"]
     else:
         assert "no 2D-bonded layers" in ent.loc["rocksalt", "warnings"]
+
+
+UNC_SETTINGS = {
+    "uncertainty": {"samples": 64, "seed": 3, "default_mass_rel": 0.15, "default_eps_rel": 0.1,
+                    "default_edge_ev": 0.05, "default_r0_rel": 0.2, "default_scissor_ev": 0.1},
+    "survival": {"temperature_k": 300.0, "pair_density_per_cm2": 1e12, "wannier_ratio": 2.0},
+    "ranking": {"environment": "suspended", "target_layers": 1, "require_direct": True, "min_direct_margin_ev": 0.0,
+                "min_binding_over_kt": 1.0, "window_nm": [400, 1600],
+                "weights": {"binding": 0.4, "margin": 0.3, "window": 0.3}, "shortlist_size": 5, "order_by": "score"},
+    "layers": SETTINGS["layers"], "monolayer": SETTINGS["monolayer"], "environments": SETTINGS["environments"],
+}
+
+
+def test_propagation_cache_resamples_only_revised(tmp_path, record, table_path):
+    entries = _campaign(tmp_path, record)
+    _run(tmp_path, entries, table_path, tag="a")
+    out = tmp_path / "unc.parquet"
+    first = pipeline.run_propagation(str(tmp_path / "a" / "entries.parquet"), str(tmp_path / "a" / "valleys.parquet"),
+                                     table_path, UNC_SETTINGS, str(tmp_path / "cache"), str(out))
+    assert first == {"computed": 3, "reused": 0}
+    rec = json.loads((entries / "ok-2.json").read_text())
+    rec["valleys"][2]["mass"]["isotropic_me"] = 0.7
+    (entries / "ok-2.json").write_text(json.dumps(rec))
+    _run(tmp_path, entries, table_path, tag="b")
+    second = pipeline.run_propagation(str(tmp_path / "b" / "entries.parquet"), str(tmp_path / "b" / "valleys.parquet"),
+                                      table_path, UNC_SETTINGS, str(tmp_path / "cache"), str(out))
+    assert second == {"computed": 1, "reused": 2}
+    cached = io.read_parquet(out)
+    fresh_out = tmp_path / "fresh.parquet"
+    pipeline.run_propagation(str(tmp_path / "b" / "entries.parquet"), str(tmp_path / "b" / "valleys.parquet"),
+                             table_path, UNC_SETTINGS, str(tmp_path / "cache-fresh"), str(fresh_out))
+    pd.testing.assert_frame_equal(cached, io.read_parquet(fresh_out))

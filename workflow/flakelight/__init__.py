@@ -15,3 +15,9 @@ SHARD_MODULES = (
     "__init__", "units", "io", "contract", "sharding", "structure", "bandfit", "dielectric",
     "masses", "hydrogenic", "keldysh", "layers", "survival", "ingest", "screen", "pipeline",
 )
+
+#: Library modules the per-shard uncertainty propagation depends on (its cache key).
+PROPAGATION_MODULES = (
+    "__init__", "units", "io", "ingest", "dielectric", "hydrogenic", "keldysh", "layers",
+    "masses", "survival", "uncertainty", "pipeline",
+)

@@ -200,6 +200,12 @@ def parquet_units(path: str | os.PathLike) -> dict[str, str]:
             if f.metadata and b"unit" in f.metadata}
 
 
+def parquet_metadata(path: str | os.PathLike) -> dict[str, str]:
+    """Table-level key/value metadata of a Parquet file (without pandas' own entry)."""
+    meta = pq.read_schema(path).metadata or {}
+    return {k.decode(): v.decode() for k, v in meta.items() if k != b"pandas"}
+
+
 def write_text(text: str, path: str | os.PathLike) -> None:
     """Write text atomically (UTF-8)."""
     target, tmp = _atomic_target(path)

@@ -26,7 +26,7 @@ from typing import Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from flakelight import SHARD_MODULES, contract, ingest, io, screen, structure
+from flakelight import PROPAGATION_MODULES, SHARD_MODULES, contract, ingest, io, screen, structure
 from flakelight.keldysh import KeldyshTable
 
 log = logging.getLogger("flakelight")
@@ -349,3 +349,41 @@ CAUTIONS = [
     "Follow your local laboratory safety rules when preparing samples, handling chemicals and using lasers; "
     "these results do not replace a licensed safety assessment.",
 ]
+
+
+def run_propagation(entries_path: str, valleys_path: str, table_path: str, settings: Mapping,
+                    cache_dir: str, output: str) -> dict[str, int]:
+    """Monte Carlo propagation for one shard, re-sampling only records that changed.
+
+    Each record's random stream depends only on the campaign seed and its
+    identifier, so a cached row equals a fresh one whenever the record's
+    ``input_hash`` and ``physics_hash``, the settings and the code are the same.
+    """
+    from flakelight import uncertainty
+
+    entries = io.read_parquet(entries_path)
+    valleys = io.read_parquet(valleys_path)
+    stamps = {"settings_hash": io.canonical_json_hash(dict(settings))[:16],
+              "code_version": io.library_digest([f"{m}.py" for m in PROPAGATION_MODULES])}
+    cache_path = Path(cache_dir) / "uncertainty.parquet"
+    keys = entries["input_hash"].astype(str) + ":" + entries["physics_hash"].astype(str)
+    reused = pd.DataFrame()
+    if cache_path.exists() and io.parquet_metadata(cache_path) == {**io.parquet_metadata(cache_path), **stamps}:
+        old = io.read_parquet(cache_path)
+        old_keys = old["input_hash"].astype(str) + ":" + old["physics_hash"].astype(str)
+        reused = old[old_keys.isin(set(keys))]
+    todo = entries[~keys.isin(set(reused["input_hash"].astype(str) + ":" + reused["physics_hash"].astype(str))
+                              if len(reused) else set())]
+    table = KeldyshTable.from_arrays(io.load_arrays(table_path))
+    fresh = uncertainty.propagate_uncertainty(todo, valleys[valleys["entry_id"].isin(todo["entry_id"])],
+                                              settings, table)
+    fresh["physics_hash"] = todo.set_index("entry_id").loc[fresh["entry_id"], "physics_hash"].to_numpy() \
+        if len(fresh) else pd.Series(dtype="string")
+    frame = pd.concat([f for f in (fresh, reused) if len(f)] or [fresh], ignore_index=True)
+    frame = frame.sort_values("entry_id", kind="stable").reset_index(drop=True)
+    io.write_parquet(frame, output, units=uncertainty.UNITS, descriptions=uncertainty.DESCRIPTIONS,
+                     table_metadata=stamps)
+    io.copy_file(output, cache_path)
+    counts = {"computed": len(fresh), "reused": len(reused)}
+    log.info("propagation done: %s", counts)
+    return counts

@@ -5,7 +5,7 @@ from pathlib import Path
 from snakemake.utils import validate
 
 sys.path.insert(0, str(Path(workflow.basedir) / "workflow"))
-from flakelight import SHARD_MODULES  # noqa: E402
+from flakelight import PROPAGATION_MODULES, SHARD_MODULES  # noqa: E402
 from flakelight.sharding import shard_name, shard_of  # noqa: E402
 
 

@@ -35,11 +35,12 @@ rule propagate_shard:
         entries="results/shards/{shard}/entries.parquet",
         valleys="results/shards/{shard}/valleys.parquet",
         table=rules.keldysh_table.output[0],
-        code=library_files("uncertainty", "layers", "keldysh", "survival", "masses", "pipeline"),
+        code=library_files(*PROPAGATION_MODULES),
     output:
         "results/shards/{shard}/uncertainty.parquet",
     params:
         settings=uncertainty_settings(),
+        cache="results/cache/shards/{shard}",
     log:
         "results/logs/propagate_shard/{shard}.log",
     benchmark:

@@ -3,14 +3,14 @@ import sys
 from pathlib import Path
 
 sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
-from flakelight import io, keldysh, pipeline, uncertainty  # noqa: E402
+from flakelight import pipeline  # noqa: E402
 
 pipeline.start_log(snakemake.log[0])  # noqa: F821
-settings = snakemake.params.settings  # noqa: F821
-table = keldysh.KeldyshTable.from_arrays(io.load_arrays(snakemake.input.table))  # noqa: F821
-frame = uncertainty.propagate_uncertainty(io.read_parquet(snakemake.input.entries),  # noqa: F821
-                                          io.read_parquet(snakemake.input.valleys), settings, table)  # noqa: F821
-io.write_parquet(frame, snakemake.output[0], units=uncertainty.UNITS,  # noqa: F821
-                 descriptions=uncertainty.DESCRIPTIONS,
-                 table_metadata={"settings_hash": io.canonical_json_hash(dict(settings))[:16],
-                                 "code_version": io.library_digest()})
+pipeline.run_propagation(
+    entries_path=snakemake.input.entries,  # noqa: F821
+    valleys_path=snakemake.input.valleys,  # noqa: F821
+    table_path=snakemake.input.table,  # noqa: F821
+    settings=snakemake.params.settings,  # noqa: F821
+    cache_dir=snakemake.params.cache,  # noqa: F821
+    output=snakemake.output[0],  # noqa: F821
+)
