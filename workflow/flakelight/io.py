@@ -159,26 +159,77 @@ def _atomic_target(path: str | os.PathLike) -> tuple[Path, str]:
     return path, tmp
 
 
+def _arrow_table(frame: pd.DataFrame, units: Mapping[str, str], descriptions: Mapping[str, str],
+                 table_metadata: Mapping[str, str] | None) -> pa.Table:
+    table = pa.Table.from_pandas(frame, preserve_index=False)
+    fields = []
+    for f in table.schema:
+        meta = dict(f.metadata or {})
+        if f.name in units:
+            meta[b"unit"] = units[f.name].encode()
+        if f.name in descriptions:
+            meta[b"description"] = descriptions[f.name].encode()
+        fields.append(f.with_metadata(meta) if meta else f)
+    schema_meta = dict(table.schema.metadata or {})
+    for key, value in (table_metadata or {}).items():
+        schema_meta[key.encode()] = str(value).encode()
+    return table.cast(pa.schema(fields, metadata=schema_meta))
+
+
+class ParquetSink:
+    """Write a large table part by part (one row group each), atomically on close.
+
+    Memory stays at one part. Every part is cast to the schema of the first
+    non-empty part; if all parts are empty the last one defines the (empty) file.
+    """
+
+    def __init__(self, path: str | os.PathLike, units: Mapping[str, str] | None = None,
+                 descriptions: Mapping[str, str] | None = None, table_metadata: Mapping[str, str] | None = None):
+        self._target, self._tmp = _atomic_target(path)
+        self._units, self._descriptions, self._meta = units or {}, descriptions or {}, table_metadata
+        self._writer: pq.ParquetWriter | None = None
+        self._empty: pa.Table | None = None
+
+    def write(self, frame: pd.DataFrame) -> None:
+        table = _arrow_table(frame, self._units, self._descriptions, self._meta)
+        if not len(frame):
+            self._empty = table
+            return
+        if self._writer is None:
+            self._writer = pq.ParquetWriter(self._tmp, table.schema, compression="zstd")
+        self._writer.write_table(table.cast(self._writer.schema))
+
+    def close(self) -> None:
+        try:
+            if self._writer is None:
+                pq.write_table(self._empty if self._empty is not None else pa.table({}), self._tmp,
+                               compression="zstd")
+            else:
+                self._writer.close()
+            os.replace(self._tmp, self._target)
+        finally:
+            if os.path.exists(self._tmp):
+                os.unlink(self._tmp)
+
+    def __enter__(self) -> "ParquetSink":
+        return self
+
+    def __exit__(self, exc_type, exc, tb) -> None:
+        if exc_type is None:
+            self.close()
+        else:
+            if self._writer is not None:
+                self._writer.close()
+            if os.path.exists(self._tmp):
+                os.unlink(self._tmp)
+
+
 def write_parquet(frame: pd.DataFrame, path: str | os.PathLike,
                   units: Mapping[str, str] | None = None,
                   descriptions: Mapping[str, str] | None = None,
                   table_metadata: Mapping[str, str] | None = None) -> None:
     """Write a DataFrame to Parquet atomically, units and descriptions in Arrow field metadata."""
-    units = units or {}
-    descriptions = descriptions or {}
-    table = pa.Table.from_pandas(frame, preserve_index=False)
-    fields = []
-    for field in table.schema:
-        meta = dict(field.metadata or {})
-        if field.name in units:
-            meta[b"unit"] = units[field.name].encode()
-        if field.name in descriptions:
-            meta[b"description"] = descriptions[field.name].encode()
-        fields.append(field.with_metadata(meta) if meta else field)
-    schema_meta = dict(table.schema.metadata or {})
-    for key, value in (table_metadata or {}).items():
-        schema_meta[key.encode()] = str(value).encode()
-    table = table.cast(pa.schema(fields, metadata=schema_meta))
+    table = _arrow_table(frame, units or {}, descriptions or {}, table_metadata)
     target, tmp = _atomic_target(path)
     try:
         pq.write_table(table, tmp, compression="zstd")
@@ -188,9 +239,9 @@ def write_parquet(frame: pd.DataFrame, path: str | os.PathLike,
             os.unlink(tmp)
 
 
-def read_parquet(path: str | os.PathLike) -> pd.DataFrame:
-    """Read a Parquet table into pandas."""
-    return pd.read_parquet(path)
+def read_parquet(path: str | os.PathLike, columns: list[str] | None = None) -> pd.DataFrame:
+    """Read a Parquet table (or some of its columns) into pandas."""
+    return pd.read_parquet(path, columns=columns)
 
 
 def parquet_units(path: str | os.PathLike) -> dict[str, str]:

@@ -252,32 +252,42 @@ def _concat(paths: Sequence[str]) -> pd.DataFrame:
 
 def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], settings: Mapping,
              config_hash: str) -> dict[str, int]:
-    """Combine shard tables, add survival columns, rank, write final tables and the shortlist."""
+    """Combine shard tables, add survival columns, rank, write final tables and the shortlist.
+
+    The long table (compound x layer count x environment, about 20 rows per
+    compound) is streamed shard by shard, so memory holds one shard of it at a
+    time; its rows come in shard order, sorted by compound within each shard.
+    """
     from flakelight import ranking
 
     entries = _concat(inputs["entries"]).sort_values("entry_id", kind="stable").reset_index(drop=True)
     valleys = _concat(inputs["valleys"])
     rejects = _concat(inputs["rejects"])
-    long = _concat(inputs["long"])
     wide = _concat(inputs["wide"]).sort_values("entry_id", kind="stable").reset_index(drop=True)
     probabilities = _concat(inputs["uncertainty"]) if inputs.get("uncertainty") else None
     if len(valleys):
         valleys = valleys.sort_values(["entry_id", "valley_index"], kind="stable").reset_index(drop=True)
     if len(rejects):
         rejects = rejects.sort_values(["entry_id", "field"], kind="stable").reset_index(drop=True)
-    long = ranking.add_survival(long, wide, settings)
-    long = long.sort_values(["entry_id"], kind="stable").reset_index(drop=True)
-    ranked = ranking.rank(long, wide, settings, probabilities)
-    for frame in (long, ranked):
-        frame["config_hash"] = config_hash
-    units = {**screen.UNITS, **ranking.SURVIVAL_UNITS, **ranking.RANK_UNITS}
     meta = {"config_hash": config_hash}
+    units = {**screen.UNITS, **ranking.SURVIVAL_UNITS, **ranking.RANK_UNITS}
+    target_layers = int(settings["ranking"]["target_layers"])
+    environment = settings["ranking"]["environment"]
+    targets = []
+    with io.ParquetSink(outputs["long"], units=units, descriptions=screen.DESCRIPTIONS, table_metadata=meta) as sink:
+        for path in inputs["long"]:
+            part = ranking.add_survival(io.read_parquet(path), wide, settings)
+            part["config_hash"] = config_hash
+            targets.append(part[(part["layers"] == target_layers) & (part["environment"] == environment)])
+            sink.write(part)
+            del part
+    target = pd.concat(targets, ignore_index=True) if targets else pd.DataFrame()
+    ranked = ranking.rank(target, wide, settings, probabilities)
+    ranked["config_hash"] = config_hash
     io.write_parquet(entries, outputs["entries"], table_metadata=meta)
     io.write_parquet(valleys, outputs["valleys"], table_metadata=meta)
     io.write_parquet(rejects, outputs["rejects"], table_metadata=meta)
     io.write_csv(rejects, outputs["rejects_csv"])
-    io.write_parquet(long, outputs["long"], units={**screen.units_for(long.columns), **units},
-                     descriptions=screen.DESCRIPTIONS, table_metadata=meta)
     io.write_parquet(ranked, outputs["wide"], units={**screen.units_for(ranked.columns), **units},
                      descriptions=screen.DESCRIPTIONS, table_metadata=meta)
     io.write_csv(ranking.shortlist(ranked, settings), outputs["shortlist"])

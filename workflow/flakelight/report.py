@@ -1588,6 +1588,11 @@ def _baseline_info(frame: pd.DataFrame, config_hash: str) -> dict:
             "config_changed": bool(then and config_hash and then != config_hash)}
 
 
+#: Columns of the long table the page uses (the file can be large: read only these).
+LONG_COLUMNS_USED = ["entry_id", "layers", "environment", "gap_character", "direct_gap_ev",
+                     "optical_gap_ev", "binding_ev"]
+
+
 def write_summary(inputs: Mapping[str, str], outputs: Mapping[str, str], settings: Mapping,
                   history: str) -> dict[str, int]:
     """Read the run's tables, write the HTML summary and the change table, then rotate the history.
@@ -1605,10 +1610,10 @@ def write_summary(inputs: Mapping[str, str], outputs: Mapping[str, str], setting
     repeating a run does not wipe out the change report.
     """
     ranked = io.read_parquet(inputs["wide"])
-    long = io.read_parquet(inputs["long"])
+    long = io.read_parquet(inputs["long"], columns=LONG_COLUMNS_USED)
     rejects = io.read_parquet(inputs["rejects"])
     manifest = io.read_json(inputs["manifest"])
-    entries = io.read_parquet(inputs["entries"]) if inputs.get("entries") else None
+    entries = io.read_parquet(inputs["entries"], columns=["entry_id", "provenance"]) if inputs.get("entries") else None
     config_hash = str(manifest.get("config_hash", ""))
     current = snapshot(ranked, run_utc=str(manifest.get("written_utc", "")), config_hash=config_hash)
 
