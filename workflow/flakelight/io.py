@@ -244,6 +244,11 @@ def read_parquet(path: str | os.PathLike, columns: list[str] | None = None) -> p
     return pd.read_parquet(path, columns=columns)
 
 
+def parquet_column_names(path: str | os.PathLike) -> list[str]:
+    """Names of the columns of a Parquet file, without reading its data."""
+    return list(pq.read_schema(path).names)
+
+
 def parquet_units(path: str | os.PathLike) -> dict[str, str]:
     """The unit of every field that carries one, from the Arrow field metadata."""
     schema = pq.read_schema(path)

@@ -1610,10 +1610,13 @@ def write_summary(inputs: Mapping[str, str], outputs: Mapping[str, str], setting
     repeating a run does not wipe out the change report.
     """
     ranked = io.read_parquet(inputs["wide"])
-    long = io.read_parquet(inputs["long"], columns=LONG_COLUMNS_USED)
+    present = set(io.parquet_column_names(inputs["long"]))
+    long = io.read_parquet(inputs["long"], columns=[c for c in LONG_COLUMNS_USED if c in present])
     rejects = io.read_parquet(inputs["rejects"])
     manifest = io.read_json(inputs["manifest"])
-    entries = io.read_parquet(inputs["entries"], columns=["entry_id", "provenance"]) if inputs.get("entries") else None
+    entries = io.read_parquet(inputs["entries"]) if inputs.get("entries") else None
+    if entries is not None:
+        entries = entries[[c for c in ("entry_id", "provenance") if c in entries.columns]]
     config_hash = str(manifest.get("config_hash", ""))
     current = snapshot(ranked, run_utc=str(manifest.get("written_utc", "")), config_hash=config_hash)
 
