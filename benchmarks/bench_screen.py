@@ -13,7 +13,8 @@ For each campaign size N it
    directory, including the Keldysh table build;
 3. times a no-op re-run, then a re-run after revising one record (one mass changed);
 4. times the bare lower bound: one Python process that builds the Keldysh table,
-   calls ``flakelight.pipeline.run_shard`` on all records at once and then
+   calls ``flakelight.pipeline.run_shard`` on all records at once, propagates the
+   uncertainties (when rule rank_candidates takes them as input) and then calls
    ``pipeline.run_rank`` (no Snakemake, no sharding);
 5. records peak memory two ways: the largest single process (``/usr/bin/time -v``,
    i.e. ``ru_maxrss`` of the waited process tree; install with ``apt-get install
@@ -31,6 +32,7 @@ import argparse
 import json
 import os
 import platform
+import re
 import shutil
 import subprocess
 import sys
@@ -63,12 +65,24 @@ pipeline.run_shard(entries, cfg["campaign"], {k: cfg[k] for k in keys}, str(work
 t2 = time.perf_counter()
 inputs = {"entries": [shard["entries"]], "valleys": [shard["valleys"]], "rejects": [shard["rejects"]],
           "long": [shard["long"]], "wide": [shard["wide"]]}
+t_unc = 0.0
+if sys.argv[4] == "with-uncertainty":  # the rank rule takes the Monte Carlo table as input
+    from flakelight import keldysh, uncertainty
+    t = time.perf_counter()
+    ukeys = ("uncertainty", "survival", "ranking", "layers", "monolayer", "environments")
+    table = keldysh.KeldyshTable.from_arrays(io.load_arrays(str(work / "keldysh_table.npz")))
+    frame = uncertainty.propagate_uncertainty(io.read_parquet(shard["entries"]), io.read_parquet(shard["valleys"]),
+                                              {k: cfg[k] for k in ukeys}, table)
+    io.write_parquet(frame, str(work / "uncertainty.parquet"))
+    inputs["uncertainty"] = [str(work / "uncertainty.parquet")]
+    t_unc = time.perf_counter() - t
+t2b = time.perf_counter()
 outputs = {n: str(work / "tables" / f"{n}.parquet") for n in ("entries", "valleys", "rejects", "long", "wide")}
 outputs.update(rejects_csv=str(work / "tables" / "rejects.csv"), shortlist=str(work / "shortlist.csv"))
 pipeline.run_rank(inputs, outputs, {k: cfg[k] for k in ("survival", "ranking", "environments")},
                   io.canonical_json_hash(cfg)[:16])
 t3 = time.perf_counter()
-print(json.dumps({"table_s": t1 - t0, "shard_s": t2 - t1, "rank_s": t3 - t2}))
+print(json.dumps({"table_s": t1 - t0, "shard_s": t2 - t1, "uncertainty_s": t_unc, "rank_s": t3 - t2b}))
 """
 
 
@@ -202,8 +216,11 @@ def bench_size(n: int, shards: int, out: Path) -> dict:
     bare_dir.mkdir()
     (bare_dir / "config.json").write_text(json.dumps(config))
     (bare_dir / "bare.py").write_text(BARE)
+    rank_rule = (ROOT / "workflow" / "rules" / "collect.smk").read_text()
+    with_unc = bool(re.search(r"^\s*uncertainty=shard_outputs", rank_rule, re.M))
+    row["uncertainty_in_rank"] = with_unc
     bare = timed([PYTHON, str(bare_dir / "bare.py"), str(ROOT / "workflow"), str(bare_dir / "config.json"),
-                  str(bare_dir)], bare_dir, base / "bare.log")
+                  str(bare_dir), "with-uncertainty" if with_unc else "without"], bare_dir, base / "bare.log")
     row["bare"] = {k: v for k, v in bare.items() if k != "stdout"}
     row["bare"].update(json.loads(bare["stdout"].strip().splitlines()[-1]))
     if full["cpu_s"] and bare["cpu_s"]:
@@ -235,7 +252,8 @@ def machine() -> dict:
 
 def table(rows: list[dict]) -> str:
     head = ("| records | shards | full screen (s) | bare bound (s) | full / bare | no-op re-run (s) | no-op / full "
-            "| revise-one re-run (s) | revise / full | CPU full / bare | peak RSS, sum (MiB) | peak RSS, largest process (MiB) |")
+            "| revise-one re-run (s) | revise / full | CPU full / bare | peak RSS, sum (MiB) "
+            "| peak RSS, largest process (MiB) |")
     lines = [head, "|" + "---|" * 12]
     for r in rows:
         peak = max(r["full"]["peak_sum_mib"], r["bare"]["peak_sum_mib"])
@@ -244,7 +262,8 @@ def table(rows: list[dict]) -> str:
                      f"| {r['ratios']['full_over_bare']:.2f} | {r['noop']['wall_s']:.1f} "
                      f"| {r['ratios']['noop_over_full']:.0%} | {r['revise']['wall_s']:.1f} "
                      f"| {r['ratios']['revise_over_full']:.0%} "
-                     f"| {r.get('cpu_ratios', {}).get('full_over_bare', float('nan')):.2f} | {peak:.0f} | {single:.0f} |")
+                     f"| {r.get('cpu_ratios', {}).get('full_over_bare', float('nan')):.2f} "
+                     f"| {peak:.0f} | {single:.0f} |")
     return "\n".join(lines)
 
 

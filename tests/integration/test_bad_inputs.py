@@ -206,6 +206,8 @@ def test_empty_folder_gives_empty_tables(empty_run):
     assert len(pd.read_csv(empty_run / "results" / "shortlist.csv")) == 0
 
 
+
+
 @pytest.mark.slow
 @pytest.mark.parametrize("name", TABLES)
 def test_empty_tables_are_well_typed(empty_run, corpus_run, name):

@@ -242,9 +242,6 @@ def test_temperature_change_reranks_without_rescreening(second_run):
     assert {rule for rule, _ in jobs} <= DOWNSTREAM, jobs
 
 
-@pytest.mark.xfail(strict=True, reason="known bug: pipeline.run_shard copies its five cache tables one by one, "
-                   "and _load_cache trusts a cache of mixed generations (the revised record is taken as "
-                   "cached and silently dropped from long/wide); remove this mark with the fix")
 def test_kill_during_cache_update_never_drops_rows(tmp_path, campaign, reference):
     """A shard job killed while it copies its five tables to the per-record cache leaves
     a cache of mixed generations; the re-run of the job must still screen every record.

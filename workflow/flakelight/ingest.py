@@ -14,6 +14,7 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
+import pandas as pd
 
 from flakelight import bandfit, dielectric, masses, structure
 from flakelight.contract import Problem
@@ -211,3 +212,21 @@ def valley_columns(max_layers: int) -> list[str]:
             *[edge_column(n) for n in range(1, max_layers + 1)], edge_column(0),
             "inv_mass_xx", "inv_mass_xy", "inv_mass_yy", "mass_perp_me", "mass_source",
             "mass_fit_rms_ev", "mass_nonparabolic", "mass_rel_unc", "edge_unc_ev"]
+
+
+#: Columns of the entry and valley tables that hold text or flags (the rest are float64).
+STRING_COLUMNS = {
+    "entry_id", "source_file", "input_hash", "formula", "provenance", "energy_reference", "structure_file",
+    "structure_hash", "dielectric_frame", "normal_source", "spacing_source", "lattice_source", "r0_source",
+    "warnings", "label", "band", "mass_source", "physics_hash", "code_version",
+}
+BOOLEAN_COLUMNS = {"is_layered_structure", "mass_nonparabolic"}
+INTEGER_COLUMNS = {"valley_index"}
+
+
+def typed_frame(rows: list[dict], columns: list[str]) -> pd.DataFrame:
+    """Rows as a DataFrame with a fixed type per column, also when there are no rows."""
+    frame = pd.DataFrame(rows, columns=columns)
+    types = {c: ("str" if c in STRING_COLUMNS else "boolean" if c in BOOLEAN_COLUMNS
+                 else "int64" if c in INTEGER_COLUMNS else "float64") for c in columns}
+    return frame.astype(types)

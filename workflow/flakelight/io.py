@@ -162,6 +162,9 @@ def _atomic_target(path: str | os.PathLike) -> tuple[Path, str]:
 def _arrow_table(frame: pd.DataFrame, units: Mapping[str, str], descriptions: Mapping[str, str],
                  table_metadata: Mapping[str, str] | None) -> pa.Table:
     table = pa.Table.from_pandas(frame, preserve_index=False)
+    # An empty object column has no type (Arrow: null); all such columns here hold text.
+    table = table.cast(pa.schema([f.with_type(pa.large_string()) if pa.types.is_null(f.type) else f
+                                  for f in table.schema], metadata=table.schema.metadata))
     fields = []
     for f in table.schema:
         meta = dict(f.metadata or {})

@@ -48,13 +48,21 @@ def _reject_rows(stem: str, source: str, problems: Sequence[contract.Problem], s
 
 
 def _load_cache(cache_dir: Path, stamps: Mapping[str, str]) -> dict[str, pd.DataFrame]:
-    """Cached shard tables restricted to rows computed with the current stamps."""
+    """Cached shard tables restricted to rows computed with the current stamps.
+
+    The tables are copied into the cache one after another; a run killed in
+    between leaves tables of two generations. Each table carries its
+    generation in the file metadata, and a cache whose tables disagree is
+    ignored as a whole.
+    """
     out = {}
+    generations = set()
     for name in SHARD_TABLES:
         path = cache_dir / f"{name}.parquet"
         if not path.exists():
             return {}
         try:
+            generations.add(io.parquet_metadata(path).get("generation"))
             frame = io.read_parquet(path)
         except Exception as exc:  # a damaged cache is ignored, never trusted
             log.warning("ignoring unreadable cache %s: %s", path, exc)
@@ -63,6 +71,24 @@ def _load_cache(cache_dir: Path, stamps: Mapping[str, str]) -> dict[str, pd.Data
             keep = (frame["physics_hash"] == stamps["physics_hash"]) & (frame["code_version"] == stamps["code_version"])
             frame = frame[keep]
         out[name] = frame
+    if len(generations) != 1 or None in generations:
+        log.warning("ignoring cache %s: its tables come from different runs", cache_dir)
+        return {}
+    return out
+
+
+def _typed(frame: pd.DataFrame) -> pd.DataFrame:
+    """Give object columns a string type so empty tables keep a schema (Arrow would say null)."""
+    obj = [c for c in frame.columns if frame[c].dtype == object]
+    if not obj:
+        return frame
+    out = frame.copy()
+    for c in obj:
+        values = out[c]
+        if len(values) and values.map(lambda v: isinstance(v, bool) or v is None).all() and values.notna().any():
+            out[c] = values.astype("boolean")
+        else:
+            out[c] = values.astype("str")
     return out
 
 
@@ -176,8 +202,8 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
         new_entries.append({**norm.entry, **stamps})
         new_valleys.extend({**v, **stamps} for v in norm.valleys)
 
-    entries_new = pd.DataFrame(new_entries, columns=ingest.ENTRY_COLUMNS + list(stamps))
-    valleys_new = pd.DataFrame(new_valleys, columns=ingest.valley_columns(max_layers) + list(stamps))
+    entries_new = ingest.typed_frame(new_entries, ingest.ENTRY_COLUMNS + list(stamps))
+    valleys_new = ingest.typed_frame(new_valleys, ingest.valley_columns(max_layers) + list(stamps))
     table = KeldyshTable.from_arrays(io.load_arrays(table_path))
     long_new, wide_new = screen.screen_entries(entries_new, valleys_new, settings, table)
     for frame in (long_new, wide_new):
@@ -204,9 +230,13 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
         "long": merged("long", long_new),
         "wide": merged("wide", wide_new),
     }
+    # The generation ties the five tables together (see _load_cache); it is a
+    # digest of their content keys, so identical runs write identical files.
+    keys = sorted(set(tables["entries"]["input_hash"]) | set(tables["rejects"]["input_hash"]))
+    generation = io.canonical_json_hash([stamps, keys])[:16]
     for name, frame in tables.items():
-        io.write_parquet(frame, outputs[name], units=screen.units_for(frame.columns),
-                         descriptions=screen.DESCRIPTIONS, table_metadata=stamps)
+        io.write_parquet(_typed(frame), outputs[name], units=screen.units_for(frame.columns),
+                         descriptions=screen.DESCRIPTIONS, table_metadata={**stamps, "generation": generation})
     for name in tables:
         io.copy_file(outputs[name], Path(cache_dir) / f"{name}.parquet")
     if len(memo) != memo_size:

@@ -77,7 +77,7 @@ def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
     out["rank_layers"] = target
     for name in ("gap_character", "optical_gap_ev", "emission_nm", "emission_band", "binding_ev",
                  "binding_over_kt", "direct_margin_ev", "bound_fraction", "wannier_ok", "radius_angstrom"):
-        out[f"target_{name}"] = at[name].to_numpy()
+        out[f"target_{name}"] = at[name].set_axis(out.index)
     e_kt = col("binding_over_kt")
     margin = col("direct_margin_ev")
     lam = col("emission_nm")
@@ -103,7 +103,7 @@ def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
     out["score_window"] = s_window
     out["score"] = (wb * s_bind + wm * s_margin + ww * s_window) / total
 
-    if probabilities is not None and len(probabilities):
+    if probabilities is not None and "entry_id" in probabilities.columns:
         extra = [c for c in probabilities.columns if c == "entry_id" or c not in out.columns]
         out = out.merge(probabilities[extra], on="entry_id", how="left")
     by_probability = r.get("order_by", "score") == "probability" and "p_meets_all" in out.columns

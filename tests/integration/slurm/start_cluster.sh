@@ -49,7 +49,7 @@ log() { printf '[start_cluster %(%H:%M:%S)T] %s\n' -1 "$*"; }
 die() { log "ERROR: $*"; exit 1; }
 
 [ "$(id -u)" -eq 0 ] || die "must run as root"
-for tool in munged mungekey mariadbd mariadb-install-db mariadb slurmdbd slurmctld slurmd \
+for tool in munged mungekey mariadbd mariadb-install-db mariadb mariadb-admin slurmdbd slurmctld slurmd \
             sacctmgr sinfo srun; do
     command -v "$tool" >/dev/null || die "$tool not found; install the SLURM packages first"
 done
@@ -149,9 +149,9 @@ start mariadbd "$state/log/mariadbd.log" mariadbd --no-defaults --user=root \
     --bind-address=127.0.0.1 --port="$db_port" --skip-name-resolve \
     --skip-log-bin --innodb-buffer-pool-size=128M \
     --log-error="$state/log/mariadbd.err"
-sql() { mariadb --no-defaults --socket="$state/run/mysqld.sock" -uroot "$@"; }
-wait_for "MariaDB" 60 mariadbd sql -e "SELECT 1"
-sql <<EOF
+wait_for "MariaDB" 60 mariadbd \
+    mariadb-admin --no-defaults --socket="$state/run/mysqld.sock" -uroot ping
+mariadb --no-defaults --socket="$state/run/mysqld.sock" -uroot <<EOF
 CREATE DATABASE $db_name;
 CREATE USER '$db_user'@'127.0.0.1' IDENTIFIED BY '$db_pass';
 GRANT ALL ON $db_name.* TO '$db_user'@'127.0.0.1';
