@@ -14,8 +14,6 @@ from dataclasses import dataclass
 from typing import Any, Callable, Iterable
 
 import numpy as np
-import fastjsonschema
-from jsonschema import Draft202012Validator
 
 from flakelight import dielectric, masses
 
@@ -107,6 +105,10 @@ class RecordChecker:
     """Validate parsed records against the schema and the physical rules."""
 
     def __init__(self, schema: dict):
+        import fastjsonschema
+        from jsonschema import Draft202012Validator
+
+        self._gate_error = fastjsonschema.JsonSchemaException
         Draft202012Validator.check_schema(schema)
         inlined = inline_local_refs(schema)
         self._validator = Draft202012Validator(inlined)
@@ -120,7 +122,7 @@ class RecordChecker:
         """Fast structural check (compiled); True when the record matches the schema."""
         try:
             self._gate(record)
-        except fastjsonschema.JsonSchemaException:
+        except self._gate_error:
             return False
         return True
 

@@ -16,9 +16,13 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from flakelight import bandfit, dielectric, masses, structure
+from typing import TYPE_CHECKING
+
+from flakelight import bandfit, dielectric, masses
 from flakelight.contract import Problem
-from flakelight.structure import LayerGeometry
+
+if TYPE_CHECKING:  # pymatgen is imported only when a structure is analysed
+    from flakelight.structure import LayerGeometry
 
 #: Layer-frame tensor components stored in the entry table (symmetric tensor).
 TENSOR_COMPONENTS = (("xx", 0, 0), ("yy", 1, 1), ("zz", 2, 2), ("xy", 0, 1), ("xz", 0, 2), ("yz", 1, 2))
@@ -113,7 +117,9 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
 
     given_spacing = record.get("layer_spacing_angstrom")
     given_lattice = record.get("inplane_lattice_angstrom")
-    spacing, lattice, messages = structure.compare_geometry(given_spacing, given_lattice, geometry,
+    from flakelight.structure import compare_geometry
+
+    spacing, lattice, messages = compare_geometry(given_spacing, given_lattice, geometry,
                                                             rel_tol=reconcile_rel_tol)
     warnings.extend(m for m in messages if "not given" not in m)
     spacing_source = "record" if given_spacing is not None else "structure"

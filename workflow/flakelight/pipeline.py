@@ -26,7 +26,7 @@ from typing import Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from flakelight import PROPAGATION_MODULES, SHARD_MODULES, contract, ingest, io, screen, structure
+from flakelight import PROPAGATION_MODULES, SHARD_MODULES, contract, ingest, io, screen
 from flakelight.keldysh import KeldyshTable
 
 log = logging.getLogger("flakelight")
@@ -94,6 +94,8 @@ def _typed(frame: pd.DataFrame) -> pd.DataFrame:
 
 def _structure_geometry(cif_bytes: bytes, cif_hash: str, memo: dict) -> tuple[object, str | None]:
     """Layer geometry of a CIF, memoised by content hash (``memo`` persists between runs)."""
+    from flakelight import structure  # pymatgen: imported only when a CIF is analysed
+
     if cif_hash not in memo:
         try:
             geometry = structure.analyse_cif_text(cif_bytes)
