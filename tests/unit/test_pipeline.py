@@ -173,3 +173,13 @@ def test_propagation_cache_resamples_only_revised(tmp_path, record, table_path):
     pipeline.run_propagation(str(tmp_path / "b" / "entries.parquet"), str(tmp_path / "b" / "valleys.parquet"),
                              table_path, UNC_SETTINGS, str(tmp_path / "cache-fresh"), str(fresh_out))
     pd.testing.assert_frame_equal(cached, io.read_parquet(fresh_out))
+
+
+def test_atomic_write_clears_leftovers_of_a_killed_writer(tmp_path):
+    target = tmp_path / "t.parquet"
+    stale = tmp_path / ".t.parquet.abc123.part"
+    stale.write_bytes(b"half a table")
+    io.write_parquet(pd.DataFrame({"a": [1.0]}), target)
+    assert not stale.exists()
+    assert list(tmp_path.iterdir()) == [target]
+    assert oct(target.stat().st_mode & 0o777) != oct(0o600)  # shareable like any file

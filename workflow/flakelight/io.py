@@ -153,6 +153,12 @@ def library_digest(modules: list[str] | None = None) -> str:
 def _atomic_target(path: str | os.PathLike) -> tuple[Path, str]:
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
+    # A job killed while writing leaves its temporary file; the re-run clears it.
+    for stale in path.parent.glob(f".{path.name}.*.part"):
+        try:
+            stale.unlink()
+        except OSError:
+            pass
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     os.close(fd)
     os.chmod(tmp, 0o666 & ~_UMASK)  # mkstemp makes 0600; results are shared like any file
