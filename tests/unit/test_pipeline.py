@@ -182,4 +182,8 @@ def test_atomic_write_clears_leftovers_of_a_killed_writer(tmp_path):
     io.write_parquet(pd.DataFrame({"a": [1.0]}), target)
     assert not stale.exists()
     assert list(tmp_path.iterdir()) == [target]
-    assert oct(target.stat().st_mode & 0o777) != oct(0o600)  # shareable like any file
+    import os
+
+    umask = os.umask(0)
+    os.umask(umask)
+    assert target.stat().st_mode & 0o777 == 0o666 & ~umask  # like any file, not mkstemp's 0600
