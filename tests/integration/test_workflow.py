@@ -85,3 +85,13 @@ def test_second_run_does_nothing(small_run):
     work, _ = small_run
     res = snakemake(work, "-n")
     assert "Nothing to be done" in res.stdout + res.stderr
+
+
+def test_ci_runs_the_readme_test_command():
+    """CI must call the test command exactly as the README gives it."""
+    readme = (REPO / "README.md").read_text()
+    blocks = [b.split("```")[0].strip() for b in readme.split("```bash\n")[1:3]]
+    test_command = blocks[1]
+    assert "pytest" in test_command
+    ci = (REPO / ".ci" / "run").read_text().splitlines()
+    assert test_command in ci
