@@ -49,7 +49,7 @@ def _ranked(ids, settings, formulas=None, warnings=None, extra=None):
         "pass_direct": cand, "pass_margin": cand, "pass_binding": True, "pass_window": cand,
         "meets_all_criteria": cand,
         "score_binding": 1.0, "score_margin": np.where(cand, 1.0, 0.0), "score_window": 0.8,
-        "thinning_verdict": "direct below 2 layers, indirect from 2",
+        "thinning_verdict": "direct only as a monolayer, indirect from 2 layers",
         "warnings": warnings if warnings is not None else [""] * n,
     })
     frame["score"] = (0.4 * frame["score_binding"] + 0.3 * frame["score_margin"] + 0.3 * frame["score_window"])

@@ -100,7 +100,7 @@ def test_worked_example_gap_character_by_layer_count(record, table):
     assert per_layer.loc[0, "vbm_label"] == "G" and per_layer.loc[0, "cbm_label"] == "Q"
     assert int(wide["direct_through_layers"].iloc[0]) == 3
     assert int(wide["character_switch_layers"].iloc[0]) == 4
-    assert wide["thinning_verdict"].iloc[0] == "direct below 4 layers, indirect from 4"
+    assert wide["thinning_verdict"].iloc[0] == "direct up to 3 layers, indirect from 4"
 
 
 def test_crystal_frame_tensor_is_rotated(record, table):

@@ -381,6 +381,8 @@ def thinning_verdict(cross: layer_model.Crossover, max_layers: int) -> np.ndarra
     sw_pos = sw > 0
     direct_then = sw_pos & ml
     indirect_then = sw_pos & ~ml
-    out[direct_then] = [f"direct below {s} layers, indirect from {s}" for s in sw[direct_then]]
-    out[indirect_then] = [f"indirect below {s} layers, direct from {s}" for s in sw[indirect_then]]
+    out[direct_then] = [f"direct only as a monolayer, indirect from {s} layers" if s == 2
+                        else f"direct up to {s - 1} layers, indirect from {s}" for s in sw[direct_then]]
+    out[indirect_then] = [f"indirect as a monolayer, direct from {s} layers" if s == 2
+                          else f"indirect up to {s - 1} layers, direct from {s}" for s in sw[indirect_then]]
     return out
