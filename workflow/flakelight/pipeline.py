@@ -138,7 +138,7 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
     Returns counts of screened, rejected and reused records.
     """
     stamps = {"physics_hash": io.canonical_json_hash(dict(settings))[:16],
-              "code_version": io.library_digest([f"{m}.py" for m in SHARD_MODULES])}
+              "code_version": _code_version(SHARD_MODULES)}
     max_layers = settings["layers"]["max_layers"]
     structures_dir = Path(campaign) / "structures"
     checker = contract.RecordChecker(io.load_schema("entry.schema.json"))
@@ -367,7 +367,7 @@ def write_manifest(entry_paths: Sequence[str], structure_paths: Sequence[str], w
         "tool": "flakelight",
         "written_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
         "code_version": io.library_digest(),
-        "screen_code_version": io.library_digest([f"{m}.py" for m in SHARD_MODULES]),
+        "screen_code_version": _code_version(SHARD_MODULES),
         "git": git_version(workdir),
         "config_hash": config_hash,
         "config": dict(config),
@@ -393,6 +393,16 @@ CAUTIONS = [
 ]
 
 
+def _record_keys(frame: pd.DataFrame) -> pd.Series:
+    """Per-row cache key of a normalised record: its input hash and physics hash."""
+    return frame["input_hash"].astype(str) + ":" + frame["physics_hash"].astype(str)
+
+
+def _code_version(modules: Sequence[str]) -> str:
+    """Content hash of the named library modules (the code version of a stage's rows)."""
+    return io.library_digest([f"{m}.py" for m in modules])
+
+
 def run_propagation(entries_path: str, valleys_path: str, table_path: str, settings: Mapping,
                     cache_dir: str, output: str) -> dict[str, int]:
     """Monte Carlo propagation for one shard, re-sampling only records that changed.
@@ -406,16 +416,14 @@ def run_propagation(entries_path: str, valleys_path: str, table_path: str, setti
     entries = io.read_parquet(entries_path)
     valleys = io.read_parquet(valleys_path)
     stamps = {"settings_hash": io.canonical_json_hash(dict(settings))[:16],
-              "code_version": io.library_digest([f"{m}.py" for m in PROPAGATION_MODULES])}
+              "code_version": _code_version(PROPAGATION_MODULES)}
     cache_path = Path(cache_dir) / "uncertainty.parquet"
-    keys = entries["input_hash"].astype(str) + ":" + entries["physics_hash"].astype(str)
+    keys = _record_keys(entries)
     reused = pd.DataFrame()
     if cache_path.exists() and io.parquet_metadata(cache_path) == {**io.parquet_metadata(cache_path), **stamps}:
         old = io.read_parquet(cache_path)
-        old_keys = old["input_hash"].astype(str) + ":" + old["physics_hash"].astype(str)
-        reused = old[old_keys.isin(set(keys))]
-    todo = entries[~keys.isin(set(reused["input_hash"].astype(str) + ":" + reused["physics_hash"].astype(str))
-                              if len(reused) else set())]
+        reused = old[_record_keys(old).isin(set(keys))]
+    todo = entries[~keys.isin(set(_record_keys(reused)) if len(reused) else set())]
     table = KeldyshTable.from_arrays(io.load_arrays(table_path))
     fresh = uncertainty.propagate_uncertainty(todo, valleys[valleys["entry_id"].isin(todo["entry_id"])],
                                               settings, table)
