@@ -315,6 +315,38 @@ def test_table_round_trip_npz(table):
         K.KeldyshTable.from_arrays({"s": table.s})
 
 
+def test_numpy_spline_pieces_match_scipy_bspline(table):
+    # source: scipy.interpolate.make_interp_spline (reference library); the table
+    # evaluates the same quintic spline from stored piecewise-polynomial pieces
+    from scipy import interpolate
+
+    s = np.logspace(np.log10(table.s[1]), np.log10(table.s[-1]), 20001)
+    for key in ("f_1s", "f_3s", "g_2s"):
+        spline = interpolate.make_interp_spline(np.log(table.s[1:]), np.log(getattr(table, key)[1:]), k=5)
+        ref = np.exp(spline(np.log(s)))
+        got = table.binding_ratio(s, key[2:]) if key[0] == "f" else table.radius_ratio(s, key[2:])
+        np.testing.assert_allclose(got, ref, rtol=1e-13, atol=0)
+        # the grid points themselves are interpolated exactly
+        grid = table.binding_ratio(table.s[1:], key[2:]) if key[0] == "f" else table.radius_ratio(table.s[1:], key[2:])
+        np.testing.assert_allclose(grid, getattr(table, key)[1:], rtol=1e-13)
+
+
+def test_stored_pieces_are_used_only_when_consistent(table):
+    # source: common practice (a cache entry that does not fit its grid is rebuilt, never trusted)
+    arrays = table.to_arrays()
+    assert {"f_1s_breaks", "f_1s_coefs"} <= set(arrays)
+    loaded = K.KeldyshTable.from_arrays(arrays)
+    assert set(loaded._pieces) == set(K.KeldyshTable._KEYS[1:])
+    broken = dict(arrays)
+    broken["f_1s_breaks"] = arrays["f_1s_breaks"][:-1]
+    broken["g_1s_coefs"] = np.full_like(arrays["g_1s_coefs"], np.nan)
+    refit = K.KeldyshTable.from_arrays(broken)
+    assert "f_1s" not in refit._pieces and "g_1s" not in refit._pieces
+    s = np.logspace(-4, 4, 101)
+    np.testing.assert_array_equal(refit.binding_ratio(s), table.binding_ratio(s))
+    np.testing.assert_array_equal(refit.radius_ratio(s), table.radius_ratio(s))
+
+
 # ---------------------------------------------------------------------------
 # Dimensional functions
 # ---------------------------------------------------------------------------

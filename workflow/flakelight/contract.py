@@ -106,17 +106,27 @@ class RecordChecker:
 
     def __init__(self, schema: dict):
         import fastjsonschema
-        from jsonschema import Draft202012Validator
 
         self._gate_error = fastjsonschema.JsonSchemaException
-        Draft202012Validator.check_schema(schema)
-        inlined = inline_local_refs(schema)
-        self._validator = Draft202012Validator(inlined)
+        self._schema = schema
+        self._inlined = inline_local_refs(schema)
+        self._reference = None
         # A compiled gate for the common case of a valid record (about 5x faster).
         # The schema uses only keywords whose meaning is the same in draft 7 and
         # 2020-12; tests/unit/test_contract.py checks the two agree. jsonschema
-        # stays the reference and writes every message.
-        self._gate = fastjsonschema.compile({**inlined, "$schema": "http://json-schema.org/draft-07/schema#"})
+        # stays the reference and writes every message; it is built on the first
+        # record the gate turns away, so a shard of valid records never loads it.
+        self._gate = fastjsonschema.compile({**self._inlined, "$schema": "http://json-schema.org/draft-07/schema#"})
+
+    @property
+    def _validator(self):
+        """The reference jsonschema validator (draft 2020-12), built on first use."""
+        if self._reference is None:
+            from jsonschema import Draft202012Validator
+
+            Draft202012Validator.check_schema(self._schema)
+            self._reference = Draft202012Validator(self._inlined)
+        return self._reference
 
     def is_schema_valid(self, record: Any) -> bool:
         """Fast structural check (compiled); True when the record matches the schema."""

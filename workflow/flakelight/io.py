@@ -130,6 +130,50 @@ def read_text_limited(path: str | os.PathLike, limit: int = MAX_CIF_BYTES) -> tu
         return None, f"cannot read file: {exc.strerror or exc}"
 
 
+#: Campaign sub-folders and the file suffix each one holds.
+CAMPAIGN_FOLDERS = {"entries": ".json", "structures": ".cif"}
+
+
+def campaign_listing(campaign: str | os.PathLike, kind: str) -> list[tuple[str, int, int]]:
+    """Files of one campaign folder as ``(name, size in bytes, modification time in ns)``.
+
+    ``kind`` is ``"entries"`` (``*.json``) or ``"structures"`` (``*.cif``). Hidden
+    files are skipped; a missing folder lists nothing. An entry that cannot be
+    stat'ed (a dangling link) is still listed, with size and time -1, so that
+    the screen reports it instead of silently dropping it. Sorted by name.
+    One ``scandir`` pass: about 10 ms per 10,000 files.
+    """
+    suffix = CAMPAIGN_FOLDERS[kind]
+    try:
+        it = os.scandir(Path(campaign) / kind)
+    except (FileNotFoundError, NotADirectoryError):
+        return []
+    rows = []
+    with it:
+        for entry in it:
+            if entry.name.startswith(".") or not entry.name.endswith(suffix):
+                continue
+            try:
+                st = entry.stat()
+                rows.append((entry.name, int(st.st_size), int(st.st_mtime_ns)))
+            except OSError:
+                rows.append((entry.name, -1, -1))
+    return sorted(rows)
+
+
+def listing_stamp(rows: list[tuple]) -> str:
+    """Short digest of a file listing (names, sizes, modification times).
+
+    The workflow passes it as a rule parameter, so Snakemake's ``params``
+    re-run trigger re-runs a shard when one of its files is added, removed,
+    resized or rewritten, without declaring thousands of input files.
+    """
+    h = hashlib.sha256()
+    for row in rows:
+        h.update("\0".join(str(x) for x in row).encode("utf-8", "surrogateescape") + b"\n")
+    return h.hexdigest()[:16]
+
+
 def load_schema(name: str) -> dict:
     """Load a JSON schema shipped in workflow/schemas by file name."""
     with open(SCHEMA_DIR / name, encoding="utf-8") as fh:
@@ -185,6 +229,15 @@ def _arrow_table(frame: pd.DataFrame, units: Mapping[str, str], descriptions: Ma
     return table.cast(pa.schema(fields, metadata=schema_meta))
 
 
+def _dictionary_columns(schema: pa.Schema) -> list[str]:
+    """Columns worth dictionary encoding: the text ones (identifiers, labels, hashes).
+
+    Numbers are left plain: dictionary-encoding float columns of unique values
+    triples the write time and, under zstd, makes the file larger, not smaller.
+    """
+    return [f.name for f in schema if pa.types.is_string(f.type) or pa.types.is_large_string(f.type)]
+
+
 class ParquetSink:
     """Write a large table part by part (one row group each), atomically on close.
 
@@ -205,7 +258,8 @@ class ParquetSink:
             self._empty = table
             return
         if self._writer is None:
-            self._writer = pq.ParquetWriter(self._tmp, table.schema, compression="zstd")
+            self._writer = pq.ParquetWriter(self._tmp, table.schema, compression="zstd",
+                                            use_dictionary=_dictionary_columns(table.schema))
         self._writer.write_table(table.cast(self._writer.schema))
 
     def close(self) -> None:
@@ -241,7 +295,7 @@ def write_parquet(frame: pd.DataFrame, path: str | os.PathLike,
     table = _arrow_table(frame, units or {}, descriptions or {}, table_metadata)
     target, tmp = _atomic_target(path)
     try:
-        pq.write_table(table, tmp, compression="zstd")
+        pq.write_table(table, tmp, compression="zstd", use_dictionary=_dictionary_columns(table.schema))
         os.replace(tmp, target)
     finally:
         if os.path.exists(tmp):

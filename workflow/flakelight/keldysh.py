@@ -113,8 +113,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import interpolate, special
-from scipy.linalg import eigh_tridiagonal
+from scipy import special
 
 from flakelight.units import (
     BOHR_RADIUS_ANGSTROM,
@@ -296,6 +295,8 @@ def _radial_mesh_levels(potential, kinetic, x_min, n_points, h, n_states):
     sb = np.sqrt(b)
     d = diag / b
     e = off / (sb[:-1] * sb[1:])
+    from scipy.linalg import eigh_tridiagonal  # solver only; table lookups never need it
+
     # An explicit tiny absolute tolerance: the default eps*||T|| is O(1) here.
     tol = 1e-14 * kinetic / rho[-1] ** 2
     energies, vecs = eigh_tridiagonal(
@@ -544,7 +545,7 @@ class KeldyshTable:
     g_1s: np.ndarray
     g_2s: np.ndarray
     g_3s: np.ndarray
-    _splines: dict = field(default_factory=dict, init=False, repr=False)
+    _pieces: dict = field(default_factory=dict, init=False, repr=False)
 
     _KEYS = ("s", "f_1s", "f_2s", "f_3s", "g_1s", "g_2s", "g_3s")
 
@@ -561,10 +562,6 @@ class KeldyshTable:
         for key in self._KEYS[1:]:
             if arrays[key].shape != s.shape or np.any(~(arrays[key] > 0)):
                 raise ValueError(f"{key} must be positive with the shape of s")
-        log_s = np.log(s[1:])
-        for key in self._KEYS[1:]:
-            self._splines[key] = interpolate.make_interp_spline(
-                log_s, np.log(arrays[key][1:]), k=5)
 
     def _evaluate(self, kind, s, state):
         if state not in STATES:
@@ -580,7 +577,8 @@ class KeldyshTable:
         mid = (s >= s1) & (s <= s_max)
         high = s > s_max
         out[low] = values[0] + (values[1] - values[0]) * (s[low] - s0) / s1
-        out[mid] = np.exp(self._splines[key](np.log(s[mid])))
+        if np.any(mid):
+            out[mid] = np.exp(_evaluate_pieces(*self._spline_pieces(key), np.log(s[mid])))
         if np.any(high):
             sh = s[high]
             if kind == "f":
@@ -630,17 +628,77 @@ class KeldyshTable:
         """
         return self._evaluate("g", s, state)
 
+    def _spline_pieces(self, key):
+        """Breakpoints and local polynomial coefficients of the ``ln key`` vs ``ln s`` spline."""
+        pieces = self._pieces.get(key)
+        if pieces is None:
+            pieces = _log_spline_pieces(self.s[1:], getattr(self, key)[1:])
+            self._pieces[key] = pieces
+        return pieces
+
     def to_arrays(self):
-        """Plain dict of numpy arrays (keys ``s``, ``f_1s`` ... ``g_3s``) for saving."""
-        return {key: np.array(getattr(self, key)) for key in self._KEYS}
+        """Plain dict of numpy arrays for saving.
+
+        Keys ``s``, ``f_1s`` ... ``g_3s`` hold the table; ``<key>_breaks`` and
+        ``<key>_coefs`` hold its splines in piecewise-polynomial form, so a
+        loaded table evaluates with numpy alone (no spline fit, no
+        :mod:`scipy.interpolate` import in the shard jobs).
+        """
+        out = {key: np.array(getattr(self, key)) for key in self._KEYS}
+        for key in self._KEYS[1:]:
+            breaks, coefs = self._spline_pieces(key)
+            out[f"{key}_breaks"], out[f"{key}_coefs"] = np.array(breaks), np.array(coefs)
+        return out
 
     @classmethod
     def from_arrays(cls, arrays):
-        """Rebuild a table from the dict produced by :meth:`to_arrays`."""
+        """Rebuild a table from the dict produced by :meth:`to_arrays`.
+
+        Stored spline pieces are used when present and consistent with the
+        grid (same end points, one more breakpoint than pieces); otherwise the
+        splines are fitted again on first use.
+        """
         missing = [key for key in cls._KEYS if key not in arrays]
         if missing:
             raise KeyError(f"missing arrays: {missing}")
-        return cls(**{key: np.asarray(arrays[key], dtype=float) for key in cls._KEYS})
+        table = cls(**{key: np.asarray(arrays[key], dtype=float) for key in cls._KEYS})
+        log_ends = np.log(table.s[[1, -1]])
+        for key in cls._KEYS[1:]:
+            if f"{key}_breaks" not in arrays or f"{key}_coefs" not in arrays:
+                continue
+            breaks = np.asarray(arrays[f"{key}_breaks"], dtype=float)
+            coefs = np.asarray(arrays[f"{key}_coefs"], dtype=float)
+            if (breaks.ndim == 1 and coefs.ndim == 2 and breaks.size >= 2
+                    and coefs.shape[1] == breaks.size - 1 and np.array_equal(breaks[[0, -1]], log_ends)
+                    and np.all(np.isfinite(coefs))):
+                table._pieces[key] = (breaks, coefs)
+        return table
+
+
+def _log_spline_pieces(s, values):
+    """Quintic not-a-knot spline of ``ln values`` vs ``ln s`` as (breakpoints, coefficients).
+
+    ``coefs[m, i]`` multiplies ``(x - breaks[i])**(5 - m)`` on piece ``i``
+    (the local power basis of :class:`scipy.interpolate.PPoly`), with
+    zero-length pieces at repeated boundary knots dropped.
+    """
+    from scipy import interpolate  # fitting only; evaluation below is plain numpy
+
+    spline = interpolate.make_interp_spline(np.log(s), np.log(values), k=5)
+    pp = interpolate.PPoly.from_spline(spline)
+    keep = np.diff(pp.x) > 0
+    breaks = np.append(pp.x[:-1][keep], pp.x[-1])
+    return breaks, np.ascontiguousarray(pp.c[:, keep])
+
+
+def _evaluate_pieces(breaks, coefs, x):
+    """Evaluate a piecewise polynomial (local power basis, Horner's rule) at ``x``."""
+    i = np.clip(np.searchsorted(breaks, x, side="right") - 1, 0, breaks.size - 2)
+    dx = x - breaks[i]
+    out = coefs[0, i]
+    for m in range(1, coefs.shape[0]):
+        out = out * dx + coefs[m, i]
+    return out
 
 
 def build_table(s_grid=None):

@@ -26,7 +26,7 @@ from typing import Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from flakelight import PROPAGATION_MODULES, SHARD_MODULES, contract, ingest, io, screen
+from flakelight import PROPAGATION_MODULES, SHARD_MODULES, contract, ingest, io, screen, sharding
 from flakelight.keldysh import KeldyshTable
 
 log = logging.getLogger("flakelight")
@@ -120,6 +120,17 @@ def _load_structure_memo(path: Path, code_version: str) -> dict:
     except (OSError, ValueError):
         return {}
     return data.get("analyses", {}) if data.get("code_version") == code_version else {}
+
+
+def campaign_paths(campaign: str, kind: str) -> list[str]:
+    """Paths of a campaign's record (``kind="entries"``) or structure files, sorted."""
+    return [os.path.join(campaign, kind, name) for name, _, _ in io.campaign_listing(campaign, kind)]
+
+
+def shard_record_paths(campaign: str, n_shards: int, index: int) -> list[str]:
+    """Paths of the record files of one shard (the workflow lists the same ones for its stamp)."""
+    names = [name for name, _, _ in io.campaign_listing(campaign, "entries")]
+    return [os.path.join(campaign, "entries", n) for n in sharding.shard_members(names, n_shards, index)]
 
 
 def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, table_path: str,

@@ -37,8 +37,6 @@ rule rank_candidates:
 
 rule write_manifest:
     input:
-        entries=entry_files(),
-        structures=structure_files(),
         tables=rules.rank_candidates.output.wide,
     output:
         "results/manifest.json",
@@ -46,6 +44,8 @@ rule write_manifest:
         config=config,
         config_hash=config_hash(),
         workdir=str(Path(workflow.basedir)),
+        campaign=str(campaign_dir()),
+        inputs_stamp=campaign_stamp(),
     log:
         "results/logs/write_manifest/write_manifest.log",
     conda:

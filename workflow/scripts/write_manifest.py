@@ -7,8 +7,8 @@ from flakelight import pipeline  # noqa: E402
 
 pipeline.start_log(snakemake.log[0])  # noqa: F821
 pipeline.write_manifest(
-    entry_paths=list(snakemake.input.entries),  # noqa: F821
-    structure_paths=list(snakemake.input.structures),  # noqa: F821
+    entry_paths=pipeline.campaign_paths(snakemake.params.campaign, "entries"),  # noqa: F821
+    structure_paths=pipeline.campaign_paths(snakemake.params.campaign, "structures"),  # noqa: F821
     wide_path=snakemake.input.tables,  # noqa: F821
     config=snakemake.params.config,  # noqa: F821
     config_hash=snakemake.params.config_hash,  # noqa: F821
