@@ -15,12 +15,17 @@ import os
 import tempfile
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Mapping
+from typing import TYPE_CHECKING, Any, Mapping
 
 import numpy as np
-import pandas as pd
-import pyarrow as pa
-import pyarrow.parquet as pq
+
+if TYPE_CHECKING:
+    import pandas as pd
+    import pyarrow as pa
+
+# pandas and pyarrow are imported inside the functions that need them: the
+# Snakefile imports this module to list the campaign, and Snakemake's start-up
+# should not pay for them.
 
 #: Records larger than this are rejected before parsing (bytes).
 MAX_RECORD_BYTES = 2_000_000
@@ -209,9 +214,13 @@ def _atomic_target(path: str | os.PathLike) -> tuple[Path, str]:
     return path, tmp
 
 
-def _arrow_table(frame: pd.DataFrame, units: Mapping[str, str], descriptions: Mapping[str, str],
+def _arrow_table(frame: pd.DataFrame | pa.Table, units: Mapping[str, str], descriptions: Mapping[str, str],
                  table_metadata: Mapping[str, str] | None) -> pa.Table:
-    table = pa.Table.from_pandas(frame, preserve_index=False)
+    """An Arrow table of ``frame`` (a DataFrame or already a table) with unit and description
+    metadata on its fields and ``table_metadata`` on its schema."""
+    import pyarrow as pa
+
+    table = frame if isinstance(frame, pa.Table) else pa.Table.from_pandas(frame, preserve_index=False)
     # An empty object column has no type (Arrow: null); all such columns here hold text.
     table = table.cast(pa.schema([f.with_type(pa.large_string()) if pa.types.is_null(f.type) else f
                                   for f in table.schema], metadata=table.schema.metadata))
@@ -235,6 +244,8 @@ def _dictionary_columns(schema: pa.Schema) -> list[str]:
     Numbers are left plain: dictionary-encoding float columns of unique values
     triples the write time and, under zstd, makes the file larger, not smaller.
     """
+    import pyarrow as pa
+
     return [f.name for f in schema if pa.types.is_string(f.type) or pa.types.is_large_string(f.type)]
 
 
@@ -249,10 +260,13 @@ class ParquetSink:
                  descriptions: Mapping[str, str] | None = None, table_metadata: Mapping[str, str] | None = None):
         self._target, self._tmp = _atomic_target(path)
         self._units, self._descriptions, self._meta = units or {}, descriptions or {}, table_metadata
-        self._writer: pq.ParquetWriter | None = None
-        self._empty: pa.Table | None = None
+        self._writer = None  # a pyarrow.parquet.ParquetWriter once the first part arrives
+        self._empty = None  # the last empty part (a pyarrow.Table)
 
-    def write(self, frame: pd.DataFrame) -> None:
+    def write(self, frame: pd.DataFrame | pa.Table) -> None:
+        """Append one part: a DataFrame, or an Arrow table (written without a pandas round trip)."""
+        import pyarrow.parquet as pq
+
         table = _arrow_table(frame, self._units, self._descriptions, self._meta)
         if not len(frame):
             self._empty = table
@@ -263,6 +277,9 @@ class ParquetSink:
         self._writer.write_table(table.cast(self._writer.schema))
 
     def close(self) -> None:
+        import pyarrow as pa
+        import pyarrow.parquet as pq
+
         try:
             if self._writer is None:
                 pq.write_table(self._empty if self._empty is not None else pa.table({}), self._tmp,
@@ -292,6 +309,8 @@ def write_parquet(frame: pd.DataFrame, path: str | os.PathLike,
                   descriptions: Mapping[str, str] | None = None,
                   table_metadata: Mapping[str, str] | None = None) -> None:
     """Write a DataFrame to Parquet atomically, units and descriptions in Arrow field metadata."""
+    import pyarrow.parquet as pq
+
     table = _arrow_table(frame, units or {}, descriptions or {}, table_metadata)
     target, tmp = _atomic_target(path)
     try:
@@ -302,18 +321,31 @@ def write_parquet(frame: pd.DataFrame, path: str | os.PathLike,
             os.unlink(tmp)
 
 
+def read_arrow(path: str | os.PathLike, columns: list[str] | None = None) -> pa.Table:
+    """Read a Parquet table (or some of its columns) as an Arrow table, metadata included."""
+    import pyarrow.parquet as pq
+
+    return pq.read_table(path, columns=columns)
+
+
 def read_parquet(path: str | os.PathLike, columns: list[str] | None = None) -> pd.DataFrame:
     """Read a Parquet table (or some of its columns) into pandas."""
+    import pandas as pd
+
     return pd.read_parquet(path, columns=columns)
 
 
 def parquet_column_names(path: str | os.PathLike) -> list[str]:
     """Names of the columns of a Parquet file, without reading its data."""
+    import pyarrow.parquet as pq
+
     return list(pq.read_schema(path).names)
 
 
 def parquet_units(path: str | os.PathLike) -> dict[str, str]:
     """The unit of every field that carries one, from the Arrow field metadata."""
+    import pyarrow.parquet as pq
+
     schema = pq.read_schema(path)
     return {f.name: f.metadata[b"unit"].decode() for f in schema
             if f.metadata and b"unit" in f.metadata}
@@ -321,6 +353,8 @@ def parquet_units(path: str | os.PathLike) -> dict[str, str]:
 
 def parquet_metadata(path: str | os.PathLike) -> dict[str, str]:
     """Table-level key/value metadata of a Parquet file (without pandas' own entry)."""
+    import pyarrow.parquet as pq
+
     meta = pq.read_schema(path).metadata or {}
     return {k.decode(): v.decode() for k, v in meta.items() if k != b"pandas"}
 

@@ -113,7 +113,6 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import special
 
 from flakelight.units import (
     BOHR_RADIUS_ANGSTROM,
@@ -154,6 +153,8 @@ _SWITCH_X: float = 15.0
 
 def _h0_minus_y0(x):
     """Struve H0 minus Bessel Y0 for x >= 0 (vectorised, +inf at x = 0)."""
+    from scipy import special  # the solver only; table lookups never need it
+
     x = np.asarray(x, dtype=float)
     out = np.empty_like(x)
     small = x < _SWITCH_X
@@ -366,6 +367,8 @@ def _solve_real_space(s, n_states, h0=0.04, rho_min=None, rho_max=None):
 
 def _exp_ei_scaled(z):
     """``exp(-z) Ei(z)`` for z > 0 without overflow."""
+    from scipy import special  # the solver only; table lookups never need it
+
     z = np.asarray(z, dtype=float)
     out = np.empty_like(z)
     small = z < 50.0
@@ -382,6 +385,8 @@ def _exp_ei_scaled(z):
 
 def _f_integral(beta):
     """``F(beta) = int_0^inf exp(-t^2) / (1 + beta t) dt`` for beta >= 0."""
+    from scipy import special  # the solver only; table lookups never need it
+
     beta = np.asarray(beta, dtype=float)
     out = np.full(beta.shape, 0.5 * np.sqrt(np.pi))
     pos = beta > 0

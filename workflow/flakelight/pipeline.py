@@ -293,6 +293,11 @@ def _concat(paths: Sequence[str]) -> pd.DataFrame:
     return pd.concat(nonempty, ignore_index=True) if len(nonempty) > 1 else nonempty[0]
 
 
+def _float_column(table, name: str) -> np.ndarray:
+    """One column of an Arrow table as float64 numpy (nulls become NaN)."""
+    return table.column(name).to_numpy().astype(float, copy=False)
+
+
 def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], settings: Mapping,
              config_hash: str) -> dict[str, int]:
     """Combine shard tables, add survival columns, rank, write final tables and the shortlist.
@@ -317,11 +322,27 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     target_layers = int(settings["ranking"]["target_layers"])
     environment = settings["ranking"]["environment"]
     targets = []
+    # The long table goes through Arrow only (no pandas round trip of ~20 rows per
+    # compound); only its rows at the target layer count and environment become pandas.
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    wide_ids = pa.array(wide["entry_id"].astype(str).tolist(), pa.large_string())
+    wide_lattice = pa.array(wide["lattice_angstrom"].to_numpy(dtype=float))
     with io.ParquetSink(outputs["long"], units=units, descriptions=screen.DESCRIPTIONS, table_metadata=meta) as sink:
         for path in inputs["long"]:
-            part = ranking.add_survival(io.read_parquet(path), wide, settings)
-            part["config_hash"] = config_hash
-            targets.append(part[(part["layers"] == target_layers) & (part["environment"] == environment)])
+            part = io.read_arrow(path)
+            ids = part.column("entry_id").cast(pa.large_string())
+            lattice = pc.take(wide_lattice, pc.index_in(ids, value_set=wide_ids))
+            columns = ranking.survival_columns(
+                *(_float_column(part, c) for c in ("binding_ev", "mu_inplane_me", "radius_angstrom")),
+                lattice.to_numpy(zero_copy_only=False), settings)
+            for name, values in columns.items():
+                part = part.append_column(name, pa.array(values))
+            part = part.append_column("config_hash", pa.array([config_hash] * part.num_rows, pa.large_string()))
+            chosen = pc.and_(pc.equal(part.column("layers"), target_layers),
+                             pc.equal(part.column("environment"), environment))
+            targets.append(part.filter(chosen).to_pandas())
             sink.write(part)
             del part
     target = pd.concat(targets, ignore_index=True) if targets else pd.DataFrame()
