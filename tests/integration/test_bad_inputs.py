@@ -30,7 +30,7 @@ from flakelight import contract, io, sharding, structure
 
 REPO = Path(__file__).resolve().parents[2]
 SNAKEMAKE = [sys.executable, "-m", "snakemake"]
-TARGETS = ("results/manifest.json", "results/shortlist.csv")
+TARGETS = ("results/manifest.json", "results/shortlist.csv", "results/tables/screen_long.parquet")
 TABLES = ("entries", "valleys", "rejects", "screen_long", "screen_wide")
 N_VALID = 8
 

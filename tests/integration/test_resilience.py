@@ -39,12 +39,12 @@ from flakelight import pipeline, sharding
 
 REPO = Path(__file__).resolve().parents[2]
 SNAKEMAKE = [sys.executable, "-m", "snakemake"]
-TARGETS = ("results/manifest.json", "results/shortlist.csv")
+TARGETS = ("results/manifest.json", "results/shortlist.csv", "results/tables/screen_long.parquet")
 TABLES = ("entries", "valleys", "rejects", "screen_long", "screen_wide")
 N_RECORDS = 40
 N_SHARDS = 4
 #: Jobs allowed downstream of the shards (aggregation, manifest, report).
-DOWNSTREAM = {"rank_candidates", "write_manifest", "write_summary"}
+DOWNSTREAM = {"rank_candidates", "join_long", "write_manifest", "write_summary"}
 
 pytestmark = pytest.mark.slow
 

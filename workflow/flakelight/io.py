@@ -1,6 +1,7 @@
 """File formats: JSON records, CIF text, Parquet tables with units, manifests.
 
-This is the only library module that touches the file system. Everything it
+This is the only library module that touches the file system ("assemble" and
+"pipeline" reach files through it). Everything it
 returns is plain Python, numpy or pandas, ready for the physics modules.
 Writes are atomic (temporary file plus rename) so an interrupted run never
 leaves a partial table behind.
@@ -322,17 +323,24 @@ def write_parquet(frame: pd.DataFrame, path: str | os.PathLike,
 
 
 def read_arrow(path: str | os.PathLike, columns: list[str] | None = None) -> pa.Table:
-    """Read a Parquet table (or some of its columns) as an Arrow table, metadata included."""
+    """Read a Parquet table (or some of its columns) as an Arrow table, metadata included.
+
+    One file, read directly (``ParquetFile``), without the dataset layer that
+    ``pyarrow.parquet.read_table`` builds per call: a few ms less per file.
+    """
     import pyarrow.parquet as pq
 
-    return pq.read_table(path, columns=columns)
+    with pq.ParquetFile(path) as handle:
+        return handle.read(columns=columns)
 
 
 def read_parquet(path: str | os.PathLike, columns: list[str] | None = None) -> pd.DataFrame:
-    """Read a Parquet table (or some of its columns) into pandas."""
-    import pandas as pd
+    """Read a Parquet table (or some of its columns) into pandas.
 
-    return pd.read_parquet(path, columns=columns)
+    The same frame as ``pandas.read_parquet`` (pandas' schema entry restores the
+    dtypes), through :func:`read_arrow`.
+    """
+    return read_arrow(path, columns=columns).to_pandas()
 
 
 def parquet_column_names(path: str | os.PathLike) -> list[str]:
@@ -435,3 +443,39 @@ def load_arrays(path: str | os.PathLike) -> dict[str, np.ndarray]:
     """Load named numpy arrays from an .npz file."""
     with np.load(path, allow_pickle=False) as data:
         return {key: data[key] for key in data.files}
+
+
+def start_log(path: str) -> None:
+    """Send logging and stderr of an adapter process to its Snakemake log file."""
+    import logging
+    import sys
+    import warnings
+
+    Path(path).parent.mkdir(parents=True, exist_ok=True)
+    stream = open(path, "a", encoding="utf-8")  # noqa: SIM115 - lives as long as the process
+    sys.stderr = stream
+    logging.basicConfig(stream=stream, level=logging.INFO, force=True,
+                        format="%(asctime)s %(levelname)s %(message)s")
+    logging.captureWarnings(True)
+    warnings.simplefilter("default")
+
+
+def end_job() -> None:
+    """Leave an adapter process once all its outputs are written and closed.
+
+    Flushes the log and the standard streams, then exits without the
+    interpreter's teardown, which for a process holding pandas, pyarrow and
+    scipy takes about 0.1 s: measurable on a re-run that revises one record,
+    where two such jobs sit on the critical path. Call it as the last
+    statement of an adapter only (nothing after it runs; no atexit handlers).
+    """
+    import logging
+    import sys
+
+    logging.shutdown()
+    for stream in (sys.stdout, sys.stderr):
+        try:
+            stream.flush()
+        except (OSError, ValueError):  # closed or broken stream: nothing left to save
+            pass
+    os._exit(0)

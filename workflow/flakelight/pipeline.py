@@ -27,6 +27,7 @@ import numpy as np
 import pandas as pd
 
 from flakelight import PROPAGATION_MODULES, SHARD_MODULES, contract, ingest, io, screen, sharding
+from flakelight.io import start_log  # noqa: F401 - the adapters call pipeline.start_log
 from flakelight.keldysh import KeldyshTable
 
 log = logging.getLogger("flakelight")
@@ -261,21 +262,6 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
     return counts
 
 
-def start_log(path: str) -> None:
-    """Send logging and stderr of an adapter process to its Snakemake log file."""
-    import sys
-
-    Path(path).parent.mkdir(parents=True, exist_ok=True)
-    stream = open(path, "a", encoding="utf-8")  # noqa: SIM115 - lives as long as the process
-    sys.stderr = stream
-    logging.basicConfig(stream=stream, level=logging.INFO, force=True,
-                        format="%(asctime)s %(levelname)s %(message)s")
-    import warnings
-
-    logging.captureWarnings(True)
-    warnings.simplefilter("default")
-
-
 def build_keldysh_table(path: str) -> None:
     """Compute the Rytova-Keldysh table with the accurate solver and save it."""
     from flakelight import keldysh
@@ -286,25 +272,28 @@ def build_keldysh_table(path: str) -> None:
 
 
 def _concat(paths: Sequence[str]) -> pd.DataFrame:
-    frames = [io.read_parquet(p) for p in paths]
-    nonempty = [f for f in frames if len(f)]
+    """Shard tables stacked in the given order (as Arrow, then one conversion to pandas)."""
+    import pyarrow as pa
+
+    tables = [io.read_arrow(p) for p in paths]
+    nonempty = [t for t in tables if t.num_rows]
     if not nonempty:
-        return frames[0] if frames else pd.DataFrame()
-    return pd.concat(nonempty, ignore_index=True) if len(nonempty) > 1 else nonempty[0]
-
-
-def _float_column(table, name: str) -> np.ndarray:
-    """One column of an Arrow table as float64 numpy (nulls become NaN)."""
-    return table.column(name).to_numpy().astype(float, copy=False)
+        return tables[0].to_pandas() if tables else pd.DataFrame()
+    if len(nonempty) == 1:
+        return nonempty[0].to_pandas()
+    try:
+        return pa.concat_tables(nonempty).to_pandas()
+    except (pa.ArrowInvalid, pa.ArrowTypeError):  # shards typed differently: let pandas promote
+        return pd.concat([t.to_pandas() for t in nonempty], ignore_index=True)
 
 
 def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], settings: Mapping,
              config_hash: str) -> dict[str, int]:
     """Combine shard tables, add survival columns, rank, write final tables and the shortlist.
 
-    The long table (compound x layer count x environment, about 20 rows per
-    compound) is streamed shard by shard, so memory holds one shard of it at a
-    time; its rows come in shard order, sorted by compound within each shard.
+    Every table but the long one: that is joined by
+    :func:`flakelight.assemble.run_join_long` (rule ``join_long``). ``inputs["long"]``
+    is read here only for the rows at the target layer count and environment.
     """
     from flakelight import ranking
 
@@ -321,30 +310,20 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     units = {**screen.UNITS, **ranking.SURVIVAL_UNITS, **ranking.RANK_UNITS}
     target_layers = int(settings["ranking"]["target_layers"])
     environment = settings["ranking"]["environment"]
-    targets = []
-    # The long table goes through Arrow only (no pandas round trip of ~20 rows per
-    # compound); only its rows at the target layer count and environment become pandas.
-    import pyarrow as pa
+    # Only the long rows at the target layer count and environment are ranked; the
+    # whole long table is joined by rule join_long (flakelight.assemble), in parallel.
     import pyarrow.compute as pc
 
-    wide_ids = pa.array(wide["entry_id"].astype(str).tolist(), pa.large_string())
-    wide_lattice = pa.array(wide["lattice_angstrom"].to_numpy(dtype=float))
-    with io.ParquetSink(outputs["long"], units=units, descriptions=screen.DESCRIPTIONS, table_metadata=meta) as sink:
-        for path in inputs["long"]:
-            part = io.read_arrow(path)
-            ids = part.column("entry_id").cast(pa.large_string())
-            lattice = pc.take(wide_lattice, pc.index_in(ids, value_set=wide_ids))
-            columns = ranking.survival_columns(
-                *(_float_column(part, c) for c in ("binding_ev", "mu_inplane_me", "radius_angstrom")),
-                lattice.to_numpy(zero_copy_only=False), settings)
-            for name, values in columns.items():
-                part = part.append_column(name, pa.array(values))
-            part = part.append_column("config_hash", pa.array([config_hash] * part.num_rows, pa.large_string()))
-            chosen = pc.and_(pc.equal(part.column("layers"), target_layers),
-                             pc.equal(part.column("environment"), environment))
-            targets.append(part.filter(chosen).to_pandas())
-            sink.write(part)
-            del part
+    from flakelight import assemble
+
+    lookup = assemble.lattice_lookup(inputs["wide"])
+    targets = []
+    for path in inputs["long"]:
+        part = io.read_arrow(path)
+        chosen = pc.and_(pc.equal(part.column("layers"), target_layers),
+                         pc.equal(part.column("environment"), environment))
+        part = assemble.with_survival(part.filter(chosen), lookup, settings)
+        targets.append(part.to_pandas())
     target = pd.concat(targets, ignore_index=True) if targets else pd.DataFrame()
     ranked = ranking.rank(target, wide, settings, probabilities)
     ranked["config_hash"] = config_hash

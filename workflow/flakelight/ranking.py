@@ -32,50 +32,17 @@ from flakelight import survival
 MARGIN_FULL_EV = 0.2
 
 
-def survival_columns(binding_ev, mu_inplane_me, radius_angstrom, lattice_angstrom,
-                     settings: Mapping) -> dict[str, np.ndarray]:
-    """The temperature-dependent columns of the long table, as numpy arrays.
-
-    Parameters
-    ----------
-    binding_ev, mu_inplane_me, radius_angstrom, lattice_angstrom : array_like
-        Per row: exciton binding (eV), in-plane reduced mass (m_e), exciton
-        radius and in-plane lattice constant (Angstrom).
-    settings : the survival section under ``settings["survival"]``.
-
-    Returns ``temperature_k`` (K), ``binding_over_kt``, ``survives_kt``
-    (E_b > kT), ``bound_fraction`` (2D Saha) and ``wannier_ok``.
-    """
-    surv = settings["survival"]
-    t = float(surv["temperature_k"])
-    eb = np.asarray(binding_ev, dtype=float)
-    mu = np.asarray(mu_inplane_me, dtype=float)
-    over_kt = survival.binding_over_kt(eb, t)
-    frac = np.full(eb.shape, np.nan)
-    ok = np.isfinite(eb) & np.isfinite(mu) & (eb > 0) & (mu > 0)
-    if ok.any():
-        frac[ok] = survival.bound_fraction_2d(eb[ok], mu[ok], t, float(surv["pair_density_per_cm2"]))
-    return {
-        "temperature_k": np.full(eb.shape, t),
-        "binding_over_kt": over_kt,
-        "survives_kt": over_kt > 1.0,
-        "bound_fraction": frac,
-        "wannier_ok": survival.is_wannier(np.asarray(radius_angstrom, dtype=float),
-                                          np.asarray(lattice_angstrom, dtype=float), float(surv["wannier_ratio"])),
-    }
-
-
 def add_survival(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping) -> pd.DataFrame:
     """Add binding/kT, the 2D Saha bound fraction, survival and Wannier flags to the long table."""
     lattice = long["entry_id"].map(wide.set_index("entry_id")["lattice_angstrom"]).to_numpy(dtype=float)
     out = long.copy()
-    for name, values in survival_columns(long["binding_ev"], long["mu_inplane_me"], long["radius_angstrom"],
+    for name, values in survival.survival_columns(long["binding_ev"], long["mu_inplane_me"], long["radius_angstrom"],
                                          lattice, settings).items():
         out[name] = values
     return out
 
 
-SURVIVAL_UNITS = {"temperature_k": "K", "binding_over_kt": "1", "bound_fraction": "1"}
+SURVIVAL_UNITS = survival.SURVIVAL_UNITS
 
 
 def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from typing import Mapping
+
 from flakelight.units import (
     HBAR2_OVER_2ME_EV_A2,
     PER_CM2_TO_PER_ANGSTROM2,
@@ -22,6 +24,8 @@ __all__ = [
     "bound_fraction_2d",
     "mott_density_2d_per_cm2",
     "is_wannier",
+    "survival_columns",
+    "SURVIVAL_UNITS",
 ]
 
 
@@ -201,3 +205,40 @@ def is_wannier(radius_angstrom, lattice_constant_angstrom, threshold=2.0):
     a = np.asarray(lattice_constant_angstrom, dtype=float)
     with np.errstate(invalid="ignore"):
         return r > threshold * a
+
+
+def survival_columns(binding_ev, mu_inplane_me, radius_angstrom, lattice_angstrom,
+                     settings: Mapping) -> dict[str, np.ndarray]:
+    """The temperature-dependent columns of the long table, as numpy arrays.
+
+    Parameters
+    ----------
+    binding_ev, mu_inplane_me, radius_angstrom, lattice_angstrom : array_like
+        Per row: exciton binding (eV), in-plane reduced mass (m_e), exciton
+        radius and in-plane lattice constant (Angstrom).
+    settings : the survival section under ``settings["survival"]``.
+
+    Returns ``temperature_k`` (K), ``binding_over_kt``, ``survives_kt``
+    (E_b > kT), ``bound_fraction`` (2D Saha) and ``wannier_ok``.
+    """
+    surv = settings["survival"]
+    t = float(surv["temperature_k"])
+    eb = np.asarray(binding_ev, dtype=float)
+    mu = np.asarray(mu_inplane_me, dtype=float)
+    over_kt = binding_over_kt(eb, t)
+    frac = np.full(eb.shape, np.nan)
+    ok = np.isfinite(eb) & np.isfinite(mu) & (eb > 0) & (mu > 0)
+    if ok.any():
+        frac[ok] = bound_fraction_2d(eb[ok], mu[ok], t, float(surv["pair_density_per_cm2"]))
+    return {
+        "temperature_k": np.full(eb.shape, t),
+        "binding_over_kt": over_kt,
+        "survives_kt": over_kt > 1.0,
+        "bound_fraction": frac,
+        "wannier_ok": is_wannier(np.asarray(radius_angstrom, dtype=float),
+                                          np.asarray(lattice_angstrom, dtype=float), float(surv["wannier_ratio"])),
+    }
+
+
+#: Units of the columns :func:`survival_columns` adds (the flags are dimensionless booleans).
+SURVIVAL_UNITS = {"temperature_k": "K", "binding_over_kt": "1", "bound_fraction": "1"}

@@ -4,6 +4,7 @@
 
 localrules:
     rank_candidates,
+    join_long,
     write_manifest,
 
 
@@ -15,13 +16,12 @@ rule rank_candidates:
         long=shard_outputs("exciton_long"),
         wide=shard_outputs("exciton_wide"),
         uncertainty=shard_outputs("uncertainty"),
-        code=library_files("survival", "ranking", "pipeline"),
+        code=library_files("survival", "ranking", "pipeline", "assemble"),
     output:
         entries="results/tables/entries.parquet",
         valleys="results/tables/valleys.parquet",
         rejects="results/tables/rejects.parquet",
         rejects_csv="results/tables/rejects.csv",
-        long="results/tables/screen_long.parquet",
         wide="results/tables/screen_wide.parquet",
         shortlist="results/shortlist.csv",
     params:
@@ -33,6 +33,26 @@ rule rank_candidates:
         "../../envs/flakelight.yaml"
     script:
         "../scripts/rank_candidates.py"
+
+
+# The long table (about 20 rows per compound) is joined beside the ranking, by a job
+# that imports pyarrow and numpy only (flakelight.assemble).
+rule join_long:
+    input:
+        long=shard_outputs("exciton_long"),
+        wide=shard_outputs("exciton_wide"),
+        code=library_files("survival", "assemble"),
+    output:
+        "results/tables/screen_long.parquet",
+    params:
+        settings={"survival": config["survival"]},
+        config_hash=config_hash(),
+    log:
+        "results/logs/join_long/join_long.log",
+    conda:
+        "../../envs/flakelight.yaml"
+    script:
+        "../scripts/join_long.py"
 
 
 rule write_manifest:

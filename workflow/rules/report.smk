@@ -7,7 +7,7 @@ localrules:
 
 rule write_summary:
     input:
-        long=rules.rank_candidates.output.long,
+        long=rules.join_long.output[0],
         wide=rules.rank_candidates.output.wide,
         rejects=rules.rank_candidates.output.rejects,
         entries=rules.rank_candidates.output.entries,

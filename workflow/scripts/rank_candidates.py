@@ -3,7 +3,7 @@ import sys
 from pathlib import Path
 
 sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
-from flakelight import pipeline  # noqa: E402
+from flakelight import io, pipeline  # noqa: E402
 
 pipeline.start_log(snakemake.log[0])  # noqa: F821
 pipeline.run_rank(
@@ -12,3 +12,4 @@ pipeline.run_rank(
     settings=snakemake.params.settings,  # noqa: F821
     config_hash=snakemake.params.config_hash,  # noqa: F821
 )
+io.end_job()  # last statement: skips the interpreter teardown (see io.end_job)

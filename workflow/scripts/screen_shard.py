@@ -3,7 +3,7 @@ import sys
 from pathlib import Path
 
 sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
-from flakelight import pipeline  # noqa: E402
+from flakelight import io, pipeline  # noqa: E402
 
 pipeline.start_log(snakemake.log[0])  # noqa: F821
 outputs = dict(snakemake.output.items())  # noqa: F821
@@ -24,3 +24,4 @@ pipeline.run_propagation(
     cache_dir=snakemake.params.cache,  # noqa: F821
     output=outputs["uncertainty"],
 )
+io.end_job()  # last statement: skips the interpreter teardown (see io.end_job)

@@ -3,7 +3,7 @@ import sys
 from pathlib import Path
 
 sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
-from flakelight import pipeline  # noqa: E402
+from flakelight import io, pipeline  # noqa: E402
 
 pipeline.start_log(snakemake.log[0])  # noqa: F821
 pipeline.write_manifest(
@@ -15,3 +15,4 @@ pipeline.write_manifest(
     workdir=snakemake.params.workdir,  # noqa: F821
     output=snakemake.output[0],  # noqa: F821
 )
+io.end_job()  # last statement: skips the interpreter teardown (see io.end_job)

@@ -3,7 +3,7 @@ import sys
 from pathlib import Path
 
 sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
-from flakelight import pipeline, report  # noqa: E402
+from flakelight import io, pipeline, report  # noqa: E402
 
 pipeline.start_log(snakemake.log[0])  # noqa: F821
 report.write_summary(
@@ -12,3 +12,4 @@ report.write_summary(
     settings=snakemake.params.settings,  # noqa: F821
     history=snakemake.params.history,  # noqa: F821
 )
+io.end_job()  # last statement: skips the interpreter teardown (see io.end_job)
