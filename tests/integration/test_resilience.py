@@ -232,6 +232,20 @@ def test_revising_one_record_reruns_only_its_shard(second_run):
     assert not changed.equals(before["valleys"][before["valleys"]["entry_id"] == path.stem])
 
 
+def test_revision_is_found_under_any_rerun_trigger(second_run):
+    """Records reach the shard jobs through a listing file named by its digest, so even
+    ``--rerun-triggers mtime`` alone re-runs the shard of a rewritten record."""
+    work, campaign, _ = second_run
+    snakemake(work, *TARGETS)  # up to date first
+    path = sorted((campaign / "entries").glob("*.json"))[3]
+    path.write_text(path.read_text().replace("\n", "\n ", 1))  # same record, other bytes
+    shard = sharding.shard_name(sharding.shard_of(path.stem, N_SHARDS))
+    for triggers in (["mtime"], ["input"]):
+        res = snakemake(work, "-n", *TARGETS, "--rerun-triggers", *triggers)
+        jobs = planned_jobs(res.stdout + res.stderr)
+        assert {j for j in jobs if j[0] == "screen_shard"} == {("screen_shard", shard)}, (triggers, jobs)
+
+
 def last_counts(log: Path, marker: str) -> dict[str, int]:
     """The counts dict of the last ``<marker>: {...}`` line of a job log."""
     lines = [line for line in log.read_text().splitlines() if f"{marker}: " in line]

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import pandas as pd
 import pytest
@@ -187,3 +188,31 @@ def test_atomic_write_clears_leftovers_of_a_killed_writer(tmp_path):
     umask = os.umask(0)
     os.umask(umask)
     assert target.stat().st_mode & 0o777 == 0o666 & ~umask  # like any file, not mkstemp's 0600
+
+
+def test_snapshot_name_follows_content(tmp_path):
+    # source: common practice (content-addressed file names: same content, same name;
+    # new content, new and newer file; stale siblings removed, other prefixes kept)
+    first = io.snapshot_json(tmp_path, "rank", {"t": 300.0})
+    assert io.snapshot_json(tmp_path, "rank", {"t": 300.0}) == first
+    other = io.snapshot_json(tmp_path, "rank-x", {"t": 300.0})
+    second = io.snapshot_json(tmp_path, "rank", {"t": 77.0})
+    assert second != first and io.read_json(second) == {"t": 77.0}
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted([Path(second).name, Path(other).name])
+    # back to the first content: written anew, so it is newer than anything made in between
+    again = io.snapshot_json(tmp_path, "rank", {"t": 300.0})
+    assert again == first and Path(again).stat().st_mtime_ns >= Path(other).stat().st_mtime_ns
+
+
+def test_campaign_listing_skips_hidden_and_foreign_files(tmp_path):
+    # source: common practice (hidden files and other suffixes are not records)
+    folder = tmp_path / "entries"
+    folder.mkdir()
+    for name in ("b.json", "a.json", ".hidden.json", "notes.txt"):
+        (folder / name).write_text("{}")
+    rows = io.campaign_listing(tmp_path, "entries")
+    assert [r[0] for r in rows] == ["a.json", "b.json"]
+    assert all(r[1] == 2 and r[2] > 0 for r in rows)
+    assert io.campaign_listing(tmp_path, "structures") == []
+    listing = {"entries": rows}
+    assert pipeline.listed_paths("camp", listing, "entries") == ["camp/entries/a.json", "camp/entries/b.json"]

@@ -167,17 +167,32 @@ def campaign_listing(campaign: str | os.PathLike, kind: str) -> list[tuple[str, 
     return sorted(rows)
 
 
-def listing_stamp(rows: list[tuple]) -> str:
-    """Short digest of a file listing (names, sizes, modification times).
+def snapshot_json(folder: str | os.PathLike, prefix: str, content: Any) -> str:
+    """Write ``content`` to ``folder/<prefix>-<digest>.json`` (once) and return that path.
 
-    The workflow passes it as a rule parameter, so Snakemake's ``params``
-    re-run trigger re-runs a shard when one of its files is added, removed,
-    resized or rewritten, without declaring thousands of input files.
+    The file name carries a digest of the content, so a rule that takes the file
+    as input re-runs exactly when the content changes: the name changes (Snakemake's
+    ``input`` trigger) and the new file is newer than the rule's outputs (its
+    ``mtime`` trigger). Older snapshots with the same prefix are removed, so
+    returning to an earlier content writes a fresh (newer) file again. The
+    workflow keeps job settings and campaign listings this way instead of in rule
+    ``params``.
     """
-    h = hashlib.sha256()
-    for row in rows:
-        h.update("\0".join(str(x) for x in row).encode("utf-8", "surrogateescape") + b"\n")
-    return h.hexdigest()[:16]
+    import re
+
+    text = json.dumps(content, sort_keys=True, indent=1, default=str) + "\n"
+    folder = Path(folder)
+    path = folder / f"{prefix}-{sha256_bytes(text.encode('utf-8'))[:16]}.json"
+    if not path.exists():
+        write_text(text, path)
+    pattern = re.compile(re.escape(prefix) + r"-[0-9a-f]{16}\.json")
+    for old in folder.glob(f"{prefix}-*.json"):
+        if old != path and pattern.fullmatch(old.name):
+            try:
+                old.unlink()
+            except FileNotFoundError:  # removed by a concurrent run
+                pass
+    return str(path)
 
 
 def load_schema(name: str) -> dict:

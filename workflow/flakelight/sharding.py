@@ -27,7 +27,3 @@ def shard_of_file(name: str, n_shards: int) -> int:
     """Shard index of a record from its file name (``<stem>.json``)."""
     return shard_of(name.rsplit(".", 1)[0], n_shards)
 
-
-def shard_members(names: list[str], n_shards: int, index: int) -> list[str]:
-    """The file names of ``names`` that belong to shard ``index``."""
-    return [n for n in names if shard_of_file(n, n_shards) == index]

@@ -16,6 +16,7 @@ rule rank_candidates:
         long=shard_outputs("exciton_long"),
         wide=shard_outputs("exciton_wide"),
         uncertainty=shard_outputs("uncertainty"),
+        settings=rank_settings,
         code=library_files("survival", "ranking", "pipeline", "assemble"),
     output:
         entries="results/tables/entries.parquet",
@@ -24,9 +25,6 @@ rule rank_candidates:
         rejects_csv="results/tables/rejects.csv",
         wide="results/tables/screen_wide.parquet",
         shortlist="results/shortlist.csv",
-    params:
-        settings=ranking_settings(),
-        config_hash=config_hash(),
     log:
         "results/logs/rank_candidates/rank_candidates.log",
     conda:
@@ -41,12 +39,10 @@ rule join_long:
     input:
         long=shard_outputs("exciton_long"),
         wide=shard_outputs("exciton_wide"),
+        settings=join_settings,
         code=library_files("survival", "assemble"),
     output:
         "results/tables/screen_long.parquet",
-    params:
-        settings={"survival": config["survival"]},
-        config_hash=config_hash(),
     log:
         "results/logs/join_long/join_long.log",
     conda:
@@ -58,14 +54,10 @@ rule join_long:
 rule write_manifest:
     input:
         tables=rules.rank_candidates.output.wide,
+        records=campaign_records,
+        settings=manifest_settings,
     output:
         "results/manifest.json",
-    params:
-        config=config,
-        config_hash=config_hash(),
-        workdir=str(Path(workflow.basedir)),
-        campaign=str(campaign_dir()),
-        inputs_stamp=campaign_stamp(),
     log:
         "results/logs/write_manifest/write_manifest.log",
     conda:

@@ -7,7 +7,7 @@ from snakemake.utils import validate
 
 sys.path.insert(0, str(Path(workflow.basedir) / "workflow"))
 from flakelight import PROPAGATION_MODULES, SHARD_MODULES  # noqa: E402
-from flakelight.io import campaign_listing as campaign_listing_rows, listing_stamp  # noqa: E402
+from flakelight.io import campaign_listing as campaign_listing_rows, canonical_json_hash, snapshot_json  # noqa: E402
 from flakelight.sharding import shard_name, shard_of_file  # noqa: E402
 
 
@@ -26,16 +26,20 @@ def campaign_dir():
     return Path(config["campaign"])
 
 
+#: Folder of the content-addressed job settings and campaign listings (see `snapshot`).
+SNAPSHOTS = "results/cache/inputs"
+
+
 @functools.cache
 def campaign_listing(kind):
     """Files of campaign folder `kind` ('entries' or 'structures') as (name, size, mtime_ns).
 
     Listed once per Snakemake run (one scandir pass). Record and structure files are
-    not declared as inputs: at 10,000 records the per-file DAG alone took over a
-    second. Their listing digests (`shard_stamp`, `campaign_stamp`) are rule params
-    instead, so Snakemake's `params` re-run trigger catches every added, removed or
-    rewritten file, and inside a shard the per-record cache recomputes only records
-    whose content hash changed.
+    not declared as inputs one by one: at 10,000 records that alone cost Snakemake over
+    a second. Each shard job takes a listing of its records (and of all structure files)
+    as its input instead, written by `snapshot` under a name that carries a digest of the
+    listing: a record added, removed, resized or rewritten changes the name and re-runs
+    the shard, where the per-record cache recomputes only records whose content changed.
     """
     return tuple(campaign_listing_rows(campaign_dir(), kind))
 
@@ -51,19 +55,29 @@ def _shard_rows():
     n = config["sharding"]["shards"]
     rows = {i: [] for i in range(n)}
     for row in campaign_listing("entries"):
-        rows[shard_of_file(row[0], n)].append(("entries",) + row)
+        rows[shard_of_file(row[0], n)].append(row)
     return rows
 
 
-def shard_stamp(wildcards):
-    """Digest of one shard's record files plus every structure file (names, sizes, times)."""
-    structures = [("structures",) + row for row in campaign_listing("structures")]
-    return listing_stamp(_shard_rows()[int(wildcards.shard)] + structures)
+def snapshot(prefix, content):
+    """Path of the content-addressed JSON snapshot `prefix` (written when new).
+
+    Rules take their settings and listings as such files, never as `params`: a changed
+    value re-runs the rule under any re-run trigger, and Snakemake, holding no params,
+    skips loading pandas (a quarter of a second on every run).
+    """
+    return snapshot_json(SNAPSHOTS, prefix, content)
 
 
-def campaign_stamp():
-    """Digest of every record and structure file of the campaign."""
-    return listing_stamp([(kind,) + row for kind in ("entries", "structures") for row in campaign_listing(kind)])
+def shard_records(wildcards):
+    """Listing of one shard's record files plus every structure file."""
+    return snapshot(f"records-{wildcards.shard}",
+                    {"entries": _shard_rows()[int(wildcards.shard)], "structures": campaign_listing("structures")})
+
+
+def campaign_records(wildcards):
+    """Listing of every record and structure file of the campaign (for the manifest)."""
+    return snapshot("records-all", {"entries": campaign_listing("entries"), "structures": campaign_listing("structures")})
 
 
 def library_files(*modules):
@@ -73,7 +87,7 @@ def library_files(*modules):
 
 
 def physics_settings():
-    """The config sections the shard computation depends on (params: changes re-run shards)."""
+    """The config sections the shard computation depends on (a change re-runs the shards)."""
     keys = ("layers", "structure", "environments", "monolayer", "emission_bands")
     return {k: config[k] for k in keys}
 
@@ -108,11 +122,32 @@ def final_outputs():
 
 def config_hash():
     """Content hash of the whole (validated) config, stamped on every result row."""
-    from flakelight.io import canonical_json_hash
-
     return canonical_json_hash(config)[:16]
 
 
-def campaign_param(wildcards):
-    """Campaign folder as a rule parameter (the adapter finds structures/ in it)."""
-    return str(campaign_dir())
+def screen_settings(wildcards):
+    """Settings of the screen_shard jobs: physics and uncertainty sections, campaign, sharding."""
+    return snapshot("screen", {"physics": physics_settings(), "uncertainty": uncertainty_settings(),
+                               "campaign": str(campaign_dir()), "shards": config["sharding"]["shards"],
+                               "cache_root": "results/cache/shards"})
+
+
+def rank_settings(wildcards):
+    """Settings of the rank_candidates job."""
+    return snapshot("rank", {"settings": ranking_settings(), "config_hash": config_hash()})
+
+
+def join_settings(wildcards):
+    """Settings of the join_long job."""
+    return snapshot("join", {"settings": {"survival": config["survival"]}, "config_hash": config_hash()})
+
+
+def manifest_settings(wildcards):
+    """Settings of the write_manifest job: the whole config, its hash, the checkout to describe."""
+    return snapshot("manifest", {"config": config, "config_hash": config_hash(),
+                                 "workdir": str(Path(workflow.basedir)), "campaign": str(campaign_dir())})
+
+
+def summary_settings(wildcards):
+    """Settings of the write_summary job: the whole config and the history folder."""
+    return snapshot("summary", {"settings": config, "history": "results/history"})

@@ -12,13 +12,11 @@ rule write_summary:
         rejects=rules.rank_candidates.output.rejects,
         entries=rules.rank_candidates.output.entries,
         manifest=rules.write_manifest.output[0],
+        settings=summary_settings,
         code=library_files("report", "ranking"),
     output:
         html="results/summary.html",
         changes="results/tables/changes.parquet",
-    params:
-        settings=config,
-        history="results/history",
     log:
         "results/logs/write_summary/write_summary.log",
     conda:

@@ -9,6 +9,10 @@
 rule screen_shard:
     input:
         table=rules.keldysh_table.output[0],
+        # the shard's record files and every structure file (names, sizes, times):
+        # a new name whenever one of them changes (common.smk: snapshot)
+        records=shard_records,
+        settings=screen_settings,
         code=library_files(*SHARD_MODULES, *PROPAGATION_MODULES),
     output:
         entries="results/shards/{shard}/entries.parquet",
@@ -17,15 +21,6 @@ rule screen_shard:
         long="results/shards/{shard}/exciton_long.parquet",
         wide="results/shards/{shard}/exciton_wide.parquet",
         uncertainty="results/shards/{shard}/uncertainty.parquet",
-    params:
-        settings=physics_settings(),
-        uncertainty=uncertainty_settings(),
-        campaign=campaign_param,
-        shards=config["sharding"]["shards"],
-        # The shard's record files and all structure files are found by listing the
-        # campaign; their digest re-runs the job when any of them changes (common.smk).
-        inputs_stamp=shard_stamp,
-        cache="results/cache/shards/{shard}",
     log:
         "results/logs/screen_shard/{shard}.log",
     benchmark:
