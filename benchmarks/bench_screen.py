@@ -77,13 +77,13 @@ if sys.argv[4] == "with-uncertainty":  # the rank rule takes the Monte Carlo tab
     inputs["uncertainty"] = [str(work / "uncertainty.parquet")]
     t_unc = time.perf_counter() - t
 t2b = time.perf_counter()
-outputs = {n: str(work / "tables" / f"{n}.parquet") for n in ("entries", "valleys", "rejects", "wide")}
+outputs = {n: str(work / "tables" / f"{n}.parquet") for n in ("rejects", "wide")}
 outputs.update(rejects_csv=str(work / "tables" / "rejects.csv"), shortlist=str(work / "shortlist.csv"))
 pipeline.run_rank(inputs, outputs, {k: cfg[k] for k in ("survival", "ranking", "environments")},
                   io.canonical_json_hash(cfg)[:16])
 from flakelight import assemble
-assemble.run_join_long(inputs["long"], inputs["wide"], str(work / "tables" / "screen_long.parquet"),
-                       {"survival": cfg["survival"]}, io.canonical_json_hash(cfg)[:16])
+assemble.run_join(inputs, {n: str(work / "tables" / f"{n}.parquet") for n in ("long", "entries", "valleys")},
+                  {"survival": cfg["survival"]}, io.canonical_json_hash(cfg)[:16])
 t3 = time.perf_counter()
 print(json.dumps({"table_s": t1 - t0, "shard_s": t2 - t1, "uncertainty_s": t_unc, "rank_s": t3 - t2b}))
 """

@@ -88,3 +88,24 @@ def test_join_module_imports_no_pandas():
             "print('pandas' in sys.modules)")
     res = subprocess.run([sys.executable, "-c", code], cwd=REPO, capture_output=True, text=True, check=True)
     assert res.stdout.strip() == "False"
+
+
+def test_concat_sorted_equals_pandas_stable_sort(tmp_path):
+    # source: pandas (reference library): concat then sort_values(kind="stable")
+    parts = [pd.DataFrame({"entry_id": ["m", "b", "b"], "valley_index": [0, 1, 0], "x": [1.0, 2.0, 3.0]}),
+             pd.DataFrame({"entry_id": ["a", "z"], "valley_index": [2, 0], "x": [4.0, np.nan]}),
+             pd.DataFrame({"entry_id": pd.Series([], dtype=str), "valley_index": pd.Series([], dtype="int64"),
+                           "x": pd.Series([], dtype=float)})]
+    paths = []
+    for i, frame in enumerate(parts):
+        paths.append(str(tmp_path / f"{i}.parquet"))
+        io.write_parquet(frame, paths[-1], table_metadata={"generation": "g"})
+    out = tmp_path / "out.parquet"
+    assert assemble.concat_sorted(paths, ["entry_id", "valley_index"], str(out), "cfg") == 5
+    want = pd.concat(parts[:2], ignore_index=True).sort_values(["entry_id", "valley_index"], kind="stable")
+    pd.testing.assert_frame_equal(pd.read_parquet(out), want.reset_index(drop=True), check_dtype=False)
+    assert io.parquet_metadata(out) == {"config_hash": "cfg"}
+    # every shard empty: an empty table with the shard's columns
+    empty = tmp_path / "empty.parquet"
+    assert assemble.concat_sorted(paths[2:], ["entry_id"], str(empty), "cfg") == 0
+    assert list(pd.read_parquet(empty).columns) == ["entry_id", "valley_index", "x"]

@@ -1,14 +1,15 @@
-"""Assembling the final long table from the shard tables, with Arrow alone.
+"""Joining the shard tables that need no ranking, with Arrow alone.
 
 The long table (compound x layer count x environment, about 20 rows per
 compound) is the largest output. Joining it needs no pandas and no physics
 beyond :mod:`flakelight.survival`: each shard's rows are read as an Arrow
 table, the temperature-dependent columns are appended (computed by
 :func:`flakelight.survival.survival_columns`, the function the ranking uses
-for its own rows), and the part is streamed to the output. Rule
-``join_long`` runs this beside ``rank_candidates``; it starts in a fraction of
-the time a pandas job needs. Memory holds one shard at a time; rows come in
-shard order, sorted by compound within each shard (as the shards wrote them).
+for its own rows), and the part is streamed to the output. Memory holds one
+shard at a time; rows come in shard order, sorted by compound within each
+shard (as the shards wrote them). The entries and valleys tables are plain
+concatenations, sorted by compound. Rule ``join_tables`` runs this beside
+``rank_candidates``; it starts in a fraction of the time a pandas job needs.
 """
 
 from __future__ import annotations
@@ -95,3 +96,39 @@ def run_join_long(long_paths: Sequence[str], wide_paths: Sequence[str], output: 
             del part
     log.info("long table joined: %d rows", rows)
     return rows
+
+
+def concat_sorted(paths: Sequence[str], keys: Sequence[str], output: str, config_hash: str) -> int:
+    """Stack shard tables, sort by ``keys`` (stable, ascending) and write them with the config hash.
+
+    Returns the number of rows written.
+    """
+    import pyarrow as pa
+
+    tables = [io.read_arrow(p) for p in paths]
+    nonempty = [t for t in tables if t.num_rows]
+    if not nonempty:
+        table = tables[0] if tables else pa.table({})
+    else:
+        table = pa.concat_tables(nonempty, promote_options="permissive") if len(nonempty) > 1 else nonempty[0]
+        table = table.sort_by([(k, "ascending") for k in keys])
+    table = table.replace_schema_metadata({k: v for k, v in (table.schema.metadata or {}).items() if k == b"pandas"})
+    io.write_parquet(table, output, table_metadata={"config_hash": config_hash})
+    return table.num_rows
+
+
+def run_join(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], settings: Mapping,
+             config_hash: str) -> dict[str, int]:
+    """Write the final long, entries and valleys tables from the shard tables.
+
+    ``inputs`` holds the shards' ``long``, ``wide``, ``entries`` and ``valleys``
+    tables; ``outputs`` the paths for ``long``, ``entries`` and ``valleys``.
+    Returns the rows written per table.
+    """
+    counts = {
+        "long": run_join_long(inputs["long"], inputs["wide"], outputs["long"], settings, config_hash),
+        "entries": concat_sorted(inputs["entries"], ["entry_id"], outputs["entries"], config_hash),
+        "valleys": concat_sorted(inputs["valleys"], ["entry_id", "valley_index"], outputs["valleys"], config_hash),
+    }
+    log.info("tables joined: %s", counts)
+    return counts

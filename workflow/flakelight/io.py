@@ -180,7 +180,7 @@ def snapshot_json(folder: str | os.PathLike, prefix: str, content: Any) -> str:
     """
     import re
 
-    text = json.dumps(content, sort_keys=True, indent=1, default=str) + "\n"
+    text = json.dumps(content, sort_keys=True, separators=(",", ":"), default=str) + "\n"
     folder = Path(folder)
     path = folder / f"{prefix}-{sha256_bytes(text.encode('utf-8'))[:16]}.json"
     if not path.exists():

@@ -301,19 +301,15 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
              config_hash: str) -> dict[str, int]:
     """Combine shard tables, add survival columns, rank, write final tables and the shortlist.
 
-    Every table but the long one: that is joined by
-    :func:`flakelight.assemble.run_join_long` (rule ``join_long``). ``inputs["long"]``
+    The long, entries and valleys tables are joined by
+    :func:`flakelight.assemble.run_join` (rule ``join_tables``); ``inputs["long"]``
     is read here only for the rows at the target layer count and environment.
     """
     from flakelight import ranking
 
-    entries = _concat(inputs["entries"]).sort_values("entry_id", kind="stable").reset_index(drop=True)
-    valleys = _concat(inputs["valleys"])
     rejects = _concat(inputs["rejects"])
     wide = _concat(inputs["wide"]).sort_values("entry_id", kind="stable").reset_index(drop=True)
     probabilities = _concat(inputs["uncertainty"]) if inputs.get("uncertainty") else None
-    if len(valleys):
-        valleys = valleys.sort_values(["entry_id", "valley_index"], kind="stable").reset_index(drop=True)
     if len(rejects):
         rejects = rejects.sort_values(["entry_id", "field"], kind="stable").reset_index(drop=True)
     meta = {"config_hash": config_hash}
@@ -321,7 +317,7 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     target_layers = int(settings["ranking"]["target_layers"])
     environment = settings["ranking"]["environment"]
     # Only the long rows at the target layer count and environment are ranked; the
-    # whole long table is joined by rule join_long (flakelight.assemble), in parallel.
+    # whole long table is joined by rule join_tables (flakelight.assemble), in parallel.
     import pyarrow.compute as pc
 
     from flakelight import assemble
@@ -337,8 +333,6 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     target = pd.concat(targets, ignore_index=True) if targets else pd.DataFrame()
     ranked = ranking.rank(target, wide, settings, probabilities)
     ranked["config_hash"] = config_hash
-    io.write_parquet(entries, outputs["entries"], table_metadata=meta)
-    io.write_parquet(valleys, outputs["valleys"], table_metadata=meta)
     io.write_parquet(rejects, outputs["rejects"], table_metadata=meta)
     io.write_csv(rejects, outputs["rejects_csv"])
     io.write_parquet(ranked, outputs["wide"], units={**screen.units_for(ranked.columns), **units},

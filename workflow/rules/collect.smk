@@ -4,14 +4,12 @@
 
 localrules:
     rank_candidates,
-    join_long,
+    join_tables,
     write_manifest,
 
 
 rule rank_candidates:
     input:
-        entries=shard_outputs("entries"),
-        valleys=shard_outputs("valleys"),
         rejects=shard_outputs("rejects"),
         long=shard_outputs("exciton_long"),
         wide=shard_outputs("exciton_wide"),
@@ -19,8 +17,6 @@ rule rank_candidates:
         settings=rank_settings,
         code=library_files("survival", "ranking", "pipeline", "assemble"),
     output:
-        entries="results/tables/entries.parquet",
-        valleys="results/tables/valleys.parquet",
         rejects="results/tables/rejects.parquet",
         rejects_csv="results/tables/rejects.csv",
         wide="results/tables/screen_wide.parquet",
@@ -33,22 +29,26 @@ rule rank_candidates:
         "../scripts/rank_candidates.py"
 
 
-# The long table (about 20 rows per compound) is joined beside the ranking, by a job
-# that imports pyarrow and numpy only (flakelight.assemble).
-rule join_long:
+# The long table (about 20 rows per compound), entries and valleys are joined beside the
+# ranking, by a job that imports pyarrow and numpy only (flakelight.assemble).
+rule join_tables:
     input:
         long=shard_outputs("exciton_long"),
         wide=shard_outputs("exciton_wide"),
+        entries=shard_outputs("entries"),
+        valleys=shard_outputs("valleys"),
         settings=join_settings,
         code=library_files("survival", "assemble"),
     output:
-        "results/tables/screen_long.parquet",
+        long="results/tables/screen_long.parquet",
+        entries="results/tables/entries.parquet",
+        valleys="results/tables/valleys.parquet",
     log:
-        "results/logs/join_long/join_long.log",
+        "results/logs/join_tables/join_tables.log",
     conda:
         "../../envs/flakelight.yaml"
     script:
-        "../scripts/join_long.py"
+        "../scripts/join_tables.py"
 
 
 rule write_manifest:

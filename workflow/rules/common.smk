@@ -138,7 +138,7 @@ def rank_settings(wildcards):
 
 
 def join_settings(wildcards):
-    """Settings of the join_long job."""
+    """Settings of the join_tables job."""
     return snapshot("join", {"settings": {"survival": config["survival"]}, "config_hash": config_hash()})
 
 

@@ -7,10 +7,10 @@ localrules:
 
 rule write_summary:
     input:
-        long=rules.join_long.output[0],
+        long=rules.join_tables.output.long,
         wide=rules.rank_candidates.output.wide,
         rejects=rules.rank_candidates.output.rejects,
-        entries=rules.rank_candidates.output.entries,
+        entries=rules.join_tables.output.entries,
         manifest=rules.write_manifest.output[0],
         settings=summary_settings,
         code=library_files("report", "ranking"),

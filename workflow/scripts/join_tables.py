@@ -1,4 +1,4 @@
-"""Adapter of rule join_long: the final long table (Arrow only, no pandas)."""
+"""Adapter of rule join_tables: final long, entries and valleys tables (Arrow only, no pandas)."""
 import sys
 from pathlib import Path
 
@@ -7,10 +7,9 @@ from flakelight import assemble, io  # noqa: E402
 
 io.start_log(snakemake.log[0])  # noqa: F821
 job = io.read_json(snakemake.input.settings)  # noqa: F821
-assemble.run_join_long(
-    long_paths=list(snakemake.input.long),  # noqa: F821
-    wide_paths=list(snakemake.input.wide),  # noqa: F821
-    output=snakemake.output[0],  # noqa: F821
+assemble.run_join(
+    inputs={k: list(v) for k, v in snakemake.input.items() if k not in ("code", "settings")},  # noqa: F821
+    outputs=dict(snakemake.output.items()),  # noqa: F821
     settings=job["settings"],
     config_hash=job["config_hash"],
 )
