@@ -25,8 +25,12 @@ rule rank_candidates:
         "results/logs/rank_candidates/rank_candidates.log",
     conda:
         "../../envs/flakelight.yaml"
-    script:
-        "../scripts/rank_candidates.py"
+    shell:
+        adapter(
+            "rank_candidates",
+            inputs=("rejects", "long", "wide", "uncertainty", "settings"),
+            outputs=("rejects", "rejects_csv", "wide", "shortlist"),
+        )
 
 
 # The long table (about 20 rows per compound), entries and valleys are joined beside the
@@ -47,8 +51,12 @@ rule join_tables:
         "results/logs/join_tables/join_tables.log",
     conda:
         "../../envs/flakelight.yaml"
-    script:
-        "../scripts/join_tables.py"
+    shell:
+        adapter(
+            "join_tables",
+            inputs=("long", "wide", "entries", "valleys", "settings"),
+            outputs=("long", "entries", "valleys"),
+        )
 
 
 rule write_manifest:
@@ -57,10 +65,14 @@ rule write_manifest:
         records=campaign_records,
         settings=manifest_settings,
     output:
-        "results/manifest.json",
+        manifest="results/manifest.json",
     log:
         "results/logs/write_manifest/write_manifest.log",
     conda:
         "../../envs/flakelight.yaml"
-    script:
-        "../scripts/write_manifest.py"
+    shell:
+        adapter(
+            "write_manifest",
+            inputs=("tables", "records", "settings"),
+            outputs=("manifest",),
+        )

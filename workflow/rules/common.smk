@@ -1,5 +1,6 @@
 # Helper functions, config validation and wildcard constraints. No rules here.
 import functools
+import shlex
 import sys
 from pathlib import Path
 
@@ -19,6 +20,25 @@ wildcard_constraints:
 
 
 LIBRARY = Path(workflow.basedir) / "workflow" / "flakelight"
+ADAPTERS = Path(workflow.basedir) / "workflow" / "scripts"
+
+
+def job_python():
+    """Interpreter of the adapter jobs: `python` of the job's software environment under
+    --sdm conda, apptainer or env-modules (as Snakemake's script: directive does), else
+    the interpreter running Snakemake."""
+    methods = getattr(workflow.deployment_settings, "deployment_method", None) or set()
+    return "python" if methods else sys.executable
+
+
+def adapter(name, inputs=(), outputs=(), wildcards=()):
+    """Shell command of a rule: workflow/scripts/<name>.py with its named inputs, outputs,
+    wildcards and log (parsed by workflow/scripts/adapter_args.py)."""
+    words = [shlex.quote(job_python()), shlex.quote(str(ADAPTERS / f"{name}.py")), "--log {log:q}"]
+    words += [f"--input {k} {{input.{k}:q}}" for k in inputs]
+    words += [f"--output {k} {{output.{k}:q}}" for k in outputs]
+    words += [f"--wildcard {w} {{wildcards.{w}:q}}" for w in wildcards]
+    return " ".join(words)
 
 
 def campaign_dir():

@@ -5,7 +5,7 @@ rule keldysh_table:
     input:
         code=library_files("keldysh"),
     output:
-        "results/cache/keldysh_table.npz",
+        table="results/cache/keldysh_table.npz",
     log:
         "results/logs/keldysh_table/keldysh_table.log",
     benchmark:
@@ -13,5 +13,9 @@ rule keldysh_table:
     threads: 1
     conda:
         "../../envs/flakelight.yaml"
-    script:
-        "../scripts/keldysh_table.py"
+    shell:
+        adapter(
+            "keldysh_table",
+            inputs=(),
+            outputs=("table",),
+        )

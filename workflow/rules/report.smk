@@ -21,5 +21,9 @@ rule write_summary:
         "results/logs/write_summary/write_summary.log",
     conda:
         "../../envs/flakelight.yaml"
-    script:
-        "../scripts/write_summary.py"
+    shell:
+        adapter(
+            "write_summary",
+            inputs=("long", "wide", "rejects", "entries", "manifest", "settings"),
+            outputs=("html", "changes"),
+        )

@@ -28,6 +28,11 @@ rule screen_shard:
     threads: 1
     conda:
         "../../envs/flakelight.yaml"
-    script:
-        "../scripts/screen_shard.py"
+    shell:
+        adapter(
+            "screen_shard",
+            inputs=("table", "records", "settings"),
+            outputs=("entries", "valleys", "rejects", "long", "wide", "uncertainty"),
+            wildcards=("shard",),
+        )
 

@@ -1,16 +1,15 @@
 """Adapter of rule rank_candidates: combine shards, add survival, rank, shortlist."""
-import sys
-from pathlib import Path
+import adapter_args
 
-sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
-from flakelight import io, pipeline  # noqa: E402
+from flakelight import io, pipeline
 
-pipeline.start_log(snakemake.log[0])  # noqa: F821
-job = io.read_json(snakemake.input.settings)  # noqa: F821
+job = adapter_args.parse()
+io.start_log(job.log)
+settings = io.read_json(job.one("input", "settings"))
 pipeline.run_rank(
-    inputs={k: list(v) for k, v in snakemake.input.items() if k not in ("code", "settings")},  # noqa: F821
-    outputs=dict(snakemake.output.items()),  # noqa: F821
-    settings=job["settings"],
-    config_hash=job["config_hash"],
+    inputs={k: v for k, v in job.input.items() if k not in ("code", "settings")},
+    outputs={name: job.one("output", name) for name in job.output},
+    settings=settings["settings"],
+    config_hash=settings["config_hash"],
 )
 io.end_job()  # last statement: skips the interpreter teardown (see io.end_job)

@@ -1,28 +1,30 @@
 """Adapter of rule screen_shard: validate, normalise, screen and propagate one shard."""
-import sys
 from pathlib import Path
 
-sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
-from flakelight import io, pipeline  # noqa: E402
+import adapter_args
 
-pipeline.start_log(snakemake.log[0])  # noqa: F821
-job = io.read_json(snakemake.input.settings)  # noqa: F821
-records = io.read_json(snakemake.input.records)  # noqa: F821
-cache = str(Path(job["cache_root"]) / snakemake.wildcards.shard)  # noqa: F821
-outputs = dict(snakemake.output.items())  # noqa: F821
+from flakelight import io, pipeline
+
+job = adapter_args.parse()
+io.start_log(job.log)
+settings = io.read_json(job.one("input", "settings"))
+records = io.read_json(job.one("input", "records"))
+cache = str(Path(settings["cache_root"]) / job.wildcards["shard"])
+outputs = {name: job.one("output", name) for name in job.output}
+table = job.one("input", "table")
 pipeline.run_shard(
-    entry_paths=pipeline.listed_paths(job["campaign"], records, "entries"),
-    campaign=job["campaign"],
-    settings=job["physics"],
-    table_path=snakemake.input.table,  # noqa: F821
+    entry_paths=pipeline.listed_paths(settings["campaign"], records, "entries"),
+    campaign=settings["campaign"],
+    settings=settings["physics"],
+    table_path=table,
     cache_dir=cache,
     outputs={k: v for k, v in outputs.items() if k != "uncertainty"},
 )
 pipeline.run_propagation(
     entries_path=outputs["entries"],
     valleys_path=outputs["valleys"],
-    table_path=snakemake.input.table,  # noqa: F821
-    settings=job["uncertainty"],
+    table_path=table,
+    settings=settings["uncertainty"],
     cache_dir=cache,
     output=outputs["uncertainty"],
 )

@@ -1,20 +1,19 @@
 """Adapter of rule write_manifest: record what this run was made from."""
-import sys
-from pathlib import Path
+import adapter_args
 
-sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
-from flakelight import io, pipeline  # noqa: E402
+from flakelight import io, pipeline
 
-pipeline.start_log(snakemake.log[0])  # noqa: F821
-job = io.read_json(snakemake.input.settings)  # noqa: F821
-records = io.read_json(snakemake.input.records)  # noqa: F821
+job = adapter_args.parse()
+io.start_log(job.log)
+settings = io.read_json(job.one("input", "settings"))
+records = io.read_json(job.one("input", "records"))
 pipeline.write_manifest(
-    entry_paths=pipeline.listed_paths(job["campaign"], records, "entries"),
-    structure_paths=pipeline.listed_paths(job["campaign"], records, "structures"),
-    wide_path=snakemake.input.tables,  # noqa: F821
-    config=job["config"],
-    config_hash=job["config_hash"],
-    workdir=job["workdir"],
-    output=snakemake.output[0],  # noqa: F821
+    entry_paths=pipeline.listed_paths(settings["campaign"], records, "entries"),
+    structure_paths=pipeline.listed_paths(settings["campaign"], records, "structures"),
+    wide_path=job.one("input", "tables"),
+    config=settings["config"],
+    config_hash=settings["config_hash"],
+    workdir=settings["workdir"],
+    output=job.one("output", "manifest"),
 )
 io.end_job()  # last statement: skips the interpreter teardown (see io.end_job)

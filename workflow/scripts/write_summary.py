@@ -1,16 +1,15 @@
 """Adapter of rule write_summary: the HTML summary and the run-to-run change report."""
-import sys
-from pathlib import Path
+import adapter_args
 
-sys.path.insert(0, str(Path(snakemake.scriptdir).parent))  # noqa: F821
-from flakelight import io, pipeline, report  # noqa: E402
+from flakelight import io, report
 
-pipeline.start_log(snakemake.log[0])  # noqa: F821
-job = io.read_json(snakemake.input.settings)  # noqa: F821
+job = adapter_args.parse()
+io.start_log(job.log)
+settings = io.read_json(job.one("input", "settings"))
 report.write_summary(
-    inputs={k: str(v) for k, v in snakemake.input.items() if k not in ("code", "settings")},  # noqa: F821
-    outputs=dict(snakemake.output.items()),  # noqa: F821
-    settings=job["settings"],
-    history=job["history"],
+    inputs={k: job.one("input", k) for k in job.input if k not in ("code", "settings")},
+    outputs={name: job.one("output", name) for name in job.output},
+    settings=settings["settings"],
+    history=settings["history"],
 )
 io.end_job()  # last statement: skips the interpreter teardown (see io.end_job)
