@@ -258,19 +258,19 @@ def machine() -> dict:
 
 
 def table(rows: list[dict]) -> str:
+    """Markdown table; the memory columns are the full screen's (workflow), then the bare bound's."""
     head = ("| records | shards | full screen (s) | bare bound (s) | full / bare | no-op re-run (s) | no-op / full "
-            "| revise-one re-run (s) | revise / full | CPU full / bare | peak RSS, sum (MiB) "
-            "| peak RSS, largest process (MiB) |")
-    lines = [head, "|" + "---|" * 12]
+            "| revise-one re-run (s) | revise / full | CPU full / bare | workflow peak RSS, sum (MiB) "
+            "| workflow largest process (MiB) | bare peak RSS (MiB) |")
+    lines = [head, "|" + "---|" * 13]
     for r in rows:
-        peak = max(r["full"]["peak_sum_mib"], r["bare"]["peak_sum_mib"])
-        single = max(x for x in (r["full"]["peak_single_mib"], r["bare"]["peak_single_mib"], 0) if x)
         lines.append(f"| {r['n']:,} | {r['shards']} | {r['full']['wall_s']:.1f} | {r['bare']['wall_s']:.1f} "
                      f"| {r['ratios']['full_over_bare']:.2f} | {r['noop']['wall_s']:.1f} "
                      f"| {r['ratios']['noop_over_full']:.0%} | {r['revise']['wall_s']:.1f} "
                      f"| {r['ratios']['revise_over_full']:.0%} "
                      f"| {r.get('cpu_ratios', {}).get('full_over_bare', float('nan')):.2f} "
-                     f"| {peak:.0f} | {single:.0f} |")
+                     f"| {r['full']['peak_sum_mib']:.0f} | {r['full']['peak_single_mib'] or float('nan'):.0f} "
+                     f"| {r['bare']['peak_sum_mib']:.0f} |")
     return "\n".join(lines)
 
 

@@ -15,7 +15,7 @@ rule rank_candidates:
         wide=shard_outputs("exciton_wide"),
         uncertainty=shard_outputs("uncertainty"),
         settings=rank_settings,
-        code=library_files("survival", "ranking", "pipeline", "assemble"),
+        code=code_files("rank_candidates", "survival", "ranking", "pipeline", "assemble"),
     output:
         rejects="results/tables/rejects.parquet",
         rejects_csv="results/tables/rejects.csv",
@@ -42,7 +42,7 @@ rule join_tables:
         entries=shard_outputs("entries"),
         valleys=shard_outputs("valleys"),
         settings=join_settings,
-        code=library_files("survival", "assemble"),
+        code=code_files("join_tables", "survival", "assemble"),
     output:
         long="results/tables/screen_long.parquet",
         entries="results/tables/entries.parquet",
@@ -64,6 +64,7 @@ rule write_manifest:
         tables=rules.rank_candidates.output.wide,
         records=campaign_records,
         settings=manifest_settings,
+        code=code_files("write_manifest", "pipeline"),
     output:
         manifest="results/manifest.json",
     log:

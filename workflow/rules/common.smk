@@ -106,6 +106,12 @@ def library_files(*modules):
     return [str(LIBRARY / f"{m}.py") for m in names]
 
 
+def code_files(adapter_name, *modules):
+    """Sources behind a job: its adapter, the adapters' argument parser and the library
+    modules it imports (declared as inputs: editing any of them re-runs the rule)."""
+    return [str(ADAPTERS / f"{adapter_name}.py"), str(ADAPTERS / "adapter_args.py")] + library_files(*modules)
+
+
 def physics_settings():
     """The config sections the shard computation depends on (a change re-runs the shards)."""
     keys = ("layers", "structure", "environments", "monolayer", "emission_bands")

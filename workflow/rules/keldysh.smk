@@ -3,7 +3,7 @@
 
 rule keldysh_table:
     input:
-        code=library_files("keldysh"),
+        code=code_files("keldysh_table", "keldysh"),
     output:
         table="results/cache/keldysh_table.npz",
     log:

@@ -13,7 +13,7 @@ rule screen_shard:
         # a new name whenever one of them changes (common.smk: snapshot)
         records=shard_records,
         settings=screen_settings,
-        code=library_files(*SHARD_MODULES, *PROPAGATION_MODULES),
+        code=code_files("screen_shard", *SHARD_MODULES, *PROPAGATION_MODULES),
     output:
         entries="results/shards/{shard}/entries.parquet",
         valleys="results/shards/{shard}/valleys.parquet",
