@@ -318,11 +318,13 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     environment = settings["ranking"]["environment"]
     # Only the long rows at the target layer count and environment are ranked; the
     # whole long table is joined by rule join_tables (flakelight.assemble), in parallel.
+    import pyarrow as pa
     import pyarrow.compute as pc
 
     from flakelight import assemble
 
-    lookup = assemble.lattice_lookup(inputs["wide"])
+    lookup = (pa.array(wide["entry_id"].astype(str).tolist(), pa.large_string()),
+              pa.array(wide["lattice_angstrom"].to_numpy(dtype=float)))  # as assemble.lattice_lookup
     targets = []
     for path in inputs["long"]:
         part = io.read_arrow(path)
