@@ -83,8 +83,8 @@ def snapshot(prefix, content):
     """Path of the content-addressed JSON snapshot `prefix` (written when new).
 
     Rules take their settings and listings as such files, never as `params`: a changed
-    value re-runs the rule under any re-run trigger, and Snakemake, holding no params,
-    skips loading pandas (a quarter of a second on every run).
+    value re-runs the rule under any re-run trigger, and Snakemake, holding no params and
+    running no `script:` jobs, never loads pandas (a quarter of a second on every run).
     """
     return snapshot_json(SNAPSHOTS, prefix, content)
 
