@@ -27,7 +27,6 @@ import numpy as np
 import pandas as pd
 
 from flakelight import PROPAGATION_MODULES, SHARD_MODULES, contract, ingest, io, screen
-from flakelight.io import start_log  # noqa: F401 - the adapters call pipeline.start_log
 from flakelight.keldysh import KeldyshTable
 
 log = logging.getLogger("flakelight")
