@@ -87,6 +87,10 @@ def _differences(output: str, old: pd.DataFrame, new: pd.DataFrame) -> list[str]
         if not _allowed(output, col)[0]:
             side = "added" if col in new.columns else "removed"
             problems.append(f"{output}: column {col!r} {side}")
+    common_old = [c for c in old.columns if c in new.columns]
+    common_new = [c for c in new.columns if c in old.columns]
+    if common_old != common_new:
+        problems.append(f"{output}: column order changed")
     old, new = _sorted(old), _sorted(new)
     keys = [k for k in KEYS if k in old.columns and k in new.columns]
     if (output, ROWS, "*") in EXPECTED_CHANGES:
@@ -144,4 +148,5 @@ def test_comparison_detects_a_changed_value():
     assert _differences("tables/screen_long.parquet", old, moved)
     assert _differences("tables/screen_long.parquet", old, old.assign(layers=[1, 1]))
     assert _differences("tables/screen_long.parquet", old, old.assign(extra=1.0))
+    assert _differences("tables/screen_long.parquet", old, old[["entry_id", "layers", "binding_ev"]])
     assert not _differences("tables/screen_long.parquet", old, old.assign(binding_ev=[0.1, 0.2 * (1 + 1e-13)]))

@@ -13,11 +13,11 @@ __version__ = "0.1.0"
 #: workflow declares the same files as inputs of the shard rule.
 SHARD_MODULES = (
     "__init__", "units", "io", "contract", "sharding", "structure", "bandfit", "dielectric",
-    "masses", "hydrogenic", "keldysh", "layers", "survival", "ingest", "screen", "pipeline",
+    "masses", "hydrogenic", "keldysh", "layers", "model", "survival", "ingest", "screen", "pipeline",
 )
 
 #: Library modules the per-shard uncertainty propagation depends on (its cache key).
 PROPAGATION_MODULES = (
     "__init__", "units", "io", "ingest", "dielectric", "hydrogenic", "keldysh", "layers",
-    "masses", "survival", "uncertainty", "pipeline",
+    "masses", "model", "survival", "ranking", "screen", "uncertainty", "pipeline",
 )
