@@ -150,3 +150,21 @@ def test_comparison_detects_a_changed_value():
     assert _differences("tables/screen_long.parquet", old, old.assign(extra=1.0))
     assert _differences("tables/screen_long.parquet", old, old[["entry_id", "layers", "binding_ev"]])
     assert not _differences("tables/screen_long.parquet", old, old.assign(binding_ev=[0.1, 0.2 * (1 + 1e-13)]))
+
+
+@pytest.mark.slow
+def test_every_written_column_has_unit_and_description(golden_run):
+    """Every field of every Parquet table the run wrote carries a unit and a description."""
+    import pyarrow.parquet as pq
+
+    _, results = golden_run
+    missing = []
+    for path in sorted(results.glob("**/*.parquet")):
+        if "cache" in path.relative_to(results).parts:
+            continue
+        for field in pq.read_schema(path):
+            meta = field.metadata or {}
+            if not meta.get(b"unit") or not meta.get(b"description"):
+                missing.append(f"{path.relative_to(results)}: {field.name}")
+    assert not missing, "columns without unit or description (declare them in flakelight.tables):\n" + \
+        "\n".join(missing)

@@ -12,12 +12,12 @@ __version__ = "0.1.0"
 #: ``code_version`` stamped on shard rows and keys the per-record cache; the
 #: workflow declares the same files as inputs of the shard rule.
 SHARD_MODULES = (
-    "__init__", "units", "io", "contract", "sharding", "structure", "bandfit", "dielectric",
+    "__init__", "units", "io", "tables", "contract", "sharding", "structure", "bandfit", "dielectric",
     "masses", "hydrogenic", "keldysh", "layers", "model", "survival", "ingest", "screen", "pipeline",
 )
 
 #: Library modules the per-shard uncertainty propagation depends on (its cache key).
 PROPAGATION_MODULES = (
-    "__init__", "units", "io", "ingest", "dielectric", "hydrogenic", "keldysh", "layers",
+    "__init__", "units", "io", "tables", "ingest", "dielectric", "hydrogenic", "keldysh", "layers",
     "masses", "model", "survival", "ranking", "screen", "uncertainty", "pipeline",
 )

@@ -66,7 +66,7 @@ def with_survival(part, lookup, settings: Mapping):
 
 
 def run_join_long(long_paths: Sequence[str], wide_paths: Sequence[str], output: str, settings: Mapping,
-                  config_hash: str, descriptions: Mapping[str, str] | None = None) -> int:
+                  config_hash: str) -> int:
     """Write the final long table: every shard's rows plus survival columns and the config hash.
 
     Parameters
@@ -75,7 +75,6 @@ def run_join_long(long_paths: Sequence[str], wide_paths: Sequence[str], output: 
     output : path of the final long table.
     settings : config sections with ``survival``.
     config_hash : stamped on every row and in the table metadata.
-    descriptions : column descriptions to (re)state in the field metadata.
 
     Returns the number of rows written.
     """
@@ -83,8 +82,7 @@ def run_join_long(long_paths: Sequence[str], wide_paths: Sequence[str], output: 
 
     lookup = lattice_lookup(wide_paths)
     rows = 0
-    with io.ParquetSink(output, units=survival.SURVIVAL_UNITS, descriptions=descriptions or {},
-                        table_metadata={"config_hash": config_hash}) as sink:
+    with io.ParquetSink(output, table_metadata={"config_hash": config_hash}) as sink:
         for path in long_paths:
             part = with_survival(io.read_arrow(path), lookup, settings)
             # keep pandas' own schema entry; the shard's cache stamps do not describe this table

@@ -18,7 +18,7 @@ import pandas as pd
 
 from typing import TYPE_CHECKING
 
-from flakelight import bandfit, dielectric, masses
+from flakelight import bandfit, dielectric, masses, tables
 from flakelight.contract import Problem
 
 if TYPE_CHECKING:  # pymatgen is imported only when a structure is analysed
@@ -220,19 +220,8 @@ def valley_columns(max_layers: int) -> list[str]:
             "mass_fit_rms_ev", "mass_nonparabolic", "mass_rel_unc", "edge_unc_ev"]
 
 
-#: Columns of the entry and valley tables that hold text or flags (the rest are float64).
-STRING_COLUMNS = {
-    "entry_id", "source_file", "input_hash", "formula", "provenance", "energy_reference", "structure_file",
-    "structure_hash", "dielectric_frame", "normal_source", "spacing_source", "lattice_source", "r0_source",
-    "warnings", "label", "band", "mass_source", "physics_hash", "code_version",
-}
-BOOLEAN_COLUMNS = {"is_layered_structure", "mass_nonparabolic"}
-INTEGER_COLUMNS = {"valley_index"}
-
-
 def typed_frame(rows: list[dict], columns: list[str]) -> pd.DataFrame:
     """Rows as a DataFrame with a fixed type per column, also when there are no rows."""
     frame = pd.DataFrame(rows, columns=columns)
-    types = {c: ("str" if c in STRING_COLUMNS else "boolean" if c in BOOLEAN_COLUMNS
-                 else "int64" if c in INTEGER_COLUMNS else "float64") for c in columns}
+    types = {c: tables.pandas_dtype(c) for c in columns}  # declared once, in flakelight.tables
     return frame.astype(types)

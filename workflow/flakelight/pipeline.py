@@ -258,8 +258,7 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
     keys = sorted(set(tables["entries"]["input_hash"]) | set(tables["rejects"]["input_hash"]))
     generation = io.canonical_json_hash([stamps, keys])[:16]
     for name, frame in tables.items():
-        io.write_parquet(_typed(frame), outputs[name], units=screen.units_for(frame.columns),
-                         descriptions=screen.DESCRIPTIONS, table_metadata={**stamps, "generation": generation})
+        io.write_parquet(_typed(frame), outputs[name], table_metadata={**stamps, "generation": generation})
     for name in tables:
         io.copy_file(outputs[name], Path(cache_dir) / f"{name}.parquet")
     if len(memo) != memo_size:
@@ -312,7 +311,6 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     if len(rejects):
         rejects = rejects.sort_values(["entry_id", "field"], kind="stable").reset_index(drop=True)
     meta = {"config_hash": config_hash}
-    units = {**screen.UNITS, **ranking.SURVIVAL_UNITS, **ranking.RANK_UNITS}
     target_layers = int(settings["ranking"]["target_layers"])
     environment = settings["ranking"]["environment"]
     # Only the long rows at the target layer count and environment are ranked; the
@@ -336,8 +334,7 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     ranked["config_hash"] = config_hash
     io.write_parquet(rejects, outputs["rejects"], table_metadata=meta)
     io.write_csv(rejects, outputs["rejects_csv"])
-    io.write_parquet(ranked, outputs["wide"], units={**screen.units_for(ranked.columns), **units},
-                     descriptions=screen.DESCRIPTIONS, table_metadata=meta)
+    io.write_parquet(ranked, outputs["wide"], table_metadata=meta)
     io.write_csv(ranking.shortlist(ranked, settings), outputs["shortlist"])
     counts = {"screened": len(wide), "rejected": int(rejects["entry_id"].nunique()) if len(rejects) else 0,
               "candidates": int(ranked["meets_all_criteria"].sum()) if len(ranked) else 0}
@@ -447,8 +444,7 @@ def run_propagation(entries_path: str, valleys_path: str, table_path: str, setti
         if len(fresh) else pd.Series(dtype="string")
     frame = pd.concat([f for f in (fresh, reused) if len(f)] or [fresh], ignore_index=True)
     frame = frame.sort_values("entry_id", kind="stable").reset_index(drop=True)
-    io.write_parquet(frame, output, units=uncertainty.UNITS, descriptions=uncertainty.DESCRIPTIONS,
-                     table_metadata=stamps)
+    io.write_parquet(frame, output, table_metadata=stamps)
     io.copy_file(output, cache_path)
     counts = {"computed": len(fresh), "reused": len(reused)}
     log.info("propagation done: %s", counts)

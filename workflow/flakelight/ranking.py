@@ -42,9 +42,6 @@ def add_survival(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping) -> p
     return out
 
 
-SURVIVAL_UNITS = survival.SURVIVAL_UNITS
-
-
 def criteria(is_direct, complete, direct_margin_ev, binding_over_kt, emission_nm,
              ranking: Mapping) -> dict[str, np.ndarray]:
     """The four ranking criteria, vectorized: the one definition used by :func:`rank` and the Monte Carlo.
@@ -146,11 +143,6 @@ def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
                               na_position="last")
     frame["rank"] = np.arange(1, len(frame) + 1, dtype="int32")
     return frame.drop(columns="_id").reset_index(drop=True)
-
-
-RANK_UNITS = {"target_optical_gap_ev": "eV", "target_emission_nm": "nm", "target_binding_ev": "eV",
-              "target_binding_over_kt": "1", "target_direct_margin_ev": "eV", "target_radius_angstrom": "Angstrom",
-              "score": "1", "score_binding": "1", "score_margin": "1", "score_window": "1"}
 
 
 def shortlist(ranked: pd.DataFrame, settings: Mapping) -> pd.DataFrame:

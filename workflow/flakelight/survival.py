@@ -25,7 +25,6 @@ __all__ = [
     "mott_density_2d_per_cm2",
     "is_wannier",
     "survival_columns",
-    "SURVIVAL_UNITS",
 ]
 
 
@@ -239,6 +238,3 @@ def survival_columns(binding_ev, mu_inplane_me, radius_angstrom, lattice_angstro
                                           np.asarray(lattice_angstrom, dtype=float), float(surv["wannier_ratio"])),
     }
 
-
-#: Units of the columns :func:`survival_columns` adds (the flags are dimensionless booleans).
-SURVIVAL_UNITS = {"temperature_k": "K", "binding_over_kt": "1", "bound_fraction": "1"}

@@ -109,8 +109,6 @@ __all__ = [
     "PERCENTILES",
     "QUANTITIES",
     "OUTPUT_COLUMNS",
-    "UNITS",
-    "DESCRIPTIONS",
     "lognormal_sigma",
     "first_order_binding_rel_unc",
     "reduced_mass_rel_unc",
@@ -128,12 +126,6 @@ PERCENTILES: tuple[float, ...] = (16.0, 50.0, 84.0)
 QUANTITIES: tuple[str, ...] = ("target_binding_ev", "target_optical_gap_ev", "target_emission_nm",
                                "bulk_binding_ev")
 _PROBABILITIES = ("p_direct_target", "p_meets_all", "p_pass_margin", "p_pass_binding", "p_pass_window")
-_UNIT_OF = {"target_binding_ev": "eV", "target_optical_gap_ev": "eV", "target_emission_nm": "nm",
-            "bulk_binding_ev": "eV"}
-_TEXT_OF = {"target_binding_ev": "Rytova-Keldysh binding at the target layer count in the ranking environment",
-            "target_optical_gap_ev": "optical gap (direct gap - binding) at the target layer count",
-            "target_emission_nm": "emission wavelength at the target layer count",
-            "bulk_binding_ev": "bulk 3D hydrogenic binding (geometric-mean dielectric constant)"}
 
 
 def _pcol(quantity: str, q: float) -> str:
@@ -144,24 +136,6 @@ def _pcol(quantity: str, q: float) -> str:
 OUTPUT_COLUMNS: list[str] = (["entry_id", "input_hash"]
                              + [_pcol(name, q) for name in QUANTITIES for q in PERCENTILES]
                              + list(_PROBABILITIES) + ["n_samples", "seed"])
-
-#: Units of the output columns (for Parquet field metadata).
-UNITS: dict[str, str] = {**{_pcol(n, q): _UNIT_OF[n] for n in QUANTITIES for q in PERCENTILES},
-                         **{p: "1" for p in _PROBABILITIES}, "n_samples": "1"}
-
-#: One-line descriptions of the output columns.
-DESCRIPTIONS: dict[str, str] = {
-    **{_pcol(n, q): f"{int(q)}th percentile (Monte Carlo) of the {_TEXT_OF[n]}"
-       for n in QUANTITIES for q in PERCENTILES},
-    "p_direct_target": "probability that the gap is direct at the target layer count",
-    "p_meets_all": "probability that every ranking criterion is met",
-    "p_pass_margin": "probability that the direct-indirect margin criterion is met",
-    "p_pass_binding": "probability that the binding/kT criterion is met",
-    "p_pass_window": "probability that the emission lies in the target window",
-    "n_samples": "Monte Carlo samples per entry (0 = propagation disabled)",
-    "seed": "campaign seed; each entry's stream also depends on its identifier",
-    "input_hash": "content hash of the record the row was computed from",
-}
 
 
 # --------------------------------------------------------------------------- #

@@ -102,7 +102,7 @@ def campaign_records(wildcards):
 
 def library_files(*modules):
     """Library source files a rule imports, declared as inputs so code changes re-run it."""
-    names = dict.fromkeys(("__init__", "units", "io") + modules)
+    names = dict.fromkeys(("__init__", "units", "io", "tables") + modules)
     return [str(LIBRARY / f"{m}.py") for m in names]
 
 
