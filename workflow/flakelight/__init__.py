@@ -13,11 +13,12 @@ __version__ = "0.1.0"
 #: workflow declares the same files as inputs of the shard rule.
 SHARD_MODULES = (
     "__init__", "units", "io", "tables", "contract", "sharding", "structure", "bandfit", "dielectric",
-    "masses", "hydrogenic", "keldysh", "layers", "model", "survival", "ingest", "screen", "pipeline",
+    "masses", "hydrogenic", "keldysh", "layers", "model", "survival", "ingest", "intake", "screen",
+    "shard_cache", "pipeline",
 )
 
 #: Library modules the per-shard uncertainty propagation depends on (its cache key).
 PROPAGATION_MODULES = (
     "__init__", "units", "io", "tables", "ingest", "dielectric", "hydrogenic", "keldysh", "layers",
-    "masses", "model", "survival", "ranking", "screen", "uncertainty", "pipeline",
+    "masses", "model", "survival", "ranking", "screen", "shard_cache", "uncertainty", "pipeline",
 )

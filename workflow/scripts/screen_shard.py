@@ -11,21 +11,13 @@ settings = io.read_json(job.one("input", "settings"))
 records = io.read_json(job.one("input", "records"))
 cache = str(Path(settings["cache_root"]) / job.wildcards["shard"])
 outputs = {name: job.one("output", name) for name in job.output}
-table = job.one("input", "table")
-pipeline.run_shard(
+pipeline.run_shard_job(
     entry_paths=pipeline.listed_paths(settings["campaign"], records, "entries"),
     campaign=settings["campaign"],
-    settings=settings["physics"],
-    table_path=table,
+    physics=settings["physics"],
+    propagation=settings["uncertainty"],
+    table_path=job.one("input", "table"),
     cache_dir=cache,
-    outputs={k: v for k, v in outputs.items() if k != "uncertainty"},
-)
-pipeline.run_propagation(
-    entries_path=outputs["entries"],
-    valleys_path=outputs["valleys"],
-    table_path=table,
-    settings=settings["uncertainty"],
-    cache_dir=cache,
-    output=outputs["uncertainty"],
+    outputs=outputs,
 )
 io.end_job()  # last statement: skips the interpreter teardown (see io.end_job)
