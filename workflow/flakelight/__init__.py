@@ -14,7 +14,7 @@ __version__ = "0.1.0"
 SHARD_MODULES = (
     "__init__", "units", "io", "tables", "contract", "sharding", "structure", "bandfit", "dielectric",
     "masses", "hydrogenic", "keldysh", "layers", "model", "survival", "ingest", "intake", "screen",
-    "shard_cache", "pipeline",
+    "ranking", "shard_cache", "pipeline",
 )
 
 #: Library modules the per-shard uncertainty propagation depends on (its cache key).

@@ -97,7 +97,8 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
 
 
 def screen_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, table: str | KeldyshTable,
-                 cache_dir: str, outputs: Mapping[str, str]) -> tuple[dict[str, int], dict[str, pd.DataFrame]]:
+                 cache_dir: str, outputs: Mapping[str, str], survival: Mapping | None = None,
+                 ) -> tuple[dict[str, int], dict[str, pd.DataFrame]]:
     """Validate, normalise and screen the records of one shard; write its tables.
 
     Parameters
@@ -108,6 +109,8 @@ def screen_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, t
     table : Keldysh table, or its file (.npz) built by the keldysh_table rule.
     cache_dir : folder of this shard's per-record cache (:class:`flakelight.shard_cache.ShardCache`).
     outputs : paths for 'entries', 'valleys', 'rejects', 'long', 'wide'.
+    survival : settings with the ``survival`` section; when given, the long table gets
+        the temperature-dependent columns (:func:`flakelight.ranking.add_survival`).
 
     Returns
     -------
@@ -170,6 +173,10 @@ def screen_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, t
     fresh = {"entries": entries_new, "valleys": valleys_new, "rejects": rejects_new, "long": long_new,
              "wide": wide_new}
     tables = {name: _typed(cache.merged(name, fresh[name])) for name in SHARD_TABLES}
+    if survival is not None:
+        from flakelight import ranking
+
+        tables["long"] = ranking.add_survival(tables["long"], tables["wide"], survival)
     # The generation ties the five tables together (see ShardCache); it is a
     # digest of their content keys, so identical runs write identical files.
     keys = sorted(set(tables["entries"]["input_hash"]) | set(tables["rejects"]["input_hash"]))
@@ -188,13 +195,14 @@ def run_shard_job(entry_paths: Sequence[str], campaign: str, physics: Mapping, p
                   table_path: str, cache_dir: str, outputs: Mapping[str, str]) -> dict[str, int]:
     """One shard job: screen the records, then propagate their uncertainties.
 
-    The Keldysh table is loaded once, and the screen's entry and valley frames
-    go to the propagation in memory. ``outputs`` holds the five screen tables
+    The Keldysh table is loaded once, the long table gets the survival columns
+    (their one computation), and the screen's entry and valley frames go to the
+    propagation in memory. ``outputs`` holds the five screen tables
     and 'uncertainty'.
     """
     table = _keldysh_table(table_path)
     counts, tables = screen_shard(entry_paths, campaign, physics, table, cache_dir,
-                                  {k: v for k, v in outputs.items() if k != "uncertainty"})
+                                  {k: v for k, v in outputs.items() if k != "uncertainty"}, survival=propagation)
     counts.update({f"propagation_{k}": v for k, v in run_propagation(
         tables["entries"], tables["valleys"], table, propagation, cache_dir, outputs["uncertainty"]).items()})
     return counts
@@ -227,7 +235,7 @@ def _concat(paths: Sequence[str]) -> pd.DataFrame:
 
 def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], settings: Mapping,
              config_hash: str) -> dict[str, int]:
-    """Combine shard tables, add survival columns, rank, write final tables and the shortlist.
+    """Combine shard tables, rank, write the final wide table, the rejects and the shortlist.
 
     The long, entries and valleys tables are joined by
     :func:`flakelight.assemble.run_join` (rule ``join_tables``); ``inputs["long"]``
@@ -243,22 +251,16 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     meta = {"config_hash": config_hash}
     target_layers = int(settings["ranking"]["target_layers"])
     environment = settings["ranking"]["environment"]
-    # Only the long rows at the target layer count and environment are ranked; the
-    # whole long table is joined by rule join_tables (flakelight.assemble), in parallel.
-    import pyarrow as pa
+    # Only the long rows at the target layer count and environment are ranked (their survival
+    # columns come from the shard job); the whole long table is joined by rule join_tables.
     import pyarrow.compute as pc
 
-    from flakelight import assemble
-
-    lookup = (pa.array(wide["entry_id"].astype(str).tolist(), pa.large_string()),
-              pa.array(wide["lattice_angstrom"].to_numpy(dtype=float)))  # as assemble.lattice_lookup
     targets = []
     for path in inputs["long"]:
         part = io.read_arrow(path)
         chosen = pc.and_(pc.equal(part.column("layers"), target_layers),
                          pc.equal(part.column("environment"), environment))
-        part = assemble.with_survival(part.filter(chosen), lookup, settings)
-        targets.append(part.to_pandas())
+        targets.append(part.filter(chosen).to_pandas())
     target = pd.concat(targets, ignore_index=True) if targets else pd.DataFrame()
     ranked = ranking.rank(target, wide, settings, probabilities)
     ranked["config_hash"] = config_hash

@@ -206,6 +206,10 @@ def is_wannier(radius_angstrom, lattice_constant_angstrom, threshold=2.0):
         return r > threshold * a
 
 
+#: Names of the columns :func:`survival_columns` returns, in order.
+SURVIVAL_COLUMNS = ("temperature_k", "binding_over_kt", "survives_kt", "bound_fraction", "wannier_ok")
+
+
 def survival_columns(binding_ev, mu_inplane_me, radius_angstrom, lattice_angstrom,
                      settings: Mapping) -> dict[str, np.ndarray]:
     """The temperature-dependent columns of the long table, as numpy arrays.

@@ -38,11 +38,10 @@ rule rank_candidates:
 rule join_tables:
     input:
         long=shard_outputs("exciton_long"),
-        wide=shard_outputs("exciton_wide"),
         entries=shard_outputs("entries"),
         valleys=shard_outputs("valleys"),
         settings=join_settings,
-        code=code_files("join_tables", "survival", "assemble"),
+        code=code_files("join_tables", "assemble"),
     output:
         long="results/tables/screen_long.parquet",
         entries="results/tables/entries.parquet",
@@ -54,7 +53,7 @@ rule join_tables:
     shell:
         adapter(
             "join_tables",
-            inputs=("long", "wide", "entries", "valleys", "settings"),
+            inputs=("long", "entries", "valleys", "settings"),
             outputs=("long", "entries", "valleys"),
         )
 

@@ -165,7 +165,7 @@ def rank_settings(wildcards):
 
 def join_settings(wildcards):
     """Settings of the join_tables job."""
-    return snapshot("join", {"settings": {"survival": config["survival"]}, "config_hash": config_hash()})
+    return snapshot("join", {"config_hash": config_hash()})
 
 
 def manifest_settings(wildcards):
