@@ -208,11 +208,26 @@ def run_shard_job(entry_paths: Sequence[str], campaign: str, physics: Mapping, p
     return counts
 
 
-def build_keldysh_table(path: str) -> None:
-    """Compute the Rytova-Keldysh table with the accurate solver and save it."""
+def build_keldysh_table(path: str, workers: int = 1) -> None:
+    """Compute the Rytova-Keldysh table with the accurate solver and save it.
+
+    With ``workers > 1`` the grid is split into that many parts solved in forked
+    processes; the table is the same, point for point.
+    """
+    import numpy as np
+
     from flakelight import keldysh
 
-    table = keldysh.build_table()
+    grid = keldysh.default_s_grid()
+    if workers > 1:
+        import multiprocessing
+
+        with multiprocessing.get_context("fork").Pool(workers) as pool:
+            parts = pool.map(keldysh.tabulate, np.array_split(grid, workers))
+        table = keldysh.table_from_levels(grid, np.concatenate([p[0] for p in parts], axis=1),
+                                          np.concatenate([p[1] for p in parts], axis=1))
+    else:
+        table = keldysh.build_table(grid)
     io.save_arrays(table.to_arrays(), path)
     log.info("Keldysh table written: %d grid points", len(table.to_arrays()["s"]) if "s" in table.to_arrays() else -1)
 
