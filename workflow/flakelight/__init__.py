@@ -22,3 +22,6 @@ PROPAGATION_MODULES = (
     "__init__", "units", "io", "tables", "ingest", "dielectric", "hydrogenic", "keldysh", "layers",
     "masses", "model", "survival", "ranking", "screen", "shard_cache", "uncertainty", "pipeline",
 )
+
+#: Library modules the per-shard attribution (rule attribute_shard) depends on (its cache key).
+REFINEMENT_MODULES = PROPAGATION_MODULES + ("attribution", "refinement")

@@ -87,7 +87,7 @@ _ENTRY = [
 ]
 
 _VALLEY = [
-    ("valley_index", "int64", "1", "position of the valley in the record's valley list"),
+    ("valley_index", "int64", "1", "position of the valley in the record's valley list (-1: not a valley's row)"),
     ("label", S, NO_UNIT, "Brillouin-zone label of the valley, as given"),
     ("band", S, NO_UNIT, "'valence' or 'conduction'"),
     ("inv_mass_xx", F, "1/m_e", "in-plane inverse-mass tensor, xx component (carrier sign)"),
@@ -232,9 +232,33 @@ _CHANGES = [
     ("new_input_hash", S, NO_UNIT, "input hash in this run"),
 ]
 
+_REFINEMENT = [
+    ("output", S, NO_UNIT, "attributed output: meets_all, pass_direct, pass_margin, pass_binding, "
+                           "pass_window (0/1 verdicts), target_binding_ev, target_optical_gap_ev"),
+    ("input_group", S, NO_UNIT, "input group: kind, and valley label and band for per-valley groups"),
+    ("input_kind", S, NO_UNIT, "mass, dielectric, screening_length, band_edges or scissor"),
+    ("mean", F, "output unit", "mean of the output over the base samples (for a verdict: its probability)"),
+    ("variance", F, "output unit squared", "variance of the output over the base samples"),
+    ("share_first", F, "1", "first-order Sobol index (Saltelli 2010): expected fraction of the variance "
+                            "removed if this input were known exactly"),
+    ("share_first_se", F, "1", "standard error of share_first"),
+    ("share_total", F, "1", "total Sobol index (Jansen 1999): fraction of the variance this input takes "
+                            "part in, interactions included"),
+    ("share_total_se", F, "1", "standard error of share_total"),
+    ("share_halved", F, "1", "expected fraction of the variance removed if this input's standard uncertainty "
+                             "were halved (NaN when not computed)"),
+    ("share_halved_se", F, "1", "standard error of share_halved"),
+    ("n_base", "int32", "1", "base samples N of the pick-freeze design"),
+    ("recompute", S, NO_UNIT, "what a recomputation of this input would be"),
+    ("expected_effect", F, "1", "expected drop of the verdict's variance p(1-p) if this input's uncertainty "
+                                "were halved (or removed, per refinement.effect)"),
+    ("mostly_through", S, NO_UNIT, "the criterion whose outcome this input moves most"),
+    ("advice", S, NO_UNIT, "the recommendation in plain words"),
+]
+
 #: Every column with a fixed name.
 COLUMNS: dict[str, Column] = _declare(_STAMPS + _ENTRY + _VALLEY + _REJECT + _LONG + _WIDE + _UNCERTAINTY
-                                      + _CHANGES)
+                                      + _CHANGES + _REFINEMENT)
 
 #: Percentiles and quantities of the Monte Carlo summary columns ``<quantity>_p<NN>``.
 PERCENTILES = (16, 50, 84)
@@ -324,6 +348,15 @@ TABLES: dict[str, tuple[str, list[str]]] = {
          *[c[0] for c in _WIDE[30:-1]],
          *[f"{q}_p{p}" for q in MC_QUANTITIES for p in PERCENTILES], *[c[0] for c in _UNCERTAINTY],
          "rank", "physics_hash", "code_version", "config_hash"]),
+    "results/tables/attribution.parquet": (
+        "one row per borderline compound, attributed output and input group (variance-based attribution)",
+        ["entry_id", "input_hash", "physics_hash", "output", "input_group", "input_kind", "valley_index",
+         "p_meets_all", "mean", "variance", "share_first", "share_first_se", "share_total", "share_total_se",
+         "share_halved", "share_halved_se", "n_base", "seed"]),
+    "results/tables/refinement.parquet": (
+        "the campaign's refinement list: which input to recompute first (also results/refinement.csv)",
+        ["rank", "entry_id", "input_group", "input_kind", "valley_index", "recompute", "p_meets_all",
+         "share_first", "share_total", "share_halved", "expected_effect", "mostly_through", "advice"]),
     "results/tables/changes.parquet": (
         "one row per compound that changed since the previous run",
         ["entry_id", *[c[0] for c in _CHANGES]]),
