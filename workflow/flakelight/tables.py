@@ -83,6 +83,15 @@ _ENTRY = [
     ("r0_rel_unc", F, "1", "relative standard uncertainty of r0 (NaN: config default)"),
     ("scissor_ev", F, "eV", "scissor shift added to every conduction edge"),
     ("scissor_unc_ev", F, "eV", "standard uncertainty of the scissor shift (NaN: config default)"),
+    ("edge_eps_top", F, "1", "dielectric constant above the layer in the surroundings the band edges belong to"),
+    ("edge_eps_bottom", F, "1", "dielectric constant below the layer in the surroundings the band edges belong to"),
+    ("edge_method", S, NO_UNIT, "level of theory (or measurement) of the band edges, as given ('not stated')"),
+    ("gap_t_form", S, NO_UNIT, "temperature form of the gaps: 'varshni', 'bose-einstein' or '' (not given)"),
+    ("gap_t_alpha_ev_per_k", F, "eV/K", "Varshni alpha (NaN if not given)"),
+    ("gap_t_beta_k", F, "K", "Varshni beta (NaN if not given)"),
+    ("gap_t_coupling", F, "1", "Bose-Einstein (O'Donnell-Chen) coupling S (NaN if not given)"),
+    ("gap_t_phonon_ev", F, "eV", "Bose-Einstein (O'Donnell-Chen) mean phonon energy (NaN if not given)"),
+    ("gap_t_reference_k", F, "K", "temperature the band edges belong to (NaN without a temperature form)"),
     ("warnings", S, NO_UNIT, "warnings raised while reading the record, joined by ' | '"),
 ]
 
@@ -99,6 +108,9 @@ _VALLEY = [
     ("mass_nonparabolic", B, NO_UNIT, "the band samples show a notable quartic term"),
     ("mass_rel_unc", F, "1", "relative standard uncertainty of the masses (NaN: config default)"),
     ("edge_unc_ev", F, "eV", "standard uncertainty of the band edges (NaN: config default)"),
+    ("degeneracy", F, "1", "valley degeneracy: symmetry-equivalent points of the label (default 1)"),
+    ("spin_split_ev", F, "eV", "spin splitting of the valley edge, away from the gap (NaN: spin not given)"),
+    ("edge_spin", "int64", "1", "spin of the edge sub-band along the layer normal: +1 up, -1 down, 0 not given"),
 ]
 
 _REJECT = [
@@ -328,12 +340,14 @@ TABLES: dict[str, tuple[str, list[str]]] = {
          *[f"eps_inf_{c}" for c in _TENSOR], *[f"eps_static_{c}" for c in _TENSOR], "eps_rel_unc",
          "spacing_angstrom", "spacing_source", "lattice_angstrom", "lattice_source", "is_layered_structure",
          "vdw_gap_angstrom", "r0_given_angstrom", "r0_source", "r0_rel_unc", "scissor_ev", "scissor_unc_ev",
-         "warnings", "physics_hash", "code_version", "config_hash"]),
+         "edge_eps_top", "edge_eps_bottom", "edge_method", "gap_t_form", "gap_t_alpha_ev_per_k", "gap_t_beta_k",
+         "gap_t_coupling", "gap_t_phonon_ev", "gap_t_reference_k", "warnings", "physics_hash", "code_version", "config_hash"]),
     "results/tables/valleys.parquet": (
         "one row per valley of a screened compound",
         ["entry_id", "valley_index", "input_hash", "label", "band", "edge_1l_ev", "edge_bulk_ev",
          "inv_mass_xx", "inv_mass_xy", "inv_mass_yy", "mass_perp_me", "mass_source", "mass_fit_rms_ev",
-         "mass_nonparabolic", "mass_rel_unc", "edge_unc_ev", "physics_hash", "code_version", "config_hash"]),
+         "mass_nonparabolic", "mass_rel_unc", "edge_unc_ev", "degeneracy", "spin_split_ev", "edge_spin",
+         "physics_hash", "code_version", "config_hash"]),
     "results/tables/rejects.parquet": (
         "one row per problem of a rejected record (also rejects.csv)",
         ["entry_id", "source_file", "field", "reason", "stage", "input_hash", "physics_hash", "code_version"]),
