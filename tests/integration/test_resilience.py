@@ -291,7 +291,7 @@ def test_kill_during_cache_update_never_drops_rows(tmp_path, campaign, reference
     between the copies leaves, since entries is copied first) and re-run the shard.
     """
     config = yaml.safe_load((reference[0] / "config.yaml").read_text())
-    settings = {k: config[k] for k in ("layers", "structure", "environments", "monolayer", "emission_bands")}
+    settings = {k: config[k] for k in ("layers", "structure", "environments", "monolayer", "excitons", "emission_bands")}
     table = str(reference[0] / "results" / "cache" / "keldysh_table.npz")
     camp = tmp_path / "campaign"
     shutil.copytree(campaign, camp)

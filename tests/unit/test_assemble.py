@@ -22,7 +22,9 @@ def shard_tables(ids, lattice, seed):
     long = pd.DataFrame([{"entry_id": e, "layers": n, "environment": env,
                           "binding_ev": float(rng.uniform(0.01, 0.6)),
                           "mu_inplane_me": float(rng.uniform(0.1, 0.5)),
-                          "radius_angstrom": float(rng.uniform(3.0, 40.0))}
+                          "radius_angstrom": float(rng.uniform(3.0, 40.0)),
+                          "bright_exciton_ev": 1.5, "dark_exciton_ev": float(rng.uniform(1.4, 1.6)),
+                          "bright_weight": 2.0, "dark_weight": 6.0}
                          for e in ids for n in (0, 1, 2) for env in ("suspended", "encapsulated")])
     long.loc[1, "binding_ev"] = np.nan  # an unbound or missing row stays NaN, never a crash
     wide = pd.DataFrame({"entry_id": ids, "lattice_angstrom": lattice})

@@ -15,6 +15,7 @@ SETTINGS = {
     "structure": {"non_layered": "warn", "reconcile_rel_tol": 0.05},
     "environments": {"suspended": {"top": 1.0, "bottom": 1.0}},
     "monolayer": {"hydrogenic_eps": 0.0, "few_layer_r0_scaling": True},
+    "excitons": {"max_binding_fraction": 0.5, "model_rel_unc_layers": 0.1, "model_rel_unc_bulk": 0.2},
     "emission_bands": [{"name": "visible", "min_nm": 380, "max_nm": 750}],
 }
 
@@ -180,7 +181,7 @@ UNC_SETTINGS = {
     "ranking": {"environment": "suspended", "target_layers": 1, "require_direct": True, "min_direct_margin_ev": 0.0,
                 "min_binding_over_kt": 1.0, "window_nm": [400, 1600],
                 "weights": {"binding": 0.4, "margin": 0.3, "window": 0.3}, "shortlist_size": 5, "order_by": "score"},
-    "layers": SETTINGS["layers"], "monolayer": SETTINGS["monolayer"], "environments": SETTINGS["environments"],
+    "layers": SETTINGS["layers"], "monolayer": SETTINGS["monolayer"], "excitons": SETTINGS["excitons"], "environments": SETTINGS["environments"],
 }
 
 

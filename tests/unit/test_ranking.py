@@ -24,7 +24,12 @@ def tables(rows):
     long = pd.DataFrame([{
         "entry_id": r[0], "layers": 1, "environment": "hbn", "gap_character": r[1], "binding_ev": r[2],
         "direct_margin_ev": r[3], "emission_nm": r[4], "optical_gap_ev": sc.h * sc.c / sc.e / (r[4] * 1e-9),
-        "emission_band": "x", "mu_inplane_me": 0.25, "radius_angstrom": 15.0} for r in rows])
+        "emission_band": "x", "mu_inplane_me": 0.25, "radius_angstrom": 15.0,
+        "brightness": {"direct": "bright", "indirect": "dark"}.get(r[1], r[1]), "exciton_margin_ev": r[3],
+        "bright_exciton_ev": sc.h * sc.c / sc.e / (r[4] * 1e-9),
+        "dark_exciton_ev": sc.h * sc.c / sc.e / (r[4] * 1e-9) + r[3], "bright_weight": 2.0, "dark_weight": 2.0,
+        "bright_pair": "K->K", "dark_pair": "K->Q", "binding_beyond_validity": False, "spin_given": False}
+        for r in rows])
     wide = pd.DataFrame({"entry_id": [r[0] for r in rows], "formula": "F", "lattice_angstrom": 3.2,
                          "thinning_verdict": "v"})
     return ranking.add_survival(long, wide, SETTINGS), wide
@@ -91,3 +96,26 @@ def test_shortlist_has_plain_headers_with_units():
     assert "Emission wavelength (nm)" in short.columns and "Binding energy (meV)" in short.columns
     assert (short["Status"] == "model estimate, not a measurement").all()
     np.testing.assert_allclose(short["Binding energy (meV)"], [300.0, 300.0])
+
+
+def test_unknown_brightness_never_passes_and_scores_no_margin():
+    # a record without a dark competitor: verdict 'unknown', margin NaN (not +inf)
+    long, wide = tables([("u", "unknown", 0.2, np.nan, 750.0)])
+    r = ranking.rank(long, wide, SETTINGS).iloc[0]
+    assert not r["pass_direct"] and not r["pass_margin"] and not r["meets_all_criteria"]
+    assert r["score_margin"] == 0.0
+    assert np.isnan(r["target_bright_fraction"])
+
+
+def test_bright_fraction_column_and_criterion():
+    # dark 30 meV above bright, equal weights, 300 K: f = 1 / (1 + exp(-0.030 / kT)) (by hand)
+    long, wide = tables([("a", "direct", 0.2, 0.030, 750.0)])
+    kt = sc.k * 300.0 / sc.e
+    want = 1.0 / (1.0 + np.exp(-0.030 / kt))
+    assert long["bright_fraction"].iloc[0] == pytest.approx(want, rel=1e-9)
+    strict = {**SETTINGS, "ranking": {**SETTINGS["ranking"], "min_direct_margin_ev": 0.0,
+                                      "min_bright_fraction": 0.8}}
+    r = ranking.rank(long, wide, strict).iloc[0]
+    assert want < 0.8 and not r["pass_bright_fraction"] and not r["meets_all_criteria"]
+    loose = {**SETTINGS, "ranking": {**strict["ranking"], "min_bright_fraction": 0.7}}
+    assert ranking.rank(long, wide, loose).iloc[0]["meets_all_criteria"]

@@ -25,6 +25,7 @@ SETTINGS = {
     "structure": {"non_layered": "warn", "reconcile_rel_tol": 0.05},
     "environments": {"suspended": {"top": 1.0, "bottom": 1.0}, "hbn": {"top": 4.5, "bottom": 4.5}},
     "monolayer": {"hydrogenic_eps": 0.0, "few_layer_r0_scaling": True},
+    "excitons": {"max_binding_fraction": 0.5, "model_rel_unc_layers": 0.1, "model_rel_unc_bulk": 0.2},
     "emission_bands": [{"name": "visible", "min_nm": 380, "max_nm": 750},
                        {"name": "near-infrared", "min_nm": 750, "max_nm": 1260}],
 }

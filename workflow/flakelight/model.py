@@ -49,15 +49,21 @@ from typing import NamedTuple
 
 import numpy as np
 
-from flakelight import hydrogenic, keldysh, layers as layer_model, masses
+from flakelight import excitons, hydrogenic, keldysh, layers as layer_model, masses
 
 BULK = layer_model.BULK
+
+#: Exciton-level quantities (:func:`_exciton_level`), in ``stack`` and ``bulk`` alike.
+EXCITON_QUANTITIES = ("bright_exciton_ev", "dark_exciton_ev", "exciton_margin_ev", "brightness",
+                      "bright_pair_index", "dark_pair_index", "bright_weight", "dark_weight")
+#: Requests that need the exciton level (the optical gap is the lowest bright exciton).
+_EXCITON_TRIGGERS = frozenset(EXCITON_QUANTITIES) | {"optical_gap_ev", "emission_nm"}
 
 #: Per (compound, few-layer count, surroundings) quantities :func:`evaluate` can return.
 STACK_QUANTITIES = frozenset({
     "r0_angstrom", "kappa", "binding_ev", "binding_2s_ev", "binding_3s_ev", "radius_angstrom",
     "binding_2d_hydrogenic_ev", "binding_olsen_ev", "binding_fractional_ev", "dark_binding_ev",
-    "optical_gap_ev", "emission_nm",
+    "optical_gap_ev", "emission_nm", *EXCITON_QUANTITIES,
 })
 #: Per compound bulk quantities :func:`evaluate` can return (long-table names for the bulk
 #: row, wide-table names for the bulk model columns).
@@ -65,6 +71,7 @@ BULK_QUANTITIES = frozenset({
     "binding_ev", "binding_model", "binding_2s_ev", "binding_3s_ev", "radius_angstrom",
     "dark_binding_ev", "optical_gap_ev", "emission_nm",
     "bulk_binding_ev", "bulk_binding_aniso_ev", "quasi2d_binding_ev", "quasi2d_radius_angstrom",
+    *EXCITON_QUANTITIES,
 })
 
 #: Bulk quantities that need the anisotropic 3D binding (and so the out-of-plane masses).
@@ -102,6 +109,13 @@ class ModelInputs:
         Given monolayer screening length (NaN: estimated from eps_parallel and spacing).
     r0_factor : (n,) or float
         Factor on the monolayer screening length (1 for the point estimate).
+    degeneracy : (V,) or None
+        Valley degeneracy (symmetry-equivalent points of the label; None: 1).
+    spin_split_ev, edge_spin : (V,) or None
+        Spin sub-bands (:func:`flakelight.excitons.spin_subbands`; None: not given).
+    binding_factor_layers, binding_factor_bulk : (n,) or float
+        Factor on every Rytova-Keldysh (layers) or bulk 3D binding: the binding
+        model's own error, sampled by the Monte Carlo (1 for the point estimate).
     kappa : (E,)
         Mean dielectric constant of each surroundings, (top + bottom)/2.
     """
@@ -121,6 +135,11 @@ class ModelInputs:
     r0_given_angstrom: np.ndarray
     kappa: np.ndarray
     r0_factor: np.ndarray | float = 1.0
+    degeneracy: np.ndarray | None = None
+    spin_split_ev: np.ndarray | None = None
+    edge_spin: np.ndarray | None = None
+    binding_factor_layers: np.ndarray | float = 1.0
+    binding_factor_bulk: np.ndarray | float = 1.0
 
     @property
     def n_compounds(self) -> int:
@@ -181,6 +200,7 @@ class ModelResult:
     r0_monolayer_angstrom: np.ndarray
     stack: dict[str, np.ndarray] = field(default_factory=dict)
     bulk: dict[str, np.ndarray] = field(default_factory=dict)
+    valley_pairs: excitons.Pairs | None = None
 
 
 #: Exciton pairs: name -> (valence label, conduction label) fields of the gap character.
@@ -296,7 +316,72 @@ def evaluate(inputs: ModelInputs, settings: ModelSettings, table: keldysh.Keldys
     result = ModelResult(gap, pairs, r0_1)
     result.bulk = _bulk(inputs, settings, gap, pairs)
     result.stack = _stack(inputs, settings, table, gap, pairs, r0_1, result.bulk)
+    if (settings.stack | settings.bulk) & _EXCITON_TRIGGERS:
+        result.valley_pairs = _exciton_level(inputs, settings, table, r0_1, result)
     return result
+
+
+def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, result: ModelResult):
+    """The exciton of every valence x conduction valley pair; lowest bright and dark ones.
+
+    Each pair (:func:`flakelight.excitons.valley_pairs`, spin sub-bands
+    included) binds with its own reduced mass: Rytova-Keldysh for layers, the
+    bulk model for bulk (anisotropic 3D where both out-of-plane masses are
+    given, else 3D hydrogenic with sqrt(eps_par eps_perp)). The lowest bright
+    exciton becomes ``optical_gap_ev`` (and the emission); the stack and bulk
+    dicts gain :data:`EXCITON_QUANTITIES`.
+    """
+    n = inputs.n_compounds
+    pr = excitons.valley_pairs(inputs.owner, inputs.label_code, inputs.is_conduction,
+                               inputs.spin_split_ev, inputs.edge_spin)
+    c = pr.compound
+    gaps = excitons.pair_gaps_ev(pr, inputs.edges_ev, inputs.scissor_ev)          # (P, L)
+    w = excitons.pair_inverse_mass(pr, inputs.inv_mass)
+    good = np.all(np.isfinite(w), axis=(1, 2))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mu = np.where(good, masses.inplane_average_mass_me(w), np.nan)
+    total = excitons.pair_total_mass_me(pr, inputs.inv_mass)
+    deg = excitons.pair_degeneracy(pr, np.ones(len(inputs.owner)) if inputs.degeneracy is None
+                                   else inputs.degeneracy)
+    f_lay = np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (n,))
+    f_bulk = np.broadcast_to(np.asarray(inputs.binding_factor_bulk, dtype=float), (n,))
+
+    def fill(out: dict, energy, dimension):
+        lev = excitons.lowest_excitons(c, energy, pr.bright, n)
+        weight = excitons.state_weight(deg, total, dimension)
+        for key, idx in (("bright", lev.bright_pair), ("dark", lev.dark_pair)):
+            out[f"{key}_weight"] = np.where(idx >= 0, weight[np.maximum(idx, 0)] if len(weight) else np.nan, np.nan)
+            out[f"{key}_pair_index"] = idx
+        out["bright_exciton_ev"], out["dark_exciton_ev"] = lev.bright_ev, lev.dark_ev
+        out["exciton_margin_ev"], out["brightness"] = lev.margin_ev, lev.verdict
+        if "optical_gap_ev" in out:
+            out["optical_gap_ev"] = lev.bright_ev
+        if "emission_nm" in out:
+            out["emission_nm"] = layer_model.emission_wavelength_nm(lev.bright_ev)
+
+    kappa = np.asarray(inputs.kappa, dtype=float)
+    lay = np.asarray(inputs.layers)
+    nl = lay[:-1].astype(float)
+    scale = nl if settings.few_layer_r0_scaling else np.ones_like(nl)
+    shape = (len(c), nl.size, kappa.size)
+    r0 = np.broadcast_to(r0_1[c][:, None, None] * scale[None, :, None], shape)
+    eb = keldysh.keldysh_binding_ev(np.broadcast_to(mu[:, None, None], shape), r0,
+                                    np.broadcast_to(kappa[None, None, :], shape), table, state="1s") \
+        * f_lay[c][:, None, None]
+    if settings.stack & _EXCITON_TRIGGERS:
+        fill(result.stack, gaps[:, :-1, None] - eb, 2)
+    if settings.bulk & _EXCITON_TRIGGERS:
+        eps_bulk = np.asarray(inputs.eps_bulk, dtype=float)[c]
+        eb_b = hydrogenic.binding_3d_ev(mu, eps_bulk)
+        perp = np.asarray(inputs.mass_perp_me, dtype=float)
+        mperp = masses.reduced_mass_perpendicular(perp[pr.conduction], perp[pr.valence])
+        has = np.isfinite(mperp) & np.isfinite(mu)
+        if has.any():
+            eb_b[has] = hydrogenic.binding_3d_anisotropic(
+                mu[has], mperp[has], np.asarray(inputs.eps_parallel, dtype=float)[c][has],
+                np.asarray(inputs.eps_perpendicular, dtype=float)[c][has]).binding_ev
+        fill(result.bulk, gaps[:, -1] - eb_b * f_bulk[c], 3)
+    return pr
 
 
 def _bulk(inputs: ModelInputs, settings: ModelSettings, gap, pairs) -> dict[str, np.ndarray]:
@@ -317,7 +402,7 @@ def _bulk(inputs: ModelInputs, settings: ModelSettings, gap, pairs) -> dict[str,
                 mu[has], mperp[has], np.asarray(inputs.eps_parallel, dtype=float)[has],
                 np.asarray(inputs.eps_perpendicular, dtype=float)[has]).binding_ev
         out["bulk_binding_aniso_ev"] = aniso
-        out["binding_ev"] = np.where(np.isfinite(aniso), aniso, out["bulk_binding_ev"])
+        out["binding_ev"] = np.where(np.isfinite(aniso), aniso, out["bulk_binding_ev"]) * inputs.binding_factor_bulk
         out["binding_model"] = np.where(np.isfinite(aniso), "3d-anisotropic", "3d-hydrogenic")
     if want("binding_2s_ev"):
         out["binding_2s_ev"] = hydrogenic.binding_3d_ev(mu, eps_bulk, n=2)
@@ -357,7 +442,8 @@ def _stack(inputs: ModelInputs, settings: ModelSettings, table, gap, pairs, r0_1
     if want("kappa"):
         out["kappa"] = kap
     if want("binding_ev") or want("optical_gap_ev") or want("emission_nm"):
-        out["binding_ev"] = keldysh.keldysh_binding_ev(mu, r0, kap, table, state="1s")
+        out["binding_ev"] = keldysh.keldysh_binding_ev(mu, r0, kap, table, state="1s") \
+            * np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (inputs.n_compounds,))[:, None, None]
     for state in ("2s", "3s"):
         if want(f"binding_{state}_ev"):
             out[f"binding_{state}_ev"] = keldysh.keldysh_binding_ev(mu, r0, kap, table, state=state)

@@ -10,8 +10,10 @@ evaluated at the target layer count in the ranking environment:
 
 * binding: ``clip((E_b/kT) / (2 x min_binding_over_kt), 0, 1)`` -- full marks
   at twice the required binding;
-* margin: ``clip(margin / MARGIN_FULL_EV, 0, 1)`` with the direct-indirect
-  margin in eV (full marks at 0.2 eV; no indirect pair counts as full);
+* margin: ``clip(margin / MARGIN_FULL_EV, 0, 1)`` with the exciton-level
+  margin (lowest dark minus lowest bright exciton energy) in eV (full marks at
+  0.2 eV; a compound without a dark competitor scores 0: missing data never
+  count as brightness);
 * window: inside the target window ``1 - |lambda - centre| / width`` (1 at the
   centre, 0.5 at the edges), 0 outside.
 
@@ -26,7 +28,7 @@ from typing import Mapping
 import numpy as np
 import pandas as pd
 
-from flakelight import survival
+from flakelight import excitons, survival
 
 #: Direct-indirect margin (eV) that earns the full margin component.
 MARGIN_FULL_EV = 0.2
@@ -39,28 +41,35 @@ def add_survival(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping) -> p
     cached rows alike); columns of an earlier temperature are replaced.
     """
     lattice = long["entry_id"].map(wide.set_index("entry_id")["lattice_angstrom"]).to_numpy(dtype=float)
-    out = long.drop(columns=[c for c in survival.SURVIVAL_COLUMNS if c in long.columns])
+    out = long.drop(columns=[c for c in survival.SURVIVAL_COLUMNS + ("bright_fraction",) if c in long.columns])
     for name, values in survival.survival_columns(long["binding_ev"], long["mu_inplane_me"], long["radius_angstrom"],
                                          lattice, settings).items():
         out[name] = values
+    out["bright_fraction"] = excitons.thermal_bright_fraction(
+        long["bright_exciton_ev"].to_numpy(dtype=float), long["dark_exciton_ev"].to_numpy(dtype=float),
+        long["bright_weight"].to_numpy(dtype=float), long["dark_weight"].to_numpy(dtype=float),
+        float(settings["survival"]["temperature_k"]))
     return out
 
 
-def criteria(is_direct, complete, direct_margin_ev, binding_over_kt, emission_nm,
+def criteria(brightness, exciton_margin_ev, binding_over_kt, emission_nm, bright_fraction,
              ranking: Mapping) -> dict[str, np.ndarray]:
     """The four ranking criteria, vectorized: the one definition used by :func:`rank` and the Monte Carlo.
 
     Parameters
     ----------
-    is_direct, complete : array_like of bool
-        Direct character and "both band edges present" at the target layer
-        count (:class:`flakelight.layers.GapCharacter` fields).
-    direct_margin_ev : array_like
-        Indirect minus direct gap, eV (NaN fails).
+    brightness : array_like of str
+        Exciton-level verdict at the target layer count: "bright", "dark" or
+        "unknown" (:func:`flakelight.excitons.brightness_verdict`); only
+        "bright" passes when ``require_direct``; "unknown" never passes.
+    exciton_margin_ev : array_like
+        Lowest dark minus lowest bright exciton energy, eV (NaN fails).
     binding_over_kt : array_like
         E_b / kT (NaN fails).
     emission_nm : array_like
         Emission wavelength, nm (NaN fails).
+    bright_fraction : array_like
+        Thermal bright fraction (NaN fails when ``min_bright_fraction`` > 0).
     ranking : mapping
         The ``ranking`` config section (require_direct, min_direct_margin_ev,
         min_binding_over_kt, window_nm).
@@ -75,19 +84,23 @@ def criteria(is_direct, complete, direct_margin_ev, binding_over_kt, emission_nm
     ----------
     Common practice (thresholds are the configured criteria).
     """
-    comp = np.asarray(complete, dtype=bool)
-    direct = np.asarray(is_direct, dtype=bool) & comp
+    verdict = np.asarray(brightness, dtype=object)
+    known = np.isin(verdict, ["bright", "dark"])
     lo, hi = sorted(float(x) for x in ranking["window_nm"])
-    margin = np.nan_to_num(np.asarray(direct_margin_ev, dtype=float), nan=-np.inf)
+    margin = np.nan_to_num(np.asarray(exciton_margin_ev, dtype=float), nan=-np.inf)
     e_kt = np.nan_to_num(np.asarray(binding_over_kt, dtype=float), nan=-np.inf)
     lam = np.asarray(emission_nm, dtype=float)
+    need = float(ranking.get("min_bright_fraction", 0.0))
+    frac = np.nan_to_num(np.asarray(bright_fraction, dtype=float), nan=-np.inf)
     out = {
-        "pass_direct": direct if ranking["require_direct"] else comp,
+        "pass_direct": (verdict == "bright") if ranking["require_direct"] else known,
         "pass_margin": margin >= float(ranking["min_direct_margin_ev"]),
         "pass_binding": e_kt >= float(ranking["min_binding_over_kt"]),
         "pass_window": (lam >= lo) & (lam <= hi),
+        "pass_bright_fraction": frac >= need if need > 0 else np.ones(verdict.shape, dtype=bool),
     }
-    out["meets_all"] = out["pass_direct"] & out["pass_margin"] & out["pass_binding"] & out["pass_window"]
+    out["meets_all"] = (out["pass_direct"] & out["pass_margin"] & out["pass_binding"] & out["pass_window"]
+                        & out["pass_bright_fraction"])
     return out
 
 
@@ -111,22 +124,23 @@ def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
     out["rank_environment"] = env
     out["rank_layers"] = target
     for name in ("gap_character", "optical_gap_ev", "emission_nm", "emission_band", "binding_ev",
-                 "binding_over_kt", "direct_margin_ev", "bound_fraction", "wannier_ok", "radius_angstrom"):
+                 "binding_over_kt", "direct_margin_ev", "bound_fraction", "wannier_ok", "radius_angstrom",
+                 "brightness", "bright_exciton_ev", "dark_exciton_ev", "exciton_margin_ev", "bright_pair",
+                 "dark_pair", "bright_fraction", "binding_beyond_validity", "spin_given"):
         out[f"target_{name}"] = at[name].set_axis(out.index)
     e_kt = col("binding_over_kt")
-    margin = col("direct_margin_ev")
+    margin = col("exciton_margin_ev")
     lam = col("emission_nm")
     lo, hi = sorted(float(x) for x in r["window_nm"])
-    character = at["gap_character"].to_numpy(dtype=object)
-    passed = criteria(character == "direct", np.isin(character, ["direct", "indirect"]), margin, e_kt, lam, r)
-    for key in ("pass_direct", "pass_margin", "pass_binding", "pass_window"):
+    passed = criteria(at["brightness"].to_numpy(dtype=object), margin, e_kt, lam, col("bright_fraction"), r)
+    for key in ("pass_direct", "pass_margin", "pass_binding", "pass_window", "pass_bright_fraction"):
         out[key] = passed[key]
     out["meets_all_criteria"] = passed["meets_all"]
 
     with np.errstate(invalid="ignore", divide="ignore"):
         need = max(float(r["min_binding_over_kt"]), 1e-9)
         s_bind = np.clip(np.nan_to_num(e_kt / (2.0 * need), nan=0.0), 0.0, 1.0)
-        s_margin = np.clip(np.nan_to_num(margin / MARGIN_FULL_EV, nan=0.0, posinf=1.0, neginf=0.0), 0.0, 1.0)
+        s_margin = np.clip(np.nan_to_num(margin / MARGIN_FULL_EV, nan=0.0, posinf=0.0, neginf=0.0), 0.0, 1.0)
         centre, width = 0.5 * (lo + hi), max(hi - lo, 1e-9)
         s_window = np.where((lam >= lo) & (lam <= hi), 1.0 - np.abs(lam - centre) / width, 0.0)
     w = r["weights"]
@@ -165,7 +179,11 @@ def shortlist(ranked: pd.DataFrame, settings: Mapping) -> pd.DataFrame:
         "Spectral band": top["target_emission_band"].to_numpy(),
         "Binding energy (meV)": (1000 * top["target_binding_ev"]).round(1).to_numpy(),
         f"Binding / kT at {settings['survival']['temperature_k']:g} K": top["target_binding_over_kt"].round(2).to_numpy(),
-        "Direct-indirect margin (meV)": (1000 * top["target_direct_margin_ev"]).round(1).to_numpy(),
+        "Lowest exciton": top["target_brightness"].to_numpy(),
+        "Dark - bright exciton (meV)": (1000 * top["target_exciton_margin_ev"]).round(1).to_numpy(),
+        f"Bright fraction at {settings['survival']['temperature_k']:g} K":
+            top["target_bright_fraction"].round(2).to_numpy(),
+        "Direct-indirect band-gap margin (meV)": (1000 * top["target_direct_margin_ev"]).round(1).to_numpy(),
         "Score (0-1)": top["score"].round(3).to_numpy(),
     })
     if "p_meets_all" in top.columns:

@@ -27,7 +27,7 @@ from typing import Mapping
 import numpy as np
 import pandas as pd
 
-from flakelight import dielectric, keldysh, layers as layer_model, model, survival
+from flakelight import dielectric, excitons, keldysh, layers as layer_model, model, survival
 from flakelight.ingest import TENSOR_COMPONENTS, edge_column
 
 BULK = layer_model.BULK
@@ -77,6 +77,31 @@ def inverse_mass(valleys: pd.DataFrame) -> np.ndarray:
     return w
 
 
+_SPIN_WORD = {1: "up", -1: "down", 0: ""}
+
+
+def exciton_inputs(valleys: pd.DataFrame) -> dict[str, np.ndarray]:
+    """Valley degeneracy and spin sub-bands of a sorted valley frame, as model inputs."""
+    return {"degeneracy": valleys["degeneracy"].fillna(1.0).to_numpy(dtype=float),
+            "spin_split_ev": valleys["spin_split_ev"].to_numpy(dtype=float),
+            "edge_spin": valleys["edge_spin"].fillna(0).to_numpy(dtype=np.int64)}
+
+
+def pair_labels(pairs: excitons.Pairs, valleys: pd.DataFrame) -> np.ndarray:
+    """Text of every valley pair, e.g. 'K->Q' or 'K(up)->K(down)', plus '' (last) for no pair."""
+    labels = valleys["label"].astype(str).to_numpy()
+    spin = valleys["edge_spin"].fillna(0).to_numpy(dtype=np.int64)
+
+    def side(valley, offset):
+        s = np.where(offset > 0, -spin[valley], spin[valley])
+        return np.array([lab + (f"({_SPIN_WORD[int(x)]})" if x else "") for lab, x in zip(labels[valley], s)],
+                        dtype=object)
+
+    text = side(pairs.valence, pairs.valence_offset_ev) + "->" + side(pairs.conduction, pairs.conduction_offset_ev) \
+        if len(pairs.compound) else np.zeros(0, dtype=object)
+    return np.append(np.asarray(text, dtype=object), "")
+
+
 def environment_kappa(settings: Mapping) -> np.ndarray:
     """(top + bottom)/2 of every configured surroundings, in config order."""
     return np.array([(e["top"] + e["bottom"]) / 2 for e in settings["environments"].values()], dtype=float)
@@ -112,7 +137,8 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
         scissor_ev=entries["scissor_ev"].to_numpy(dtype=float), eps_parallel=eps_par, eps_perpendicular=eps_perp,
         eps_bulk=eps_bulk, spacing_angstrom=spacing,
         r0_given_angstrom=entries["r0_given_angstrom"].to_numpy(dtype=float),
-        kappa=environment_kappa(settings)), model.ModelSettings.from_config(settings), table)
+        kappa=environment_kappa(settings), **exciton_inputs(valleys)),
+        model.ModelSettings.from_config(settings), table)
     gc, bright, dark = res.gap, res.pairs["bright"], res.pairs["dark"]
     cross = layer_model.layer_crossover(gc.is_direct, lay, known=gc.complete)
     jb = len(lay) - 1
@@ -172,7 +198,19 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
     long["emission_band"] = layer_model.spectral_band(long["emission_nm"].to_numpy(dtype=float), bands) \
         if len(long) else np.zeros(0, dtype=object)
     long["mott_density_per_cm2"] = _mott(long)
-    long["dark_exciton_ev"] = long["fundamental_gap_ev"] - long["dark_binding_ev"]
+    pair_names = pair_labels(res.valley_pairs, valleys)
+    for key in ("bright_exciton_ev", "dark_exciton_ev", "exciton_margin_ev", "brightness", "bright_weight",
+                "dark_weight"):
+        long[key] = np.concatenate([np.asarray(res.stack[key]).reshape(-1), np.asarray(res.bulk[key])])
+    for key in ("bright", "dark"):
+        idx = np.concatenate([res.stack[f"{key}_pair_index"].reshape(-1), res.bulk[f"{key}_pair_index"]])
+        long[f"{key}_pair"] = pair_names[np.where(idx < 0, len(pair_names) - 1, idx)]
+    long["binding_beyond_validity"] = excitons.binding_fraction_exceeds(
+        long["binding_ev"].to_numpy(dtype=float), long["direct_gap_ev"].to_numpy(dtype=float),
+        float(settings["excitons"]["max_binding_fraction"]))
+    spin_given = np.zeros(n, dtype=bool)
+    np.logical_or.at(spin_given, owner, valleys["edge_spin"].fillna(0).to_numpy(dtype=np.int64) != 0)
+    long["spin_given"] = np.concatenate([np.broadcast_to(spin_given[:, None, None], shape).reshape(-1), spin_given])
     order_key = np.where(long["layers"].to_numpy() == BULK, 10_000, long["layers"].to_numpy())
     env_rank = {e: i for i, e in enumerate(env_names + [BULK_ENVIRONMENT])}
     long = long.assign(_l=order_key, _e=long["environment"].map(env_rank).astype(int)) \

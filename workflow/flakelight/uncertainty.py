@@ -102,7 +102,7 @@ import numpy as np
 import pandas as pd
 from scipy import special
 
-from flakelight import dielectric, keldysh, layers as layer_model, model, ranking, screen, survival
+from flakelight import dielectric, excitons, keldysh, layers as layer_model, model, ranking, screen, survival
 
 __all__ = [
     "BLOCK_CELLS",
@@ -223,6 +223,17 @@ def reduced_mass_rel_unc(m_electron_me, m_hole_me, rel_electron, rel_hole):
                     mu / mh * np.asarray(rel_hole, dtype=float))
 
 
+def model_error_seed_sequence(seed: int, entry_id: str) -> np.random.SeedSequence:
+    """Seed sequence of an entry's model-error draws: its own stream, so the input draws stay unchanged.
+
+    ``SeedSequence([seed, sha256(id)[:8], 1])``: two standard normals per
+    sample (Rytova-Keldysh, bulk), drawn in sample chunks that concatenate to
+    the same stream.
+    """
+    digest = hashlib.sha256(str(entry_id).encode("utf-8")).digest()
+    return np.random.SeedSequence([int(seed), int.from_bytes(digest[:8], "big"), 1])
+
+
 def entry_seed_sequence(seed: int, entry_id: str) -> np.random.SeedSequence:
     """Seed sequence of one entry: ``SeedSequence([seed, sha256(id)[:8] as big-endian int])``.
 
@@ -303,10 +314,15 @@ class _Prepared(NamedTuple):
     model_settings: model.ModelSettings
     temperature_k: float
     ranking: Mapping
+    degeneracy: np.ndarray      # (V,)
+    spin_split: np.ndarray      # (V,) eV
+    edge_spin: np.ndarray       # (V,) int
+    sig_model_layers: float     # log-normal width of the Rytova-Keldysh model error
+    sig_model_bulk: float       # log-normal width of the bulk 3D model error
 
 
 #: What the Monte Carlo asks of the exciton model (flakelight.model.evaluate).
-_STACK_WANTED = frozenset({"binding_ev", "optical_gap_ev", "emission_nm"})
+_STACK_WANTED = frozenset({"binding_ev", "optical_gap_ev", "emission_nm", *model.EXCITON_QUANTITIES})
 _BULK_WANTED = frozenset({"bulk_binding_ev"})
 
 
@@ -369,7 +385,10 @@ def _prepare(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping) ->
         layers=np.array([target, layer_model.BULK]), kappa=np.array([kappa], dtype=float),
         model_settings=model.ModelSettings.from_config(settings, stack=_STACK_WANTED, bulk=_BULK_WANTED,
                                                        principal_masses=False),
-        temperature_k=float(settings["survival"]["temperature_k"]), ranking=rk)
+        temperature_k=float(settings["survival"]["temperature_k"]), ranking=rk,
+        **dict(zip(("degeneracy", "spin_split", "edge_spin"), screen.exciton_inputs(vt).values())),
+        sig_model_layers=float(lognormal_sigma(settings["excitons"]["model_rel_unc_layers"])),
+        sig_model_bulk=float(lognormal_sigma(settings["excitons"]["model_rel_unc_bulk"])))
 
 
 def _truncate_below(z, p_lo):
@@ -395,8 +414,13 @@ def _truncate_below(z, p_lo):
 # --------------------------------------------------------------------------- #
 # One block of (entry x sample) cells
 # --------------------------------------------------------------------------- #
-def _evaluate_block(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, table) -> dict[str, np.ndarray]:
-    """Per-sample results for entries a..b-1; z_ent (3, E, S), z_mass/z_edge (V_block, S)."""
+def _evaluate_block(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, table,
+                    z_model=None) -> dict[str, np.ndarray]:
+    """Per-sample results for entries a..b-1; z_ent (3, E, S), z_mass/z_edge (V_block, S).
+
+    ``z_model`` (2, E, S): draws of the Rytova-Keldysh and bulk model errors
+    (None: no model error).
+    """
     n_e = b - a
     n_s = z_ent.shape[2]
     n_c = n_e * n_s
@@ -425,19 +449,28 @@ def _evaluate_block(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, tabl
     f_r0 = np.exp(prep.sig_r0[sl, None] * z_ent[1]).reshape(-1)
     scissor = (prep.scissor[sl, None] + prep.sig_scissor[sl, None] * z_ent[2]).reshape(-1)
     rep = np.repeat(np.arange(a, b), n_s)
+    if z_model is None:
+        f_lay = f_bulk = 1.0
+    else:
+        f_lay = np.exp(prep.sig_model_layers * z_model[0]).reshape(-1)
+        f_bulk = np.exp(prep.sig_model_bulk * z_model[1]).reshape(-1)
     res = model.evaluate(model.ModelInputs(
         layers=prep.layers, owner=owner, label_code=code, is_conduction=cond, edges_ev=edges, inv_mass=inv,
         mass_perp_me=np.full(len(code), np.nan), scissor_ev=scissor, eps_parallel=prep.eps_par[rep] * f_eps,
         eps_perpendicular=prep.eps_perp[rep] * f_eps, eps_bulk=prep.eps_bulk[rep] * f_eps,
         spacing_angstrom=prep.spacing[rep], r0_given_angstrom=prep.r0_given[rep], kappa=prep.kappa,
-        r0_factor=f_r0), prep.model_settings, table)
+        r0_factor=f_r0, degeneracy=prep.degeneracy[gp], spin_split_ev=prep.spin_split[gp],
+        edge_spin=prep.edge_spin[gp], binding_factor_layers=f_lay, binding_factor_bulk=f_bulk),
+        prep.model_settings, table)
     gc = res.gap
     eb = res.stack["binding_ev"][:, 0, 0]
     lam = res.stack["emission_nm"][:, 0, 0]
+    st = {k: np.asarray(res.stack[k])[:, 0, 0] for k in model.EXCITON_QUANTITIES}
     with np.errstate(divide="ignore", invalid="ignore"):
         e_kt = survival.binding_over_kt(eb, prep.temperature_k)
-    crit = ranking.criteria(gc.is_direct[:, 0], gc.complete[:, 0], gc.direct_margin_ev[:, 0], e_kt, lam,
-                            prep.ranking)
+    fraction = excitons.thermal_bright_fraction(st["bright_exciton_ev"], st["dark_exciton_ev"],
+                                                st["bright_weight"], st["dark_weight"], prep.temperature_k)
+    crit = ranking.criteria(st["brightness"], st["exciton_margin_ev"], e_kt, lam, fraction, prep.ranking)
     out = {"target_binding_ev": eb, "target_optical_gap_ev": res.stack["optical_gap_ev"][:, 0, 0],
            "target_emission_nm": lam, "bulk_binding_ev": res.bulk["bulk_binding_ev"],
            "direct_target": gc.is_direct[:, 0] & gc.complete[:, 0], **crit}
@@ -460,6 +493,7 @@ def _iter_entry_samples(prep: _Prepared, table, samples: int, seed: int,
     """Yield (a, b, per-sample arrays (b-a, samples)) for consecutive entry ranges."""
     n = len(prep.ids)
     gens: dict[int, np.random.Generator] = {}
+    model_gens: dict[int, np.random.Generator] = {}
     pending: list[dict[str, np.ndarray]] = []
     for a, b, s0, s1 in _blocks(n, samples, block_cells):
         n_s = s1 - s0
@@ -479,7 +513,14 @@ def _iter_entry_samples(prep: _Prepared, table, samples: int, seed: int,
             pos += ke
             if s1 == samples:
                 del gens[e]
-        res = _evaluate_block(prep, a, b, z_ent, z_mass, z_edge, table)
+        z_model = np.empty((2, b - a, n_s))
+        for i, e in enumerate(range(a, b)):
+            if s0 == 0:
+                model_gens[e] = np.random.default_rng(model_error_seed_sequence(seed, prep.ids[e]))
+            z_model[:, i, :] = model_gens[e].standard_normal((n_s, 2)).T
+            if s1 == samples:
+                del model_gens[e]
+        res = _evaluate_block(prep, a, b, z_ent, z_mass, z_edge, table, z_model)
         if s0 == 0 and s1 == samples:
             yield a, b, res
             continue

@@ -115,7 +115,7 @@ def code_files(adapter_name, *modules):
 
 def physics_settings():
     """The config sections the shard computation depends on (a change re-runs the shards)."""
-    keys = ("layers", "structure", "environments", "monolayer", "emission_bands")
+    keys = ("layers", "structure", "environments", "monolayer", "excitons", "emission_bands")
     return {k: config[k] for k in keys}
 
 
@@ -126,7 +126,8 @@ def ranking_settings():
 
 def uncertainty_settings():
     """Config sections the uncertainty propagation depends on."""
-    return {k: config[k] for k in ("uncertainty", "survival", "ranking", "layers", "monolayer", "environments")}
+    return {k: config[k] for k in ("uncertainty", "survival", "ranking", "layers", "monolayer", "excitons",
+                                   "environments")}
 
 
 def shard_outputs(name):
