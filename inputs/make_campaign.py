@@ -8,10 +8,13 @@ for room-temperature emitters. Valleys follow the pattern common to many
 layered semiconductors: a valence maximum at K and at Gamma ('G'), conduction
 minima at K and at an intermediate point 'Q'; the Gamma and Q edges move
 strongly with layer count, the K edges hardly, so some invented compounds turn
-direct only as monolayers and others stay indirect.
+direct only as monolayers and others stay indirect. Four hand-made showcase
+records (``showcase-*``, also invented) show one brightness case each: a
+momentum-dark exciton below a direct gap, a spin-dark one, band samples in the
+crystal frame and a strongly environment-sensitive compound.
 
 Usage:
-    python inputs/make_campaign.py --out inputs/demo                # demo (72 records, some broken)
+    python inputs/make_campaign.py --out inputs/demo --showcase     # demo (72 + 4 showcase records, some broken)
     python inputs/make_campaign.py --out /tmp/c10k --count 10000 --no-broken --cif-fraction 0
 """
 
@@ -105,6 +108,8 @@ def make_record(rng: np.random.Generator, ident: str, with_cif: bool) -> dict:
             "energy_ev": [_round(e0 + hb * (kx * kx + ky * ky) / m, 7) for kx, ky in ks],
             "extremum_at_origin": True,
         }
+    for valley in valleys:  # no random draw: the stream of the invented numbers stays as it was
+        valley["degeneracy"] = DEGENERACY[valley["label"]]
     record: dict = {
         "record_format": "flakelight-record/1",
         "id": ident,
@@ -155,6 +160,71 @@ def make_cif(rng: np.random.Generator, ident: str, record: dict) -> str:
     return f"# SYNTHETIC structure for {ident}: invented cell, not from any database\n" + text
 
 
+#: Valley degeneracy of the demo's labels on a hexagonal lattice (common practice: K and K', one Gamma, six Q).
+DEGENERACY = {"K": 2, "G": 1, "Q": 6}
+
+
+def _valley(label, band, one, bulk, mass, **extra):
+    block = {"label": label, "band": band, "edge_ev": {"1": one, "bulk": bulk},
+             "mass": {"isotropic_me": mass, "perpendicular_me": _round(3 * mass), "relative_uncertainty": 0.1},
+             "edge_uncertainty_ev": 0.03, "degeneracy": DEGENERACY[label]}
+    block.update(extra)
+    return block
+
+
+def showcase_records() -> dict[str, dict]:
+    """Hand-made invented compounds, one per brightness case the page explains (no random draws)."""
+    base = {"record_format": "flakelight-record/1", "provenance": SYNTHETIC_NOTE + "; hand-made showcase",
+            "energy_reference": "vacuum level", "layer_spacing_angstrom": 6.4, "inplane_lattice_angstrom": 3.3,
+            "dielectric": {"frame": "layer", "electronic": _tensor_layer(13.0, 6.0, 0.0),
+                           "relative_uncertainty": 0.1},
+            "monolayer_screening": {"screening_length_angstrom": 42.0, "relative_uncertainty": 0.15},
+            "band_edge_origin": {"eps_top": 1.0, "eps_bottom": 1.0, "method": "gw"}}
+    out = {}
+    # 1. The band gap is direct at K, but a heavy K -> Q pair binds more strongly: its momentum-dark
+    #    exciton lies below the bright one in weak screening.
+    out["showcase-momentum-dark"] = {**base, "formula": "Sc1Dk2 (invented)", "valleys": [
+        _valley("K", "valence", -5.60, -5.55, 0.45),
+        _valley("G", "valence", -6.10, -5.70, 2.0),
+        _valley("K", "conduction", -3.60, -3.65, 0.35),
+        _valley("Q", "conduction", -3.57, -3.80, 1.8)]}
+    # 2. Spin-dark: the lower conduction sub-band at K has the spin opposite to the top valence band.
+    out["showcase-spin-dark"] = {**base, "formula": "Sc2Sp2 (invented)", "valleys": [
+        _valley("K", "valence", -5.40, -5.35, 0.45, spin_split_ev=0.42, edge_spin="up"),
+        _valley("G", "valence", -6.00, -5.45, 2.0),
+        _valley("K", "conduction", -3.40, -3.45, 0.40, spin_split_ev=0.04, edge_spin="down"),
+        _valley("Q", "conduction", -3.00, -3.40, 0.9)],
+        "gap_temperature": {"form": "varshni", "alpha_ev_per_k": 4.5e-4, "beta_k": 220.0,
+                            "calculation_temperature_k": 0.0}}
+    # 3. Crystal frame: the layer normal is the crystal y axis; K-conduction band samples are given as
+    #    3-component k in the crystal frame (in-plane masses 0.5 along x and z, 2.0 along the normal).
+    hb = sc.hbar**2 / (2 * sc.m_e) / sc.electron_volt / sc.angstrom**2  # hbar^2/2m_e, eV A^2
+    e0 = -3.55
+    ks = [[kx, ky, kz] for kx in (-0.04, 0.0, 0.04) for ky in (-0.03, 0.0, 0.03) for kz in (-0.04, 0.0, 0.04)]
+    samples = {"k_per_angstrom": ks, "extremum_at_origin": True,
+               "energy_ev": [_round(e0 + hb * (kx * kx / 0.5 + ky * ky / 2.0 + kz * kz / 0.5), 7)
+                             for kx, ky, kz in ks]}
+    kc = _valley("K", "conduction", e0, -3.62, 0.5)
+    kc.pop("mass")
+    kc["band_samples"] = samples
+    out["showcase-crystal-frame"] = {**base, "formula": "Sc3Cf2 (invented)",
+        "dielectric": {"frame": "crystal", "normal": [0.0, 1.0, 0.0],
+                       "electronic": [[12.0, 0.0, 0.0], [0.0, 5.5, 0.0], [0.0, 0.0, 12.0]],
+                       "relative_uncertainty": 0.1},
+        "valleys": [_valley("K", "valence", -5.55, -5.50, 0.55), _valley("G", "valence", -6.05, -5.60, 2.2), kc,
+                    _valley("Q", "conduction", -3.10, -3.50, 0.9)]}
+    # 4. Weak intrinsic screening (small r0): the binding, and so the emission, answer strongly to the
+    #    surroundings.
+    out["showcase-environment-sensitive"] = {**base, "formula": "Sc4Ev2 (invented)",
+        "dielectric": {"frame": "layer", "electronic": _tensor_layer(3.2, 2.4, 0.0), "relative_uncertainty": 0.1},
+        "monolayer_screening": {"screening_length_angstrom": 8.0, "relative_uncertainty": 0.15},
+        "valleys": [_valley("K", "valence", -5.90, -5.80, 0.5), _valley("G", "valence", -6.60, -6.00, 2.0),
+                    _valley("K", "conduction", -3.30, -3.45, 0.45), _valley("Q", "conduction", -2.90, -3.40, 1.0)]}
+    for ident, record in out.items():
+        record["id"] = ident
+    return out
+
+
 BROKEN = {
     # file stem -> (content writer). Each shows one path of the rejects table.
     "broken-json-syntax": lambda rec: json.dumps(rec)[:-40],
@@ -176,7 +246,7 @@ def _mutate(record: dict, fn) -> dict:
     return rec
 
 
-def generate(out: Path, count: int, seed: int, cif_fraction: float, broken: bool) -> None:
+def generate(out: Path, count: int, seed: int, cif_fraction: float, broken: bool, showcase: bool = False) -> None:
     rng = np.random.default_rng(seed)
     entries, structures = out / "entries", out / "structures"
     for folder in (entries, structures):
@@ -191,6 +261,9 @@ def generate(out: Path, count: int, seed: int, cif_fraction: float, broken: bool
         (entries / f"{ident}.json").write_text(json.dumps(record, indent=1) + "\n")
         if with_cif:
             (structures / f"{ident}.cif").write_text(make_cif(rng, ident, record))
+    if showcase:
+        for ident, record in showcase_records().items():
+            (entries / f"{ident}.json").write_text(json.dumps(record, indent=1) + "\n")
     if broken:
         for stem, writer in BROKEN.items():
             record = make_record(rng, stem, False)
@@ -204,8 +277,10 @@ def main() -> None:
     parser.add_argument("--seed", type=int, default=20261202, help="random seed")
     parser.add_argument("--cif-fraction", type=float, default=0.2, help="share of records with a CIF")
     parser.add_argument("--no-broken", action="store_true", help="omit the deliberately broken records")
+    parser.add_argument("--showcase", action="store_true",
+                        help="add the hand-made showcase records (one per brightness case; the demo has them)")
     args = parser.parse_args()
-    generate(args.out, args.count, args.seed, args.cif_fraction, not args.no_broken)
+    generate(args.out, args.count, args.seed, args.cif_fraction, not args.no_broken, args.showcase)
 
 
 if __name__ == "__main__":

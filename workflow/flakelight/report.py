@@ -712,16 +712,65 @@ def _criteria_words(settings: Mapping) -> list[tuple[str, str, str]]:
     need = float(r["min_binding_over_kt"])
     need_mev = need * units.thermal_energy_ev(t_k) * MEV_PER_EV
     lo, hi = sorted(float(v) for v in r["window_nm"])
-    direct = (f"the gap is direct (bright) at {n} layer(s)" if r["require_direct"]
-              else f"the gap character at {n} layer(s) is known (direct not required)")
-    return [
+    direct = (f"the lowest exciton at {n} layer(s) is bright (a same-valley, spin-allowed pair; 'unknown' when "
+              "no competing valley is given never passes)" if r["require_direct"]
+              else f"the brightness of the lowest exciton at {n} layer(s) is known (bright not required)")
+    words = [
         ("pass_direct", "Bright", direct),
-        ("pass_margin", "Margin", f"the lowest direct transition lies at least "
-                                  f"{float(r['min_direct_margin_ev']) * MEV_PER_EV:g} meV below the indirect one"),
+        ("pass_margin", "Margin", f"the lowest dark exciton lies at least "
+                                  f"{float(r['min_direct_margin_ev']) * MEV_PER_EV:g} meV above the lowest bright one"),
         ("pass_binding", "Bound", f"the binding energy is at least {need:g} kT "
                                   f"({need_mev:.0f} meV at {t_k:g} K)"),
         ("pass_window", "Window", f"the emission lies inside {lo:g}\u2013{hi:g} nm"),
     ]
+    if float(r.get("min_bright_fraction", 0.0)) > 0:
+        words.append(("pass_bright_fraction", "Bright share",
+                      f"at least {float(r['min_bright_fraction']) * 100:g} % of the excitons occupy the bright state "
+                      f"at {t_k:g} K (Boltzmann)"))
+    return words
+
+
+def _pair_kind(pair: str) -> str:
+    """'spin-dark' when both sides of a pair text ('K(up)->K(down)') sit at one label, else 'momentum-dark'."""
+    if "->" not in pair:
+        return "dark"
+    v, c = (side.split("(")[0] for side in pair.split("->", 1))
+    return "spin-dark" if v == c else "momentum-dark"
+
+
+def brightness_words(row: Mapping, settings: Mapping) -> str:
+    """The exciton-level brightness verdict of one ranked row, in plain words."""
+    n = int(settings["ranking"]["target_layers"])
+    env = settings["ranking"]["environment"]
+    t_k = float(settings["survival"]["temperature_k"])
+    verdict = _text(row.get("target_brightness"))
+    bright, dark = _text(row.get("target_bright_pair")), _text(row.get("target_dark_pair"))
+    margin = _num(row.get("target_exciton_margin_ev"))
+    fraction = _num(row.get("target_bright_fraction"))
+    where = f"at {n} layer(s) in {env}"
+    if verdict == "bright":
+        out = (f"Bright {where}: the lowest exciton is the {bright} pair's, "
+               f"{_fmt(row.get('target_bright_exciton_ev'), 3)} eV; the lowest dark one ({dark}, "
+               f"{_pair_kind(dark)}) lies {_fmt(margin, 0, MEV_PER_EV)} meV higher.")
+    elif verdict == "dark" and not bright:
+        out = f"Dark {where}: no same-valley, spin-allowed pair is given; the lowest exciton is {dark}'s."
+    elif verdict == "dark":
+        gap_note = (" although the band gap is direct (its heavier pair binds more strongly)"
+                    if _text(row.get("target_gap_character")) == "direct" and _pair_kind(dark) == "momentum-dark"
+                    else "")
+        out = (f"Dark {where}: the {_pair_kind(dark)} {dark} exciton lies {_fmt(-margin, 0, MEV_PER_EV)} meV "
+               f"below the bright {bright} one{gap_note}.")
+    else:
+        out = (f"Brightness unknown {where}: the record gives no competing valley (another label or a spin "
+               "sub-band), so a lower dark exciton cannot be excluded; it is not counted as bright.")
+    if math.isfinite(fraction):
+        out += f" About {_fmt(fraction * 100, 0)} % of the excitons are in the bright state at {t_k:g} K."
+    if not bool(row.get("target_spin_given")):
+        out += " Spin was not given: every same-valley pair is taken as spin-allowed."
+    if bool(row.get("target_binding_beyond_validity")):
+        out += (f" The binding exceeds {float(settings['excitons']['max_binding_fraction']) * 100:g} % of the "
+                "direct gap: outside the effective-mass model's validity.")
+    return out
 
 
 def _reasons(row: Mapping, settings: Mapping) -> list[str]:
@@ -730,15 +779,7 @@ def _reasons(row: Mapping, settings: Mapping) -> list[str]:
     n = int(r["target_layers"])
     lo, hi = sorted(float(v) for v in r["window_nm"])
     out = []
-    margin = _num(row.get("target_direct_margin_ev"))
-    if row.get("target_gap_character") == "direct":
-        if math.isinf(margin):
-            out.append(f"Bright at {n} layer(s): direct gap, no indirect transition competes.")
-        else:
-            out.append(f"Bright at {n} layer(s): the direct transition sits {_fmt(margin, 0, MEV_PER_EV)} meV "
-                       "below the indirect one.")
-    else:
-        out.append(f"Gap at {n} layer(s) is {_text(row.get('target_gap_character')) or 'unknown'}.")
+    out.append(brightness_words(row, settings))
     out.append(f"Bound: {_fmt(row.get('target_binding_ev'), 0, MEV_PER_EV)} meV, "
                f"{_fmt(row.get('target_binding_over_kt'), 1)} kT at {t_k:g} K"
                + (f"; {_fmt(_num(row.get('target_bound_fraction')) * 100, 0)} % of pairs bound."
@@ -939,8 +980,9 @@ def _section_table(ranked: pd.DataFrame, settings: Mapping, entries: pd.DataFram
             + "</td>",
         ]
         details = {
-            "pass_direct": f"{_text(d.get('target_gap_character')) or 'unknown'} at {n} layer(s)",
-            "pass_margin": f"margin {_fmt(d.get('target_direct_margin_ev'), 0, MEV_PER_EV)} meV",
+            "pass_direct": brightness_words(d, settings),
+            "pass_margin": f"dark - bright exciton {_fmt(d.get('target_exciton_margin_ev'), 0, MEV_PER_EV)} meV",
+            "pass_bright_fraction": f"bright share {_fmt(_num(d.get('target_bright_fraction')) * 100, 0)} %",
             "pass_binding": f"{_fmt(d.get('target_binding_over_kt'), 1)} kT",
             "pass_window": f"{_fmt(d.get('target_emission_nm'), 0)} nm",
         }
@@ -1102,8 +1144,33 @@ def _section_methods(settings: Mapping) -> str:
         ("Band edges against layer count (coupled-layer chain)",
          "E(N) = E<sub>bulk</sub> + (E<sub>1</sub> \u2212 E<sub>bulk</sub>) (1 \u2212 cos(\u03c0 / (N + 1)))",
          "Fills layer counts the record does not give; the gap character at each N follows from the valley edges."),
-        ("Optical gap and emission",
-         "E<sub>opt</sub> = E<sub>direct</sub> \u2212 E<sub>b</sub>, &nbsp; \u03bb = h c / E<sub>opt</sub>", ""),
+        ("Which exciton is lowest (exciton-level brightness)",
+         "E<sub>X</sub>(v, c) = E<sub>c</sub> \u2212 E<sub>v</sub> \u2212 E<sub>b</sub>(\u03bc<sub>vc</sub>), &nbsp; "
+         "E<sub>opt</sub> = min<sub>bright</sub> E<sub>X</sub>, &nbsp; \u03bb = h c / E<sub>opt</sub>",
+         "Every valence \u00d7 conduction valley pair (and spin sub-band pair, where the record gives spin) binds "
+         "with its own reduced mass: Rytova\u2013Keldysh for layers, the bulk model for the bulk crystal. A pair is "
+         "bright when both valleys sit at the same Brillouin-zone label and their spins agree; every other pair is "
+         "dark (momentum-dark or spin-dark). The lowest exciton decides: bright, dark, or unknown when the record "
+         "gives no competing valley \u2014 unknown never counts as bright. The margin criterion compares the lowest "
+         "dark with the lowest bright exciton; the band-gap margin is still reported. Without spin data every "
+         "same-label pair counts as spin-allowed."),
+        ("Thermal bright fraction",
+         "f = 1 / (1 + (w<sub>D</sub> / w<sub>B</sub>) e<sup>\u2212(E<sub>D</sub> \u2212 E<sub>B</sub>)/kT</sup>), "
+         "&nbsp; w = g M<sup>d/2</sup>",
+         "Boltzmann occupation of the lowest bright (B) and lowest dark (D) exciton bands at the operating "
+         "temperature: g the valley degeneracy of the pair (record field; K-K' combinations of one label are not "
+         "counted), M the centre-of-mass mass, d = 2 for layers and 3 for the bulk crystal."),
+        ("Model error in the Monte Carlo",
+         "E<sub>b</sub> \u2192 E<sub>b</sub> \u00d7 F, &nbsp; F log-normal, median 1",
+         f"Relative model error {float(settings['excitons']['model_rel_unc_layers']) * 100:g} % for the "
+         f"Rytova\u2013Keldysh binding (default from Berkelbach, Hybertsen and Reichman, Phys. Rev. B 88, 045318 "
+         f"(2013): agreement with many-body calculations within about 10 %) and "
+         f"{float(settings['excitons']['model_rel_unc_bulk']) * 100:g} % for the bulk 3D binding (an estimate), "
+         "drawn per record and sample on top of the input uncertainties. Bindings above "
+         f"{float(settings['excitons']['max_binding_fraction']) * 100:g} % of the direct gap are flagged as outside "
+         "the model's validity. Band edges, and so the emission, are those of the record's calculation "
+         "(its surroundings and temperature): the quasiparticle gap is not renormalised with the surroundings or "
+         "the layer count, and no thermal gap shift is applied."),
         ("Survival at temperature (2D Saha balance)",
          "n<sub>e</sub> n<sub>h</sub> / n<sub>X</sub> = (\u03bc k T / (2\u03c0 \u0127<sup>2</sup>)) "
          "e<sup>\u2212E<sub>b</sub>/kT</sup>, &nbsp; n (1 \u2212 x)<sup>2</sup> = S x",
@@ -1114,7 +1181,7 @@ def _section_methods(settings: Mapping) -> str:
          "(w<sub>b</sub> + w<sub>m</sub> + w<sub>w</sub>)",
          f"s<sub>b</sub> = clip((E<sub>b</sub>/kT) / (2 \u00d7 {need:g}), 0, 1) \u2014 full marks at twice the required "
          f"binding; s<sub>m</sub> = clip(\u0394 / {ranking.MARGIN_FULL_EV * MEV_PER_EV:g} meV, 0, 1) with \u0394 the "
-         "indirect minus direct gap (full marks when nothing indirect competes); s<sub>w</sub> = 1 \u2212 "
+         "lowest dark minus lowest bright exciton energy (0 when no dark competitor is given); s<sub>w</sub> = 1 \u2212 "
          f"|\u03bb \u2212 \u03bb<sub>c</sub>| / ({hi:g} \u2212 {lo:g} nm) inside the window (1 at its centre "
          "\u03bb<sub>c</sub>, \u00bd at its edges), 0 outside. Weights this run: "
          f"w<sub>b</sub> = {float(w.get('binding', 0)):g}, w<sub>m</sub> = {float(w.get('margin', 0)):g}, "
