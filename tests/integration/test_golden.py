@@ -41,6 +41,106 @@ ROWS = "(rows)"
 
 #: Named differences from the reference: (output, column or ROWS, entry_id or "*") -> reason.
 EXPECTED_CHANGES: dict[tuple[str, str, str], str] = {
+    ("tables/screen_long.parquet", "binding_beyond_validity", "*"):
+        "added (issue 17): exciton-level brightness over every valley pair",
+    ("tables/screen_long.parquet", "bright_exciton_ev", "*"):
+        "added (issue 17): exciton-level brightness over every valley pair",
+    ("tables/screen_long.parquet", "bright_fraction", "*"):
+        "added (issue 17): exciton-level brightness over every valley pair",
+    ("tables/screen_long.parquet", "bright_pair", "*"):
+        "added (issue 17): exciton-level brightness over every valley pair",
+    ("tables/screen_long.parquet", "bright_weight", "*"):
+        "added (issue 17): exciton-level brightness over every valley pair",
+    ("tables/screen_long.parquet", "brightness", "*"):
+        "added (issue 17): exciton-level brightness over every valley pair",
+    ("tables/screen_long.parquet", "dark_pair", "*"):
+        "added (issue 17): exciton-level brightness over every valley pair",
+    ("tables/screen_long.parquet", "dark_weight", "*"):
+        "added (issue 17): exciton-level brightness over every valley pair",
+    ("tables/screen_long.parquet", "exciton_margin_ev", "*"):
+        "added (issue 17): exciton-level brightness over every valley pair",
+    ("tables/screen_long.parquet", "spin_given", "*"):
+        "added (issue 17): exciton-level brightness over every valley pair",
+    ("tables/screen_long.parquet", "dark_exciton_ev", "*"):
+        "redefined (issue 17): lowest dark exciton over every valley pair with its own binding, no longer the fundamental pair's only (and also for direct gaps)",
+    ("tables/screen_wide.parquet", "pass_bright_fraction", "*"):
+        "added (issue 17): exciton-level brightness at the ranking target",
+    ("tables/screen_wide.parquet", "target_binding_beyond_validity", "*"):
+        "added (issue 17): exciton-level brightness at the ranking target",
+    ("tables/screen_wide.parquet", "target_bright_exciton_ev", "*"):
+        "added (issue 17): exciton-level brightness at the ranking target",
+    ("tables/screen_wide.parquet", "target_bright_fraction", "*"):
+        "added (issue 17): exciton-level brightness at the ranking target",
+    ("tables/screen_wide.parquet", "target_bright_pair", "*"):
+        "added (issue 17): exciton-level brightness at the ranking target",
+    ("tables/screen_wide.parquet", "target_brightness", "*"):
+        "added (issue 17): exciton-level brightness at the ranking target",
+    ("tables/screen_wide.parquet", "target_dark_exciton_ev", "*"):
+        "added (issue 17): exciton-level brightness at the ranking target",
+    ("tables/screen_wide.parquet", "target_dark_pair", "*"):
+        "added (issue 17): exciton-level brightness at the ranking target",
+    ("tables/screen_wide.parquet", "target_exciton_margin_ev", "*"):
+        "added (issue 17): exciton-level brightness at the ranking target",
+    ("tables/screen_wide.parquet", "target_spin_given", "*"):
+        "added (issue 17): exciton-level brightness at the ranking target",
+    ("tables/screen_wide.parquet", "pass_direct", "*"):
+        "physics fix (issue 17): brightness and margin criteria use exciton energies; a missing dark competitor no longer scores as bright",
+    ("tables/screen_wide.parquet", "pass_margin", "*"):
+        "physics fix (issue 17): brightness and margin criteria use exciton energies; a missing dark competitor no longer scores as bright",
+    ("tables/screen_wide.parquet", "meets_all_criteria", "*"):
+        "physics fix (issue 17): brightness and margin criteria use exciton energies; a missing dark competitor no longer scores as bright",
+    ("tables/screen_wide.parquet", "score_margin", "*"):
+        "physics fix (issue 17): brightness and margin criteria use exciton energies; a missing dark competitor no longer scores as bright",
+    ("tables/screen_wide.parquet", "score", "*"):
+        "physics fix (issue 17): brightness and margin criteria use exciton energies; a missing dark competitor no longer scores as bright",
+    ("tables/screen_wide.parquet", "rank", "*"):
+        "physics fix (issue 17): brightness and margin criteria use exciton energies; a missing dark competitor no longer scores as bright",
+    ("tables/screen_wide.parquet", "target_binding_ev_p16", "*"):
+        "issue 17: the binding model's own error is sampled in the Monte Carlo",
+    ("tables/screen_wide.parquet", "target_binding_ev_p50", "*"):
+        "issue 17: the binding model's own error is sampled in the Monte Carlo",
+    ("tables/screen_wide.parquet", "target_binding_ev_p84", "*"):
+        "issue 17: the binding model's own error is sampled in the Monte Carlo",
+    ("tables/screen_wide.parquet", "target_optical_gap_ev_p16", "*"):
+        "issue 17: the binding model's own error is sampled in the Monte Carlo",
+    ("tables/screen_wide.parquet", "target_optical_gap_ev_p50", "*"):
+        "issue 17: the binding model's own error is sampled in the Monte Carlo",
+    ("tables/screen_wide.parquet", "target_optical_gap_ev_p84", "*"):
+        "issue 17: the binding model's own error is sampled in the Monte Carlo",
+    ("tables/screen_wide.parquet", "target_emission_nm_p16", "*"):
+        "issue 17: the binding model's own error is sampled in the Monte Carlo",
+    ("tables/screen_wide.parquet", "target_emission_nm_p50", "*"):
+        "issue 17: the binding model's own error is sampled in the Monte Carlo",
+    ("tables/screen_wide.parquet", "target_emission_nm_p84", "*"):
+        "issue 17: the binding model's own error is sampled in the Monte Carlo",
+    ("tables/screen_wide.parquet", "p_meets_all", "*"):
+        "issue 17: model error sampled and exciton-level criteria in the Monte Carlo",
+    ("tables/screen_wide.parquet", "p_pass_margin", "*"):
+        "issue 17: model error sampled and exciton-level criteria in the Monte Carlo",
+    ("tables/screen_wide.parquet", "p_pass_window", "*"):
+        "issue 17: model error sampled and exciton-level criteria in the Monte Carlo",
+    ("tables/screen_wide.parquet", "p_pass_binding", "*"):
+        "issue 17: model error sampled and exciton-level criteria in the Monte Carlo",
+    ("tables/screen_wide.parquet", "p_direct_target", "*"):
+        "issue 17: model error sampled and exciton-level criteria in the Monte Carlo",
+    ("tables/screen_wide.parquet", "bulk_binding_ev_p16", "*"):
+        "issue 17: model error sampled and exciton-level criteria in the Monte Carlo",
+    ("tables/screen_wide.parquet", "bulk_binding_ev_p50", "*"):
+        "issue 17: model error sampled and exciton-level criteria in the Monte Carlo",
+    ("tables/screen_wide.parquet", "bulk_binding_ev_p84", "*"):
+        "issue 17: model error sampled and exciton-level criteria in the Monte Carlo",
+    ("shortlist.csv", "Bright fraction at 300 K", "*"):
+        "issue 17: the shortlist shows the exciton-level verdict, margin and bright fraction",
+    ("shortlist.csv", "Dark - bright exciton (meV)", "*"):
+        "issue 17: the shortlist shows the exciton-level verdict, margin and bright fraction",
+    ("shortlist.csv", "Direct-indirect band-gap margin (meV)", "*"):
+        "issue 17: the shortlist shows the exciton-level verdict, margin and bright fraction",
+    ("shortlist.csv", "Direct-indirect margin (meV)", "*"):
+        "issue 17: the shortlist shows the exciton-level verdict, margin and bright fraction",
+    ("shortlist.csv", "Lowest exciton", "*"):
+        "issue 17: the shortlist shows the exciton-level verdict, margin and bright fraction",
+    ("shortlist.csv", "(rows)", "*"):
+        "issue 17: candidates change with the exciton-level brightness criteria",
     ("tables/entries.parquet", "edge_eps_top", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
     ("tables/entries.parquet", "edge_eps_bottom", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
     ("tables/entries.parquet", "edge_method", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
