@@ -139,6 +139,10 @@ EXPECTED_CHANGES: dict[tuple[str, str, str], str] = {
         "issue 17: the shortlist shows the exciton-level verdict, margin and bright fraction",
     ("shortlist.csv", "Lowest exciton", "*"):
         "issue 17: the shortlist shows the exciton-level verdict, margin and bright fraction",
+    ("shortlist.csv", "Score (0-1)", "*"):
+        "issue 17: the margin score uses the exciton-level margin",
+    ("shortlist.csv", "Probability all criteria met", "*"):
+        "issue 17: model error and exciton-level criteria in the Monte Carlo",
     ("shortlist.csv", "(rows)", "*"):
         "issue 17: candidates change with the exciton-level brightness criteria",
     ("tables/entries.parquet", "edge_eps_top", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",

@@ -65,3 +65,47 @@ def test_layers_must_end_with_bulk(table):
     bad = model.ModelInputs(**{**inputs.__dict__, "layers": np.array([1, 2])})
     with pytest.raises(ValueError):
         model.evaluate(bad, model.ModelSettings(), table)
+
+
+def _three_valley_inputs(r0_angstrom: float, factor: float = 1.0) -> model.ModelInputs:
+    """K valence (hole 0.5), G valence (hole 3.0, 0.1 eV lower), K conduction (electron 0.5): one compound."""
+    inv = np.array([np.eye(2) / 0.5, np.eye(2) / 3.0, np.eye(2) / 0.5])
+    edges = np.array([[-5.0, -5.0], [-5.1, -5.1], [-3.0, -3.0]])
+    return model.ModelInputs(
+        layers=np.array([1, 0]), owner=np.zeros(3, dtype=int), label_code=np.array([1, 0, 1]),
+        is_conduction=np.array([False, False, True]), edges_ev=edges, inv_mass=inv,
+        mass_perp_me=np.full(3, np.nan), scissor_ev=np.zeros(1), eps_parallel=np.array([10.0]),
+        eps_perpendicular=np.array([5.0]), eps_bulk=np.array([np.sqrt(50.0)]), spacing_angstrom=np.array([6.0]),
+        r0_given_angstrom=np.array([r0_angstrom]), kappa=np.array([2.0, 12.0]), degeneracy=np.array([2, 1, 2]),
+        binding_factor_layers=factor)
+
+
+def test_exciton_level_in_the_2d_hydrogen_limit(table):
+    # r0 -> 0: Rytova-Keldysh is 2D hydrogen, E_b = 4 Ry mu / kappa^2 (Yang et al., Phys. Rev. A 43, 1186
+    # (1991)). Bright K-K: gap 2.0, mu = 0.25; momentum-dark G-K: gap 2.1, mu = 0.5 * 3 / 3.5 = 3/7 (by hand).
+    res = model.evaluate(_three_valley_inputs(1e-6), model.ModelSettings(), table)
+    kappa = np.array([2.0, 12.0])
+    bright = 2.0 - 4 * RY_EV * 0.25 / kappa**2
+    dark = 2.1 - 4 * RY_EV * (3 / 7) / kappa**2
+    np.testing.assert_allclose(res.stack["bright_exciton_ev"][0, 0], bright, rtol=1e-5)
+    np.testing.assert_allclose(res.stack["dark_exciton_ev"][0, 0], dark, rtol=1e-5)
+    # kappa = 2: dark 2.1 - 5.83 < bright 2.0 - 3.40 -> the momentum-dark exciton is lowest although the gap
+    # is direct; kappa = 12: dark 2.1 - 0.162 > bright 2.0 - 0.094 -> bright
+    assert res.gap.is_direct[0, 0]
+    assert list(res.stack["brightness"][0, 0]) == ["dark", "bright"]
+    np.testing.assert_allclose(res.stack["optical_gap_ev"][0, 0], bright, rtol=1e-5)
+    # bulk: 3D hydrogenic per pair, Ry mu / eps^2 with eps = sqrt(50) (Wannier-Mott)
+    np.testing.assert_allclose(res.bulk["bright_exciton_ev"], 2.0 - RY_EV * 0.25 / 50, rtol=1e-12)
+    np.testing.assert_allclose(res.bulk["dark_exciton_ev"], 2.1 - RY_EV * (3 / 7) / 50, rtol=1e-12)
+    # weights g M^(d/2): bright K-K g = 2, M = 1.0; dark G-K g = 1 x 2, M = 3.5 (by hand)
+    np.testing.assert_allclose(res.stack["bright_weight"][0, 0], [2.0, 2.0])
+    np.testing.assert_allclose(res.stack["dark_weight"][0, 0], [7.0, 7.0])
+    np.testing.assert_allclose(res.bulk["dark_weight"], [2 * 3.5 ** 1.5])
+
+
+def test_binding_factor_scales_every_layer_binding(table):
+    base = model.evaluate(_three_valley_inputs(30.0), model.ModelSettings(), table)
+    scaled = model.evaluate(_three_valley_inputs(30.0, factor=1.2), model.ModelSettings(), table)
+    np.testing.assert_allclose(scaled.stack["binding_ev"], 1.2 * base.stack["binding_ev"], rtol=1e-14)
+    np.testing.assert_allclose(2.0 - scaled.stack["bright_exciton_ev"], 1.2 * (2.0 - base.stack["bright_exciton_ev"]),
+                               rtol=1e-12)
