@@ -41,6 +41,16 @@ ROWS = "(rows)"
 
 #: Named differences from the reference: (output, column or ROWS, entry_id or "*") -> reason.
 EXPECTED_CHANGES: dict[tuple[str, str, str], str] = {
+    ("tables/screen_long.parquet", "optical_gap_compensated_ev", "*"):
+        "added (issue 17): full-compensation end of the optical-gap bracket",
+    ("tables/screen_long.parquet", "emission_compensated_nm", "*"):
+        "added (issue 17): full-compensation end of the emission bracket",
+    ("tables/screen_wide.parquet", "target_optical_gap_compensated_ev", "*"):
+        "added (issue 17): full-compensation end of the optical-gap bracket",
+    ("tables/screen_wide.parquet", "target_emission_compensated_nm", "*"):
+        "added (issue 17): full-compensation end of the emission bracket",
+    ("tables/screen_wide.parquet", "pass_window", "*"):
+        "physics fix (issue 17): the window criterion applies to the whole emission bracket",
     ("tables/screen_long.parquet", "binding_beyond_validity", "*"):
         "added (issue 17): exciton-level brightness over every valley pair",
     ("tables/screen_long.parquet", "bright_exciton_ev", "*"):

@@ -28,7 +28,8 @@ def tables(rows):
         "brightness": {"direct": "bright", "indirect": "dark"}.get(r[1], r[1]), "exciton_margin_ev": r[3],
         "bright_exciton_ev": sc.h * sc.c / sc.e / (r[4] * 1e-9),
         "dark_exciton_ev": sc.h * sc.c / sc.e / (r[4] * 1e-9) + r[3], "bright_weight": 2.0, "dark_weight": 2.0,
-        "bright_pair": "K->K", "dark_pair": "K->Q", "binding_beyond_validity": False, "spin_given": False}
+        "bright_pair": "K->K", "dark_pair": "K->Q", "binding_beyond_validity": False, "spin_given": False,
+        "optical_gap_compensated_ev": sc.h * sc.c / sc.e / (r[4] * 1e-9), "emission_compensated_nm": r[4]}
         for r in rows])
     wide = pd.DataFrame({"entry_id": [r[0] for r in rows], "formula": "F", "lattice_angstrom": 3.2,
                          "thinning_verdict": "v"})
@@ -119,3 +120,13 @@ def test_bright_fraction_column_and_criterion():
     assert want < 0.8 and not r["pass_bright_fraction"] and not r["meets_all_criteria"]
     loose = {**SETTINGS, "ranking": {**strict["ranking"], "min_bright_fraction": 0.7}}
     assert ranking.rank(long, wide, loose).iloc[0]["meets_all_criteria"]
+
+
+def test_window_applies_to_the_whole_emission_bracket():
+    # no-shift end at 750 nm (inside 600-900 nm), full-compensation end at 950 nm (outside): fails
+    long, wide = tables([("a", "direct", 0.2, 0.1, 750.0)])
+    long["emission_compensated_nm"] = 950.0
+    r = ranking.rank(long, wide, SETTINGS).iloc[0]
+    assert not r["pass_window"] and not r["meets_all_criteria"]
+    long["emission_compensated_nm"] = 880.0
+    assert ranking.rank(long, wide, SETTINGS).iloc[0]["pass_window"]

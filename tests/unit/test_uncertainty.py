@@ -254,13 +254,14 @@ def test_criteria_agree_with_ranking(demo, settings, table, overrides):
     margin = at["exciton_margin_ev"].to_numpy(dtype=float)
     e_kt = at["binding_over_kt"].to_numpy(dtype=float)
     lam = at["emission_nm"].to_numpy(dtype=float)
+    lam_full = at["emission_compensated_nm"].to_numpy(dtype=float)
     lo, hi = sorted(r["window_nm"])
     # The configured rules restated here (common practice: a NaN quantity fails its test).
     with np.errstate(invalid="ignore"):
         got = {"pass_direct": (verdict == "bright") if r["require_direct"] else np.isin(verdict, ["bright", "dark"]),
                "pass_margin": np.nan_to_num(margin, nan=-np.inf) >= r["min_direct_margin_ev"],
                "pass_binding": np.nan_to_num(e_kt, nan=-np.inf) >= r["min_binding_over_kt"],
-               "pass_window": (lam >= lo) & (lam <= hi)}
+               "pass_window": (lam >= lo) & (lam <= hi) & (lam_full >= lo) & (lam_full <= hi)}
     got["meets_all"] = got["pass_direct"] & got["pass_margin"] & got["pass_binding"] & got["pass_window"]
     for key in ("pass_direct", "pass_margin", "pass_binding", "pass_window"):
         np.testing.assert_array_equal(got[key], ranked[key].to_numpy(dtype=bool), err_msg=key)

@@ -55,7 +55,8 @@ BULK = layer_model.BULK
 
 #: Exciton-level quantities (:func:`_exciton_level`), in ``stack`` and ``bulk`` alike.
 EXCITON_QUANTITIES = ("bright_exciton_ev", "dark_exciton_ev", "exciton_margin_ev", "brightness",
-                      "bright_pair_index", "dark_pair_index", "bright_weight", "dark_weight")
+                      "bright_pair_index", "dark_pair_index", "bright_weight", "dark_weight",
+                      "optical_gap_compensated_ev", "emission_compensated_nm")
 #: Requests that need the exciton level (the optical gap is the lowest bright exciton).
 _EXCITON_TRIGGERS = frozenset(EXCITON_QUANTITIES) | {"optical_gap_ev", "emission_nm"}
 
@@ -116,6 +117,9 @@ class ModelInputs:
     binding_factor_layers, binding_factor_bulk : (n,) or float
         Factor on every Rytova-Keldysh (layers) or bulk 3D binding: the binding
         model's own error, sampled by the Monte Carlo (1 for the point estimate).
+    edge_kappa : (n,) or float
+        Mean dielectric constant of the surroundings the band edges belong to
+        (record ``band_edge_origin``; 1 = suspended).
     kappa : (E,)
         Mean dielectric constant of each surroundings, (top + bottom)/2.
     """
@@ -140,6 +144,7 @@ class ModelInputs:
     edge_spin: np.ndarray | None = None
     binding_factor_layers: np.ndarray | float = 1.0
     binding_factor_bulk: np.ndarray | float = 1.0
+    edge_kappa: np.ndarray | float = 1.0
 
     @property
     def n_compounds(self) -> int:
@@ -346,8 +351,16 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     f_lay = np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (n,))
     f_bulk = np.broadcast_to(np.asarray(inputs.binding_factor_bulk, dtype=float), (n,))
 
-    def fill(out: dict, energy, dimension):
+    def fill(out: dict, energy, dimension, compensated=None):
         lev = excitons.lowest_excitons(c, energy, pr.bright, n)
+        if compensated is None:
+            out["optical_gap_compensated_ev"] = lev.bright_ev
+        else:
+            pick = np.maximum(lev.bright_pair, 0)
+            sel = compensated[pick, np.arange(pick.shape[1])[None, :, None]] if len(compensated) else \
+                np.full(pick.shape, np.nan)
+            out["optical_gap_compensated_ev"] = np.where(lev.bright_pair >= 0, sel, np.nan)
+        out["emission_compensated_nm"] = layer_model.emission_wavelength_nm(out["optical_gap_compensated_ev"])
         weight = excitons.state_weight(deg, total, dimension)
         for key, idx in (("bright", lev.bright_pair), ("dark", lev.dark_pair)):
             out[f"{key}_weight"] = np.where(idx >= 0, weight[np.maximum(idx, 0)] if len(weight) else np.nan, np.nan)
@@ -368,8 +381,14 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     eb = keldysh.keldysh_binding_ev(np.broadcast_to(mu[:, None, None], shape), r0,
                                     np.broadcast_to(kappa[None, None, :], shape), table, state="1s") \
         * f_lay[c][:, None, None]
+    # Full compensation: the quasiparticle gap shrinks with the surroundings' screening exactly as the
+    # binding falls, so the bright exciton stays where it is in the surroundings the edges belong to.
+    kap_ref = np.broadcast_to(np.asarray(inputs.edge_kappa, dtype=float), (n,))[c]
+    eb_ref = keldysh.keldysh_binding_ev(np.broadcast_to(mu[:, None], shape[:2]), r0[:, :, 0],
+                                        np.broadcast_to(kap_ref[:, None], shape[:2]), table, state="1s") \
+        * f_lay[c][:, None]
     if settings.stack & _EXCITON_TRIGGERS:
-        fill(result.stack, gaps[:, :-1, None] - eb, 2)
+        fill(result.stack, gaps[:, :-1, None] - eb, 2, gaps[:, :-1] - eb_ref)
     if settings.bulk & _EXCITON_TRIGGERS:
         eps_bulk = np.asarray(inputs.eps_bulk, dtype=float)[c]
         eb_b = hydrogenic.binding_3d_ev(mu, eps_bulk)

@@ -53,7 +53,7 @@ def add_survival(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping) -> p
 
 
 def criteria(brightness, exciton_margin_ev, binding_over_kt, emission_nm, bright_fraction,
-             ranking: Mapping) -> dict[str, np.ndarray]:
+             ranking: Mapping, emission_compensated_nm=None) -> dict[str, np.ndarray]:
     """The four ranking criteria, vectorized: the one definition used by :func:`rank` and the Monte Carlo.
 
     Parameters
@@ -70,6 +70,9 @@ def criteria(brightness, exciton_margin_ev, binding_over_kt, emission_nm, bright
         Emission wavelength, nm (NaN fails).
     bright_fraction : array_like
         Thermal bright fraction (NaN fails when ``min_bright_fraction`` > 0).
+    emission_compensated_nm : array_like, optional
+        The other end of the emission bracket (full gap compensation); when
+        given the window criterion needs both ends inside the window.
     ranking : mapping
         The ``ranking`` config section (require_direct, min_direct_margin_ev,
         min_binding_over_kt, window_nm).
@@ -96,7 +99,10 @@ def criteria(brightness, exciton_margin_ev, binding_over_kt, emission_nm, bright
         "pass_direct": (verdict == "bright") if ranking["require_direct"] else known,
         "pass_margin": margin >= float(ranking["min_direct_margin_ev"]),
         "pass_binding": e_kt >= float(ranking["min_binding_over_kt"]),
-        "pass_window": (lam >= lo) & (lam <= hi),
+        "pass_window": (lam >= lo) & (lam <= hi) & (
+            True if emission_compensated_nm is None
+            else (np.asarray(emission_compensated_nm, dtype=float) >= lo)
+            & (np.asarray(emission_compensated_nm, dtype=float) <= hi)),
         "pass_bright_fraction": frac >= need if need > 0 else np.ones(verdict.shape, dtype=bool),
     }
     out["meets_all"] = (out["pass_direct"] & out["pass_margin"] & out["pass_binding"] & out["pass_window"]
@@ -126,13 +132,15 @@ def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
     for name in ("gap_character", "optical_gap_ev", "emission_nm", "emission_band", "binding_ev",
                  "binding_over_kt", "direct_margin_ev", "bound_fraction", "wannier_ok", "radius_angstrom",
                  "brightness", "bright_exciton_ev", "dark_exciton_ev", "exciton_margin_ev", "bright_pair",
-                 "dark_pair", "bright_fraction", "binding_beyond_validity", "spin_given"):
+                 "dark_pair", "bright_fraction", "binding_beyond_validity", "spin_given",
+                 "optical_gap_compensated_ev", "emission_compensated_nm"):
         out[f"target_{name}"] = at[name].set_axis(out.index)
     e_kt = col("binding_over_kt")
     margin = col("exciton_margin_ev")
     lam = col("emission_nm")
     lo, hi = sorted(float(x) for x in r["window_nm"])
-    passed = criteria(at["brightness"].to_numpy(dtype=object), margin, e_kt, lam, col("bright_fraction"), r)
+    passed = criteria(at["brightness"].to_numpy(dtype=object), margin, e_kt, lam, col("bright_fraction"), r,
+                      col("emission_compensated_nm"))
     for key in ("pass_direct", "pass_margin", "pass_binding", "pass_window", "pass_bright_fraction"):
         out[key] = passed[key]
     out["meets_all_criteria"] = passed["meets_all"]

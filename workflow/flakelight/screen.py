@@ -137,7 +137,8 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
         scissor_ev=entries["scissor_ev"].to_numpy(dtype=float), eps_parallel=eps_par, eps_perpendicular=eps_perp,
         eps_bulk=eps_bulk, spacing_angstrom=spacing,
         r0_given_angstrom=entries["r0_given_angstrom"].to_numpy(dtype=float),
-        kappa=environment_kappa(settings), **exciton_inputs(valleys)),
+        kappa=environment_kappa(settings), **exciton_inputs(valleys),
+        edge_kappa=((entries["edge_eps_top"] + entries["edge_eps_bottom"]) / 2).fillna(1.0).to_numpy(dtype=float)),
         model.ModelSettings.from_config(settings), table)
     gc, bright, dark = res.gap, res.pairs["bright"], res.pairs["dark"]
     cross = layer_model.layer_crossover(gc.is_direct, lay, known=gc.complete)
@@ -200,7 +201,7 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
     long["mott_density_per_cm2"] = _mott(long)
     pair_names = pair_labels(res.valley_pairs, valleys)
     for key in ("bright_exciton_ev", "dark_exciton_ev", "exciton_margin_ev", "brightness", "bright_weight",
-                "dark_weight"):
+                "dark_weight", "optical_gap_compensated_ev", "emission_compensated_nm"):
         long[key] = np.concatenate([np.asarray(res.stack[key]).reshape(-1), np.asarray(res.bulk[key])])
     for key in ("bright", "dark"):
         idx = np.concatenate([res.stack[f"{key}_pair_index"].reshape(-1), res.bulk[f"{key}_pair_index"]])

@@ -169,7 +169,12 @@ _LONG = [
     ("spin_given", B, NO_UNIT, "the record gives spin sub-bands (without them every same-label pair counts as bright)"),
     ("optical_gap_ev", F, "eV", "lowest bright exciton energy (equals bright_exciton_ev; direct gap - binding_ev "
      "unless spin sub-bands or another same-label pair decide)"),
-    ("emission_nm", F, "nm", "vacuum wavelength of the lowest bright exciton"),
+    ("emission_nm", F, "nm", "vacuum wavelength of the lowest bright exciton (band edges as given: no gap shift)"),
+    ("optical_gap_compensated_ev", F, "eV",
+     "other end of the optical-gap bracket: lowest bright exciton if the quasiparticle gap shrank with the "
+     "surroundings' screening exactly as the binding falls (full compensation; the optical gap of the record's "
+     "band_edge_origin surroundings)"),
+    ("emission_compensated_nm", F, "nm", "vacuum wavelength at optical_gap_compensated_ev"),
     ("emission_band", S, NO_UNIT, "named spectral band of the emission (config emission_bands)"),
     ("mott_density_per_cm2", F, "cm^-2", "2D Mott density estimate 1/(pi r^2)"),
     ("temperature_k", F, "K", "operating temperature (config survival)"),
@@ -233,13 +238,16 @@ _WIDE = [
     ("target_bright_fraction", F, "1", "thermal bright fraction at the target"),
     ("target_binding_beyond_validity", B, NO_UNIT, "target binding outside the effective-mass model's validity"),
     ("target_spin_given", B, NO_UNIT, "the record gives spin sub-bands"),
+    ("target_optical_gap_compensated_ev", F, "eV", "full-compensation end of the optical-gap bracket at the target"),
+    ("target_emission_compensated_nm", F, "nm", "full-compensation end of the emission bracket at the target"),
     ("pass_direct", B, NO_UNIT, "criterion: the lowest exciton at the target is bright (exciton level; 'unknown' "
      "fails), or its verdict is known if require_direct is false"),
     ("pass_margin", B, NO_UNIT, "criterion: dark - bright exciton energy at least min_direct_margin_ev"),
     ("pass_bright_fraction", B, NO_UNIT, "criterion: thermal bright fraction at least min_bright_fraction "
      "(always true when it is 0)"),
     ("pass_binding", B, NO_UNIT, "criterion: binding at least min_binding_over_kt times kT"),
-    ("pass_window", B, NO_UNIT, "criterion: emission inside the target window"),
+    ("pass_window", B, NO_UNIT, "criterion: both ends of the emission bracket (no gap shift, full compensation) "
+     "inside the target window"),
     ("meets_all_criteria", B, NO_UNIT, "every ranking criterion holds (a candidate)"),
     ("score_binding", F, "1", "binding component of the score, in [0, 1]"),
     ("score_margin", F, "1", "margin component of the score, in [0, 1]"),

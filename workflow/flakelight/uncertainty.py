@@ -314,6 +314,7 @@ class _Prepared(NamedTuple):
     model_settings: model.ModelSettings
     temperature_k: float
     ranking: Mapping
+    edge_kappa: np.ndarray      # (n,) mean constant of the surroundings the edges belong to
     degeneracy: np.ndarray      # (V,)
     spin_split: np.ndarray      # (V,) eV
     edge_spin: np.ndarray       # (V,) int
@@ -387,6 +388,7 @@ def _prepare(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping) ->
                                                        principal_masses=False),
         temperature_k=float(settings["survival"]["temperature_k"]), ranking=rk,
         **dict(zip(("degeneracy", "spin_split", "edge_spin"), screen.exciton_inputs(vt).values())),
+        edge_kappa=((entries["edge_eps_top"] + entries["edge_eps_bottom"]) / 2).fillna(1.0).to_numpy(dtype=float),
         sig_model_layers=float(lognormal_sigma(settings["excitons"]["model_rel_unc_layers"])),
         sig_model_bulk=float(lognormal_sigma(settings["excitons"]["model_rel_unc_bulk"])))
 
@@ -459,7 +461,7 @@ def _evaluate_block(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, tabl
         mass_perp_me=np.full(len(code), np.nan), scissor_ev=scissor, eps_parallel=prep.eps_par[rep] * f_eps,
         eps_perpendicular=prep.eps_perp[rep] * f_eps, eps_bulk=prep.eps_bulk[rep] * f_eps,
         spacing_angstrom=prep.spacing[rep], r0_given_angstrom=prep.r0_given[rep], kappa=prep.kappa,
-        r0_factor=f_r0, degeneracy=prep.degeneracy[gp], spin_split_ev=prep.spin_split[gp],
+        r0_factor=f_r0, edge_kappa=prep.edge_kappa[rep], degeneracy=prep.degeneracy[gp], spin_split_ev=prep.spin_split[gp],
         edge_spin=prep.edge_spin[gp], binding_factor_layers=f_lay, binding_factor_bulk=f_bulk),
         prep.model_settings, table)
     gc = res.gap
@@ -470,7 +472,8 @@ def _evaluate_block(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, tabl
         e_kt = survival.binding_over_kt(eb, prep.temperature_k)
     fraction = excitons.thermal_bright_fraction(st["bright_exciton_ev"], st["dark_exciton_ev"],
                                                 st["bright_weight"], st["dark_weight"], prep.temperature_k)
-    crit = ranking.criteria(st["brightness"], st["exciton_margin_ev"], e_kt, lam, fraction, prep.ranking)
+    crit = ranking.criteria(st["brightness"], st["exciton_margin_ev"], e_kt, lam, fraction, prep.ranking,
+                            st["emission_compensated_nm"])
     out = {"target_binding_ev": eb, "target_optical_gap_ev": res.stack["optical_gap_ev"][:, 0, 0],
            "target_emission_nm": lam, "bulk_binding_ev": res.bulk["bulk_binding_ev"],
            "direct_target": gc.is_direct[:, 0] & gc.complete[:, 0], **crit}
