@@ -147,6 +147,8 @@ EXPECTED_CHANGES: dict[tuple[str, str, str], str] = {
         "issue 17: the shortlist shows the exciton-level verdict, margin and bright fraction",
     ("shortlist.csv", "Direct-indirect margin (meV)", "*"):
         "issue 17: the shortlist shows the exciton-level verdict, margin and bright fraction",
+    ("shortlist.csv", "Emission if the gap compensates (nm)", "*"):
+        "issue 17: the shortlist shows the full-compensation end of the emission bracket",
     ("shortlist.csv", "Lowest exciton", "*"):
         "issue 17: the shortlist shows the exciton-level verdict, margin and bright fraction",
     ("shortlist.csv", "Score (0-1)", "*"):

@@ -184,6 +184,7 @@ def shortlist(ranked: pd.DataFrame, settings: Mapping) -> pd.DataFrame:
         "Thinning behaviour": top["thinning_verdict"].to_numpy(),
         f"Exciton energy in {r['environment']} (eV)": top["target_optical_gap_ev"].round(3).to_numpy(),
         "Emission wavelength (nm)": top["target_emission_nm"].round(1).to_numpy(),
+        "Emission if the gap compensates (nm)": top["target_emission_compensated_nm"].round(1).to_numpy(),
         "Spectral band": top["target_emission_band"].to_numpy(),
         "Binding energy (meV)": (1000 * top["target_binding_ev"]).round(1).to_numpy(),
         f"Binding / kT at {settings['survival']['temperature_k']:g} K": top["target_binding_over_kt"].round(2).to_numpy(),

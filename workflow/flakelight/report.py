@@ -785,9 +785,12 @@ def _reasons(row: Mapping, settings: Mapping) -> list[str]:
                + (f"; {_fmt(_num(row.get('target_bound_fraction')) * 100, 0)} % of pairs bound."
                   if math.isfinite(_num(row.get("target_bound_fraction"))) else "."))
     lam = _num(row.get("target_emission_nm"))
-    where = "inside" if lo <= lam <= hi else "outside"
-    out.append(f"Emits at {_fmt(lam, 0)} nm ({_text(row.get('target_emission_band')) or 'no band'}), "
-               f"{where} the {lo:g}\u2013{hi:g} nm window.")
+    lam_full = _num(row.get("target_emission_compensated_nm"))
+    inside = lo <= lam <= hi and (not math.isfinite(lam_full) or lo <= lam_full <= hi)
+    where = "inside" if inside else "not wholly inside"
+    out.append(f"Emits at {_fmt(lam, 0)} nm ({_text(row.get('target_emission_band')) or 'no band'}; "
+               f"{_fmt(lam_full, 0)} nm if the gap fully compensates the change of screening), "
+               f"{where} the {lo:g}\u2013{hi:g} nm window, at the calculation's temperature.")
     verdict = _text(row.get("thinning_verdict"))
     if verdict:
         out.append(f"Thinning: {verdict}.")
@@ -1168,9 +1171,16 @@ def _section_methods(settings: Mapping) -> str:
          f"{float(settings['excitons']['model_rel_unc_bulk']) * 100:g} % for the bulk 3D binding (an estimate), "
          "drawn per record and sample on top of the input uncertainties. Bindings above "
          f"{float(settings['excitons']['max_binding_fraction']) * 100:g} % of the direct gap are flagged as outside "
-         "the model's validity. Band edges, and so the emission, are those of the record's calculation "
-         "(its surroundings and temperature): the quasiparticle gap is not renormalised with the surroundings or "
-         "the layer count, and no thermal gap shift is applied."),
+         "the model's validity."),
+        ("Gap in other surroundings (bracket)",
+         "E<sub>opt</sub> \u2208 [E<sub>gap</sub> \u2212 E<sub>b</sub>(\u03ba), &nbsp; E<sub>gap</sub> \u2212 "
+         "E<sub>b</sub>(\u03ba<sub>ref</sub>)]",
+         "The band edges belong to the surroundings the record states (band_edge_origin, \u03ba<sub>ref</sub>; "
+         "default suspended). Extra screening shrinks the quasiparticle gap by nearly as much as it lowers the "
+         "binding, so the optical gap is reported as a bracket: no gap shift (the first end, the tables' optical "
+         "gap) and full compensation (the optical gap of the reference surroundings). The window criterion needs "
+         "both ends inside the window. No thermal gap shift is applied: emission is at the calculation's "
+         "temperature."),
         ("Survival at temperature (2D Saha balance)",
          "n<sub>e</sub> n<sub>h</sub> / n<sub>X</sub> = (\u03bc k T / (2\u03c0 \u0127<sup>2</sup>)) "
          "e<sup>\u2212E<sub>b</sub>/kT</sup>, &nbsp; n (1 \u2212 x)<sup>2</sup> = S x",
