@@ -11,6 +11,7 @@ stage raises :class:`Rejected` with the field and reason.
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -264,8 +265,16 @@ def layer_gap_problems(valleys: list[dict], *, max_layers: int, fit_exponent: bo
     counts = [*range(1, max_layers + 1), layer_model.BULK]
     edges = np.array([[v[edge_column(n)] for n in counts] for v in valleys], dtype=float)
     filled = layer_model.fill_edges(edges, np.array(counts), fit_exponent=fit_exponent).filled_ev
-    _, codes = np.unique([v["label"] for v in valleys], return_inverse=True)
     is_cond = np.array([v["band"] == "conduction" for v in valleys])
+    # CBM - VBM at every layer count, as gap_character computes it (absent edges ignored);
+    # only a record where it is not positive somewhere needs the full analysis below.
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # a layer count without any edge of a band
+        vbm = np.nanmax(np.where(is_cond[:, None], np.nan, filled), axis=0)
+        cbm = np.nanmin(np.where(is_cond[:, None], filled + scissor_ev, np.nan), axis=0)
+    if not np.any(cbm - vbm <= 0):
+        return []
+    _, codes = np.unique([v["label"] for v in valleys], return_inverse=True)
     gaps = layer_model.gap_character(np.zeros(len(valleys), dtype=int), codes, is_cond, filled,
                                      scissor_ev=[scissor_ev], n_compounds=1)
     out = []
