@@ -30,6 +30,7 @@ REFERENCE = HERE / "data" / "page_text_ba2d14c.json"
 
 #: Settings the reference page was written with (a frozen copy of config/config.yaml of ba2d14c).
 SETTINGS = {
+    "excitons": {"max_binding_fraction": 0.5, "model_rel_unc_layers": 0.1, "model_rel_unc_bulk": 0.2},
     "campaign": "inputs/demo",
     "shards": 4,
     "environments": {"suspended": {"top": 1.0, "bottom": 1.0}, "on_silica": {"top": 1.0, "bottom": 3.9},
