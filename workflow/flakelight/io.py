@@ -14,6 +14,7 @@ import json
 import math
 import os
 import stat
+import sys
 import tempfile
 from dataclasses import dataclass
 from pathlib import Path
@@ -257,6 +258,12 @@ def read_record(path: str | os.PathLike) -> RawRecord:
     digest = sha256_bytes(raw)
     if not raw.strip():
         return RawRecord(path, digest, error="file is empty")
+    if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
+        return RawRecord(path, digest, error="UTF-16 text (it starts with a UTF-16 byte-order mark); save it as UTF-8")
+    nul = raw.find(b"\x00")
+    if nul >= 0:
+        return RawRecord(path, digest, error=f"contains a NUL byte (at byte {nul}): binary data or UTF-16 text, "
+                                             "not UTF-8 JSON")
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -268,12 +275,14 @@ def read_record(path: str | os.PathLike) -> RawRecord:
                           object_pairs_hook=_object_pairs)
     except json.JSONDecodeError as exc:
         return RawRecord(path, digest, error=f"invalid JSON at line {exc.lineno} column {exc.colno}: {exc.msg}")
-    except (ValueError, RecursionError) as exc:
+    except RecursionError:
+        return RawRecord(path, digest, error="invalid JSON: arrays or objects nested too deeply")
+    except ValueError as exc:
+        if "integer string conversion" in str(exc):  # CPython's guard against huge integers
+            return RawRecord(path, digest, error="invalid JSON: an integer with more than "
+                                                 f"{sys.get_int_max_str_digits()} digits")
         return RawRecord(path, digest, error=f"invalid JSON: {exc}")
-    try:
-        problem = _content_problem(data, [])
-    except RecursionError:  # pragma: no cover - json.loads refuses deeper nesting first
-        problem = ("(record)", "nested too deeply")
+    problem = _content_problem(data, [])
     if problem:
         return RawRecord(path, digest, error=problem[1], error_field=problem[0])
     return RawRecord(path, digest, data=data)
