@@ -411,13 +411,23 @@ def load_schema(name: str) -> dict:
         return json.load(fh)
 
 
+def read_library_text(relative: str) -> str:
+    """A text file shipped inside the library folder (the page's templates), by relative path."""
+    return (LIBRARY_DIR / relative).read_text(encoding="utf-8")
+
+
 def library_digest(modules: list[str] | None = None) -> str:
     """Short content hash of the library sources (all modules, or the named ones).
 
     Used as the code version of every result row and as part of cache keys, so
-    a change of the physics code invalidates cached results.
+    a change of the physics code invalidates cached results. Without ``modules``
+    the page's template files (``templates/``) count too.
     """
-    names = sorted(modules) if modules else sorted(p.name for p in LIBRARY_DIR.glob("*.py"))
+    if modules:
+        names = sorted(modules)
+    else:  # every module and the page's template files
+        names = sorted([p.name for p in LIBRARY_DIR.glob("*.py")]
+                       + [f"templates/{p.name}" for p in (LIBRARY_DIR / "templates").glob("*") if p.is_file()])
     h = hashlib.sha256()
     for name in names:
         h.update(name.encode())
