@@ -156,7 +156,7 @@ def test_hexagonal_masses_match_analytic_curvature(hex_result, label, band, sign
 
 
 def test_record_passes_the_screen_contract(hex_result, checker):
-    assert checker.check(hex_result.record, stem="hexa", structure_exists=lambda n: False) == []
+    assert checker.check(hex_result.record, stem="hexa", structure_problem=lambda n: "file not found") == []
 
 
 def test_dielectric_and_geometry(hex_result):

@@ -245,10 +245,14 @@ def read_dielectric(folder: Path, rel_folder: str, spec: dict) -> tuple[np.ndarr
 
 
 def sha256_file(path: Path) -> str:
-    """Hex SHA-256 of a file (flakelight.io.sha256_file)."""
-    from flakelight import io
+    """Hex SHA-256 of a file's bytes."""
+    import hashlib
 
-    return io.sha256_file(path)
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
 
 
 def compound_folders(campaign: str | os.PathLike) -> list[str]:

@@ -131,7 +131,7 @@ def compound_key(campaign: str | os.PathLike, name: str, code_version: str) -> s
     except OSError:
         entries = []
     for entry in entries:
-        parts.append(f"{entry}:{io.sha256_file(folder / entry)}")
+        parts.append(f"{entry}:{calcio.sha256_file(folder / entry)}")
     return io.sha256_bytes("\n".join(parts).encode())[:32]
 
 
