@@ -197,6 +197,10 @@ DEMO_RECT = {
 def write_demo(campaign: Path) -> list[str]:
     """Write the demo compounds given as calculations; return their ids."""
     root = campaign / "calculations"
+    if root.exists():
+        import shutil
+
+        shutil.rmtree(root)
     ids = []
     for ident, spec in DEMO.items():
         folder = root / ident
@@ -209,22 +213,24 @@ def write_demo(campaign: Path) -> list[str]:
             calcs.append({"layers": key, "bands": f"bands_{key}.json", "vacuum_level_ev": spec["shift"]})
         write_json({"dielectric_format": "flakelight-dielectric/1", "frame": "crystal", "electronic": spec["eps"]},
                    folder / "dielectric.json")
-        write_json({"calcset_format": "flakelight-calcset/1", "provenance": SYNTHETIC, "calculations": calcs,
-                    "dielectric": {"file": "dielectric.json"}}, folder / "calcset.json")
+        write_json({"calcset_format": "flakelight-calcset/1", "formula": f"Hx{ident[-1]}Yq2 (invented)",
+                    "provenance": SYNTHETIC, "calculations": calcs, "dielectric": {"file": "dielectric.json"},
+                    "fit_radius_per_angstrom": 0.04}, folder / "calcset.json")
         ids.append(ident)
     for ident, spec in DEMO_RECT.items():
         folder = root / ident
         calcs = []
         for key, p in spec["layers"].items():
             s = rect_structure(key, tilt=(0.8, 0.5))
-            k = grid_kpoints((24, 24, 1) if key != "bulk" else (24, 24, 4))
+            k = grid_kpoints((20, 20, 1) if key != "bulk" else (20, 20, 2))
             d = band_structure_dict(s, k, {"\\Gamma": [0, 0, 0]}, rect_bands, p, line=False)
             write_json(d, folder / f"bands_{key}.json")
             calcs.append({"layers": key, "bands": f"bands_{key}.json", "vacuum_level_ev": 0.0})
         write_json({"dielectric_format": "flakelight-dielectric/1", "frame": "layer", "electronic": spec["eps"]},
                    folder / "dielectric.json")
-        write_json({"calcset_format": "flakelight-calcset/1", "provenance": SYNTHETIC, "calculations": calcs,
-                    "dielectric": {"file": "dielectric.json"}, "fit_radius_per_angstrom": 0.2}, folder / "calcset.json")
+        write_json({"calcset_format": "flakelight-calcset/1", "formula": "RcZt (invented)", "provenance": SYNTHETIC,
+                    "calculations": calcs, "dielectric": {"file": "dielectric.json"}, "fit_radius_per_angstrom": 0.15},
+                   folder / "calcset.json")
         ids.append(ident)
     return ids
 

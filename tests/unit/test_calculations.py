@@ -17,8 +17,6 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-import sympy as sp
-from scipy import constants as c
 
 from flakelight import calculations, importer
 from flakelight.calculations import ImportProblem
@@ -28,38 +26,10 @@ _spec = importlib.util.spec_from_file_location("make_calculations", REPO / "inpu
 mc = importlib.util.module_from_spec(_spec)
 _spec.loader.exec_module(mc)
 
-# hbar^2 / (2 m_e) in eV A^2 straight from CODATA (scipy.constants), not from flakelight.units.
-C_EV_A2 = c.hbar**2 / (2 * c.m_e) / c.e / c.angstrom**2
-
-
-def _sympy_masses(energy, kx, ky, point, carrier_sign):
-    """Principal carrier masses (m_e) from the analytic Hessian of energy(kx, ky) at point (computed with sympy)."""
-    h = sp.hessian(energy, (kx, ky)).subs({kx: point[0], ky: point[1]})
-    h = np.array(h.evalf(30), dtype=float)
-    inv = carrier_sign * h / (2 * C_EV_A2)
-    return np.sort(1.0 / np.linalg.eigvalsh(inv))
-
-
-def _hex_energy(kind, p, a):
-    """Model band of make_calculations.hex_bands as a sympy expression of in-plane Cartesian k (layer frame:
-    x along a1)."""
-    kx, ky = sp.symbols("kx ky", real=True)
-    a = sp.nsimplify(a)
-    a1 = sp.Matrix([a, 0])
-    a2 = sp.Matrix([-a / 2, a * sp.sqrt(3) / 2])
-    k = sp.Matrix([kx, ky])
-    s = sp.cos(k.dot(a1)) + sp.cos(k.dot(a2)) + sp.cos(k.dot(a1 + a2))
-    g = sp.cos(k.dot(2 * a1 + a2)) + sp.cos(k.dot(a1 + 2 * a2)) + sp.cos(k.dot(a1 - a2))
-    if kind == "valence":
-        e = p["ev"] + p["av"] * (s - p["sv"]) ** 2 - p["av"] * (3 - p["sv"]) ** 2
-    else:
-        e = p["ec"] + p["bc"] * s + p.get("gc", 0.0) * g
-    # reciprocal basis: b_i . a_j = 2 pi delta_ij
-    amat = sp.Matrix([[a1[0], a1[1]], [a2[0], a2[1]]])
-    b = 2 * sp.pi * amat.inv().T
-    kpoint = (b[0, :] + b[1, :]) / 3  # K = (1/3, 1/3)
-    return e, kx, ky, (0, 0), (kpoint[0], kpoint[1])
-
+_spec = importlib.util.spec_from_file_location("model_reference", REPO / "tests" / "model_reference.py")
+ref = importlib.util.module_from_spec(_spec)
+_spec.loader.exec_module(ref)
+_sympy_masses, _hex_energy, _rect_energy = ref.sympy_masses, ref.hex_energy, ref.rect_energy
 
 HEX_1 = {"ev": -5.9, "av": 0.10, "sv": 1.2, "ec": -3.2, "bc": 0.28}
 HEX_2 = {"ev": -5.6, "av": 0.10, "sv": 0.9, "ec": -3.35, "bc": 0.27}
@@ -168,14 +138,6 @@ def test_dielectric_and_geometry(hex_result):
     assert set(rec["sources"]) == {"calculations/hexa/calcset.json", "calculations/hexa/eps.json",
                                    *(f"calculations/hexa/bands_{k}.json" for k in ("1", "2", "bulk"))}
     assert all(len(h) == 64 for h in rec["sources"].values())
-
-
-def _rect_energy(band, p, a=3.0, b=4.0):
-    kx, ky = sp.symbols("kx ky", real=True)
-    cx, cy = sp.cos(kx * sp.nsimplify(a)) - 1, sp.cos(ky * sp.nsimplify(b)) - 1
-    if band == "valence":
-        return p["ev"] + 2 * p["tx"] * cx + 2 * p["ty"] * cy, kx, ky
-    return p["ec"] - 2 * p["ux"] * cx - 2 * p["uy"] * cy, kx, ky
 
 
 RECT = {"ev": -4.9, "tx": 0.55, "ty": 0.22, "ec": -3.3, "ux": 0.60, "uy": 0.25}

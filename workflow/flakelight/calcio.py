@@ -22,7 +22,6 @@ from __future__ import annotations
 
 import json
 import math
-import os
 from functools import lru_cache
 from pathlib import Path
 
@@ -253,30 +252,3 @@ def sha256_file(path: Path) -> str:
         for block in iter(lambda: fh.read(1 << 20), b""):
             h.update(block)
     return h.hexdigest()
-
-
-def compound_folders(campaign: str | os.PathLike) -> list[str]:
-    """Names of the compound folders under ``<campaign>/calculations`` (sorted; hidden ones skipped)."""
-    root = Path(campaign) / "calculations"
-    try:
-        return sorted(e.name for e in os.scandir(root) if e.is_dir() and not e.name.startswith("."))
-    except (FileNotFoundError, NotADirectoryError):
-        return []
-
-
-def calculation_listing(campaign: str | os.PathLike) -> list[tuple[str, int, int]]:
-    """Every file of every compound folder as ``(folder/name, size, mtime_ns)``, sorted.
-
-    The workflow keeps this listing (per shard) as a content-addressed input of
-    the import jobs, so a revised calculation file re-runs its shard.
-    """
-    root = Path(campaign) / "calculations"
-    rows = []
-    for name in compound_folders(campaign):
-        with os.scandir(root / name) as it:
-            for entry in it:
-                if entry.name.startswith(".") or not entry.is_file():
-                    continue
-                st = entry.stat()
-                rows.append((f"{name}/{entry.name}", int(st.st_size), int(st.st_mtime_ns)))
-    return sorted(rows)

@@ -17,14 +17,17 @@ its compound alone) and copies the others from the cache.
 from __future__ import annotations
 
 import logging
+import re
 import os
 from pathlib import Path
 from typing import Mapping, Sequence
 
-import numpy as np
+from typing import TYPE_CHECKING
 
-from flakelight import calcio, calculations, io
-from flakelight.calculations import Calculation, Dielectric, ImportProblem
+from flakelight import io
+
+if TYPE_CHECKING:  # numpy, scipy and pymatgen load only when a job imports (the Snakefile imports this module)
+    from flakelight.calculations import ImportProblem, ImportResult
 
 log = logging.getLogger("flakelight")
 
@@ -37,6 +40,9 @@ STAGE = "import"
 
 def _sources(folder: Path, rel_folder: str, description: dict) -> dict[str, str]:
     """Campaign-relative path -> SHA-256 of the description and every file it names."""
+    from flakelight import calcio
+    from flakelight.calculations import ImportProblem
+
     names = [calcio.DESCRIPTION]
     for c in description["calculations"]:
         names += [c[k] for k in ("bands", "structure_file", "local_potential") if k in c]
@@ -52,12 +58,16 @@ def _sources(folder: Path, rel_folder: str, description: dict) -> dict[str, str]
 
 
 def _geometry(structure, rel: str, memo: dict):
+    """Layer geometry of a structure (memoised by content), with the covalent-radii bonding
+    criterion of :mod:`flakelight.structure` (the same layers as CrystalNN on every test
+    structure, several times faster: the import analyses one structure per calculation)."""
     from flakelight import structure as structure_mod
+    from flakelight.calculations import ImportProblem
 
     key = io.canonical_json_hash(structure.as_dict())
     if key not in memo:
         try:
-            memo[key] = (structure_mod.analyse_structure(structure), None)
+            memo[key] = (structure_mod.analyse_structure(structure, bonding="covalent_radii"), None)
         except structure_mod.StructureError as exc:
             memo[key] = (None, str(exc))
     geometry, error = memo[key]
@@ -66,12 +76,15 @@ def _geometry(structure, rel: str, memo: dict):
     return geometry
 
 
-def read_compound(campaign: str | os.PathLike, name: str, memo: dict | None = None) -> calculations.ImportResult:
+def read_compound(campaign: str | os.PathLike, name: str, memo: dict | None = None) -> ImportResult:
     """Read and import one compound folder; raises ImportProblem."""
+    from flakelight import calcio, calculations
+    from flakelight.calculations import Calculation, Dielectric, ImportProblem
+
     memo = {} if memo is None else memo
     folder = Path(campaign) / "calculations" / name
     rel_folder = f"calculations/{name}"
-    if not calculations.re.fullmatch(r"[A-Za-z0-9_-]{1,80}", name):
+    if not re.fullmatch(r"[A-Za-z0-9_-]{1,80}", name):
         raise ImportProblem(rel_folder, "(folder)", "folder name must be letters, digits, '-' and '_' (it is the id)")
     description = calcio.read_description(folder, rel_folder)
     sources = _sources(folder, rel_folder, description)
@@ -124,6 +137,8 @@ def _reject(name: str, problem: ImportProblem, key: str) -> dict:
 
 def compound_key(campaign: str | os.PathLike, name: str, code_version: str) -> str:
     """Cache key of a compound: its folder's file hashes and the import code version."""
+    from flakelight import calcio
+
     folder = Path(campaign) / "calculations" / name
     parts = [code_version]
     try:
@@ -151,6 +166,7 @@ def run_import(names: Sequence[str], campaign: str, cache_dir: str, outputs: Map
     import pandas as pd
 
     from flakelight import pipeline
+    from flakelight.calculations import ImportProblem
 
     code_version = io.library_digest([f"{m}.py" for m in IMPORT_MODULES])
     cache = Path(cache_dir)
