@@ -17,6 +17,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from monty.json import MontyEncoder
 
 from flakelight import calculations, importer
 from flakelight.calculations import ImportProblem
@@ -44,7 +45,7 @@ def _write_compound(root: Path, name: str, calcs: dict, *, dielectric=None, extr
     folder.mkdir(parents=True, exist_ok=True)
     entries = []
     for key, d in calcs.items():
-        (folder / f"bands_{key}.json").write_text(json.dumps(d))
+        (folder / f"bands_{key}.json").write_text(json.dumps(d, cls=MontyEncoder))  # pymatgen's own encoder
         entry = {"layers": key, "bands": f"bands_{key}.json"}
         v = shift if vacuum is None else vacuum.get(key, "none")
         if v != "none":
@@ -382,3 +383,46 @@ def test_segments_follow_pymatgen_branches():
     band, _ = calcio.band_data_from_dict(d, "x")
     ours = calculations.segments_from_labels(calculations.kpoint_labels(band))
     assert ours == [(b["start_index"], b["end_index"]) for b in bs.branches]
+
+
+def test_off_label_grid_valley_from_an_irreducible_grid(tmp_path):
+    """A conduction minimum on the Gamma-M line, away from labels, on irreducible grids (pymatgen's own
+    ``get_ir_reciprocal_mesh``): named after the nearest labelled point, mass against sympy."""
+    from pymatgen.symmetry.analyzer import SpacegroupAnalyzer
+    from scipy.optimize import minimize_scalar
+
+    p1 = {**HEX_1, "bc": 0.1, "gc": 0.2}
+    pb = {**HEX_BULK, "bc": 0.1, "gc": 0.2}
+    labels = {"\\Gamma": [0, 0, 0], "M": [0.5, 0, 0], "K": [1 / 3, 1 / 3, 0]}
+    calcs = {}
+    for key, p, mesh in (("1", p1, (192, 192, 1)), ("bulk", pb, (48, 48, 2))):
+        s = mc.hex_structure(key, a=A_HEX, c_bulk=6.2)
+        ir = SpacegroupAnalyzer(s).get_ir_reciprocal_mesh(mesh=mesh, is_shift=(0, 0, 0))
+        k = np.array([kp for kp, _ in ir], dtype=float)
+        assert len(k) < np.prod(mesh) / 4  # really irreducible
+        calcs[key] = mc.band_structure_dict(s, k, labels, mc.hex_bands, p, line=False, shift_ev=-1.7)
+    _write_compound(tmp_path, "grid", calcs, extra={"fit_radius_per_angstrom": 0.03})
+    out = importer.read_compound(tmp_path, "grid")
+    cond = [r for r in out.report if r["band"] == "conduction"]
+    assert len(cond) == 1, cond  # the six images are one valley
+    # the grid minimum: the grid point of the Gamma-M line with the lowest model energy (numpy, model formula)
+    t = np.arange(0, 97) / 192
+    e_line = mc.hex_bands(np.c_[t, np.zeros_like(t), np.zeros_like(t)], p1)[1]
+    t_grid = t[np.argmin(e_line)]
+    b = 4 * np.pi / (np.sqrt(3) * A_HEX)  # |b1| of the hexagonal lattice (common practice)
+    assert cond[0]["label"] == f"M_{round(100 * (0.5 - t_grid) * b)}"
+    # mass at the true minimum (scipy on the model line, sympy Hessian), in the layer frame
+    t_min = minimize_scalar(lambda x: mc.hex_bands(np.array([[x, 0.0, 0.0]]), p1)[1][0],
+                            bounds=(0.2, 0.49), method="bounded", options={"xatol": 1e-12}).x
+    e, kx, ky, _, _ = _hex_energy("conduction", p1, A_HEX)
+    import sympy as sp
+
+    amat = np.array([[A_HEX, 0.0], [-A_HEX / 2, A_HEX * np.sqrt(3) / 2]])
+    bvec = 2 * np.pi * np.linalg.inv(amat).T
+    kmin = t_min * bvec[0]
+    expected = _sympy_masses(e, kx, ky, (sp.Float(kmin[0], 30), sp.Float(kmin[1], 30)), 1.0)
+    # 2 %, not 1 %: the minimum lies between grid points (0.09 of a spacing from the nearest one), and a
+    # quadratic fit returns the curvature at the centre of its samples; the model's third derivative
+    # along the line moves it by about 1 % over that offset (the fit against the analytic Hessian at
+    # the true minimum, not at the grid point, keeps this visible).
+    np.testing.assert_allclose(sorted(cond[0]["masses_me"]), expected, rtol=0.02)

@@ -86,6 +86,8 @@ EFERMI_TOL_EV = 1e-4
 #: Spins as pymatgen serialises them.
 SPIN_KEYS = ("1", "-1")
 _LABEL_OK = re.compile(r"[^A-Za-z0-9_'+-]")
+# Fit failures that show a candidate is no extremum in the plane (flakelight.bandfit messages).
+_NOT_EXTREMUM = re.compile(r"saddle point|wrong sign|flat direction")
 
 
 class ImportProblem(ValueError):
@@ -409,9 +411,12 @@ def find_extrema(band: BandData, frame: CalcFrame, edges: list[tuple[int, int]],
                  file: str) -> list[Extremum]:
     """Local maxima of the highest valence and minima of the lowest conduction band.
 
-    Line mode: a k point (labelled points merged over the path) whose energy is
-    not exceeded by its neighbours along the path. Grid mode: a grid point not
-    exceeded by any of its 8 (2D) or 26 (3D) neighbours on the periodic grid.
+    Line mode: a k point (labelled points merged over the path) strictly above
+    (valence) or below (conduction) its neighbours along the path. Grid mode: a
+    grid point strictly above or below all its 8 (2D) or 26 (3D) neighbours on the
+    periodic grid (a point level with an in-plane neighbour lies on a flat line,
+    not at an isolated extremum; level with a neighbour along the layer normal, a
+    band flat in k_z, is allowed).
     Every spin channel is searched. Labels follow the naming rule of the module
     docstring.
     """
@@ -430,8 +435,10 @@ def find_extrema(band: BandData, frame: CalcFrame, edges: list[tuple[int, int]],
                 for i in np.unique(node):
                     if not nbrs[i]:
                         continue
-                    others = e[list(nbrs[i])]
-                    if np.all(e[i] >= others):
+                    others = list(nbrs[i])
+                    # level with a neighbour only along the normal (a band flat in k_z) still counts
+                    along_normal = np.linalg.norm(frame.k_layer[others, :2] - frame.k_layer[i, :2], axis=1) < 1e-9
+                    if np.all((e[i] > e[others]) | (along_normal & (e[i] >= e[others]))):
                         out.append(Extremum(int(i), spin, kind, float(band.energies_ev[spin, bi, i]),
                                             _line_label(i, labels, segments, seg_of, frame.k_layer),
                                             labels[i] is not None, tuple(fps[i])))
@@ -440,13 +447,17 @@ def find_extrema(band: BandData, frame: CalcFrame, edges: list[tuple[int, int]],
     offsets = [o for o in np.ndindex(3, 3, 3) if o != (1, 1, 1)]
     offsets = [np.array(o) - 1 for o in offsets]
     offsets = [o for o in offsets if all(o[j] == 0 or shape[j] > 1 for j in range(3))]
+    # offsets purely along the layer normal: a neighbour level with the point there still counts
+    step = (np.array(offsets) / np.array(shape)) @ band.reciprocal @ frame.rotation.T if offsets else np.zeros((0, 3))
+    along_normal = np.linalg.norm(step[:, :2], axis=1) < 1e-9 * max(frame.reciprocal_constant, 1e-12)
     label_images = _label_images(band, ops, frame)
     for spin, (vb, cb) in enumerate(edges):
         for kind, bi, sign in (("valence", vb, 1.0), ("conduction", cb, -1.0)):
             e = sign * band.energies_ev[spin, bi][index]
             best = np.ones(shape, dtype=bool)
-            for o in offsets:
-                best &= e >= np.roll(e, shift=tuple(-o), axis=(0, 1, 2))
+            for o, flat_ok in zip(offsets, along_normal):
+                other = np.roll(e, shift=tuple(-o), axis=(0, 1, 2))
+                best &= (e >= other) if flat_ok else (e > other)
             for ijk in zip(*np.nonzero(best)):
                 i = int(index[ijk])
                 label, on_label = _grid_label(frame.k_layer[i], label_images, frame)
@@ -620,8 +631,8 @@ def valley_samples(band: BandData, frame: CalcFrame, ext: Extremum, edges, ops: 
     """k points around an extremum and the edge band there, with their little-group images.
 
     Returns in-plane k relative to the extremum (layer frame, 1/Angstrom),
-    energies (eV), the directions sampled (for the report) and the order of the
-    in-plane little group. A slab has no dispersion along the normal, so its k
+    energies (eV), the directions sampled (for the report) and the in-plane parts
+    of the little-group operations (n, 2, 2). A slab has no dispersion along the normal, so its k
     are projected on the plane; for bulk only samples in the plane of the
     extremum (|dk_z| < 1e-6 1/Angstrom) are used.
     """
@@ -1061,6 +1072,17 @@ def import_compound(ident: str, description: dict, description_file: str, calcs:
             info.update({"mass_from": key, "masses_me": list(fit.masses_me), "angle_deg": fit.angle_deg,
                          "fit_rms_ev": fit.rms_residual_ev, "nonparabolic": bool(fit.nonparabolic),
                          "n_points": fit.n_points, "constraints": vf.constraints})
+        elif notes and all(_NOT_EXTREMUM.search(n) for n in notes):
+            # an extremum along the path or grid stencil that the fit shows to be a saddle point or
+            # flat in the plane: not a valley, unless it is a band edge (then the true edge is elsewhere)
+            is_edge = any(abs(edge[k] - (vbm[k] if v.band == "valence" else cbm[k])) < 1e-9 for k in edge)
+            key = (first_failure or (masses_from, None))[0]
+            if is_edge:
+                raise ImportProblem(calcs[key].file, f"valleys[{v.label}].mass",
+                                    f"{v.band} band edge at {v.label} is not an extremum in the plane "
+                                    f"({'; '.join(notes)}): the true band edge lies off the sampled k points")
+            warnings.append(f"{v.band} valley {v.label} dropped: a saddle point or flat in the plane, not an extremum")
+            continue
         else:
             key, vf = first_failure or (masses_from, None)
             reason = "; ".join(notes) or "no extremum in any layer count"
