@@ -429,19 +429,21 @@ def find_extrema(band: BandData, frame: CalcFrame, edges: list[tuple[int, int]],
         segments = segments_from_labels(labels)
         for j, (a, b) in enumerate(segments):
             seg_of[a:b + 1] = j
+        # every (node, neighbour) pair once per direction, as arrays
+        pairs = np.array([(i, j) for i in range(len(nbrs)) for j in nbrs[i]], dtype=np.int64).reshape(-1, 2)
+        src, dst = pairs[:, 0], pairs[:, 1]
+        # level with a neighbour only along the normal (a band flat in k_z) still counts
+        along_normal = np.linalg.norm(frame.k_layer[dst, :2] - frame.k_layer[src, :2], axis=1) < 1e-9
+        has_nbr = np.bincount(src, minlength=len(labels)) > 0
         for spin, (vb, cb) in enumerate(edges):
             for kind, bi, sign in (("valence", vb, 1.0), ("conduction", cb, -1.0)):
                 e = sign * band.energies_ev[spin, bi]
-                for i in np.unique(node):
-                    if not nbrs[i]:
-                        continue
-                    others = list(nbrs[i])
-                    # level with a neighbour only along the normal (a band flat in k_z) still counts
-                    along_normal = np.linalg.norm(frame.k_layer[others, :2] - frame.k_layer[i, :2], axis=1) < 1e-9
-                    if np.all((e[i] > e[others]) | (along_normal & (e[i] >= e[others]))):
-                        out.append(Extremum(int(i), spin, kind, float(band.energies_ev[spin, bi, i]),
-                                            _line_label(i, labels, segments, seg_of, frame.k_layer),
-                                            labels[i] is not None, tuple(fps[i])))
+                ok = (e[src] > e[dst]) | (along_normal & (e[src] >= e[dst]))
+                bad = np.bincount(src[~ok], minlength=len(labels)) > 0
+                for i in np.flatnonzero(has_nbr & ~bad & (node == np.arange(len(labels)))):
+                    out.append(Extremum(int(i), spin, kind, float(band.energies_ev[spin, bi, i]),
+                                        _line_label(i, labels, segments, seg_of, frame.k_layer),
+                                        labels[i] is not None, tuple(fps[i])))
         return out
     shape, index = _dense_grid(band, ops, not band.spin_polarized, file)
     offsets = [o for o in np.ndindex(3, 3, 3) if o != (1, 1, 1)]
@@ -1145,3 +1147,40 @@ def _dielectric_layer(d: Dielectric, calcs: dict[str, Calculation], frames: dict
             tl = 0.5 * (tl + tl.T)
             out[name] = [[float(x) for x in row] for row in tl]
     return out
+
+
+def slab_normal(lattice_matrix: np.ndarray, frac_coords: np.ndarray, min_vacuum_angstrom: float = 5.0):
+    """Layer normal of a slab cell: the reciprocal direction of the cell axis with the widest vacuum.
+
+    For each cell axis i the atoms' fractional coordinates along i leave a
+    largest periodic gap g_i; the vacuum width is g_i d_i (d_i the spacing of
+    the lattice planes normal to b_i). The axis with the widest vacuum is the
+    stacking direction and b_i / |b_i| the normal (sign: largest component
+    positive). Used for the N-layer slabs (N >= 2) of a compound, whose bulk
+    and monolayer go through the full layer analysis (:mod:`flakelight.structure`).
+
+    Returns
+    -------
+    normal : ndarray (3,)
+    vacuum_angstrom : float
+
+    Raises
+    ------
+    ValueError
+        No axis with at least ``min_vacuum_angstrom`` of vacuum (not a slab).
+    """
+    lat = np.asarray(lattice_matrix, dtype=float)
+    rec = 2.0 * np.pi * np.linalg.inv(lat).T
+    f = np.mod(np.asarray(frac_coords, dtype=float), 1.0)
+    best, axis = -1.0, 0
+    for i in range(3):
+        x = np.sort(f[:, i])
+        gaps = np.diff(np.r_[x, x[0] + 1.0])
+        width = float(gaps.max()) * 2.0 * np.pi / np.linalg.norm(rec[i])
+        if width > best:
+            best, axis = width, i
+    if best < min_vacuum_angstrom:
+        raise ValueError(f"no vacuum layer: the widest empty region along a cell axis is {best:.2f} A "
+                         f"(< {min_vacuum_angstrom:.0f} A), so this cell is no slab")
+    n = rec[axis] / np.linalg.norm(rec[axis])
+    return (n if n[np.argmax(np.abs(n))] > 0 else -n), best

@@ -64,7 +64,8 @@ def _geometry(structure, rel: str, memo: dict):
     from flakelight import structure as structure_mod
     from flakelight.calculations import ImportProblem
 
-    key = io.canonical_json_hash(structure.as_dict())
+    key = io.sha256_bytes(structure.lattice.matrix.tobytes() + structure.frac_coords.tobytes()
+                          + " ".join(map(str, structure.species)).encode())
     if key not in memo:
         try:
             memo[key] = (structure_mod.analyse_structure(structure, bonding="covalent_radii"), None)
@@ -74,6 +75,21 @@ def _geometry(structure, rel: str, memo: dict):
     if error:
         raise ImportProblem(rel, "structure", error)
     return geometry
+
+
+def _slab_geometry(structure, rel: str):
+    """Layer geometry of an N-layer slab from its vacuum (calculations.slab_normal)."""
+    from flakelight.calculations import ImportProblem, slab_normal
+    from flakelight.structure import LayerGeometry
+
+    try:
+        normal, vacuum = slab_normal(structure.lattice.matrix, structure.frac_coords)
+    except ValueError as exc:
+        raise ImportProblem(rel, "structure", str(exc)) from None
+    return LayerGeometry(formula=structure.composition.reduced_formula, is_layered=True, dimensionality=2,
+                         layer_normal=tuple(float(x) for x in normal), repeat_distance_angstrom=None,
+                         layers_per_cell=0, vdw_gap_angstrom=float(vacuum), inplane_lattice_angstrom=None,
+                         warnings=("normal from the vacuum of the slab",))
 
 
 def read_compound(campaign: str | os.PathLike, name: str, memo: dict | None = None) -> ImportResult:
@@ -101,7 +117,10 @@ def read_compound(campaign: str | os.PathLike, name: str, memo: dict | None = No
         else:
             raise ImportProblem(rel, "structure", "no structure: the band-structure file embeds none (pymatgen embeds "
                                 "it only with projections) and calculations[{}].structure_file names no CIF".format(i))
-        geometry = _geometry(structure, srel, memo)
+        if spec["layers"] in ("1", "bulk"):
+            geometry = _geometry(structure, srel, memo)
+        else:  # N-layer slabs: the normal from the vacuum (the layer analysis is the slow part)
+            geometry = _slab_geometry(structure, srel)
         vacuum = None
         if "vacuum_level_ev" in spec:
             vacuum = float(spec["vacuum_level_ev"])
