@@ -426,3 +426,17 @@ def test_off_label_grid_valley_from_an_irreducible_grid(tmp_path):
     # along the line moves it by about 1 % over that offset (the fit against the analytic Hessian at
     # the true minimum, not at the grid point, keeps this visible).
     np.testing.assert_allclose(sorted(cond[0]["masses_me"]), expected, rtol=0.02)
+
+
+def test_slab_normal_of_a_tilted_rotated_slab():
+    s = mc.rect_structure("2", tilt=(0.9, 0.6), rotation=ROT)
+    normal, vacuum = calculations.slab_normal(s.lattice.matrix, s.frac_coords)
+    a1, a2 = s.lattice.matrix[0], s.lattice.matrix[1]
+    expected = np.cross(a1, a2) / np.linalg.norm(np.cross(a1, a2))  # the layer plane is spanned by a1, a2
+    expected = expected if expected[np.argmax(np.abs(expected))] > 0 else -expected
+    np.testing.assert_allclose(normal, expected, atol=1e-12)
+    # vacuum 15 A, two layers 5.5 A apart, each 1 A thick (make_calculations.rect_structure)
+    np.testing.assert_allclose(vacuum, 15.0 + 5.5 - 1.0, rtol=1e-9)
+    with pytest.raises(ValueError, match="no vacuum"):
+        bulk = mc.rect_structure("bulk")
+        calculations.slab_normal(bulk.lattice.matrix, bulk.frac_coords)
