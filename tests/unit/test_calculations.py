@@ -440,3 +440,9 @@ def test_slab_normal_of_a_tilted_rotated_slab():
     with pytest.raises(ValueError, match="no vacuum"):
         bulk = mc.rect_structure("bulk")
         calculations.slab_normal(bulk.lattice.matrix, bulk.frac_coords)
+
+
+def test_import_rejects_have_the_columns_of_the_rejects_table():
+    from flakelight import pipeline
+
+    assert importer.REJECT_COLUMNS == pipeline.REJECT_COLUMNS

@@ -36,6 +36,9 @@ IMPORT_MODULES = ("__init__", "units", "io", "dielectric", "bandfit", "structure
                   "importer")
 #: Stage name of import rejects in the rejects table.
 STAGE = "import"
+#: Columns of the rejects table (those of flakelight.pipeline.REJECT_COLUMNS; a test keeps them equal,
+#: so the import job need not load the screen's modules).
+REJECT_COLUMNS = ["entry_id", "source_file", "field", "reason", "stage", "input_hash", "physics_hash", "code_version"]
 
 
 def _sources(folder: Path, rel_folder: str, description: dict) -> dict[str, str]:
@@ -184,7 +187,6 @@ def run_import(names: Sequence[str], campaign: str, cache_dir: str, outputs: Map
     """
     import pandas as pd
 
-    from flakelight import pipeline
     from flakelight.calculations import ImportProblem
 
     code_version = io.library_digest([f"{m}.py" for m in IMPORT_MODULES])
@@ -224,7 +226,7 @@ def run_import(names: Sequence[str], campaign: str, cache_dir: str, outputs: Map
             report.append({"entry_id": name, **{k: (", ".join(map(str, v)) if isinstance(v, list) else v)
                                                 for k, v in row.items()},
                            "warnings": " | ".join(result["warnings"]), "input_hash": key})
-    reject_frame = pd.DataFrame(rejects, columns=pipeline.REJECT_COLUMNS)
+    reject_frame = pd.DataFrame(rejects, columns=REJECT_COLUMNS)
     reject_frame["physics_hash"] = ""
     reject_frame["code_version"] = code_version
     io.write_parquet(reject_frame.astype("string"), outputs["rejects"])
