@@ -13,6 +13,7 @@ include: "workflow/rules/keldysh.smk"
 include: "workflow/rules/import.smk"
 include: "workflow/rules/screen.smk"
 include: "workflow/rules/collect.smk"
+include: "workflow/rules/refine.smk"
 include: "workflow/rules/report.smk"
 
 

@@ -1,4 +1,5 @@
 # Helper functions, config validation and wildcard constraints. No rules here.
+import ast
 import functools
 import shlex
 import sys
@@ -7,7 +8,7 @@ from pathlib import Path
 from snakemake.utils import validate
 
 sys.path.insert(0, str(Path(workflow.basedir) / "workflow"))
-from flakelight import PROPAGATION_MODULES, SHARD_MODULES  # noqa: E402
+from flakelight import PROPAGATION_MODULES, REFINEMENT_MODULES, SHARD_MODULES  # noqa: E402
 from flakelight.io import campaign_listing as campaign_listing_rows, canonical_json_hash, snapshot_json  # noqa: E402
 from flakelight.sharding import shard_name, shard_of_file  # noqa: E402
 from flakelight.importer import IMPORT_MODULES  # noqa: E402
@@ -102,10 +103,22 @@ def campaign_records(wildcards):
     return snapshot("records-all", {"entries": campaign_listing("entries"), "structures": campaign_listing("structures")})
 
 
+@functools.cache
+def library_data_files(module):
+    """Files a library module reads at run time (the page's templates): its ``DATA_FILES``
+    tuple, read from the source without importing the module."""
+    tree = ast.parse((LIBRARY / f"{module}.py").read_text(encoding="utf-8"))
+    for node in tree.body:
+        if isinstance(node, ast.Assign) and any(getattr(t, "id", None) == "DATA_FILES" for t in node.targets):
+            return [str(LIBRARY / name) for name in ast.literal_eval(node.value)]
+    return []
+
+
 def library_files(*modules):
-    """Library source files a rule imports, declared as inputs so code changes re-run it."""
+    """Library source files a rule imports, and the data files they read, declared as inputs
+    so code changes re-run it."""
     names = dict.fromkeys(("__init__", "units", "io") + modules)
-    return [str(LIBRARY / f"{m}.py") for m in names]
+    return [str(LIBRARY / f"{m}.py") for m in names] + [f for m in names for f in library_data_files(m)]
 
 
 def code_files(adapter_name, *modules):
@@ -143,6 +156,8 @@ def final_outputs():
         "results/tables/entries.parquet",
         "results/tables/rejects.parquet",
         "results/shortlist.csv",
+        "results/tables/refinement.parquet",
+        "results/refinement.csv",
         "results/manifest.json",
         "results/summary.html",
     ]
@@ -158,6 +173,17 @@ def screen_settings(wildcards):
     return snapshot("screen", {"physics": physics_settings(), "uncertainty": uncertainty_settings(),
                                "campaign": str(campaign_dir()), "shards": config["sharding"]["shards"],
                                "cache_root": "results/cache/shards"})
+
+
+def attribution_settings(wildcards):
+    """Settings of the attribute_shard jobs: the propagation's sections plus refinement."""
+    return snapshot("attribution", {"settings": {**uncertainty_settings(), "refinement": config["refinement"]},
+                                    "cache_root": "results/cache/shards"})
+
+
+def refinement_list_settings(wildcards):
+    """Settings of the refinement_list job."""
+    return snapshot("refinement", {"settings": {"refinement": config["refinement"]}, "config_hash": config_hash()})
 
 
 def rank_settings(wildcards):
