@@ -391,6 +391,29 @@ def campaign_listing(campaign: str | os.PathLike, kind: str) -> list[tuple[str, 
     return sorted(rows)
 
 
+def calculation_listing(campaign: str | os.PathLike) -> list[tuple[str, int, int]]:
+    """Files of the compound folders ``<campaign>/calculations/<id>/`` as ``(id/name, size, mtime_ns)``.
+
+    Hidden files and folders are skipped; no calculations folder lists nothing.
+    Sorted. The workflow keeps this listing (per shard) as a content-addressed
+    input of the import jobs, so a revised calculation file re-runs its shard.
+    """
+    root = Path(campaign) / "calculations"
+    rows = []
+    try:
+        folders = sorted(e.name for e in os.scandir(root) if e.is_dir() and not e.name.startswith("."))
+    except (FileNotFoundError, NotADirectoryError):
+        return []
+    for name in folders:
+        with os.scandir(root / name) as it:
+            for entry in it:
+                if entry.name.startswith(".") or not entry.is_file():
+                    continue
+                st = entry.stat()
+                rows.append((f"{name}/{entry.name}", int(st.st_size), int(st.st_mtime_ns)))
+    return sorted(rows)
+
+
 def snapshot_json(folder: str | os.PathLike, prefix: str, content: Any) -> str:
     """Write ``content`` to ``folder/<prefix>-<digest>.json`` (once) and return that path.
 
