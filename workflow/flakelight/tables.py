@@ -64,6 +64,7 @@ _ENTRY = [
     ("energy_reference", S, NO_UNIT, "energy zero of the record's band edges, as given"),
     ("structure_file", S, NO_UNIT, "CIF file name in the campaign's structures/ folder ('' if none)"),
     ("structure_hash", S, NO_UNIT, "SHA-256 of the CIF bytes ('' if none)"),
+    ("source_hashes", S, NO_UNIT, "for an imported record: 'file=sha256' of each calculation file it was made from"),
     ("dielectric_frame", S, NO_UNIT, "frame of the given dielectric tensors: 'layer' or 'crystal'"),
     ("normal_x", F, "1", "layer normal, Cartesian x component (crystal frame)"),
     ("normal_y", F, "1", "layer normal, Cartesian y component (crystal frame)"),
@@ -324,7 +325,7 @@ TABLES: dict[str, tuple[str, list[str]]] = {
     "results/tables/entries.parquet": (
         "one row per screened compound: the normalised record",
         ["entry_id", "source_file", "input_hash", "formula", "provenance", "energy_reference", "structure_file",
-         "structure_hash", "dielectric_frame", "normal_x", "normal_y", "normal_z", "normal_source",
+         "structure_hash", "source_hashes", "dielectric_frame", "normal_x", "normal_y", "normal_z", "normal_source",
          *[f"eps_inf_{c}" for c in _TENSOR], *[f"eps_static_{c}" for c in _TENSOR], "eps_rel_unc",
          "spacing_angstrom", "spacing_source", "lattice_angstrom", "lattice_source", "is_layered_structure",
          "vdw_gap_angstrom", "r0_given_angstrom", "r0_source", "r0_rel_unc", "scissor_ev", "scissor_unc_ev",
