@@ -1071,6 +1071,40 @@ def _section_rejects(rejects: pd.DataFrame) -> str:
             f'<th>Check</th><th>Message</th></tr></thead><tbody>{rows}</tbody></table></div></section>')
 
 
+def _section_recompute(refinement: pd.DataFrame | None, settings: Mapping, max_compounds: int = 30) -> str:
+    """'What to recompute next': per borderline compound, the input whose recomputation most likely
+    settles its verdict (rows of :func:`flakelight.refinement.refinement_list`), in plain words."""
+    head = '<section id="recompute"><h2>What to recompute next</h2>'
+    ref = settings.get("refinement", {})
+    lo, hi = sorted(float(x) for x in ref.get("band", (0.1, 0.9)))
+    if not ref.get("enabled", False):
+        return head + ('<p class="empty-note">The attribution of borderline verdicts is switched off '
+                       '(config refinement.enabled).</p></section>')
+    if refinement is None:
+        return head + '<p class="empty-note">No refinement list was computed for this page.</p></section>'
+
+    if not len(refinement):
+        return head + (f'<p class="empty-note">No compound has a chance between {100 * lo:.0f} % and '
+                       f'{100 * hi:.0f} % of meeting every criterion, so no recomputation is singled out.</p>'
+                       '</section>')
+    firsts = refinement.drop_duplicates("entry_id")
+    shown = firsts.head(max_compounds)
+    items = "".join(
+        f'<li><a href="#row-{_e(x["entry_id"])}" class="jump" data-id="{_e(x["entry_id"])}">'
+        f'{_e(x["entry_id"])}</a>: {_e(x["advice"])}</li>' for x in shown.to_dict("records"))
+    more = (f'<p class="note-text">{len(firsts) - len(shown)} more borderline compound(s), and up to '
+            f'{int(ref.get("per_compound", 1))} inputs per compound, are listed in results/refinement.csv.</p>'
+            if len(firsts) > len(shown) else
+            '<p class="note-text">Further inputs per compound are listed in results/refinement.csv.</p>')
+    return (head + f'<p class="note-text">{len(firsts)} compound(s) have a chance between {100 * lo:.0f} % and '
+            f'{100 * hi:.0f} % of meeting every criterion. For each, the input whose recomputation is most likely '
+            'to settle the verdict, first the ones where it helps most. "Decides X %" is the share of the '
+            "verdict's uncertainty that this input carries (a variance-based sensitivity index, Saltelli 2010 / "
+            'Jansen 1999); the shares are model estimates with a sampling error of several per cent, and say '
+            'nothing about errors of the model itself.</p>'
+            f'<ol class="recompute">{items}</ol>{more}</section>')
+
+
 def _section_methods(settings: Mapping) -> str:
     from flakelight import ranking
 
@@ -1465,7 +1499,8 @@ def _csp(script: str) -> str:
 
 def build_html(ranked: pd.DataFrame, long: pd.DataFrame, rejects: pd.DataFrame, manifest: Mapping,
                changes: pd.DataFrame, settings: Mapping, baseline: Mapping | None = None,
-               entries: pd.DataFrame | None = None, max_table_rows: int | None = MAX_TABLE_ROWS) -> str:
+               entries: pd.DataFrame | None = None, max_table_rows: int | None = MAX_TABLE_ROWS,
+               refinement: pd.DataFrame | None = None) -> str:
     """The self-contained HTML summary of one run (pure: no file access).
 
     Parameters
@@ -1480,6 +1515,8 @@ def build_html(ranked: pd.DataFrame, long: pd.DataFrame, rejects: pd.DataFrame, 
     entries : optional entries table; when given, provenance text is shown under each compound.
     max_table_rows : the compound table lists the best-ranked compounds up to this many rows
         (None: all). Plots and counts always use every compound.
+    refinement : optional ranked refinement list (:mod:`flakelight.refinement`) for the
+        section "What to recompute next"; None when the rule did not provide one.
 
     Returns
     -------
@@ -1500,7 +1537,8 @@ def build_html(ranked: pd.DataFrame, long: pd.DataFrame, rejects: pd.DataFrame, 
     listed, left_out = _listed_rows(ranked, max_table_rows)
     data_json = script_json(_page_data(listed, manifest))
     nav = "".join(f'<a href="#{k}">{_e(v)}</a>' for k, v in (
-        ("make-first", "Make first"), ("overview", "Overview"), ("table", "All compounds"), ("plots", "Plots"),
+        ("make-first", "Make first"), ("overview", "Overview"), ("recompute", "Recompute next"),
+        ("table", "All compounds"), ("plots", "Plots"),
         ("changes", "Changes"), ("rejects", "Rejects"), ("methods", "Methods"), ("cautions", "Cautions")))
     parts = [
         "<!DOCTYPE html>",
@@ -1519,6 +1557,7 @@ def build_html(ranked: pd.DataFrame, long: pd.DataFrame, rejects: pd.DataFrame, 
         _changes_digest(changes, baseline),
         _section_make_first(ranked, settings),
         _section_overview(ranked, rejects, manifest, settings),
+        _section_recompute(refinement, settings),
         _section_table(listed, settings, entries, left_out),
         _section_plots(ranked, long, settings),
         _section_changes(changes, baseline),
@@ -1599,7 +1638,8 @@ def write_summary(inputs: Mapping[str, str], outputs: Mapping[str, str], setting
 
     Parameters
     ----------
-    inputs : paths 'long', 'wide' (ranked), 'rejects', 'manifest'; optional 'entries' (for provenance).
+    inputs : paths 'long', 'wide' (ranked), 'rejects', 'manifest'; optional 'entries' (for provenance)
+        and 'refinement' (the ranked list of :func:`flakelight.refinement.refinement_list`).
     outputs : paths 'html' and 'changes'.
     settings : the full workflow config.
     history : folder keeping the ranked snapshots of earlier runs.
@@ -1631,7 +1671,9 @@ def write_summary(inputs: Mapping[str, str], outputs: Mapping[str, str], setting
     changes = compare_runs(baseline_frame, current)
     baseline = None if baseline_frame is None else _baseline_info(baseline_frame, config_hash)
 
-    page = build_html(ranked, long, rejects, manifest, changes, settings, baseline=baseline, entries=entries)
+    refinement = io.read_parquet(inputs["refinement"]) if inputs.get("refinement") else None
+    page = build_html(ranked, long, rejects, manifest, changes, settings, baseline=baseline, entries=entries,
+                      refinement=refinement)
     io.write_parquet(changes, outputs["changes"], descriptions=CHANGE_DESCRIPTIONS,
                      table_metadata={"config_hash": config_hash,
                                      "compared_with_run": baseline["run_utc"] if baseline else ""})
