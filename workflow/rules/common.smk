@@ -1,4 +1,5 @@
 # Helper functions, config validation and wildcard constraints. No rules here.
+import ast
 import functools
 import shlex
 import sys
@@ -7,9 +8,11 @@ from pathlib import Path
 from snakemake.utils import validate
 
 sys.path.insert(0, str(Path(workflow.basedir) / "workflow"))
-from flakelight import PROPAGATION_MODULES, SHARD_MODULES  # noqa: E402
+from flakelight import PROPAGATION_MODULES, REFINEMENT_MODULES, SHARD_MODULES  # noqa: E402
 from flakelight.io import campaign_listing as campaign_listing_rows, canonical_json_hash, snapshot_json  # noqa: E402
 from flakelight.sharding import shard_name, shard_of_file  # noqa: E402
+from flakelight.importer import IMPORT_MODULES  # noqa: E402
+from flakelight.io import calculation_listing as calculation_listing_rows  # noqa: E402
 
 
 validate(config, schema="../schemas/config.schema.json")
@@ -100,10 +103,22 @@ def campaign_records(wildcards):
     return snapshot("records-all", {"entries": campaign_listing("entries"), "structures": campaign_listing("structures")})
 
 
+@functools.cache
+def library_data_files(module):
+    """Files a library module reads at run time (the page's templates): its ``DATA_FILES``
+    tuple, read from the source without importing the module."""
+    tree = ast.parse((LIBRARY / f"{module}.py").read_text(encoding="utf-8"))
+    for node in tree.body:
+        if isinstance(node, ast.Assign) and any(getattr(t, "id", None) == "DATA_FILES" for t in node.targets):
+            return [str(LIBRARY / name) for name in ast.literal_eval(node.value)]
+    return []
+
+
 def library_files(*modules):
-    """Library source files a rule imports, declared as inputs so code changes re-run it."""
+    """Library source files a rule imports, and the data files they read, declared as inputs
+    so code changes re-run it."""
     names = dict.fromkeys(("__init__", "units", "io") + modules)
-    return [str(LIBRARY / f"{m}.py") for m in names]
+    return [str(LIBRARY / f"{m}.py") for m in names] + [f for m in names for f in library_data_files(m)]
 
 
 def code_files(adapter_name, *modules):
@@ -141,6 +156,8 @@ def final_outputs():
         "results/tables/entries.parquet",
         "results/tables/rejects.parquet",
         "results/shortlist.csv",
+        "results/tables/refinement.parquet",
+        "results/refinement.csv",
         "results/manifest.json",
         "results/summary.html",
     ]
@@ -156,6 +173,17 @@ def screen_settings(wildcards):
     return snapshot("screen", {"physics": physics_settings(), "uncertainty": uncertainty_settings(),
                                "campaign": str(campaign_dir()), "shards": config["sharding"]["shards"],
                                "cache_root": "results/cache/shards"})
+
+
+def attribution_settings(wildcards):
+    """Settings of the attribute_shard jobs: the propagation's sections plus refinement."""
+    return snapshot("attribution", {"settings": {**uncertainty_settings(), "refinement": config["refinement"]},
+                                    "cache_root": "results/cache/shards"})
+
+
+def refinement_list_settings(wildcards):
+    """Settings of the refinement_list job."""
+    return snapshot("refinement", {"settings": {"refinement": config["refinement"]}, "config_hash": config_hash()})
 
 
 def rank_settings(wildcards):
@@ -177,3 +205,51 @@ def manifest_settings(wildcards):
 def summary_settings(wildcards):
     """Settings of the write_summary job: the whole config and the history folder."""
     return snapshot("summary", {"settings": config, "history": "results/history"})
+
+
+# ---------------------------------------------------------------- import of calculations
+
+
+@functools.cache
+def calculation_files():
+    """Files of the campaign's calculations/<id>/ folders as (id/name, size, mtime_ns); empty without them."""
+    return tuple(calculation_listing_rows(campaign_dir()))
+
+
+def has_calculations():
+    """True when the campaign holds compounds given as calculations (the import stage runs)."""
+    return bool(calculation_files())
+
+
+@functools.cache
+def _calculation_shard_rows():
+    """Listing rows of every shard's compound folders (a compound goes where its record would)."""
+    n = config["sharding"]["shards"]
+    rows = {i: [] for i in range(n)}
+    for row in calculation_files():
+        rows[shard_of_file(Path(row[0]).parts[0] + ".json", n)].append(row)
+    return rows
+
+
+def shard_calculations(wildcards):
+    """Listing of one shard's calculation files (a new name whenever one of them changes)."""
+    return snapshot(f"calculations-{wildcards.shard}", {"calculations": _calculation_shard_rows()[int(wildcards.shard)]})
+
+
+def import_settings(wildcards):
+    """Settings of the import_calculations jobs."""
+    return snapshot("import", {"campaign": str(campaign_dir()), "cache_root": "results/cache/imports"})
+
+
+def imported_records(wildcards):
+    """The records the import wrote for a shard (none without calculations)."""
+    return [f"results/imported/{wildcards.shard}/entries"] if has_calculations() else []
+
+
+def import_outputs(name):
+    """One output table of every import job (none without calculations)."""
+    return expand("results/imported/{shard}/{name}.parquet", shard=shard_names(), name=name) if has_calculations() else []
+
+
+#: Names of the optional inputs of screen_shard (its adapter gets --input imported only with calculations).
+SCREEN_IMPORT_INPUTS = ("imported",) if has_calculations() else ()
