@@ -84,6 +84,15 @@ _ENTRY = [
     ("r0_rel_unc", F, "1", "relative standard uncertainty of r0 (NaN: config default)"),
     ("scissor_ev", F, "eV", "scissor shift added to every conduction edge"),
     ("scissor_unc_ev", F, "eV", "standard uncertainty of the scissor shift (NaN: config default)"),
+    ("edge_eps_top", F, "1", "dielectric constant above the slab the band edges were computed in (1: vacuum)"),
+    ("edge_eps_bottom", F, "1", "dielectric constant below the slab the band edges were computed in (1: vacuum)"),
+    ("edge_method", S, NO_UNIT, "method of the band-edge calculation, as given ('not stated' if not)"),
+    ("gap_t_form", S, NO_UNIT, "form of the gap's temperature dependence: varshni, bose-einstein or '' (none given)"),
+    ("gap_t_alpha_ev_per_k", F, "eV/K", "Varshni alpha of E(T) = E(0) - alpha T^2/(T + beta)"),
+    ("gap_t_beta_k", F, "K", "Varshni beta"),
+    ("gap_t_coupling", F, "1", "electron-phonon coupling S of the Bose-Einstein form"),
+    ("gap_t_phonon_ev", F, "eV", "mean phonon energy of the Bose-Einstein form"),
+    ("gap_t_reference_k", F, "K", "temperature the band edges were computed at (NaN without a temperature form)"),
     ("warnings", S, NO_UNIT, "warnings raised while reading the record, joined by ' | '"),
 ]
 
@@ -100,6 +109,9 @@ _VALLEY = [
     ("mass_nonparabolic", B, NO_UNIT, "the band samples show a notable quartic term"),
     ("mass_rel_unc", F, "1", "relative standard uncertainty of the masses (NaN: config default)"),
     ("edge_unc_ev", F, "eV", "standard uncertainty of the band edges (NaN: config default)"),
+    ("degeneracy", F, "1", "valley degeneracy (equivalent valleys in the Brillouin zone; 1 if not given)"),
+    ("spin_split_ev", F, "eV", "spin splitting of the valley's band (NaN if not given)"),
+    ("edge_spin", "int64", "1", "spin sub-band of the given edge: 1 up, -1 down, 0 not stated"),
 ]
 
 _REJECT = [
@@ -329,12 +341,15 @@ TABLES: dict[str, tuple[str, list[str]]] = {
          *[f"eps_inf_{c}" for c in _TENSOR], *[f"eps_static_{c}" for c in _TENSOR], "eps_rel_unc",
          "spacing_angstrom", "spacing_source", "lattice_angstrom", "lattice_source", "is_layered_structure",
          "vdw_gap_angstrom", "r0_given_angstrom", "r0_source", "r0_rel_unc", "scissor_ev", "scissor_unc_ev",
+         "edge_eps_top", "edge_eps_bottom", "edge_method", "gap_t_form", "gap_t_alpha_ev_per_k", "gap_t_beta_k",
+         "gap_t_coupling", "gap_t_phonon_ev", "gap_t_reference_k",
          "warnings", "physics_hash", "code_version", "config_hash"]),
     "results/tables/valleys.parquet": (
         "one row per valley of a screened compound",
         ["entry_id", "valley_index", "input_hash", "label", "band", "edge_1l_ev", "edge_bulk_ev",
          "inv_mass_xx", "inv_mass_xy", "inv_mass_yy", "mass_perp_me", "mass_source", "mass_fit_rms_ev",
-         "mass_nonparabolic", "mass_rel_unc", "edge_unc_ev", "physics_hash", "code_version", "config_hash"]),
+         "mass_nonparabolic", "mass_rel_unc", "edge_unc_ev", "degeneracy", "spin_split_ev", "edge_spin",
+         "physics_hash", "code_version", "config_hash"]),
     "results/tables/rejects.parquet": (
         "one row per problem of a rejected record (also rejects.csv)",
         ["entry_id", "source_file", "field", "reason", "stage", "input_hash", "physics_hash", "code_version"]),
