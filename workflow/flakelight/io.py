@@ -102,10 +102,24 @@ def file_kind_problem(path: str | os.PathLike) -> str | None:
             except OSError:
                 target = "?"
             return f"is a dangling symbolic link (its target {target!r} does not exist)"
-        return "file not found"
+        return "file not found" + _case_sibling_hint(path)
     except OSError as exc:  # a link loop, a permission problem on the folder
         return f"cannot read file: {exc.strerror or exc}"
     return _not_regular_reason(st.st_mode)
+
+
+def _case_sibling_hint(path: str | os.PathLike) -> str:
+    """For a missing file, a note naming a file beside it whose name differs only in letter
+    case (file names are case-sensitive here, unlike on some laptops); else ''."""
+    folder, name = os.path.split(os.fspath(path))
+    try:
+        names = os.listdir(folder or ".")
+    except OSError:
+        return ""
+    twins = sorted(n for n in names if n != name and n.casefold() == name.casefold())
+    if not twins:
+        return ""
+    return f" ({printable_name(twins[0])!r} exists; file names are case-sensitive)"
 
 
 def read_limited(path: str | os.PathLike, limit: int) -> tuple[bytes | None, str | None, int]:
