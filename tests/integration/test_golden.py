@@ -169,6 +169,8 @@ EXPECTED_CHANGES: dict[tuple[str, str, str], str] = {
     ("tables/valleys.parquet", "degeneracy", "*"): "new record field (issue 17): valley degeneracy or spin sub-bands",
     ("tables/valleys.parquet", "spin_split_ev", "*"): "new record field (issue 17): valley degeneracy or spin sub-bands",
     ("tables/valleys.parquet", "edge_spin", "*"): "new record field (issue 17): valley degeneracy or spin sub-bands",
+    ("tables/entries.parquet", "source_hashes", "*"):
+        "added (issue 15): files an imported record was generated from; empty for hand-written records",
 }
 
 #: Stamps that legitimately change with any code or settings edit (never compared by value;

@@ -216,7 +216,7 @@ def test_run_attribution_caches_per_record(demo, settings, tmp_path):
     assert third["computed"] == 1 and third["reused"] == len(demo["borderline"]) - 1
     # a changed refinement setting invalidates the cache
     s = copy.deepcopy(settings)
-    s["refinement"]["samples"] = 64
+    s["refinement"]["samples"] = settings["refinement"]["samples"] + 16
     fourth = pipeline.run_attribution(str(rev_path), demo["outputs"]["valleys"], str(prop), demo["table_path"],
                                       s, str(cache), str(tmp_path / "a4.parquet"))
     assert fourth["reused"] == 0

@@ -237,7 +237,7 @@ def _mass_block_problems(mass: dict, path: list) -> list[Problem]:
             for e in eig:
                 r = mass_problems(float(e))
                 if r:
-                    out.append(Problem(p, f"principal mass {r}"))
+                    out.append(Problem(p, f"principal {r if r.startswith('mass') else 'mass ' + r}"))
                     break
     if "perpendicular_me" in mass:
         r = mass_problems(mass["perpendicular_me"])
@@ -294,9 +294,9 @@ def physical_problems(record: dict, *, stem: str,
     has_structure = "structure_file" in record
     if has_structure:
         reason = structure_problem(record["structure_file"])
-        if reason == "file not found":
-            out.append(Problem("structure_file",
-                               f"referenced structure {record['structure_file']!r} not found in structures/"))
+        if reason and reason.startswith("file not found"):
+            out.append(Problem("structure_file", f"referenced structure {record['structure_file']!r} not found "
+                                                  f"in structures/{reason[len('file not found'):]}"))
         elif reason:
             sep = " " if reason.startswith("is ") else ": "
             out.append(Problem("structure_file", f"referenced structure {record['structure_file']!r}{sep}{reason}"))

@@ -173,6 +173,8 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
         "energy_reference": record["energy_reference"],
         "structure_file": record.get("structure_file", ""),
         "structure_hash": structure_hash or "",
+        # files an imported record was generated from (path -> SHA-256), for the change report
+        "source_hashes": " ".join(f"{k}={v}" for k, v in sorted(record.get("sources", {}).items())),
         "dielectric_frame": diel["frame"],
         "normal_x": float(normal[0]), "normal_y": float(normal[1]), "normal_z": float(normal[2]),
         "normal_source": normal_source,
@@ -283,6 +285,7 @@ def layer_gap_problems(valleys: list[dict], *, max_layers: int, fit_exponent: bo
         if not np.isfinite(gap) or gap > 0:
             continue
         key = "bulk" if n == layer_model.BULK else str(n)
+        where = "in the bulk crystal" if n == layer_model.BULK else f"at {n} layer{'s' if n > 1 else ''}"
         vb = _extreme_valley(filled[:, j], ~is_cond, np.argmax)
         cb = _extreme_valley(filled[:, j], is_cond, np.argmin)
 
@@ -294,7 +297,7 @@ def layer_gap_problems(valleys: list[dict], *, max_layers: int, fit_exponent: bo
         scissor = f" with the scissor {scissor_ev:+.4g} eV" if scissor_ev else ""
         out.append(Problem(
             f"valleys[{shown}].edge_ev.{key}",
-            f"no gap at {key} layer(s): the lowest conduction edge {described(cb)}{scissor} is not above the "
+            f"no gap {where}: the lowest conduction edge {described(cb)}{scissor} is not above the "
             f"highest valence edge {described(vb)}; give this layer count for both bands or check the value"))
     return out
 
@@ -307,7 +310,7 @@ def _extreme_valley(values: np.ndarray, mask: np.ndarray, pick) -> int:
 
 ENTRY_COLUMNS = [
     "entry_id", "source_file", "input_hash", "formula", "provenance", "energy_reference",
-    "structure_file", "structure_hash", "dielectric_frame", "normal_x", "normal_y", "normal_z",
+    "structure_file", "structure_hash", "source_hashes", "dielectric_frame", "normal_x", "normal_y", "normal_z",
     "normal_source", *[f"eps_inf_{c}" for c, _, _ in TENSOR_COMPONENTS],
     *[f"eps_static_{c}" for c, _, _ in TENSOR_COMPONENTS], "eps_rel_unc", "spacing_angstrom",
     "spacing_source", "lattice_angstrom", "lattice_source", "is_layered_structure", "vdw_gap_angstrom",

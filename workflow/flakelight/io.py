@@ -14,6 +14,7 @@ import json
 import math
 import os
 import stat
+import sys
 import tempfile
 from dataclasses import dataclass
 from pathlib import Path
@@ -101,10 +102,24 @@ def file_kind_problem(path: str | os.PathLike) -> str | None:
             except OSError:
                 target = "?"
             return f"is a dangling symbolic link (its target {target!r} does not exist)"
-        return "file not found"
+        return "file not found" + _case_sibling_hint(path)
     except OSError as exc:  # a link loop, a permission problem on the folder
         return f"cannot read file: {exc.strerror or exc}"
     return _not_regular_reason(st.st_mode)
+
+
+def _case_sibling_hint(path: str | os.PathLike) -> str:
+    """For a missing file, a note naming a file beside it whose name differs only in letter
+    case (file names are case-sensitive here, unlike on some laptops); else ''."""
+    folder, name = os.path.split(os.fspath(path))
+    try:
+        names = os.listdir(folder or ".")
+    except OSError:
+        return ""
+    twins = sorted(n for n in names if n != name and n.casefold() == name.casefold())
+    if not twins:
+        return ""
+    return f" ({printable_name(twins[0])!r} exists; file names are case-sensitive)"
 
 
 def read_limited(path: str | os.PathLike, limit: int) -> tuple[bytes | None, str | None, int]:
@@ -257,6 +272,12 @@ def read_record(path: str | os.PathLike) -> RawRecord:
     digest = sha256_bytes(raw)
     if not raw.strip():
         return RawRecord(path, digest, error="file is empty")
+    if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
+        return RawRecord(path, digest, error="UTF-16 text (it starts with a UTF-16 byte-order mark); save it as UTF-8")
+    nul = raw.find(b"\x00")
+    if nul >= 0:
+        return RawRecord(path, digest, error=f"contains a NUL byte (at byte {nul}): binary data or UTF-16 text, "
+                                             "not UTF-8 JSON")
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -268,12 +289,14 @@ def read_record(path: str | os.PathLike) -> RawRecord:
                           object_pairs_hook=_object_pairs)
     except json.JSONDecodeError as exc:
         return RawRecord(path, digest, error=f"invalid JSON at line {exc.lineno} column {exc.colno}: {exc.msg}")
-    except (ValueError, RecursionError) as exc:
+    except RecursionError:
+        return RawRecord(path, digest, error="invalid JSON: arrays or objects nested too deeply")
+    except ValueError as exc:
+        if "integer string conversion" in str(exc):  # CPython's guard against huge integers
+            return RawRecord(path, digest, error="invalid JSON: an integer with more than "
+                                                 f"{sys.get_int_max_str_digits()} digits")
         return RawRecord(path, digest, error=f"invalid JSON: {exc}")
-    try:
-        problem = _content_problem(data, [])
-    except RecursionError:  # pragma: no cover - json.loads refuses deeper nesting first
-        problem = ("(record)", "nested too deeply")
+    problem = _content_problem(data, [])
     if problem:
         return RawRecord(path, digest, error=problem[1], error_field=problem[0])
     return RawRecord(path, digest, data=data)
@@ -365,6 +388,29 @@ def campaign_listing(campaign: str | os.PathLike, kind: str) -> list[tuple[str, 
                 rows.append((entry.name, int(st.st_size), int(st.st_mtime_ns)))
             except OSError:
                 rows.append((entry.name, -1, -1))
+    return sorted(rows)
+
+
+def calculation_listing(campaign: str | os.PathLike) -> list[tuple[str, int, int]]:
+    """Files of the compound folders ``<campaign>/calculations/<id>/`` as ``(id/name, size, mtime_ns)``.
+
+    Hidden files and folders are skipped; no calculations folder lists nothing.
+    Sorted. The workflow keeps this listing (per shard) as a content-addressed
+    input of the import jobs, so a revised calculation file re-runs its shard.
+    """
+    root = Path(campaign) / "calculations"
+    rows = []
+    try:
+        folders = sorted(e.name for e in os.scandir(root) if e.is_dir() and not e.name.startswith("."))
+    except (FileNotFoundError, NotADirectoryError):
+        return []
+    for name in folders:
+        with os.scandir(root / name) as it:
+            for entry in it:
+                if entry.name.startswith(".") or not entry.is_file():
+                    continue
+                st = entry.stat()
+                rows.append((f"{name}/{entry.name}", int(st.st_size), int(st.st_mtime_ns)))
     return sorted(rows)
 
 
