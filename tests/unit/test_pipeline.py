@@ -83,6 +83,33 @@ def test_cache_reuses_unchanged_and_recomputes_revised(tmp_path, record, table_p
             != t1["wide"].set_index("entry_id").loc["ok-1", "mu_1l_me"])
 
 
+def _tables_equal(got: dict, want: dict) -> None:
+    for name in pipeline.SHARD_TABLES:
+        pd.testing.assert_frame_equal(got[name], want[name], obj=name)
+
+
+def test_renamed_file_is_screened_again(tmp_path, record, table_path):
+    """A record rejected for its file name, renamed to the name its identifier asks for, is
+    screened (the cache knows records by name and content, not by content alone)."""
+    entries = _campaign(tmp_path, record, [("nwename.json", json.dumps(dict(record, id="newname")))])
+    counts, tables = _run(tmp_path, entries, table_path, tag="a")
+    assert list(tables["rejects"]["entry_id"]) == ["nwename"]
+    (entries / "nwename.json").rename(entries / "newname.json")
+    counts, tables = _run(tmp_path, entries, table_path, tag="b")
+    assert "newname" in set(tables["wide"]["entry_id"]) and not len(tables["rejects"])
+    _tables_equal(tables, _run(tmp_path / "clean", entries, table_path, tag="c")[1])
+
+
+def test_file_copied_after_a_run_gets_its_own_row(tmp_path, record, table_path):
+    entries = _campaign(tmp_path, record)
+    _run(tmp_path, entries, table_path, tag="a")
+    (entries / "ok-1y.json").write_bytes((entries / "ok-1.json").read_bytes())
+    counts, tables = _run(tmp_path, entries, table_path, tag="b")
+    assert list(tables["rejects"]["source_file"]) == ["ok-1y.json"]  # its identifier names another file
+    assert "ok-1" in set(tables["wide"]["entry_id"])
+    _tables_equal(tables, _run(tmp_path / "clean", entries, table_path, tag="c")[1])
+
+
 def test_physics_change_invalidates_cache(tmp_path, record, table_path):
     entries = _campaign(tmp_path, record)
     _run(tmp_path, entries, table_path, tag="a")

@@ -215,6 +215,26 @@ def library_digest(modules: list[str] | None = None) -> str:
     return h.hexdigest()[:16]
 
 
+def read_source(path: str | os.PathLike) -> str:
+    """Text of a source file (UTF-8)."""
+    return Path(path).read_text(encoding="utf-8")
+
+
+def library_sources(folder: str | os.PathLike = LIBRARY_DIR) -> dict[str, str]:
+    """Source text of every library module, by module name (``"io"``, ``"__init__"``, ...)."""
+    return {p.stem: read_source(p) for p in sorted(Path(folder).glob("*.py"))}
+
+
+def schema_files(folder: str | os.PathLike = SCHEMA_DIR) -> list[Path]:
+    """The JSON schemas shipped in workflow/schemas (read by the library and the workflow)."""
+    return sorted(Path(folder).glob("*.json"))
+
+
+def schema_sources(folder: str | os.PathLike = SCHEMA_DIR) -> dict[str, str]:
+    """Text of every JSON schema, by file name."""
+    return {p.name: read_source(p) for p in schema_files(folder)}
+
+
 def _atomic_target(path: str | os.PathLike) -> tuple[Path, str]:
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)

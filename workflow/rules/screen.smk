@@ -13,7 +13,7 @@ rule screen_shard:
         # a new name whenever one of them changes (common.smk: snapshot)
         records=shard_records,
         settings=screen_settings,
-        code=code_files("screen_shard", *SHARD_MODULES, *PROPAGATION_MODULES),
+        code=code_files("screen_shard"),
     output:
         entries="results/shards/{shard}/entries.parquet",
         valleys="results/shards/{shard}/valleys.parquet",
@@ -21,6 +21,7 @@ rule screen_shard:
         long="results/shards/{shard}/exciton_long.parquet",
         wide="results/shards/{shard}/exciton_wide.parquet",
         uncertainty="results/shards/{shard}/uncertainty.parquet",
+        counts="results/shards/{shard}/counts.json",
     log:
         "results/logs/screen_shard/{shard}.log",
     benchmark:
@@ -32,7 +33,7 @@ rule screen_shard:
         adapter(
             "screen_shard",
             inputs=("table", "records", "settings"),
-            outputs=("entries", "valleys", "rejects", "long", "wide", "uncertainty"),
+            outputs=("entries", "valleys", "rejects", "long", "wide", "uncertainty", "counts"),
             wildcards=("shard",),
         )
 
