@@ -19,3 +19,7 @@ rule all:
     default_target: True
     input:
         final_outputs(),
+
+
+onsuccess:
+    print(run_summary())

@@ -7,19 +7,22 @@ from pathlib import Path
 from snakemake.utils import validate
 
 sys.path.insert(0, str(Path(workflow.basedir) / "workflow"))
-from flakelight import PROPAGATION_MODULES, SHARD_MODULES  # noqa: E402
+from flakelight.configcheck import cross_problems  # noqa: E402
+from flakelight.provenance import adapter_files  # noqa: E402
+from flakelight import io  # noqa: E402
 from flakelight.io import campaign_listing as campaign_listing_rows, canonical_json_hash, snapshot_json  # noqa: E402
 from flakelight.sharding import shard_name, shard_of_file  # noqa: E402
 
 
 validate(config, schema="../schemas/config.schema.json")
+if cross_problems(config):  # before any job: one line per problem, each with its key path
+    sys.exit("flakelight: the config has problems:\n  " + "\n  ".join(cross_problems(config)))
 
 
 wildcard_constraints:
     shard=r"\d{3}",
 
 
-LIBRARY = Path(workflow.basedir) / "workflow" / "flakelight"
 ADAPTERS = Path(workflow.basedir) / "workflow" / "scripts"
 
 
@@ -64,6 +67,35 @@ def campaign_listing(kind):
     return tuple(campaign_listing_rows(campaign_dir(), kind))
 
 
+def campaign_problem():
+    """Why the campaign cannot be screened (missing folder, no record files), or None."""
+    folder = campaign_dir()
+    where = f"'{folder}' (config key campaign, working directory {Path.cwd()})"
+    if not folder.is_dir():
+        return f"the campaign folder {where} does not exist"
+    if not (folder / "entries").is_dir():
+        return f"the campaign folder {where} has no entries/ folder for the record files"
+    if not campaign_listing("entries"):
+        return f"the campaign folder {where} holds no record files (entries/*.json)"
+    return None
+
+
+def run_summary():
+    """Console lines that end a successful run: records read, screened, rejected (with the
+    rejects CSV and the first reasons), candidates and the page (from the run's outputs)."""
+    counts_path, manifest_path = Path("results/cache/screen_counts.json"), Path("results/manifest.json")
+    if not counts_path.exists() or not manifest_path.exists():
+        return "flakelight: run finished (no complete screen yet: rule all was not asked for)"
+    counts, manifest = io.read_json(counts_path), io.read_json(manifest_path)
+    lines = [f"flakelight: {counts['records']} record files read, {counts['screened']} screened, "
+             f"{counts['rejected']} rejected, {manifest['counts']['candidates']} candidates."]
+    if counts["rejected"]:
+        lines.append("  rejects: results/tables/rejects.csv; first reasons:")
+        lines += [f"    {reason}" for reason in counts["reasons"]]
+    lines.append("  summary page: results/summary.html; shortlist: results/shortlist.csv")
+    return "\n".join(lines)
+
+
 def shard_names():
     """Names of all shards, e.g. ['000', '001', ...]."""
     return [shard_name(i) for i in range(config["sharding"]["shards"])]
@@ -100,16 +132,12 @@ def campaign_records(wildcards):
     return snapshot("records-all", {"entries": campaign_listing("entries"), "structures": campaign_listing("structures")})
 
 
-def library_files(*modules):
-    """Library source files a rule imports, declared as inputs so code changes re-run it."""
-    names = dict.fromkeys(("__init__", "units", "io") + modules)
-    return [str(LIBRARY / f"{m}.py") for m in names]
-
-
-def code_files(adapter_name, *modules):
-    """Sources behind a job: its adapter, the adapters' argument parser and the library
-    modules it imports (declared as inputs: editing any of them re-runs the rule)."""
-    return [str(ADAPTERS / f"{adapter_name}.py"), str(ADAPTERS / "adapter_args.py")] + library_files(*modules)
+def code_files(adapter_name):
+    """Sources behind a job, declared as inputs so that editing any of them re-runs it: the
+    adapter, the helpers it imports and every library module reachable through imports
+    from it, plus the schemas (derived from the code by flakelight.provenance, never listed
+    by hand)."""
+    return adapter_files(ADAPTERS / f"{adapter_name}.py")
 
 
 def physics_settings():
@@ -177,3 +205,8 @@ def manifest_settings(wildcards):
 def summary_settings(wildcards):
     """Settings of the write_summary job: the whole config and the history folder."""
     return snapshot("summary", {"settings": config, "history": "results/history"})
+
+
+# Start-up checks: stop before any job (and before results/ is touched) with a one-line reason.
+if campaign_problem():
+    sys.exit(f"flakelight: {campaign_problem()}; nothing was run and results/ is unchanged")

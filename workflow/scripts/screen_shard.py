@@ -12,13 +12,13 @@ records = io.read_json(job.one("input", "records"))
 cache = str(Path(settings["cache_root"]) / job.wildcards["shard"])
 outputs = {name: job.one("output", name) for name in job.output}
 table = job.one("input", "table")
-pipeline.run_shard(
+counts = pipeline.run_shard(
     entry_paths=pipeline.listed_paths(settings["campaign"], records, "entries"),
     campaign=settings["campaign"],
     settings=settings["physics"],
     table_path=table,
     cache_dir=cache,
-    outputs={k: v for k, v in outputs.items() if k != "uncertainty"},
+    outputs={k: v for k, v in outputs.items() if k not in ("uncertainty", "counts")},
 )
 pipeline.run_propagation(
     entries_path=outputs["entries"],
@@ -28,4 +28,5 @@ pipeline.run_propagation(
     cache_dir=cache,
     output=outputs["uncertainty"],
 )
+io.write_json(counts, outputs["counts"])
 io.end_job()  # last statement: skips the interpreter teardown (see io.end_job)
