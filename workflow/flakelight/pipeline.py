@@ -58,8 +58,29 @@ def _empty_rejects() -> pd.DataFrame:
 
 def _reject_rows(stem: str, source: str, problems: Sequence[contract.Problem], stage: str,
                  input_hash: str, stamps: Mapping[str, str]) -> list[dict]:
+    stem, source = io.printable_name(stem), io.printable_name(source)
     return [{"entry_id": stem, "source_file": source, "field": p.field, "reason": p.reason,
              "stage": stage, "input_hash": input_hash, **stamps} for p in problems]
+
+
+#: Reject stages that depend on other files or on the file's name, not on its content
+#: alone: never taken from the per-record cache (always decided afresh).
+CONTEXT_STAGES = ("skipped", "duplicate")
+
+
+def case_variants(stems: Sequence[str]) -> dict[str, list[str]]:
+    """For every stem that equals another one apart from letter case, the others.
+
+    The rule (see README, "Input records"): identifiers that differ only in case
+    name the same compound on a case-insensitive file system, so all of them are
+    rejected together, each reject naming the others, whatever their content and
+    in any listing order. Stems without such a sibling are not in the result.
+    """
+    groups: dict[str, list[str]] = {}
+    for stem in stems:
+        groups.setdefault(stem.casefold(), []).append(stem)
+    return {stem: sorted(s for s in group if s != stem)
+            for group in groups.values() if len(group) > 1 for stem in group}
 
 
 def _load_cache(cache_dir: Path, stamps: Mapping[str, str]) -> dict[str, pd.DataFrame]:
@@ -184,44 +205,49 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
     cache = _load_cache(Path(cache_dir), stamps)
     cached_keys = set()
     if cache:
+        old_rejects = cache["rejects"]
+        cache["rejects"] = old_rejects[~old_rejects["stage"].isin(CONTEXT_STAGES)] if len(old_rejects) else old_rejects
         cached_keys = set(_file_keys(cache["entries"])) | set(_file_keys(cache["rejects"]))
 
     reused: set[str] = set()
     new_entries, new_valleys, reject_rows = [], [], []
-    seen: dict[str, str] = {}
+    readable = [p for p in entry_paths if io.skip_reason(os.path.basename(p), "entries") is None]
+    siblings = case_variants([Path(p).stem for p in readable])
     memo_path = Path(cache_dir) / "structures.json"
     memo: dict = _load_structure_memo(memo_path, stamps["code_version"])
     memo_size = len(memo)
     for path in sorted(entry_paths):
         stem = Path(path).stem
         source = os.path.basename(path)
+        skipped = io.skip_reason(source, "entries")
+        if skipped:  # listed so the user sees it, never opened
+            reject_rows += _reject_rows(stem, source, [contract.Problem("(file name)", skipped)], "skipped",
+                                        "", stamps)
+            continue
         raw = io.read_record(path)
-        cif_bytes, cif_hash = None, ""
+        cif_bytes, cif_hash, cif_problem = None, "", "file not found"
         if raw.error is None and isinstance(raw.data, dict) and isinstance(raw.data.get("structure_file"), str):
             name = raw.data["structure_file"]
             if "/" not in name and "\\" not in name and not name.startswith("."):
-                cif_bytes, _ = io.read_text_limited(structures_dir / name)
+                cif_bytes, cif_problem = io.read_text_limited(structures_dir / name)
                 if cif_bytes is not None:
                     cif_hash = io.sha256_bytes(cif_bytes)
         input_hash = io.sha256_bytes((raw.sha256 + cif_hash).encode())[:32]
 
-        key = stem.casefold()
-        if key in seen:
+        if stem in siblings:
+            others = ", ".join(f"{s}.json" for s in siblings[stem])
             reject_rows += _reject_rows(stem, source, [contract.Problem(
-                "id", f"duplicate identifier: {seen[key]!r} already names a record (identifiers are "
-                      "compared without regard to case)")], "duplicate", input_hash, stamps)
+                "id", f"duplicate identifier: {source} and {others} differ only in letter case; all of them "
+                      "are rejected until one is renamed or removed")], "duplicate", input_hash, stamps)
             continue
-        seen[key] = stem
         if _file_key(stem, input_hash) in cached_keys:
             reused.add(_file_key(stem, input_hash))
             continue
         if raw.error is not None:
-            reject_rows += _reject_rows(stem, source, [contract.Problem("(file)", raw.error)], "read",
+            reject_rows += _reject_rows(stem, source, [contract.Problem(raw.error_field, raw.error)], "read",
                                         input_hash, stamps)
             continue
-        problems = checker.check(raw.data, stem=stem,
-                                 structure_exists=lambda n: (structures_dir / n).is_file()
-                                 and "/" not in n and not n.startswith("."))
+        problems = checker.check(raw.data, stem=stem, structure_problem=lambda _name, why=cif_problem: why)
         if problems:
             reject_rows += _reject_rows(stem, source, problems, "contract", input_hash, stamps)
             continue
@@ -236,7 +262,8 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
             norm = ingest.normalize(raw.data, source_file=source, input_hash=input_hash, max_layers=max_layers,
                                     geometry=geometry, structure_hash=cif_hash or None,
                                     non_layered=settings["structure"]["non_layered"],
-                                    reconcile_rel_tol=settings["structure"]["reconcile_rel_tol"])
+                                    reconcile_rel_tol=settings["structure"]["reconcile_rel_tol"],
+                                    fit_exponent=bool(settings["layers"]["fit_exponent"]))
         except ingest.Rejected as exc:
             reject_rows += _reject_rows(stem, source, exc.problems, "normalise", input_hash, stamps)
             continue
@@ -390,6 +417,16 @@ def write_manifest(entry_paths: Sequence[str], structure_paths: Sequence[str], w
     import datetime
 
     wide = io.read_parquet(wide_path)
+    hashes: dict[str, dict[str, str]] = {"entries": {}, "structures": {}}
+    not_read: dict[str, str] = {}
+    for kind, paths in (("entries", entry_paths), ("structures", structure_paths)):
+        for p in paths:
+            digest, reason = io.campaign_file_digest(p, kind)
+            name = io.printable_name(os.path.basename(p))
+            if digest is None:
+                not_read[f"{kind}/{name}"] = reason
+            else:
+                hashes[kind][name] = digest
     manifest = {
         "tool": "flakelight",
         "written_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
@@ -399,11 +436,11 @@ def write_manifest(entry_paths: Sequence[str], structure_paths: Sequence[str], w
         "config_hash": config_hash,
         "config": dict(config),
         "packages": package_versions(),
-        "inputs": {
-            "entries": {os.path.basename(p): io.sha256_file(p) for p in entry_paths},
-            "structures": {os.path.basename(p): io.sha256_file(p) for p in structure_paths},
-        },
-        "counts": {"records": len(entry_paths), "screened": len(wide),
+        "inputs": hashes,
+        # listed files that were skipped (near-miss names) or could not be read, with the reason
+        "not_read": not_read,
+        "counts": {"records": sum(io.skip_reason(os.path.basename(p), "entries") is None for p in entry_paths),
+                   "screened": len(wide),
                    "candidates": int(wide["meets_all_criteria"].sum()) if len(wide) else 0},
         "cautions": CAUTIONS,
     }
