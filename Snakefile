@@ -21,5 +21,9 @@ rule all:
         final_outputs(),
 
 
+onstart:
+    remove_old_snapshots()
+
+
 onsuccess:
     print(run_summary())

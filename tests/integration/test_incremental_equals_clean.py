@@ -18,8 +18,8 @@ Both runs use the same copy of the workflow (``Snakefile``, ``workflow/``, ``con
 ``envs/``) in a temporary folder, so a code operation never touches the checkout.
 The clean run of a state already seen is taken from a memo keyed by the state's
 content (campaign names and bytes, config, workflow sources, history), and the clean
-run's Keldysh table is built once per digest of the whole library copy (not of the
-modules the workflow says it depends on: the memo must not trust the code under test).
+run's Keldysh table is built once per digest of the sources its job imports (the import
+graph, which tests/integration/test_code_keys.py checks against the modules it loads).
 
 Steps: ``FLAKELIGHT_DIFF_STEPS`` (default 50, the CI run); a longer run, e.g.
 ``FLAKELIGHT_DIFF_STEPS=400``, explores more. The sequence is the same on every run
@@ -44,6 +44,8 @@ import pytest
 import yaml
 from hypothesis import HealthCheck, Phase, assume, given, seed, settings
 from hypothesis import strategies as st
+
+from flakelight import provenance
 
 REPO = Path(__file__).resolve().parents[2]
 STEPS = int(os.environ.get("FLAKELIGHT_DIFF_STEPS", "50"))
@@ -264,6 +266,14 @@ class Campaign:
                "--configfile", str(work / "config.yaml"), "--cores", "2"]
         return subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True, cwd=work)
 
+    def table_key(self) -> str:
+        """Digest of the sources the Keldysh table job depends on. Taken from the import graph
+        (test_code_keys.py checks it against the modules the job really loads)."""
+        library = self.checkout / "workflow" / "flakelight"
+        provenance._sources.cache_clear()  # the library copy changes between steps
+        files = provenance.adapter_files(self.checkout / "workflow" / "scripts" / "keldysh_table.py", library)
+        return hashlib.sha256(b"".join(Path(f).read_bytes() + b"\0" for f in files)).hexdigest()
+
     def state_key(self, history: Path) -> str:
         h = hashlib.sha256()
         for part in (self.inc / "campaign", self.checkout, history):
@@ -282,7 +292,7 @@ class Campaign:
             self.write_config(work)
             if history.exists():
                 shutil.copytree(history, work / "results" / "history")
-            library = _digest_tree(self.checkout / "workflow")
+            library = self.table_key()
             if library in self.tables_memo:
                 target = work / "results" / "cache" / "keldysh_table.npz"
                 target.parent.mkdir(parents=True, exist_ok=True)

@@ -248,14 +248,18 @@ def test_atomic_write_clears_leftovers_of_a_killed_writer(tmp_path):
 
 def test_snapshot_name_follows_content(tmp_path):
     # source: common practice (content-addressed file names: same content, same name;
-    # new content, new and newer file; stale siblings removed, other prefixes kept)
+    # new content, new and newer file; writing never removes anything)
     first = io.snapshot_json(tmp_path, "rank", {"t": 300.0})
     assert io.snapshot_json(tmp_path, "rank", {"t": 300.0}) == first
     other = io.snapshot_json(tmp_path, "rank-x", {"t": 300.0})
     second = io.snapshot_json(tmp_path, "rank", {"t": 77.0})
     assert second != first and io.read_json(second) == {"t": 77.0}
-    assert sorted(p.name for p in tmp_path.iterdir()) == sorted([Path(second).name, Path(other).name])
-    # back to the first content: written anew, so it is newer than anything made in between
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(Path(p).name for p in (first, second, other))
+    # a real run removes what it does not use; back to the first content later, the file
+    # is written anew, so it is newer than anything made in between
+    (tmp_path / "notes.json").write_text("{}")
+    assert io.remove_snapshots_except(tmp_path, {second, other}) == [Path(first).name]
+    assert (tmp_path / "notes.json").exists()
     again = io.snapshot_json(tmp_path, "rank", {"t": 300.0})
     assert again == first and Path(again).stat().st_mtime_ns >= Path(other).stat().st_mtime_ns
 

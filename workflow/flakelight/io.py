@@ -374,26 +374,41 @@ def snapshot_json(folder: str | os.PathLike, prefix: str, content: Any) -> str:
     The file name carries a digest of the content, so a rule that takes the file
     as input re-runs exactly when the content changes: the name changes (Snakemake's
     ``input`` trigger) and the new file is newer than the rule's outputs (its
-    ``mtime`` trigger). Older snapshots with the same prefix are removed, so
-    returning to an earlier content writes a fresh (newer) file again. The
-    workflow keeps job settings and campaign listings this way instead of in rule
-    ``params``.
-    """
-    import re
+    ``mtime`` trigger). The workflow keeps job settings and campaign listings this
+    way instead of in rule ``params``.
 
+    Nothing is ever removed or rewritten here (a dry run calls this too, possibly
+    while a real run reads these files): snapshots the current run does not use are
+    removed by :func:`remove_snapshots_except`, from a real run holding Snakemake's
+    lock, so that returning to an earlier content later writes a fresh (newer) file.
+    """
     text = json.dumps(content, sort_keys=True, separators=(",", ":"), default=str) + "\n"
     folder = Path(folder)
     path = folder / f"{prefix}-{sha256_bytes(text.encode('utf-8'))[:16]}.json"
     if not path.exists():
         write_text(text, path)
-    pattern = re.compile(re.escape(prefix) + r"-[0-9a-f]{16}\.json")
-    for old in folder.glob(f"{prefix}-*.json"):
-        if old != path and pattern.fullmatch(old.name):
+    return str(path)
+
+
+def remove_snapshots_except(folder: str | os.PathLike, keep: set[str]) -> list[str]:
+    """Remove the snapshots (``<prefix>-<16 hex digits>.json``) in ``folder`` not in ``keep``.
+
+    Call only from a real run that holds the workflow's lock (Snakemake's ``onstart``),
+    with ``keep`` the snapshots that run uses. Returns the names removed.
+    """
+    import re
+
+    pattern = re.compile(r".+-[0-9a-f]{16}\.json")
+    keep = {os.path.abspath(p) for p in keep}
+    removed = []
+    for old in Path(folder).glob("*.json"):
+        if pattern.fullmatch(old.name) and os.path.abspath(old) not in keep:
             try:
                 old.unlink()
-            except FileNotFoundError:  # removed by a concurrent run
+                removed.append(old.name)
+            except FileNotFoundError:
                 pass
-    return str(path)
+    return sorted(removed)
 
 
 def load_schema(name: str) -> dict:

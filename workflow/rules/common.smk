@@ -111,14 +111,29 @@ def _shard_rows():
     return rows
 
 
+#: Snapshots this Snakemake process uses (kept by `remove_old_snapshots`).
+SNAPSHOTS_USED = set()
+
+
 def snapshot(prefix, content):
     """Path of the content-addressed JSON snapshot `prefix` (written when new).
 
     Rules take their settings and listings as such files, never as `params`: a changed
     value re-runs the rule under any re-run trigger, and Snakemake, holding no params and
     running no `script:` jobs, never loads pandas (a quarter of a second on every run).
+    Writing one never removes another: dry runs call this too (see `remove_old_snapshots`).
     """
-    return snapshot_json(SNAPSHOTS, prefix, content)
+    path = snapshot_json(SNAPSHOTS, prefix, content)
+    SNAPSHOTS_USED.add(path)
+    return path
+
+
+def remove_old_snapshots():
+    """Remove the snapshots this run does not use (called by `onstart`, which Snakemake runs
+    only in a real run, holding the lock, after planning: a dry run never removes a file
+    that a running run reads)."""
+    if Path(SNAPSHOTS).is_dir():
+        io.remove_snapshots_except(SNAPSHOTS, SNAPSHOTS_USED)
 
 
 def shard_records(wildcards):
