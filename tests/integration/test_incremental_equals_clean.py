@@ -33,6 +33,7 @@ import hashlib
 import json
 import os
 import shutil
+import signal
 import subprocess
 import sys
 import tempfile
@@ -264,7 +265,8 @@ class Campaign:
     def start(self, work: Path) -> subprocess.Popen:
         cmd = [sys.executable, "-m", "snakemake", "-s", str(self.checkout / "Snakefile"), "--directory", str(work),
                "--configfile", str(work / "config.yaml"), "--cores", "2"]
-        return subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True, cwd=work)
+        return subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True, cwd=work,
+                                start_new_session=True)
 
     def table_key(self) -> str:
         """Digest of the sources the Keldysh table job depends on. Taken from the import graph
@@ -298,9 +300,15 @@ class Campaign:
                 target.parent.mkdir(parents=True, exist_ok=True)
                 shutil.copy(self.tables_memo[library], target)  # newer than every source: not rebuilt
             clean = self.start(work)
-        got = outputs(self.inc, incremental)
+        try:
+            got = outputs(self.inc, incremental)
+            outcome = outputs(work, clean) if clean is not None else None
+        finally:  # never leave a run behind (a failed comparison, an interrupted test)
+            for run in (incremental, clean):
+                if run is not None and run.poll() is None:
+                    os.killpg(run.pid, signal.SIGKILL)
+                    run.wait()
         if clean is not None:
-            outcome = outputs(work, clean)
             if outcome["exit"] == 0 and library not in self.tables_memo:
                 kept = self.root / f"keldysh-{len(self.tables_memo)}.npz"
                 shutil.copy(work / "results" / "cache" / "keldysh_table.npz", kept)
