@@ -54,8 +54,8 @@ SEED = os.environ.get("FLAKELIGHT_DIFF_SEED")
 POOL_SIZE = 12
 START_RECORDS = 7
 SHARDS = 2
-TABLES = ("entries", "valleys", "rejects", "screen_long", "screen_wide", "changes")
-TEXT_OUTPUTS = ("shortlist.csv", "tables/rejects.csv")
+TABLES = ("entries", "valleys", "rejects", "screen_long", "screen_wide", "changes", "attribution", "refinement")
+TEXT_OUTPUTS = ("shortlist.csv", "tables/rejects.csv", "refinement.csv")
 
 #: Config values the operations switch between (section, key, choices).
 CONFIG_CHOICES = [

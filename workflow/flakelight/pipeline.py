@@ -503,3 +503,73 @@ def run_propagation(entries_path: str, valleys_path: str, table_path: str, setti
     counts = {"computed": len(fresh), "reused": len(reused)}
     log.info("propagation done: %s", counts)
     return counts
+
+
+def run_attribution(entries_path: str, valleys_path: str, uncertainty_path: str, table_path: str,
+                    settings: Mapping, cache_dir: str, output: str) -> dict[str, int]:
+    """Variance-based attribution of one shard's borderline verdicts, re-computing only changed records.
+
+    A record is attributed when its ``p_meets_all`` (the propagation's table)
+    lies in ``refinement.band``. Each record's design depends only on the
+    campaign seed and its identifier, so a cached row equals a fresh one
+    whenever ``input_hash``, ``physics_hash``, the settings and the code match.
+    """
+    from flakelight import refinement
+
+    entries = io.read_parquet(entries_path)
+    probabilities = io.read_parquet(uncertainty_path, columns=["entry_id", "p_meets_all"])
+    stamps = {"settings_hash": io.canonical_json_hash(dict(settings))[:16],
+              "code_version": stage_code_version()}
+    ref = settings["refinement"]
+    chosen = set(probabilities["entry_id"][refinement.borderline(probabilities["p_meets_all"], ref["band"])]) \
+        if ref["enabled"] else set()
+    entries = entries[_is_in(entries["entry_id"], chosen)] if chosen else entries.iloc[:0]
+    entries = entries.assign(p_meets_all=entries["entry_id"].map(
+        probabilities.set_index("entry_id")["p_meets_all"]).to_numpy(dtype=float))
+    cache_path = Path(cache_dir) / "attribution.parquet"
+    keys = _record_keys(entries)
+    reused = pd.DataFrame()
+    if len(entries) and cache_path.exists() and \
+            io.parquet_metadata(cache_path) == {**io.parquet_metadata(cache_path), **stamps}:
+        old = io.read_parquet(cache_path)
+        reused = old[_is_in(_record_keys(old), set(keys))] if len(old) else old
+    done = set(reused["entry_id"]) if len(reused) else set()
+    todo = entries[~_is_in(entries["entry_id"], done)] if done else entries
+    if len(todo):
+        valleys = io.read_parquet(valleys_path)
+        valleys = valleys[_is_in(valleys["entry_id"], set(todo["entry_id"]))]
+        table = KeldyshTable.from_arrays(io.load_arrays(table_path))
+        fresh = refinement.attribute(todo, valleys, settings, table)
+    else:
+        fresh = refinement.empty_frame()
+    frame = pd.concat([f for f in (fresh, reused) if len(f)] or [fresh], ignore_index=True)
+    frame = frame.sort_values(["entry_id", "output", "input_group"], kind="stable").reset_index(drop=True)
+    io.write_parquet(frame, output, units=refinement.UNITS, descriptions=refinement.DESCRIPTIONS,
+                     table_metadata=stamps)
+    io.copy_file(output, cache_path)
+    counts = {"borderline": len(entries), "computed": int(todo["entry_id"].nunique()) if len(todo) else 0,
+              "reused": len(done)}
+    log.info("attribution done: %s", counts)
+    return counts
+
+
+def run_refinement_list(attribution_paths: Sequence[str], settings: Mapping, outputs: Mapping[str, str],
+                        config_hash: str) -> int:
+    """Join the shards' attribution rows; write them, the ranked refinement list and its CSV."""
+    from flakelight import refinement
+
+    frame = _concat(attribution_paths)
+    if not len(frame):
+        frame = refinement.empty_frame()
+    frame = frame.sort_values(["entry_id", "output", "input_group"], kind="stable").reset_index(drop=True)
+    ref = settings["refinement"]
+    ranked = refinement.refinement_list(frame, effect=ref["effect"], per_entry=int(ref["per_compound"]))
+    meta = {"config_hash": config_hash}
+    io.write_parquet(frame, outputs["attribution"], units=refinement.UNITS, descriptions=refinement.DESCRIPTIONS,
+                     table_metadata=meta)
+    io.write_parquet(ranked, outputs["refinement"], units=refinement.UNITS, descriptions=refinement.DESCRIPTIONS,
+                     table_metadata=meta)
+    io.write_csv(refinement.display_frame(ranked), outputs["csv"])
+    log.info("refinement list: %d rows from %d compounds", len(ranked),
+             ranked["entry_id"].nunique() if len(ranked) else 0)
+    return len(ranked)

@@ -75,6 +75,15 @@ def imported_modules(source: str, local: Iterable[str] = ()) -> set[str]:
     return found
 
 
+def declared_data_files(source: str) -> list[str]:
+    """The module-level ``DATA_FILES`` tuple of a source (files the module reads at run time,
+    relative to the library folder, e.g. the page's templates), read without importing it."""
+    for node in ast.parse(source).body:
+        if isinstance(node, ast.Assign) and any(getattr(t, "id", None) == "DATA_FILES" for t in node.targets):
+            return [str(name) for name in ast.literal_eval(node.value)]
+    return []
+
+
 def module_closure(entry: str, sources: Mapping[str, str], local: Iterable[str] = ()) -> frozenset[str]:
     """Every module reachable from ``entry`` through imports (``entry`` included).
 
@@ -110,24 +119,31 @@ def stage_modules(entry: str, library: Path = io.LIBRARY_DIR) -> frozenset[str]:
 
 
 def code_version(entry: str, library: Path = io.LIBRARY_DIR) -> str:
-    """Short digest of a stage's code: the sources of :func:`stage_modules` and the schemas
-    (the ``schemas`` folder beside ``library``)."""
+    """Short digest of a stage's code: the sources of :func:`stage_modules`, the data files
+    they declare and the schemas (the ``schemas`` folder beside ``library``)."""
     library = Path(library)
     sources = _sources(library)
-    parts = {f"{m}.py": sources[m] for m in stage_modules(entry, library)}
+    modules = stage_modules(entry, library)
+    parts = {f"{m}.py": sources[m] for m in modules}
+    for m in sorted(modules):
+        for name in declared_data_files(sources[m]):
+            parts[name] = io.read_source(library / name)
     parts.update({f"schemas/{name}": text for name, text in io.schema_sources(library.parent / "schemas").items()})
     return io.canonical_json_hash(parts)[:16]
 
 
 def adapter_files(adapter: str | Path, library: Path = io.LIBRARY_DIR) -> list[str]:
     """Source files behind an adapter script: itself, the sibling helpers it imports, every
-    library module in their import closure and the schemas (paths; the adapter first)."""
+    library module in their import closure, the data files those modules declare
+    (:func:`declared_data_files`) and the schemas (paths; the adapter first)."""
     adapter, library = Path(adapter), Path(library)
     siblings = {p.stem: p for p in adapter.parent.glob("*.py")}
     sources = {f"local:{n}": io.read_source(p) for n, p in siblings.items()}
     sources.update(_sources(library))
     reached = module_closure(f"local:{adapter.stem}", sources, local=siblings) - {f"local:{adapter.stem}"}
     files = [str(siblings[m.split(":", 1)[1]]) for m in reached if m.startswith("local:")]
-    files += [str(library / f"{m}.py") for m in reached if not m.startswith("local:")]
+    modules = [m for m in reached if not m.startswith("local:")]
+    files += [str(library / f"{m}.py") for m in modules]
+    files += [str(library / name) for m in modules for name in declared_data_files(sources[m])]
     files += [str(p) for p in io.schema_files(library.parent / "schemas")]
     return [str(adapter)] + sorted(files)

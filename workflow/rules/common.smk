@@ -1,4 +1,5 @@
 # Helper functions, config validation and wildcard constraints. No rules here.
+import ast
 import functools
 import shlex
 import sys
@@ -149,9 +150,9 @@ def campaign_records(wildcards):
 
 def code_files(adapter_name):
     """Sources behind a job, declared as inputs so that editing any of them re-runs it: the
-    adapter, the helpers it imports and every library module reachable through imports
-    from it, plus the schemas (derived from the code by flakelight.provenance, never listed
-    by hand)."""
+    adapter, the helpers it imports, every library module reachable through imports from
+    it, the data files those modules declare (``DATA_FILES``: the page's templates) and the
+    schemas (derived from the code by flakelight.provenance, never listed by hand)."""
     return adapter_files(ADAPTERS / f"{adapter_name}.py")
 
 
@@ -184,6 +185,8 @@ def final_outputs():
         "results/tables/entries.parquet",
         "results/tables/rejects.parquet",
         "results/shortlist.csv",
+        "results/tables/refinement.parquet",
+        "results/refinement.csv",
         "results/manifest.json",
         "results/summary.html",
     ]
@@ -199,6 +202,17 @@ def screen_settings(wildcards):
     return snapshot("screen", {"physics": physics_settings(), "uncertainty": uncertainty_settings(),
                                "campaign": str(campaign_dir()), "shards": config["sharding"]["shards"],
                                "cache_root": "results/cache/shards"})
+
+
+def attribution_settings(wildcards):
+    """Settings of the attribute_shard jobs: the propagation's sections plus refinement."""
+    return snapshot("attribution", {"settings": {**uncertainty_settings(), "refinement": config["refinement"]},
+                                    "cache_root": "results/cache/shards"})
+
+
+def refinement_list_settings(wildcards):
+    """Settings of the refinement_list job."""
+    return snapshot("refinement", {"settings": {"refinement": config["refinement"]}, "config_hash": config_hash()})
 
 
 def rank_settings(wildcards):
