@@ -53,7 +53,7 @@ STEPS = int(os.environ.get("FLAKELIGHT_DIFF_STEPS", "50"))
 SEED = os.environ.get("FLAKELIGHT_DIFF_SEED")
 POOL_SIZE = 12
 START_RECORDS = 7
-SHARDS = 2
+SHARDS = 1  # one shard job per run: every process costs a second on 2 cores
 TABLES = ("entries", "valleys", "rejects", "screen_long", "screen_wide", "changes", "attribution", "refinement")
 TEXT_OUTPUTS = ("shortlist.csv", "tables/rejects.csv", "refinement.csv")
 
@@ -123,6 +123,7 @@ class Campaign:
         self.config = yaml.safe_load((REPO / "config" / "config.yaml").read_text())
         self.config["campaign"] = "campaign"
         self.config["sharding"]["shards"] = SHARDS
+        self.config["refinement"]["samples"] = 16
         for section, key, choices in CONFIG_CHOICES:
             self.config[section][key] = choices[0]
         self.write_config(self.inc)
