@@ -292,9 +292,9 @@ def physical_problems(record: dict, *, stem: str,
     has_structure = "structure_file" in record
     if has_structure:
         reason = structure_problem(record["structure_file"])
-        if reason == "file not found":
-            out.append(Problem("structure_file",
-                               f"referenced structure {record['structure_file']!r} not found in structures/"))
+        if reason and reason.startswith("file not found"):
+            out.append(Problem("structure_file", f"referenced structure {record['structure_file']!r} not found "
+                                                  f"in structures/{reason[len('file not found'):]}"))
         elif reason:
             sep = " " if reason.startswith("is ") else ": "
             out.append(Problem("structure_file", f"referenced structure {record['structure_file']!r}{sep}{reason}"))

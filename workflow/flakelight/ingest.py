@@ -166,6 +166,8 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
         "energy_reference": record["energy_reference"],
         "structure_file": record.get("structure_file", ""),
         "structure_hash": structure_hash or "",
+        # files an imported record was generated from (path -> SHA-256), for the change report
+        "source_hashes": " ".join(f"{k}={v}" for k, v in sorted(record.get("sources", {}).items())),
         "dielectric_frame": diel["frame"],
         "normal_x": float(normal[0]), "normal_y": float(normal[1]), "normal_z": float(normal[2]),
         "normal_source": normal_source,
@@ -281,7 +283,7 @@ def _extreme_valley(values: np.ndarray, mask: np.ndarray, pick) -> int:
 
 ENTRY_COLUMNS = [
     "entry_id", "source_file", "input_hash", "formula", "provenance", "energy_reference",
-    "structure_file", "structure_hash", "dielectric_frame", "normal_x", "normal_y", "normal_z",
+    "structure_file", "structure_hash", "source_hashes", "dielectric_frame", "normal_x", "normal_y", "normal_z",
     "normal_source", *[f"eps_inf_{c}" for c, _, _ in TENSOR_COMPONENTS],
     *[f"eps_static_{c}" for c, _, _ in TENSOR_COMPONENTS], "eps_rel_unc", "spacing_angstrom",
     "spacing_source", "lattice_angstrom", "lattice_source", "is_layered_structure", "vdw_gap_angstrom",
@@ -300,7 +302,7 @@ def valley_columns(max_layers: int) -> list[str]:
 #: Columns of the entry and valley tables that hold text or flags (the rest are float64).
 STRING_COLUMNS = {
     "entry_id", "source_file", "input_hash", "formula", "provenance", "energy_reference", "structure_file",
-    "structure_hash", "dielectric_frame", "normal_source", "spacing_source", "lattice_source", "r0_source",
+    "structure_hash", "source_hashes", "dielectric_frame", "normal_source", "spacing_source", "lattice_source", "r0_source",
     "warnings", "label", "band", "mass_source", "physics_hash", "code_version",
 }
 BOOLEAN_COLUMNS = {"is_layered_structure", "mass_nonparabolic"}

@@ -142,6 +142,16 @@ def _fmt_score(x: float) -> str:
     return "n/a" if x is None or not np.isfinite(x) else f"{x:.3f}"
 
 
+def revised_sources(old: str, new: str) -> list[str]:
+    """Source files (of an imported record) whose hash differs between two ``source_hashes`` texts
+    ("path=sha256 path=sha256 ..."), plus files added or removed; empty when either side has none."""
+    if not old or not new:
+        return []
+    a = dict(item.split("=", 1) for item in old.split())
+    b = dict(item.split("=", 1) for item in new.split())
+    return sorted(k for k in set(a) | set(b) if a.get(k) != b.get(k))
+
+
 def compare_runs(previous: pd.DataFrame | None, current: pd.DataFrame) -> pd.DataFrame:
     """Compare the ranked snapshot of the previous run with this run's.
 
@@ -184,6 +194,8 @@ def compare_runs(previous: pd.DataFrame | None, current: pd.DataFrame) -> pd.Dat
     both["rel_old"] = both["rank_old"].where(common).rank(method="first")
     both["rel_new"] = both["rank_new"].where(common).rank(method="first")
 
+    source_old, source_new = (dict(zip(f["entry_id"].astype(str), f["source_hashes"].fillna("").astype(str)))
+                              if "source_hashes" in f.columns else {} for f in (previous, current))
     rows = []
     for rec in both.itertuples(index=False):
         side = rec.side
@@ -214,7 +226,8 @@ def compare_runs(previous: pd.DataFrame | None, current: pd.DataFrame) -> pd.Dat
                 parts.append("no longer meets all criteria")
             if revised:
                 kinds.append("input revised")
-                parts.append("record or structure file changed")
+                files = revised_sources(source_old.get(rec.entry_id, ""), source_new.get(rec.entry_id, ""))
+                parts.append(f"revised {', '.join(files)}" if files else "record or structure file changed")
             if moved:
                 kinds.append("rank moved")
                 step = int(old_rank - new_rank)
@@ -843,9 +856,12 @@ def write_summary(inputs: Mapping[str, str], outputs: Mapping[str, str], setting
     manifest = io.read_json(inputs["manifest"])
     entries = io.read_parquet(inputs["entries"]) if inputs.get("entries") else None
     if entries is not None:
-        entries = entries[[c for c in ("entry_id", "provenance") if c in entries.columns]]
+        entries = entries[[c for c in ("entry_id", "provenance", "source_hashes") if c in entries.columns]]
     config_hash = str(manifest.get("config_hash", ""))
     current = snapshot(ranked, run_utc=str(manifest.get("written_utc", "")), config_hash=config_hash)
+    if entries is not None and "source_hashes" in entries.columns:
+        sources = dict(zip(entries["entry_id"].astype(str), entries["source_hashes"].astype(str)))
+        current["source_hashes"] = pd.array([sources.get(str(e), "") for e in current["entry_id"]], dtype="string")
 
     folder = Path(history)
     last = _read_snapshot(folder / LAST_SNAPSHOT)

@@ -33,7 +33,7 @@ rule check_screen:
 rule rank_candidates:
     input:
         checked=rules.check_screen.output.counts,
-        rejects=shard_outputs("rejects"),
+        rejects=shard_outputs("rejects") + import_outputs("rejects"),
         long=shard_outputs("exciton_long"),
         wide=shard_outputs("exciton_wide"),
         uncertainty=shard_outputs("uncertainty"),
