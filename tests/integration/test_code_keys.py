@@ -64,6 +64,8 @@ def traces(tmp_path_factory) -> list[dict]:
     work = tmp_path_factory.mktemp("traced")
     subprocess.run([sys.executable, str(REPO / "inputs" / "make_campaign.py"), "--out", str(work / "campaign"),
                     "--count", "5", "--cif-fraction", "0.6", "--seed", "4"], check=True, capture_output=True)
+    # the demo's calculations too, so that the import stage runs as well
+    shutil.copytree(REPO / "inputs" / "demo" / "calculations", work / "campaign" / "calculations")
     config = yaml.safe_load((REPO / "config" / "config.yaml").read_text())
     config["campaign"] = "campaign"
     config["sharding"]["shards"] = 1
@@ -85,9 +87,8 @@ def traces(tmp_path_factory) -> list[dict]:
 
 
 def test_every_job_was_traced(traces):
-    # every adapter of the workflow ran (and was traced) in the run, except the import of
-    # calculations, which runs only for a campaign with a calculations/ folder
-    adapters = {p.stem for p in ADAPTERS.glob("*.py")} - {"adapter_args", "import_calculations"}
+    # every adapter of the workflow ran (and was traced) in the run
+    adapters = {p.stem for p in ADAPTERS.glob("*.py")} - {"adapter_args"}
     assert {Path(t["script"]).stem for t in traces} == adapters
 
 
