@@ -21,8 +21,10 @@ content (campaign names and bytes, config, workflow sources, history), and the c
 run's Keldysh table is built once per digest of the sources its job imports (the import
 graph, which tests/integration/test_code_keys.py checks against the modules it loads).
 
-Steps: ``FLAKELIGHT_DIFF_STEPS`` (default 50, the CI run); a longer run, e.g.
-``FLAKELIGHT_DIFF_STEPS=400``, explores more. The sequence is the same on every run
+Steps: ``FLAKELIGHT_DIFF_STEPS``; by default 50 when the ``CI`` environment variable is
+set (``.ci/run`` sets it) and 12 otherwise (each step runs the workflow twice, a few
+seconds on an idle 2-core machine); a longer run, e.g. ``FLAKELIGHT_DIFF_STEPS=400``,
+explores more. The sequence is the same on every run
 (derandomised) unless ``FLAKELIGHT_DIFF_SEED`` is set to a number.
 """
 
@@ -49,7 +51,8 @@ from hypothesis import strategies as st
 from flakelight import provenance
 
 REPO = Path(__file__).resolve().parents[2]
-STEPS = int(os.environ.get("FLAKELIGHT_DIFF_STEPS", "50"))
+#: 50 steps in CI (.ci/run sets CI), 12 in a developer's run on a shared machine.
+STEPS = int(os.environ.get("FLAKELIGHT_DIFF_STEPS", "50" if os.environ.get("CI") else "12"))
 SEED = os.environ.get("FLAKELIGHT_DIFF_SEED")
 POOL_SIZE = 12
 START_RECORDS = 7
