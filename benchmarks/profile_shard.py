@@ -47,7 +47,7 @@ def main() -> None:
     parser.add_argument("--size", type=int, default=2500)
     parser.add_argument("--out", type=Path, default=ROOT / "benchmarks" / "out" / "profile")
     args = parser.parse_args()
-    from flakelight import keldysh, pipeline
+    from flakelight import io, keldysh, pipeline
 
     out = args.out.resolve()
     shutil.rmtree(out, ignore_errors=True)
@@ -58,7 +58,7 @@ def main() -> None:
                    capture_output=True)
     cfg = yaml.safe_load((ROOT / "config" / "config.yaml").read_text())
     t = time.perf_counter()
-    pipeline.build_keldysh_table(str(out / "keldysh_table.npz"))
+    io.save_arrays(keldysh.build_table().to_arrays(), str(out / "keldysh_table.npz"))
     table_s = time.perf_counter() - t
     physics = {k: cfg[k] for k in ("layers", "structure", "environments", "monolayer", "emission_bands")}
     propagation = {k: cfg[k] for k in ("uncertainty", "survival", "ranking", "layers", "monolayer", "environments")}

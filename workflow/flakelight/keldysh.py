@@ -713,7 +713,7 @@ def _evaluate_pieces(breaks, coefs, x):
     return out
 
 
-def build_table(s_grid=None):
+def build_table(s_grid=None, workers: int = 1):
     """Tabulate ``f_n(s)`` and ``g_n(s)`` for 1s-3s with the real-space solver.
 
     Parameters
@@ -721,6 +721,8 @@ def build_table(s_grid=None):
     s_grid : array_like, optional
         Grid starting at 0 and increasing; default :func:`default_s_grid`
         (0 plus 321 points, 1e-5 ... 1e5). Takes about 4 s on one core.
+    workers : int, optional
+        Processes to solve the grid with (the table is the same, point for point).
 
     Returns
     -------
@@ -732,7 +734,15 @@ def build_table(s_grid=None):
     .. [2] X. L. Yang et al., Phys. Rev. A 43, 1186 (1991).
     """
     s_grid = default_s_grid() if s_grid is None else np.asarray(s_grid, dtype=float)
-    f, g = tabulate(s_grid)
+    if workers > 1:  # the grid points are independent: solve parts in forked processes
+        import multiprocessing
+
+        with multiprocessing.get_context("fork").Pool(workers) as pool:
+            parts = pool.map(tabulate, np.array_split(s_grid, workers))
+        f = np.concatenate([p[0] for p in parts], axis=1)
+        g = np.concatenate([p[1] for p in parts], axis=1)
+    else:
+        f, g = tabulate(s_grid)
     return table_from_levels(s_grid, f, g)
 
 
@@ -740,7 +750,7 @@ def tabulate(s_grid) -> tuple[np.ndarray, np.ndarray]:
     """Reduced 1s-3s binding energies ``f`` and rms radii ``g``, each (3, len(s_grid)), by the real-space solver.
 
     The points are independent, so a grid may be split and its parts solved apart
-    (:func:`flakelight.pipeline.build_keldysh_table` does so over processes).
+    (:func:`build_table` does so over processes).
     """
     s_grid = np.asarray(s_grid, dtype=float)
     f = np.empty((3, s_grid.size))

@@ -21,12 +21,15 @@ from typing import Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from flakelight import PROPAGATION_MODULES, REFINEMENT_MODULES, SHARD_MODULES, contract, ingest, intake, io, screen
+from flakelight import contract, ingest, intake, io, provenance, screen
 from flakelight.keldysh import KeldyshTable
 from flakelight.shard_cache import (CONTEXT_STAGES, SHARD_TABLES, PropagationCache, ShardCache,  # noqa: F401
                                     is_in, record_keys)
 
 log = logging.getLogger("flakelight")
+
+#: Reject reasons a shard passes on for the console summary (the rest are in the rejects table).
+REASONS_SHOWN = 3
 
 REJECT_COLUMNS = ["entry_id", "source_file", "field", "reason", "stage",
                   "input_hash", "physics_hash", "code_version"]
@@ -118,7 +121,7 @@ def screen_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, t
     tables : the five tables as written (for the propagation, without a re-read).
     """
     stamps = {"physics_hash": io.canonical_json_hash(dict(settings))[:16],
-              "code_version": _code_version(SHARD_MODULES)}
+              "code_version": stage_code_version()}
     max_layers = settings["layers"]["max_layers"]
     structures_dir = Path(campaign) / "structures"
     checker = contract.RecordChecker(io.load_schema("entry.schema.json"))
@@ -153,7 +156,7 @@ def screen_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, t
                 "id", f"duplicate identifier: {source} and {others} differ only in letter case; all of them "
                       "are rejected until one is renamed or removed")], "duplicate", input_hash, stamps)
             continue
-        if cache.reuse(input_hash):
+        if cache.reuse(stem, input_hash):
             continue
         outcome = intake.check_and_normalise(
             raw, stem=stem, source=source, input_hash=input_hash, cif_bytes=cif_bytes, cif_hash=cif_hash,
@@ -186,9 +189,11 @@ def screen_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, t
     for name, frame in tables.items():
         io.write_parquet(frame, outputs[name], table_metadata={**stamps, "generation": generation})
     cache.save({name: outputs[name] for name in SHARD_TABLES})
-    counts = {"screened": int(len(tables["entries"])),
-              "rejected": int(tables["rejects"]["entry_id"].nunique()) if len(tables["rejects"]) else 0,
-              "reused": len(cache.reused), "computed": len(new_entries)}
+    rejects = tables["rejects"]
+    counts = {"records": len(entry_paths), "screened": int(len(tables["entries"])),
+              "rejected": int(rejects["entry_id"].nunique()) if len(rejects) else 0,
+              "reused": len(cache.reused), "computed": len(new_entries),
+              "reasons": [f"{r.source_file}: {r.field}: {r.reason}" for r in rejects.head(REASONS_SHOWN).itertuples()]}
     log.info("shard done: %s", counts)
     return counts, tables
 
@@ -208,30 +213,6 @@ def run_shard_job(entry_paths: Sequence[str], campaign: str, physics: Mapping, p
     counts.update({f"propagation_{k}": v for k, v in run_propagation(
         tables["entries"], tables["valleys"], table, propagation, cache_dir, outputs["uncertainty"]).items()})
     return counts
-
-
-def build_keldysh_table(path: str, workers: int = 1) -> None:
-    """Compute the Rytova-Keldysh table with the accurate solver and save it.
-
-    With ``workers > 1`` the grid is split into that many parts solved in forked
-    processes; the table is the same, point for point.
-    """
-    import numpy as np
-
-    from flakelight import keldysh
-
-    grid = keldysh.default_s_grid()
-    if workers > 1:
-        import multiprocessing
-
-        with multiprocessing.get_context("fork").Pool(workers) as pool:
-            parts = pool.map(keldysh.tabulate, np.array_split(grid, workers))
-        table = keldysh.table_from_levels(grid, np.concatenate([p[0] for p in parts], axis=1),
-                                          np.concatenate([p[1] for p in parts], axis=1))
-    else:
-        table = keldysh.build_table(grid)
-    io.save_arrays(table.to_arrays(), path)
-    log.info("Keldysh table written: %d grid points", len(table.to_arrays()["s"]) if "s" in table.to_arrays() else -1)
 
 
 def _concat(paths: Sequence[str]) -> pd.DataFrame:
@@ -339,7 +320,7 @@ def write_manifest(entry_paths: Sequence[str], structure_paths: Sequence[str], w
         "tool": "flakelight",
         "written_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
         "code_version": io.library_digest(),
-        "screen_code_version": _code_version(SHARD_MODULES),
+        "screen_code_version": stage_code_version(),
         "git": git_version(workdir),
         "config_hash": config_hash,
         "config": dict(config),
@@ -365,9 +346,11 @@ CAUTIONS = [
 ]
 
 
-def _code_version(modules: Sequence[str]) -> str:
-    """Content hash of the named library modules (the code version of a stage's rows)."""
-    return io.library_digest([f"{m}.py" for m in modules])
+def stage_code_version() -> str:
+    """Code version of the shard stage (screen and propagation): a digest of every library
+    module this module can import, followed through the import graph
+    (:func:`flakelight.provenance.code_version`), and of the schemas."""
+    return provenance.code_version(__name__.rsplit(".", 1)[-1])
 
 
 def run_propagation(entries: str | pd.DataFrame, valleys: str | pd.DataFrame, table: str | KeldyshTable,
@@ -385,7 +368,7 @@ def run_propagation(entries: str | pd.DataFrame, valleys: str | pd.DataFrame, ta
     entries = io.read_parquet(entries) if isinstance(entries, (str, os.PathLike)) else entries
     valleys = io.read_parquet(valleys) if isinstance(valleys, (str, os.PathLike)) else valleys
     stamps = {"settings_hash": io.canonical_json_hash(dict(settings))[:16],
-              "code_version": _code_version(PROPAGATION_MODULES)}
+              "code_version": stage_code_version()}
     cache = PropagationCache(cache_dir, stamps)
     keys = record_keys(entries)
     reused = cache.reusable(set(keys))
@@ -417,7 +400,7 @@ def run_attribution(entries_path: str, valleys_path: str, uncertainty_path: str,
     entries = io.read_parquet(entries_path)
     probabilities = io.read_parquet(uncertainty_path, columns=["entry_id", "p_meets_all"])
     stamps = {"settings_hash": io.canonical_json_hash(dict(settings))[:16],
-              "code_version": _code_version(REFINEMENT_MODULES)}
+              "code_version": stage_code_version()}
     ref = settings["refinement"]
     chosen = set(probabilities["entry_id"][refinement.borderline(probabilities["p_meets_all"], ref["band"])]) \
         if ref["enabled"] else set()

@@ -63,8 +63,8 @@ class ShardCache:
         if self.tables:
             old = self.tables["rejects"]
             self.tables["rejects"] = old[~old["stage"].isin(CONTEXT_STAGES)] if len(old) else old
-        self.hashes = (set(self.tables["entries"]["input_hash"]) | set(self.tables["rejects"]["input_hash"])
-                       if self.tables else set())
+        self.keys = (set(file_keys(self.tables["entries"])) | set(file_keys(self.tables["rejects"]))
+                     if self.tables else set())
         self.reused: set[str] = set()
         self._memo_path = self.dir / "structures.json"
         self._memo = self._load_memo()
@@ -93,10 +93,11 @@ class ShardCache:
             return {}
         return out
 
-    def reuse(self, input_hash: str) -> bool:
-        """Whether the rows of this input come from the cache (and mark them for reuse)."""
-        if input_hash in self.hashes:
-            self.reused.add(input_hash)
+    def reuse(self, stem: str, input_hash: str) -> bool:
+        """Whether the rows of this record file come from the cache (and mark them for reuse)."""
+        key = file_key(stem, input_hash)
+        if key in self.keys:
+            self.reused.add(key)
             return True
         return False
 
@@ -105,7 +106,7 @@ class ShardCache:
         parts = [fresh]
         if self.tables:
             old = self.tables[name]
-            parts.append(old[is_in(old["input_hash"], self.reused)])
+            parts.append(old[is_in(file_keys(old), self.reused)])
         parts = [p for p in parts if len(p)]
         if not parts:
             return fresh
@@ -150,9 +151,24 @@ class ShardCache:
             io.write_json({"code_version": self.stamps["code_version"], "analyses": self._memo}, self._memo_path)
 
 
+def file_key(stem: str, input_hash: str) -> str:
+    """Cache key of a record file: its name and its content (record plus CIF bytes).
+
+    Content alone is not enough: a renamed or copied file holds the same bytes
+    under another name, and its fate (screened, or rejected for a name that does
+    not match its identifier) depends on the name.
+    """
+    return f"{stem}\0{input_hash}"
+
+
+def file_keys(frame: pd.DataFrame) -> pd.Series:
+    """:func:`file_key` of every row of a shard table (``entry_id`` is the file stem)."""
+    return frame["entry_id"].astype(str) + "\0" + frame["input_hash"].astype(str)
+
+
 def record_keys(frame: pd.DataFrame) -> pd.Series:
-    """Per-row cache key of a normalised record: its input hash and physics hash."""
-    return frame["input_hash"].astype(str) + ":" + frame["physics_hash"].astype(str)
+    """Per-row cache key of a normalised record: its file key and physics hash."""
+    return file_keys(frame) + ":" + frame["physics_hash"].astype(str)
 
 
 class PropagationCache:
