@@ -1,0 +1,147 @@
+"""Golden comparison: today's tables against the tables written by the reference commit.
+
+The reference (tests/data/golden/REFERENCE, ba2d14c: the design before issue 13)
+ran the workflow on two committed synthetic campaigns (the demo with its broken
+records and 1,000 generated records); ``tests/data/golden/make_golden.py``
+regenerates its tables and documents the runs. This test runs today's workflow
+on the same inputs with the same config overrides and requires every compared
+output to hold the same rows, columns, dtypes and values.
+
+A difference is allowed only when it is named in :data:`EXPECTED_CHANGES` with
+its reason: a physics fix, a renamed or added column, a changed hash recipe.
+Name the narrowest key that covers the change:
+
+* ``(output, column, "*")``: the column may differ (in value or dtype) in every
+  row, or may be added or removed;
+* ``(output, column, entry_id)``: the column may differ in that compound's rows;
+* ``(output, ROWS, "*")``: the set of rows may differ (rows are then matched on
+  their key columns and only common rows are compared).
+
+``output`` is the path under results/ as in ``make_golden.OUTPUTS``. When the
+reference itself moves (regenerated at a later commit), empty the entries it
+absorbs.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+REPO = Path(__file__).resolve().parents[2]
+GOLDEN = REPO / "tests" / "data" / "golden"
+sys.path.insert(0, str(GOLDEN))
+import make_golden  # noqa: E402
+
+#: Marker of a row-set change in EXPECTED_CHANGES.
+ROWS = "(rows)"
+
+#: Named differences from the reference: (output, column or ROWS, entry_id or "*") -> reason.
+EXPECTED_CHANGES: dict[tuple[str, str, str], str] = {}
+
+#: Stamps that legitimately change with any code or settings edit (never compared by value;
+#: their presence and dtype still are).
+STAMPS: dict[str, str] = {
+    "code_version": "hash of the library sources: changes with every code edit",
+    "physics_hash": "hash of the physics settings: its recipe may change without changing physics",
+    "config_hash": "hash of the whole config: changes with any config key",
+    "settings_hash": "hash of the propagation settings",
+}
+
+#: Columns that identify a row, in sort order, where present.
+KEYS = ("entry_id", "valley_index", "layers", "environment", "field", "reason", "Rank", "Compound")
+
+#: Relative tolerance of float comparisons: re-associated floating-point sums of a
+#: refactored formula may move the last bits, a changed formula moves far more.
+RTOL = 1e-9
+
+
+@pytest.fixture(scope="module", params=make_golden.CAMPAIGNS)
+def golden_run(request, tmp_path_factory):
+    """Today's workflow on a golden campaign: (campaign name, its results/ folder)."""
+    name = request.param
+    tmp = tmp_path_factory.mktemp(f"golden-{name}")
+    campaign = make_golden.unpack_inputs(name, tmp / "inputs")
+    return name, make_golden.run_workflow(REPO, campaign, tmp / "work", make_golden.TARGETS)
+
+
+def _allowed(output: str, column: str) -> tuple[bool, set[str]]:
+    """(whole column may differ, compounds whose rows may differ) for one output column."""
+    whole = (output, column, "*") in EXPECTED_CHANGES
+    records = {k[2] for k in EXPECTED_CHANGES if k[0] == output and k[1] == column and k[2] != "*"}
+    return whole, records
+
+
+def _sorted(frame: pd.DataFrame) -> pd.DataFrame:
+    keys = [k for k in KEYS if k in frame.columns]
+    return frame.sort_values(keys, kind="stable").reset_index(drop=True) if keys else frame
+
+
+def _differences(output: str, old: pd.DataFrame, new: pd.DataFrame) -> list[str]:
+    """Every unnamed difference between a golden output and today's, in words."""
+    problems = []
+    for col in sorted(set(old.columns) ^ set(new.columns)):
+        if not _allowed(output, col)[0]:
+            side = "added" if col in new.columns else "removed"
+            problems.append(f"{output}: column {col!r} {side}")
+    old, new = _sorted(old), _sorted(new)
+    keys = [k for k in KEYS if k in old.columns and k in new.columns]
+    if (output, ROWS, "*") in EXPECTED_CHANGES:
+        joined = old[keys].reset_index().merge(new[keys].reset_index(), on=keys, suffixes=("_old", "_new"))
+        old = old.loc[joined["index_old"]].reset_index(drop=True)
+        new = new.loc[joined["index_new"]].reset_index(drop=True)
+    elif len(old) != len(new) or not old[keys].astype(str).equals(new[keys].astype(str)):
+        return problems + [f"{output}: rows differ ({len(old)} golden, {len(new)} now)"]
+    ids = old["entry_id"].astype(str).to_numpy() if "entry_id" in old.columns else np.full(len(old), "")
+    for col in [c for c in old.columns if c in new.columns]:
+        whole, records = _allowed(output, col)
+        if whole:
+            continue
+        if old[col].dtype != new[col].dtype:
+            problems.append(f"{output}: {col!r} dtype {old[col].dtype} -> {new[col].dtype}")
+            continue
+        if col in STAMPS:
+            continue
+        mask = ~np.isin(ids, list(records))
+        a, b = old[col][mask], new[col][mask]
+        if pd.api.types.is_float_dtype(a.dtype):
+            x, y = a.to_numpy(dtype=float), b.to_numpy(dtype=float)
+            same = (np.isnan(x) & np.isnan(y)) | np.isclose(x, y, rtol=RTOL, atol=0.0)
+        else:
+            same = (a.isna().to_numpy() & b.isna().to_numpy()) | (a.astype(str).to_numpy() == b.astype(str).to_numpy())
+        if not same.all():
+            bad = np.flatnonzero(~same)
+            first = bad[0]
+            problems.append(f"{output}: {col!r} differs in {len(bad)} rows, e.g. entry "
+                            f"{ids[mask][first]!r}: {a.iloc[first]!r} -> {b.iloc[first]!r}")
+    return problems
+
+
+def test_expected_changes_are_named_with_reasons():
+    for key, reason in EXPECTED_CHANGES.items():
+        assert len(key) == 3 and key[0] in make_golden.OUTPUTS, key
+        assert isinstance(reason, str) and len(reason.split()) >= 3, key
+
+
+@pytest.mark.slow
+def test_tables_equal_the_reference(golden_run):
+    name, results = golden_run
+    problems = []
+    for rel in make_golden.OUTPUTS:
+        old = pd.read_parquet(GOLDEN / name / make_golden.golden_name(rel))
+        new = make_golden.golden_rows(name, rel, make_golden.read_output(results / rel))
+        problems += _differences(rel, old, new)
+    assert not problems, f"{name}: unnamed differences from the reference:\n" + "\n".join(problems)
+
+
+def test_comparison_detects_a_changed_value():
+    """The comparison itself: a moved value, a changed dtype and a new column are caught."""
+    old = pd.DataFrame({"entry_id": ["a", "b"], "binding_ev": [0.1, 0.2], "layers": np.array([1, 1], "int16")})
+    moved = old.assign(binding_ev=[0.1, 0.2 * (1 + 1e-6)])
+    assert _differences("tables/screen_long.parquet", old, moved)
+    assert _differences("tables/screen_long.parquet", old, old.assign(layers=[1, 1]))
+    assert _differences("tables/screen_long.parquet", old, old.assign(extra=1.0))
+    assert not _differences("tables/screen_long.parquet", old, old.assign(binding_ev=[0.1, 0.2 * (1 + 1e-13)]))
