@@ -48,6 +48,10 @@ EXPECTED_CHANGES: dict[tuple[str, str, str], str] = {
                 "tables/screen_long.parquet", "tables/screen_wide.parquet", "tables/rejects.csv")
 }
 EXPECTED_CHANGES[("tables/screen_wide.parquet", "rank", "*")] = _FRAME_FIX + "; lower ranks move up"
+_BULK_3D = ("issue 17 item 3: bulk rows get the 3D Saha bound fraction at a volume density in a column of its "
+            "own; the 2D bound fraction is for layer rows only")
+EXPECTED_CHANGES[("tables/screen_long.parquet", "bound_fraction", "*")] = _BULK_3D
+EXPECTED_CHANGES[("tables/screen_long.parquet", "bound_fraction_3d", "*")] = _BULK_3D
 
 #: Stamps that legitimately change with any code or settings edit (never compared by value;
 #: their presence and dtype still are).

@@ -167,3 +167,21 @@ def test_mott_3d_criterion_and_units():
     a = np.array([5.0, 30.0, 300.0])
     np.testing.assert_allclose(mott_density_3d_per_cm3(a) * (a * 1e-8) ** 3, 0.26**3, rtol=1e-12)
     np.testing.assert_allclose(mott_density_3d_per_cm3(a, criterion=0.25) * (a * 1e-8) ** 3, 0.25**3, rtol=1e-12)
+
+
+def test_survival_columns_keep_2d_and_3d_apart():
+    # Layer rows: 2D Saha at the areal density; bulk rows (layers 0): 3D Saha at the volume density,
+    # each in its own column, NaN on the other kind of row (no column mixes cm^-2 and cm^-3 inputs).
+    from flakelight.survival import survival_columns
+
+    settings = {"survival": {"temperature_k": 300.0, "pair_density_per_cm2": 1e12, "pair_density_per_cm3": 1e17,
+                             "wannier_ratio": 2.0}}
+    eb, mu = np.array([0.3, 0.3, 0.05]), np.array([0.25, 0.25, 0.25])
+    cols = survival_columns(eb, mu, np.array([10.0, 10.0, 20.0]), np.array([3.2, 3.2, 3.2]), settings,
+                            np.array([1, 2, 0]))
+    np.testing.assert_allclose(cols["bound_fraction"][:2], bound_fraction_2d(0.3, 0.25, 300.0, 1e12), rtol=1e-14)
+    assert np.isnan(cols["bound_fraction"][2])
+    assert np.all(np.isnan(cols["bound_fraction_3d"][:2]))
+    s = _saha_3d_si_per_cm3(0.05, 0.25, 300.0)
+    x = brentq(lambda x: 1e17 * (1 - x) ** 2 - s * x, 0.0, 1.0, xtol=1e-300, rtol=1e-15)
+    np.testing.assert_allclose(cols["bound_fraction_3d"][2], x, rtol=1e-7)

@@ -831,7 +831,8 @@ def _section_overview(ranked, rejects, manifest, settings) -> str:
         ("Emission window", f"{lo:g}\u2013{hi:g} nm"),
         ("Score weights", ", ".join(f"{k} {float(v):g}" for k, v in r.get("weights", {}).items())),
         ("Order", "by " + str(r.get("order_by", "score"))),
-        ("Pair density for bound fraction", f"{_num(surv.get('pair_density_per_cm2')):.3g} cm\u207b\u00b2"),
+        ("Pair density for bound fraction", f"{_num(surv.get('pair_density_per_cm2')):.3g} cm\u207b\u00b2 (layers), "
+                                            f"{_num(surv.get('pair_density_per_cm3')):.3g} cm\u207b\u00b3 (bulk)"),
         ("Surroundings screened", env_txt),
     ]
     packages = manifest.get("packages", {}) or {}

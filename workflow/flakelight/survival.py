@@ -337,37 +337,53 @@ def is_wannier(radius_angstrom, lattice_constant_angstrom, threshold=2.0):
 
 
 def survival_columns(binding_ev, mu_inplane_me, radius_angstrom, lattice_angstrom,
-                     settings: Mapping) -> dict[str, np.ndarray]:
+                     settings: Mapping, layers) -> dict[str, np.ndarray]:
     """The temperature-dependent columns of the long table, as numpy arrays.
+
+    Layer rows (``layers`` >= 1) get the 2D Saha bound fraction at the areal
+    pair density ``pair_density_per_cm2``; bulk rows (``layers`` == 0) the 3D
+    Saha bound fraction at the volume pair density ``pair_density_per_cm3``.
+    Each lives in its own column (NaN on the other kind of row).
 
     Parameters
     ----------
     binding_ev, mu_inplane_me, radius_angstrom, lattice_angstrom : array_like
-        Per row: exciton binding (eV), in-plane reduced mass (m_e), exciton
-        radius and in-plane lattice constant (Angstrom).
-    settings : the survival section under ``settings["survival"]``.
+        Per row: exciton binding (eV), reduced mass (m_e; the in-plane average,
+        also used as the density-of-states mass of bulk rows), exciton radius
+        and in-plane lattice constant (Angstrom).
+    settings : the config sections, with ``settings["survival"]``.
+    layers : array_like of int
+        Layer count per row, 0 for the bulk crystal.
 
     Returns ``temperature_k`` (K), ``binding_over_kt``, ``survives_kt``
-    (E_b > kT), ``bound_fraction`` (2D Saha) and ``wannier_ok``.
+    (E_b > kT), ``bound_fraction`` (2D Saha, layer rows), ``bound_fraction_3d``
+    (3D Saha, bulk rows) and ``wannier_ok``.
     """
     surv = settings["survival"]
     t = float(surv["temperature_k"])
     eb = np.asarray(binding_ev, dtype=float)
     mu = np.asarray(mu_inplane_me, dtype=float)
+    bulk = np.asarray(layers).astype(int) == 0
     over_kt = binding_over_kt(eb, t)
-    frac = np.full(eb.shape, np.nan)
     ok = np.isfinite(eb) & np.isfinite(mu) & (eb > 0) & (mu > 0)
-    if ok.any():
-        frac[ok] = bound_fraction_2d(eb[ok], mu[ok], t, float(surv["pair_density_per_cm2"]))
+    frac_2d = np.full(eb.shape, np.nan)
+    frac_3d = np.full(eb.shape, np.nan)
+    sel = ok & ~bulk
+    if sel.any():
+        frac_2d[sel] = bound_fraction_2d(eb[sel], mu[sel], t, float(surv["pair_density_per_cm2"]))
+    sel = ok & bulk
+    if sel.any():
+        frac_3d[sel] = bound_fraction_3d(eb[sel], mu[sel], t, float(surv["pair_density_per_cm3"]))
     return {
         "temperature_k": np.full(eb.shape, t),
         "binding_over_kt": over_kt,
         "survives_kt": over_kt > 1.0,
-        "bound_fraction": frac,
+        "bound_fraction": frac_2d,
+        "bound_fraction_3d": frac_3d,
         "wannier_ok": is_wannier(np.asarray(radius_angstrom, dtype=float),
                                           np.asarray(lattice_angstrom, dtype=float), float(surv["wannier_ratio"])),
     }
 
 
 #: Units of the columns :func:`survival_columns` adds (the flags are dimensionless booleans).
-SURVIVAL_UNITS = {"temperature_k": "K", "binding_over_kt": "1", "bound_fraction": "1"}
+SURVIVAL_UNITS = {"temperature_k": "K", "binding_over_kt": "1", "bound_fraction": "1", "bound_fraction_3d": "1"}
