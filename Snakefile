@@ -12,6 +12,7 @@ include: "workflow/rules/common.smk"
 include: "workflow/rules/keldysh.smk"
 include: "workflow/rules/screen.smk"
 include: "workflow/rules/collect.smk"
+include: "workflow/rules/refine.smk"
 include: "workflow/rules/report.smk"
 
 

@@ -91,7 +91,7 @@ CASES = [
 @pytest.mark.parametrize("case, mutate, field, words", CASES, ids=[c[0] for c in CASES])
 def test_each_rule_names_field_and_reason(checker, record, case, mutate, field, words):
     mutate(record)
-    problems = checker.check(record, stem="fixture-a", structure_exists=lambda name: False)
+    problems = checker.check(record, stem="fixture-a", structure_problem=lambda name: "file not found")
     assert problems, f"{case}: no problem reported"
     matching = [p for p in problems if p.field == field]
     assert matching, f"{case}: fields reported {[p.field for p in problems]}, expected {field!r}"
@@ -99,7 +99,7 @@ def test_each_rule_names_field_and_reason(checker, record, case, mutate, field, 
 
 
 def test_valid_record_passes(checker, record):
-    assert checker.check(record, stem="fixture-a", structure_exists=lambda name: False) == []
+    assert checker.check(record, stem="fixture-a", structure_problem=lambda name: "file not found") == []
 
 
 def test_every_schema_property_is_described():
@@ -158,3 +158,67 @@ def test_gate_agrees_on_types(checker, record, value):
     record["scissor_ev"] = value
     reference = not list(checker._validator.iter_errors(record))
     assert checker.is_schema_valid(record) == reference
+
+
+# ---------------------------------------------------------------------------------------------
+# Every layer count is checked in both bands (given, or filled by the layer model)
+# ---------------------------------------------------------------------------------------------
+
+def _normalize(record, max_layers=4):
+    from flakelight import ingest
+
+    return ingest.normalize(record, source_file="fixture-a.json", input_hash="h", max_layers=max_layers,
+                            geometry=None, structure_hash=None, non_layered="warn", reconcile_rel_tol=0.05,
+                            fit_exponent=False)
+
+
+def _bilayer_edge(e1, e_bulk):
+    """Bilayer edge of the open two-site chain: lowest eigenvalue of [[eps, -t], [-t, eps]]
+    with E_1 = eps and E_bulk = eps - 2 t (independent check with numpy.linalg.eigvalsh;
+    source: Ashcroft and Mermin, ch. 10, tight-binding chain)."""
+    import numpy as np
+
+    t = (e1 - e_bulk) / 2
+    return float(np.linalg.eigvalsh(np.array([[e1, -t], [-t, e1]]))[0])
+
+
+@pytest.mark.parametrize("margin_ev, rejected", [(+0.005, False), (-0.005, True)])
+def test_edge_given_in_one_band_is_checked_against_the_modelled_other(record, margin_ev, rejected):
+    from flakelight import ingest
+
+    # conduction minimum at N=2 from the fixture's valleys K (-4.1, -4.15) and Q (-3.8, -4.2),
+    # plus its scissor 0.5 eV
+    cbm2 = min(_bilayer_edge(-4.1, -4.15), _bilayer_edge(-3.8, -4.2)) + record["scissor_ev"]
+    record["valleys"][0]["edge_ev"]["2"] = cbm2 - margin_ev
+    if not rejected:
+        assert _normalize(record).entry["entry_id"] == "fixture-a"
+        return
+    with pytest.raises(ingest.Rejected) as err:
+        _normalize(record)
+    (problem,) = err.value.problems
+    assert problem.field == "valleys[0].edge_ev.2"
+    assert "no gap at 2 layer(s)" in problem.reason and "from the layer model" in problem.reason
+
+
+def test_conduction_edge_below_the_valence_band_in_one_band_only(record):
+    from flakelight import ingest
+
+    record["valleys"][3]["edge_ev"]["3"] = -7.0  # conduction Q at N=3 far below every valence edge
+    with pytest.raises(ingest.Rejected) as err:
+        _normalize(record)
+    assert [p.field for p in err.value.problems] == ["valleys[3].edge_ev.3"]
+
+
+def test_scissor_that_closes_the_gap_is_rejected_at_every_layer_count(record):
+    from flakelight import ingest
+
+    record["scissor_ev"] = -2.0  # bulk: CBM -4.2 - 2.0 = -6.2 eV below VBM -5.6 eV
+    with pytest.raises(ingest.Rejected) as err:
+        _normalize(record, max_layers=3)
+    assert [p.field.rsplit(".", 1)[1] for p in err.value.problems] == ["1", "2", "3", "bulk"]
+    assert all("scissor" in p.reason for p in err.value.problems)
+
+
+def test_layer_counts_beyond_max_layers_are_not_checked(record):
+    record["valleys"][0]["edge_ev"]["9"] = 0.0  # ignored (with a warning) when max_layers = 4
+    assert "exceed max_layers" in _normalize(record).entry["warnings"]

@@ -58,12 +58,41 @@ def test_rejects_name_file_and_field(tmp_path, record, table_path):
     assert set(tables["wide"]["entry_id"]) == {"ok-0", "ok-1", "ok-2"}
 
 
-def test_case_insensitive_duplicate_is_rejected(tmp_path, record, table_path):
+@pytest.mark.parametrize("reverse", [False, True], ids=["sorted", "reversed"])
+@pytest.mark.parametrize("sibling", ["valid", "broken"])
+def test_case_variants_are_rejected_together(tmp_path, record, table_path, reverse, sibling):
+    # The rule (README, "Input records"): identifiers equal apart from letter case are all
+    # rejected, each naming the others, whatever their content and listing order.
+    text = json.dumps(dict(record, id="OK-1")) if sibling == "valid" else "{"
+    entries = _campaign(tmp_path, record, [("OK-1.json", text), ("Ok-1.json", "[]")])
+    paths = sorted((str(p) for p in entries.glob("*.json")), reverse=reverse)
+    outs = {k: str(tmp_path / "out" / f"{k}.parquet") for k in pipeline.SHARD_TABLES}
+    pipeline.run_shard(paths, str(entries.parent), SETTINGS, table_path, str(tmp_path / "cache"), outs)
+    rejects = io.read_parquet(outs["rejects"]).set_index("source_file")
+    wide = io.read_parquet(outs["wide"])
+    assert sorted(rejects.index) == ["OK-1.json", "Ok-1.json", "ok-1.json"]
+    assert set(rejects["stage"]) == {"duplicate"} and set(rejects["field"]) == {"id"}
+    for name in rejects.index:
+        others = {"OK-1.json", "Ok-1.json", "ok-1.json"} - {name}
+        assert all(o in rejects.loc[name, "reason"] for o in others), rejects.loc[name, "reason"]
+    assert sorted(wide["entry_id"]) == ["ok-0", "ok-2"]
+
+
+def test_case_variant_removed_is_screened_on_the_next_run(tmp_path, record, table_path):
+    """A duplicate reject depends on the other files: it is never reused from the cache."""
     entries = _campaign(tmp_path, record, [("OK-1.json", json.dumps(dict(record, id="OK-1")))])
-    counts, tables = _run(tmp_path, entries, table_path)
-    dup = tables["rejects"]
-    assert list(dup["source_file"]) == ["ok-1.json"] or list(dup["source_file"]) == ["OK-1.json"]
-    assert "duplicate identifier" in dup["reason"].iloc[0]
+    _, first = _run(tmp_path, entries, table_path, tag="a")
+    assert set(first["rejects"]["entry_id"]) == {"OK-1", "ok-1"}
+    (entries / "OK-1.json").unlink()
+    _, second = _run(tmp_path, entries, table_path, tag="b")
+    assert len(second["rejects"]) == 0
+    assert sorted(second["wide"]["entry_id"]) == ["ok-0", "ok-1", "ok-2"]
+
+
+def test_case_variants_rule():
+    assert pipeline.case_variants(["a", "A", "b", "c", "C", "cc"]) == {"a": ["A"], "A": ["a"], "c": ["C"], "C": ["c"]}
+    assert pipeline.case_variants(["x-1", "X-1", "x-1"[::-1]])["X-1"] == ["x-1"]
+    assert pipeline.case_variants(["x", "y"]) == {}
 
 
 def test_cache_reuses_unchanged_and_recomputes_revised(tmp_path, record, table_path):
@@ -204,15 +233,18 @@ def test_snapshot_name_follows_content(tmp_path):
     assert again == first and Path(again).stat().st_mtime_ns >= Path(other).stat().st_mtime_ns
 
 
-def test_campaign_listing_skips_hidden_and_foreign_files(tmp_path):
-    # source: common practice (hidden files and other suffixes are not records)
+def test_campaign_listing_lists_near_misses_and_ignores_foreign_files(tmp_path):
+    # source: common practice (hidden files and other suffixes are not records; near misses
+    # are listed so that the screen can report them as skipped)
     folder = tmp_path / "entries"
     folder.mkdir()
-    for name in ("b.json", "a.json", ".hidden.json", "notes.txt"):
+    for name in ("b.json", "a.json", ".hidden.json", "notes.txt", "c.JSON"):
         (folder / name).write_text("{}")
     rows = io.campaign_listing(tmp_path, "entries")
-    assert [r[0] for r in rows] == ["a.json", "b.json"]
+    assert [r[0] for r in rows] == [".hidden.json", "a.json", "b.json", "c.JSON"]
     assert all(r[1] == 2 and r[2] > 0 for r in rows)
+    assert [io.skip_reason(r[0], "entries") is None for r in rows] == [False, True, True, False]
     assert io.campaign_listing(tmp_path, "structures") == []
+    rows = [r for r in rows if r[0] in ("a.json", "b.json")]
     listing = {"entries": rows}
     assert pipeline.listed_paths("camp", listing, "entries") == ["camp/entries/a.json", "camp/entries/b.json"]

@@ -39,7 +39,8 @@ def frames(*records):
     entries, valleys = [], []
     for rec in records:
         norm = ingest.normalize(rec, source_file=f"{rec['id']}.json", input_hash="h" + rec["id"], max_layers=6,
-                                geometry=None, structure_hash=None, non_layered="warn", reconcile_rel_tol=0.05)
+                                geometry=None, structure_hash=None, non_layered="warn", reconcile_rel_tol=0.05,
+                                fit_exponent=False)
         entries.append(norm.entry)
         valleys.extend(norm.valleys)
     return (pd.DataFrame(entries, columns=ingest.ENTRY_COLUMNS),

@@ -21,3 +21,6 @@ PROPAGATION_MODULES = (
     "__init__", "units", "io", "ingest", "dielectric", "hydrogenic", "keldysh", "layers",
     "masses", "survival", "uncertainty", "pipeline",
 )
+
+#: Library modules the per-shard attribution (rule attribute_shard) depends on (its cache key).
+REFINEMENT_MODULES = PROPAGATION_MODULES + ("attribution", "refinement")

@@ -155,12 +155,17 @@ class RecordChecker:
         return problems
 
     def check(self, record: Any, *, stem: str,
-              structure_exists: Callable[[str], bool]) -> list[Problem]:
-        """All problems of one record: schema first, physics only on a well-formed record."""
+              structure_problem: Callable[[str], str | None]) -> list[Problem]:
+        """All problems of one record: schema first, physics only on a well-formed record.
+
+        ``structure_problem(name)`` tells why the referenced structure file cannot
+        be read (``"file not found"``, ``"is a directory, not a file"``, ...) or
+        returns None when it can.
+        """
         problems = self.schema_problems(record)
         if problems:
             return problems
-        return physical_problems(record, stem=stem, structure_exists=structure_exists)
+        return physical_problems(record, stem=stem, structure_problem=structure_problem)
 
 
 def _finite(value: float) -> bool:
@@ -262,7 +267,7 @@ def _samples_problems(samples: dict, path: list) -> list[Problem]:
 
 
 def physical_problems(record: dict, *, stem: str,
-                      structure_exists: Callable[[str], bool]) -> list[Problem]:
+                      structure_problem: Callable[[str], str | None]) -> list[Problem]:
     """Physical and cross-field checks of a schema-valid record."""
     out: list[Problem] = []
     if record["id"] != stem:
@@ -285,8 +290,14 @@ def physical_problems(record: dict, *, stem: str,
             out.append(Problem("dielectric.relative_uncertainty", r))
 
     has_structure = "structure_file" in record
-    if has_structure and not structure_exists(record["structure_file"]):
-        out.append(Problem("structure_file", f"referenced structure {record['structure_file']!r} not found in structures/"))
+    if has_structure:
+        reason = structure_problem(record["structure_file"])
+        if reason == "file not found":
+            out.append(Problem("structure_file",
+                               f"referenced structure {record['structure_file']!r} not found in structures/"))
+        elif reason:
+            sep = " " if reason.startswith("is ") else ": "
+            out.append(Problem("structure_file", f"referenced structure {record['structure_file']!r}{sep}{reason}"))
     for key, window in (("layer_spacing_angstrom", SPACING_RANGE_ANGSTROM),
                         ("inplane_lattice_angstrom", LATTICE_RANGE_ANGSTROM)):
         if key in record:

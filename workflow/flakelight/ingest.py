@@ -107,8 +107,14 @@ def _inverse_mass(valley: dict, path: str, normal: np.ndarray, warnings: list[st
 
 def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: int,
               geometry: LayerGeometry | None, structure_hash: str | None,
-              non_layered: str, reconcile_rel_tol: float) -> NormalizedRecord:
-    """Flatten a contract-valid record; raise :class:`Rejected` when it cannot be screened."""
+              non_layered: str, reconcile_rel_tol: float, fit_exponent: bool) -> NormalizedRecord:
+    """Flatten a contract-valid record; raise :class:`Rejected` when it cannot be screened.
+
+    ``fit_exponent`` is the layer model's setting (config ``layers.fit_exponent``):
+    the band edges of layer counts a valley does not give are filled with the
+    same model the screen uses, and every layer count must then keep a gap
+    (:func:`layer_gap_problems`).
+    """
     warnings: list[str] = []
     ident = record["id"]
 
@@ -130,7 +136,12 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
     warnings.extend(m for m in messages if "not given" not in m)
     spacing_source = "record" if given_spacing is not None else "structure"
     lattice_source = "record" if given_lattice is not None else "structure"
-    missing = [Problem(name, "not given and not derivable from the structure")
+    if geometry is not None and not geometry.is_layered:
+        why = (f"not given, and the structure {record['structure_file']!r} shows no 2D-bonded layers "
+               f"(dimensionality {geometry.dimensionality}) to derive it from")
+    else:
+        why = "not given and not derivable from the structure"
+    missing = [Problem(name, why)
                for name, value in (("layer_spacing_angstrom", spacing), ("inplane_lattice_angstrom", lattice))
                if value is None]
     if missing:
@@ -203,8 +214,73 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
             "edge_unc_ev": float(valley.get("edge_uncertainty_ev", math.nan)),
         }
         valleys.append(row)
+    problems = layer_gap_problems(valleys, max_layers=max_layers, fit_exponent=fit_exponent,
+                                  scissor_ev=entry["scissor_ev"])
+    if problems:
+        raise Rejected(problems)
     entry["warnings"] = " | ".join(warnings)
     return NormalizedRecord(entry, valleys, warnings)
+
+
+def layer_gap_problems(valleys: list[dict], *, max_layers: int, fit_exponent: bool,
+                       scissor_ev: float) -> list[Problem]:
+    """Layer counts at which the record, completed by the layer model, has no gap.
+
+    Each valley's edges at the layer counts it does not give are filled by
+    :func:`flakelight.layers.fill_edges` (the screen's own model); then at every
+    layer count 1..``max_layers`` and bulk the lowest conduction edge (plus the
+    scissor) must lie above the highest valence edge
+    (:func:`flakelight.layers.gap_character`). An edge given for a layer count in
+    one band only is thereby checked against the other band's modelled edge.
+
+    Parameters
+    ----------
+    valleys : valley rows of one record (from :func:`normalize`), edges in eV.
+    max_layers : largest layer count screened.
+    fit_exponent : the layer model's ``fit_exponent`` setting.
+    scissor_ev : scissor shift added to conduction edges, eV.
+
+    Returns
+    -------
+    list of Problem
+        One per layer count without a gap; the field is the edge that was given
+        (the valence maximum's if given, else the conduction minimum's).
+    """
+    from flakelight import layers as layer_model
+
+    counts = [*range(1, max_layers + 1), layer_model.BULK]
+    edges = np.array([[v[edge_column(n)] for n in counts] for v in valleys], dtype=float)
+    filled = layer_model.fill_edges(edges, np.array(counts), fit_exponent=fit_exponent).filled_ev
+    _, codes = np.unique([v["label"] for v in valleys], return_inverse=True)
+    is_cond = np.array([v["band"] == "conduction" for v in valleys])
+    gaps = layer_model.gap_character(np.zeros(len(valleys), dtype=int), codes, is_cond, filled,
+                                     scissor_ev=[scissor_ev], n_compounds=1)
+    out = []
+    for j, n in enumerate(counts):
+        gap = gaps.fundamental_gap_ev[0, j]
+        if not np.isfinite(gap) or gap > 0:
+            continue
+        key = "bulk" if n == layer_model.BULK else str(n)
+        vb = _extreme_valley(filled[:, j], ~is_cond, np.argmax)
+        cb = _extreme_valley(filled[:, j], is_cond, np.argmin)
+
+        def described(i: int) -> str:
+            source = "given" if np.isfinite(edges[i, j]) else "from the layer model"
+            return f"{filled[i, j]:.4g} eV ({valleys[i]['band']} valley {valleys[i]['label']!r}, {source})"
+
+        shown = vb if np.isfinite(edges[vb, j]) else cb if np.isfinite(edges[cb, j]) else vb
+        scissor = f" with the scissor {scissor_ev:+.4g} eV" if scissor_ev else ""
+        out.append(Problem(
+            f"valleys[{shown}].edge_ev.{key}",
+            f"no gap at {key} layer(s): the lowest conduction edge {described(cb)}{scissor} is not above the "
+            f"highest valence edge {described(vb)}; give this layer count for both bands or check the value"))
+    return out
+
+
+def _extreme_valley(values: np.ndarray, mask: np.ndarray, pick) -> int:
+    """Index (into all valleys) of the arg-extreme ``pick`` of ``values`` among ``mask``."""
+    idx = np.flatnonzero(mask)
+    return int(idx[pick(values[idx])])
 
 
 ENTRY_COLUMNS = [

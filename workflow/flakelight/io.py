@@ -13,6 +13,7 @@ import hashlib
 import json
 import math
 import os
+import stat
 import tempfile
 from dataclasses import dataclass
 from pathlib import Path
@@ -42,12 +43,17 @@ SCHEMA_DIR = LIBRARY_DIR.parent / "schemas"
 
 @dataclass(frozen=True)
 class RawRecord:
-    """A record file as read: its bytes' hash and either the parsed object or a reason."""
+    """A record file as read: its bytes' hash and either the parsed object or a reason.
+
+    ``error_field`` names where the problem is: ``(file)`` for the file as a whole,
+    or the JSON path of a key given twice or of text that cannot be stored.
+    """
 
     path: str
     sha256: str
     data: Any = None
     error: str | None = None
+    error_field: str = "(file)"
 
 
 def sha256_bytes(data: bytes) -> str:
@@ -55,19 +61,91 @@ def sha256_bytes(data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
 
 
-def sha256_file(path: str | os.PathLike) -> str:
-    """Hex SHA-256 of a file's bytes."""
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
-
-
 def canonical_json_hash(obj: Any) -> str:
     """Hex SHA-256 of a JSON-serialisable object with sorted keys (for config hashes)."""
     text = json.dumps(obj, sort_keys=True, separators=(",", ":"), default=str)
     return sha256_bytes(text.encode("utf-8"))
+
+
+# ---------------------------------------------------------------------------------------------
+# Reading campaign files: regular files only, never more than a limit
+# ---------------------------------------------------------------------------------------------
+
+def _not_regular_reason(mode: int) -> str | None:
+    """Why a file of this ``st_mode`` is not read (None for a regular file)."""
+    if stat.S_ISREG(mode):
+        return None
+    if stat.S_ISDIR(mode):
+        return "is a directory, not a file"
+    if stat.S_ISFIFO(mode):
+        return "is a named pipe (FIFO), not a regular file; not opened"
+    if stat.S_ISCHR(mode) or stat.S_ISBLK(mode):
+        return "is a device, not a regular file; not opened"
+    if stat.S_ISSOCK(mode):
+        return "is a socket, not a regular file; not opened"
+    return "is not a regular file; not opened"
+
+
+def file_kind_problem(path: str | os.PathLike) -> str | None:
+    """Why ``path`` cannot be read as a campaign file, from its metadata alone (None: it can).
+
+    Symbolic links are followed; a link whose target is missing is reported as
+    dangling. Nothing is opened.
+    """
+    try:
+        st = os.stat(path)
+    except FileNotFoundError:
+        if os.path.islink(path):
+            try:
+                target = os.readlink(path)
+            except OSError:
+                target = "?"
+            return f"is a dangling symbolic link (its target {target!r} does not exist)"
+        return "file not found"
+    except OSError as exc:  # a link loop, a permission problem on the folder
+        return f"cannot read file: {exc.strerror or exc}"
+    return _not_regular_reason(st.st_mode)
+
+
+def read_limited(path: str | os.PathLike, limit: int) -> tuple[bytes | None, str | None, int]:
+    """At most ``limit`` bytes of a regular file: ``(data, None, size)`` or ``(None, reason, size)``.
+
+    Only regular files (or links to them) are opened, non-blocking, and the kind
+    is checked again on the open descriptor, so a named pipe never blocks and a
+    device is never read. At most ``limit + 1`` bytes are read whatever size the
+    file reports, so a file that grows (or lies about its size) cannot be read
+    without bound. ``size`` is the number of bytes read (``limit + 1`` means
+    "more than the limit"); 0 when nothing was read.
+    """
+    reason = file_kind_problem(path)
+    if reason:
+        return None, reason, 0
+    flags = os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_NOCTTY", 0) | getattr(os, "O_CLOEXEC", 0)
+    try:
+        fd = os.open(path, flags)
+    except OSError as exc:
+        return None, f"cannot read file: {exc.strerror or exc}", 0
+    try:
+        st = os.fstat(fd)
+        reason = _not_regular_reason(st.st_mode)  # replaced between the check and the open
+        if reason:
+            return None, reason, 0
+        chunks, remaining = [], limit + 1
+        while remaining > 0:
+            block = os.read(fd, min(remaining, 1 << 20))
+            if not block:
+                break
+            chunks.append(block)
+            remaining -= len(block)
+    except OSError as exc:
+        return None, f"cannot read file: {exc.strerror or exc}", 0
+    finally:
+        os.close(fd)
+    data = b"".join(chunks)
+    if len(data) > limit:
+        shown = f"is {st.st_size} bytes" if st.st_size > limit else "has more bytes than it reports"
+        return None, f"file {shown}, larger than the {limit}-byte limit", len(data)
+    return data, None, len(data)
 
 
 def _reject_constant(name: str) -> float:
@@ -85,24 +163,97 @@ def _parse_int(text: str) -> int | float:
     return value
 
 
+class _Object(dict):
+    """A JSON object as parsed, remembering keys given more than once (in order)."""
+
+    __slots__ = ("repeated",)
+
+
+def _object_pairs(pairs: list[tuple[str, Any]]) -> dict:
+    obj = _Object(pairs)
+    obj.repeated = []
+    if len(obj) != len(pairs):
+        seen: set[str] = set()
+        for key, _ in pairs:
+            if key in seen and key not in obj.repeated:
+                obj.repeated.append(key)
+            seen.add(key)
+    return obj
+
+
+def _json_path(parts: list) -> str:
+    """``a.b[2].c`` for a JSON path; ``(record)`` for the empty path.
+
+    The same rendering as :func:`flakelight.contract.format_path` (this module
+    imports no other library module); keys that are not plain identifiers are
+    shown with ``repr`` escapes, so the path itself is always storable text.
+    """
+    out = ""
+    for part in parts:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        else:
+            text = part if part.isidentifier() or part.isdigit() else repr(part)
+            text = text.encode("utf-8", "backslashreplace").decode("utf-8")
+            out += f".{text}" if out else text
+    return out or "(record)"
+
+
+def _content_problem(node: Any, path: list) -> tuple[str, str] | None:
+    """The first key given twice or text Arrow cannot store, as ``(field, reason)``, depth first.
+
+    Text that is not a sequence of Unicode scalar values (a lone UTF-16 surrogate,
+    from an escape such as ``\\ud800``) cannot be written as UTF-8, so it could not
+    be stored in any table.
+    """
+    stack = [(node, path)]
+    while stack:
+        value, where = stack.pop()
+        if isinstance(value, dict):
+            for key in getattr(value, "repeated", ()):
+                return _json_path(where + [key]), (
+                    "key given more than once in the same object (JSON readers disagree which value "
+                    "wins); keep one")
+            for key in value:
+                bad = _unstorable_text(key)
+                if bad:
+                    return _json_path(where), f"a key {bad}"
+            stack.extend((v, where + [k]) for k, v in reversed(list(value.items())))
+        elif isinstance(value, list):
+            stack.extend((v, where + [i]) for i, v in reversed(list(enumerate(value))))
+        elif isinstance(value, str):
+            bad = _unstorable_text(value)
+            if bad:
+                return _json_path(where), f"text {bad}"
+    return None
+
+
+def _unstorable_text(text: str) -> str | None:
+    """Why ``text`` cannot be stored as UTF-8 (None when it can)."""
+    try:
+        text.encode("utf-8")
+    except UnicodeEncodeError as exc:
+        code = ord(text[exc.start])
+        return (f"holds the code point U+{code:04X} at character {exc.start + 1}, a lone UTF-16 surrogate "
+                "that is not a character and cannot be stored")
+    return None
+
+
 def read_record(path: str | os.PathLike) -> RawRecord:
     """Read and parse one JSON record file, never raising for bad content.
 
-    Empty, oversized, non-UTF-8, syntactically broken files and non-finite
-    numbers (NaN, Infinity) come back with ``error`` set to a reason.
+    Files that are not regular files (directories, named pipes, devices, sockets,
+    dangling links), empty, oversized, non-UTF-8 and syntactically broken files,
+    non-finite numbers (NaN, Infinity), keys given twice in one object and text
+    that cannot be stored (lone surrogates) come back with ``error`` set to a
+    reason (and ``error_field`` to the JSON path where there is one).
     """
     path = str(path)
-    try:
-        size = os.path.getsize(path)
-        if size > MAX_RECORD_BYTES:
-            with open(path, "rb") as fh:
-                head = fh.read(65536)
-            return RawRecord(path, sha256_bytes(head + str(size).encode()),
-                             error=f"file is {size} bytes, larger than the {MAX_RECORD_BYTES}-byte limit")
-        with open(path, "rb") as fh:
-            raw = fh.read()
-    except OSError as exc:
-        return RawRecord(path, "", error=f"cannot read file: {exc.strerror or exc}")
+    raw, reason, _ = read_limited(path, MAX_RECORD_BYTES)
+    if raw is None:
+        # nothing (or too much) was read: the reason stands in for the content in the hash
+        return RawRecord(path, sha256_bytes(f"not read: {reason}".encode("utf-8", "backslashreplace")),
+                         error=reason)
     digest = sha256_bytes(raw)
     if not raw.strip():
         return RawRecord(path, digest, error="file is empty")
@@ -113,41 +264,91 @@ def read_record(path: str | os.PathLike) -> RawRecord:
     if text.startswith("\ufeff"):
         text = text[1:]
     try:
-        data = json.loads(text, parse_constant=_reject_constant, parse_int=_parse_int)
+        data = json.loads(text, parse_constant=_reject_constant, parse_int=_parse_int,
+                          object_pairs_hook=_object_pairs)
     except json.JSONDecodeError as exc:
         return RawRecord(path, digest, error=f"invalid JSON at line {exc.lineno} column {exc.colno}: {exc.msg}")
     except (ValueError, RecursionError) as exc:
         return RawRecord(path, digest, error=f"invalid JSON: {exc}")
+    try:
+        problem = _content_problem(data, [])
+    except RecursionError:  # pragma: no cover - json.loads refuses deeper nesting first
+        problem = ("(record)", "nested too deeply")
+    if problem:
+        return RawRecord(path, digest, error=problem[1], error_field=problem[0])
     return RawRecord(path, digest, data=data)
 
 
 def read_text_limited(path: str | os.PathLike, limit: int = MAX_CIF_BYTES) -> tuple[bytes | None, str | None]:
-    """Bytes of a file, or a reason when it is missing, unreadable or too large."""
-    try:
-        size = os.path.getsize(path)
-    except OSError:
-        return None, "file not found"
-    if size > limit:
-        return None, f"file is {size} bytes, larger than the {limit}-byte limit"
-    try:
-        with open(path, "rb") as fh:
-            return fh.read(), None
-    except OSError as exc:
-        return None, f"cannot read file: {exc.strerror or exc}"
+    """Bytes of a regular file, or a reason when it is missing, not a regular file,
+    unreadable or too large (see :func:`read_limited`)."""
+    data, reason, _ = read_limited(path, limit)
+    return data, reason
+
+
+def printable_name(name: str) -> str:
+    """A file name as storable text: bytes that are not UTF-8 (kept by Python as lone
+    surrogates) are shown as ``\\xNN`` escapes."""
+    return name.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
 
 
 #: Campaign sub-folders and the file suffix each one holds.
 CAMPAIGN_FOLDERS = {"entries": ".json", "structures": ".cif"}
 
 
+def skip_reason(name: str, kind: str) -> str | None:
+    """Why a listed campaign file is skipped instead of read (None: it is read).
+
+    A file is read when its name ends in the folder's suffix exactly (``.json``
+    in entries/, ``.cif`` in structures/) and does not start with a dot. Files
+    whose names come close (a near miss: hidden, a suffix in other letter case,
+    a suffix followed by more text) are listed but skipped with this reason,
+    so the user sees them; other files are not listed at all.
+    """
+    suffix = CAMPAIGN_FOLDERS[kind]
+    if printable_name(name) != name:
+        return "file name is not valid UTF-8 text; rename the file"
+    if name.startswith("."):
+        return "hidden file (name starts with '.'); rename it without the dot to have it read"
+    if not name.endswith(suffix):
+        low = name.casefold()
+        if low.endswith(suffix):
+            return (f"suffix {name[-len(suffix):]!r} is not {suffix!r} (suffixes are case-sensitive); "
+                    f"rename it to end in {suffix!r} to have it read")
+        return f"name does not end in {suffix!r} (a copy or backup?); not read"
+    return None
+
+
+def _near_miss(name: str, suffix: str) -> bool:
+    """A name close enough to a campaign file's to be listed as skipped (see :func:`skip_reason`)."""
+    return suffix in name.casefold()
+
+
+#: Largest file read per campaign folder (bytes).
+CAMPAIGN_LIMITS = {"entries": MAX_RECORD_BYTES, "structures": MAX_CIF_BYTES}
+
+
+def campaign_file_digest(path: str | os.PathLike, kind: str) -> tuple[str | None, str | None]:
+    """``(hex SHA-256, None)`` of a listed campaign file, or ``(None, reason)`` when it is
+    skipped (:func:`skip_reason`) or cannot be read (:func:`read_limited`). Never raises."""
+    reason = skip_reason(os.path.basename(path), kind)
+    if reason:
+        return None, reason
+    data, reason, _ = read_limited(path, CAMPAIGN_LIMITS[kind])
+    return (None, reason) if data is None else (sha256_bytes(data), None)
+
+
 def campaign_listing(campaign: str | os.PathLike, kind: str) -> list[tuple[str, int, int]]:
     """Files of one campaign folder as ``(name, size in bytes, modification time in ns)``.
 
-    ``kind`` is ``"entries"`` (``*.json``) or ``"structures"`` (``*.cif``). Hidden
-    files are skipped; a missing folder lists nothing. An entry that cannot be
-    stat'ed (a dangling link) is still listed, with size and time -1, so that
-    the screen reports it instead of silently dropping it. Sorted by name.
-    One ``scandir`` pass: about 10 ms per 10,000 files.
+    ``kind`` is ``"entries"`` (``*.json``) or ``"structures"`` (``*.cif``). Names
+    that end in the suffix are listed, and so are near misses (hidden files,
+    ``x.JSON``, ``x.json.bak``: see :func:`skip_reason`), which the screen
+    reports as skipped; other files are not listed. A missing folder lists
+    nothing. Nothing is opened: size and time come from ``stat`` (links
+    followed; a dangling link is listed with size and time -1), so a directory,
+    a named pipe or a device is listed like any file and the screen gives it a
+    reject row. Sorted by name. One ``scandir`` pass: about 10 ms per 10,000 files.
     """
     suffix = CAMPAIGN_FOLDERS[kind]
     try:
@@ -157,10 +358,10 @@ def campaign_listing(campaign: str | os.PathLike, kind: str) -> list[tuple[str, 
     rows = []
     with it:
         for entry in it:
-            if entry.name.startswith(".") or not entry.name.endswith(suffix):
+            if not entry.name.endswith(suffix) and not _near_miss(entry.name, suffix):
                 continue
             try:
-                st = entry.stat()
+                st = entry.stat(follow_symlinks=True)
                 rows.append((entry.name, int(st.st_size), int(st.st_mtime_ns)))
             except OSError:
                 rows.append((entry.name, -1, -1))
@@ -431,11 +632,49 @@ def read_json(path: str | os.PathLike) -> Any:
         return json.load(fh)
 
 
+#: Leading characters that make a spreadsheet read a cell as a formula or command.
+FORMULA_TRIGGERS = ("=", "+", "-", "@", "\t", "\r")
+
+
+def spreadsheet_safe_text(value: Any) -> Any:
+    """A text cell neutralised for spreadsheets: a single quote before a leading
+    ``=``, ``+``, ``-``, ``@``, tab or carriage return. Anything else (numbers,
+    missing values, other text) is returned unchanged.
+
+    References
+    ----------
+    OWASP, "CSV Injection" (common practice for CSV handed to spreadsheet users).
+    """
+    if isinstance(value, str) and value.startswith(FORMULA_TRIGGERS):
+        return "'" + value
+    return value
+
+
+def spreadsheet_safe(frame: pd.DataFrame) -> pd.DataFrame:
+    """``frame`` with every text cell passed through :func:`spreadsheet_safe_text`.
+
+    Numeric and boolean columns are left as they are, so numbers stay numbers
+    (a negative value is written as ``-0.5``, not as text).
+    """
+    from pandas.api.types import is_bool_dtype, is_numeric_dtype
+
+    text = [c for c in frame.columns if not (is_numeric_dtype(frame[c]) or is_bool_dtype(frame[c]))]
+    if not text:
+        return frame
+    out = frame.copy()
+    for c in text:
+        out[c] = out[c].map(spreadsheet_safe_text)
+    return out
+
+
 def write_csv(frame: pd.DataFrame, path: str | os.PathLike) -> None:
-    """Write a CSV table atomically."""
+    """Write a CSV table atomically, safe for spreadsheets (:func:`spreadsheet_safe`).
+
+    Every CSV the workflow writes for people goes through here.
+    """
     target, tmp = _atomic_target(path)
     try:
-        frame.to_csv(tmp, index=False)
+        spreadsheet_safe(frame).to_csv(tmp, index=False)
         os.replace(tmp, target)
     finally:
         if os.path.exists(tmp):

@@ -26,7 +26,7 @@ from typing import Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from flakelight import PROPAGATION_MODULES, SHARD_MODULES, contract, ingest, io, screen
+from flakelight import PROPAGATION_MODULES, REFINEMENT_MODULES, SHARD_MODULES, contract, ingest, io, screen
 from flakelight.keldysh import KeldyshTable
 
 log = logging.getLogger("flakelight")
@@ -55,8 +55,29 @@ def _empty_rejects() -> pd.DataFrame:
 
 def _reject_rows(stem: str, source: str, problems: Sequence[contract.Problem], stage: str,
                  input_hash: str, stamps: Mapping[str, str]) -> list[dict]:
+    stem, source = io.printable_name(stem), io.printable_name(source)
     return [{"entry_id": stem, "source_file": source, "field": p.field, "reason": p.reason,
              "stage": stage, "input_hash": input_hash, **stamps} for p in problems]
+
+
+#: Reject stages that depend on other files or on the file's name, not on its content
+#: alone: never taken from the per-record cache (always decided afresh).
+CONTEXT_STAGES = ("skipped", "duplicate")
+
+
+def case_variants(stems: Sequence[str]) -> dict[str, list[str]]:
+    """For every stem that equals another one apart from letter case, the others.
+
+    The rule (see README, "Input records"): identifiers that differ only in case
+    name the same compound on a case-insensitive file system, so all of them are
+    rejected together, each reject naming the others, whatever their content and
+    in any listing order. Stems without such a sibling are not in the result.
+    """
+    groups: dict[str, list[str]] = {}
+    for stem in stems:
+        groups.setdefault(stem.casefold(), []).append(stem)
+    return {stem: sorted(s for s in group if s != stem)
+            for group in groups.values() if len(group) > 1 for stem in group}
 
 
 def _load_cache(cache_dir: Path, stamps: Mapping[str, str]) -> dict[str, pd.DataFrame]:
@@ -166,44 +187,49 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
     cache = _load_cache(Path(cache_dir), stamps)
     cached_hashes = set()
     if cache:
+        old_rejects = cache["rejects"]
+        cache["rejects"] = old_rejects[~old_rejects["stage"].isin(CONTEXT_STAGES)] if len(old_rejects) else old_rejects
         cached_hashes = set(cache["entries"]["input_hash"]) | set(cache["rejects"]["input_hash"])
 
     reused: set[str] = set()
     new_entries, new_valleys, reject_rows = [], [], []
-    seen: dict[str, str] = {}
+    readable = [p for p in entry_paths if io.skip_reason(os.path.basename(p), "entries") is None]
+    siblings = case_variants([Path(p).stem for p in readable])
     memo_path = Path(cache_dir) / "structures.json"
     memo: dict = _load_structure_memo(memo_path, stamps["code_version"])
     memo_size = len(memo)
     for path in sorted(entry_paths):
         stem = Path(path).stem
         source = os.path.basename(path)
+        skipped = io.skip_reason(source, "entries")
+        if skipped:  # listed so the user sees it, never opened
+            reject_rows += _reject_rows(stem, source, [contract.Problem("(file name)", skipped)], "skipped",
+                                        "", stamps)
+            continue
         raw = io.read_record(path)
-        cif_bytes, cif_hash = None, ""
+        cif_bytes, cif_hash, cif_problem = None, "", "file not found"
         if raw.error is None and isinstance(raw.data, dict) and isinstance(raw.data.get("structure_file"), str):
             name = raw.data["structure_file"]
             if "/" not in name and "\\" not in name and not name.startswith("."):
-                cif_bytes, _ = io.read_text_limited(structures_dir / name)
+                cif_bytes, cif_problem = io.read_text_limited(structures_dir / name)
                 if cif_bytes is not None:
                     cif_hash = io.sha256_bytes(cif_bytes)
         input_hash = io.sha256_bytes((raw.sha256 + cif_hash).encode())[:32]
 
-        key = stem.casefold()
-        if key in seen:
+        if stem in siblings:
+            others = ", ".join(f"{s}.json" for s in siblings[stem])
             reject_rows += _reject_rows(stem, source, [contract.Problem(
-                "id", f"duplicate identifier: {seen[key]!r} already names a record (identifiers are "
-                      "compared without regard to case)")], "duplicate", input_hash, stamps)
+                "id", f"duplicate identifier: {source} and {others} differ only in letter case; all of them "
+                      "are rejected until one is renamed or removed")], "duplicate", input_hash, stamps)
             continue
-        seen[key] = stem
         if input_hash in cached_hashes:
             reused.add(input_hash)
             continue
         if raw.error is not None:
-            reject_rows += _reject_rows(stem, source, [contract.Problem("(file)", raw.error)], "read",
+            reject_rows += _reject_rows(stem, source, [contract.Problem(raw.error_field, raw.error)], "read",
                                         input_hash, stamps)
             continue
-        problems = checker.check(raw.data, stem=stem,
-                                 structure_exists=lambda n: (structures_dir / n).is_file()
-                                 and "/" not in n and not n.startswith("."))
+        problems = checker.check(raw.data, stem=stem, structure_problem=lambda _name, why=cif_problem: why)
         if problems:
             reject_rows += _reject_rows(stem, source, problems, "contract", input_hash, stamps)
             continue
@@ -218,7 +244,8 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
             norm = ingest.normalize(raw.data, source_file=source, input_hash=input_hash, max_layers=max_layers,
                                     geometry=geometry, structure_hash=cif_hash or None,
                                     non_layered=settings["structure"]["non_layered"],
-                                    reconcile_rel_tol=settings["structure"]["reconcile_rel_tol"])
+                                    reconcile_rel_tol=settings["structure"]["reconcile_rel_tol"],
+                                    fit_exponent=bool(settings["layers"]["fit_exponent"]))
         except ingest.Rejected as exc:
             reject_rows += _reject_rows(stem, source, exc.problems, "normalise", input_hash, stamps)
             continue
@@ -379,6 +406,16 @@ def write_manifest(entry_paths: Sequence[str], structure_paths: Sequence[str], w
     import datetime
 
     wide = io.read_parquet(wide_path)
+    hashes: dict[str, dict[str, str]] = {"entries": {}, "structures": {}}
+    not_read: dict[str, str] = {}
+    for kind, paths in (("entries", entry_paths), ("structures", structure_paths)):
+        for p in paths:
+            digest, reason = io.campaign_file_digest(p, kind)
+            name = io.printable_name(os.path.basename(p))
+            if digest is None:
+                not_read[f"{kind}/{name}"] = reason
+            else:
+                hashes[kind][name] = digest
     manifest = {
         "tool": "flakelight",
         "written_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
@@ -388,11 +425,11 @@ def write_manifest(entry_paths: Sequence[str], structure_paths: Sequence[str], w
         "config_hash": config_hash,
         "config": dict(config),
         "packages": package_versions(),
-        "inputs": {
-            "entries": {os.path.basename(p): io.sha256_file(p) for p in entry_paths},
-            "structures": {os.path.basename(p): io.sha256_file(p) for p in structure_paths},
-        },
-        "counts": {"records": len(entry_paths), "screened": len(wide),
+        "inputs": hashes,
+        # listed files that were skipped (near-miss names) or could not be read, with the reason
+        "not_read": not_read,
+        "counts": {"records": sum(io.skip_reason(os.path.basename(p), "entries") is None for p in entry_paths),
+                   "screened": len(wide),
                    "candidates": int(wide["meets_all_criteria"].sum()) if len(wide) else 0},
         "cautions": CAUTIONS,
     }
@@ -453,3 +490,73 @@ def run_propagation(entries_path: str, valleys_path: str, table_path: str, setti
     counts = {"computed": len(fresh), "reused": len(reused)}
     log.info("propagation done: %s", counts)
     return counts
+
+
+def run_attribution(entries_path: str, valleys_path: str, uncertainty_path: str, table_path: str,
+                    settings: Mapping, cache_dir: str, output: str) -> dict[str, int]:
+    """Variance-based attribution of one shard's borderline verdicts, re-computing only changed records.
+
+    A record is attributed when its ``p_meets_all`` (the propagation's table)
+    lies in ``refinement.band``. Each record's design depends only on the
+    campaign seed and its identifier, so a cached row equals a fresh one
+    whenever ``input_hash``, ``physics_hash``, the settings and the code match.
+    """
+    from flakelight import refinement
+
+    entries = io.read_parquet(entries_path)
+    probabilities = io.read_parquet(uncertainty_path, columns=["entry_id", "p_meets_all"])
+    stamps = {"settings_hash": io.canonical_json_hash(dict(settings))[:16],
+              "code_version": _code_version(REFINEMENT_MODULES)}
+    ref = settings["refinement"]
+    chosen = set(probabilities["entry_id"][refinement.borderline(probabilities["p_meets_all"], ref["band"])]) \
+        if ref["enabled"] else set()
+    entries = entries[_is_in(entries["entry_id"], chosen)] if chosen else entries.iloc[:0]
+    entries = entries.assign(p_meets_all=entries["entry_id"].map(
+        probabilities.set_index("entry_id")["p_meets_all"]).to_numpy(dtype=float))
+    cache_path = Path(cache_dir) / "attribution.parquet"
+    keys = _record_keys(entries)
+    reused = pd.DataFrame()
+    if len(entries) and cache_path.exists() and \
+            io.parquet_metadata(cache_path) == {**io.parquet_metadata(cache_path), **stamps}:
+        old = io.read_parquet(cache_path)
+        reused = old[_is_in(_record_keys(old), set(keys))] if len(old) else old
+    done = set(reused["entry_id"]) if len(reused) else set()
+    todo = entries[~_is_in(entries["entry_id"], done)] if done else entries
+    if len(todo):
+        valleys = io.read_parquet(valleys_path)
+        valleys = valleys[_is_in(valleys["entry_id"], set(todo["entry_id"]))]
+        table = KeldyshTable.from_arrays(io.load_arrays(table_path))
+        fresh = refinement.attribute(todo, valleys, settings, table)
+    else:
+        fresh = refinement.empty_frame()
+    frame = pd.concat([f for f in (fresh, reused) if len(f)] or [fresh], ignore_index=True)
+    frame = frame.sort_values(["entry_id", "output", "input_group"], kind="stable").reset_index(drop=True)
+    io.write_parquet(frame, output, units=refinement.UNITS, descriptions=refinement.DESCRIPTIONS,
+                     table_metadata=stamps)
+    io.copy_file(output, cache_path)
+    counts = {"borderline": len(entries), "computed": int(todo["entry_id"].nunique()) if len(todo) else 0,
+              "reused": len(done)}
+    log.info("attribution done: %s", counts)
+    return counts
+
+
+def run_refinement_list(attribution_paths: Sequence[str], settings: Mapping, outputs: Mapping[str, str],
+                        config_hash: str) -> int:
+    """Join the shards' attribution rows; write them, the ranked refinement list and its CSV."""
+    from flakelight import refinement
+
+    frame = _concat(attribution_paths)
+    if not len(frame):
+        frame = refinement.empty_frame()
+    frame = frame.sort_values(["entry_id", "output", "input_group"], kind="stable").reset_index(drop=True)
+    ref = settings["refinement"]
+    ranked = refinement.refinement_list(frame, effect=ref["effect"], per_entry=int(ref["per_compound"]))
+    meta = {"config_hash": config_hash}
+    io.write_parquet(frame, outputs["attribution"], units=refinement.UNITS, descriptions=refinement.DESCRIPTIONS,
+                     table_metadata=meta)
+    io.write_parquet(ranked, outputs["refinement"], units=refinement.UNITS, descriptions=refinement.DESCRIPTIONS,
+                     table_metadata=meta)
+    io.write_csv(refinement.display_frame(ranked), outputs["csv"])
+    log.info("refinement list: %d rows from %d compounds", len(ranked),
+             ranked["entry_id"].nunique() if len(ranked) else 0)
+    return len(ranked)

@@ -1406,7 +1406,7 @@ SCRIPT = r"""
   function csvCell(v) {
     if (v === null || v === undefined) { return ""; }
     var s = String(v);
-    if (/^[=+\-@\t\r]/.test(s)) { s = "'" + s; }
+    if (typeof v === "string" && /^[=+\-@\t\r]/.test(s)) { s = "'" + s; }  // numbers stay numbers
     return /[",\n\r]/.test(s) ? '"' + s.replace(/"/g, '""') + '"' : s;
   }
   var button = document.getElementById("csv");

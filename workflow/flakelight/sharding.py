@@ -14,7 +14,7 @@ def shard_of(stem: str, n_shards: int) -> int:
     """
     if n_shards < 1:
         raise ValueError("n_shards must be at least 1")
-    digest = hashlib.sha256(stem.casefold().encode("utf-8")).digest()
+    digest = hashlib.sha256(stem.casefold().encode("utf-8", "surrogateescape")).digest()
     return int.from_bytes(digest[:8], "big") % n_shards
 
 

@@ -722,3 +722,39 @@ def propagate_uncertainty(entries: pd.DataFrame, valleys: pd.DataFrame, settings
         "seed": pd.Series(np.full(n, seed), dtype="int64"),
     })
     return frame[OUTPUT_COLUMNS].sort_values("entry_id", kind="stable").reset_index(drop=True)
+
+
+# --------------------------------------------------------------------------- #
+# The per-sample model for other designs (variance-based attribution)
+# --------------------------------------------------------------------------- #
+def prepare_inputs(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping) -> _Prepared:
+    """Nominal inputs and input widths of a shard, in the layout :func:`evaluate_draws` takes.
+
+    Entries keep their order; valleys are ordered by (entry, valley_index).
+    Standard-normal columns of one entry: eps, r0, scissor, then one mass and
+    one edge column per valley (see the module docstring).
+    """
+    return _prepare(entries, valleys, settings)
+
+
+def evaluate_draws(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, table) -> dict[str, np.ndarray]:
+    """Per-sample model outputs of entries a..b-1 for given standard-normal draws.
+
+    Parameters
+    ----------
+    prep : result of :func:`prepare_inputs`
+    a, b : int
+        Entry range (b exclusive).
+    z_ent : numpy.ndarray, shape (3, b - a, S)
+        Draws of the eps, r0 and scissor inputs.
+    z_mass, z_edge : numpy.ndarray, shape (V, S)
+        Draws of the valleys' mass and edge inputs (V valleys of the range).
+    table : flakelight.keldysh.KeldyshTable
+
+    Returns
+    -------
+    dict of numpy.ndarray, shape (b - a, S)
+        The :data:`QUANTITIES` (eV or nm), ``direct_target`` and the criteria
+        of :func:`criteria` -- exactly what the propagation summarises.
+    """
+    return _evaluate_block(prep, a, b, z_ent, z_mass, z_edge, table)

@@ -7,7 +7,7 @@ from pathlib import Path
 from snakemake.utils import validate
 
 sys.path.insert(0, str(Path(workflow.basedir) / "workflow"))
-from flakelight import PROPAGATION_MODULES, SHARD_MODULES  # noqa: E402
+from flakelight import PROPAGATION_MODULES, REFINEMENT_MODULES, SHARD_MODULES  # noqa: E402
 from flakelight.io import campaign_listing as campaign_listing_rows, canonical_json_hash, snapshot_json  # noqa: E402
 from flakelight.sharding import shard_name, shard_of_file  # noqa: E402
 
@@ -141,6 +141,8 @@ def final_outputs():
         "results/tables/entries.parquet",
         "results/tables/rejects.parquet",
         "results/shortlist.csv",
+        "results/tables/refinement.parquet",
+        "results/refinement.csv",
         "results/manifest.json",
         "results/summary.html",
     ]
@@ -156,6 +158,17 @@ def screen_settings(wildcards):
     return snapshot("screen", {"physics": physics_settings(), "uncertainty": uncertainty_settings(),
                                "campaign": str(campaign_dir()), "shards": config["sharding"]["shards"],
                                "cache_root": "results/cache/shards"})
+
+
+def attribution_settings(wildcards):
+    """Settings of the attribute_shard jobs: the propagation's sections plus refinement."""
+    return snapshot("attribution", {"settings": {**uncertainty_settings(), "refinement": config["refinement"]},
+                                    "cache_root": "results/cache/shards"})
+
+
+def refinement_list_settings(wildcards):
+    """Settings of the refinement_list job."""
+    return snapshot("refinement", {"settings": {"refinement": config["refinement"]}, "config_hash": config_hash()})
 
 
 def rank_settings(wildcards):

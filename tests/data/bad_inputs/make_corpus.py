@@ -309,11 +309,10 @@ def cases(include_huge: bool = True) -> list[Case]:
         elif case.stem == "bad-array-not-object":
             out[i] = Case(case.stem, case.field, case.reason, case.stage,
                           {case.entry_path: _dump([valid_record(case.stem)])})
-    # Two files whose names differ only in case: same shard, the second (in sorted order) is rejected.
-    out.append(Case("dup-case", "id", r"duplicate identifier", "duplicate",
+    # Two files whose names differ only in case: same shard, both rejected, each naming the other.
+    out.append(Case("dup-case", "id", r"duplicate identifier: dup-case\.json and Dup-Case\.json", "duplicate",
                     {"entries/Dup-Case.json": _dump(valid_record("Dup-Case")),
-                     "entries/dup-case.json": _dump(valid_record("dup-case"))},
-                    valid_stems=("Dup-Case",)))
+                     "entries/dup-case.json": _dump(valid_record("dup-case"))}))
     if include_huge:
         out.append(_raw_case("bad-huge-file", _huge_record("bad-huge-file"), "(file)", r"larger than"))
     return out

@@ -1,0 +1,257 @@
+"""Tests for flakelight.refinement (what to recompute next) and its pipeline wiring.
+
+The indices of the estimators themselves are checked against closed forms in
+test_attribution.py. Here the model is the screen's own, so the references are
+(a) exact facts of the method (one uncertain input carries all the variance;
+S_i <= ST_i, sum S <= 1 <= sum ST for independent inputs -- Saltelli et al.,
+Comput. Phys. Commun. 181, 259 (2010)), and (b) brute-force re-runs of the
+Monte Carlo propagation with the named input's uncertainty halved: the
+attribution predicts the result of those re-runs, it is not used to make them.
+"""
+
+import copy
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import yaml
+from scipy import special
+
+from flakelight import io, keldysh, pipeline, refinement, uncertainty
+
+ROOT = Path(__file__).resolve().parents[2]
+UNC_ENTRY = ("eps_rel_unc", "r0_rel_unc", "scissor_unc_ev")
+UNC_VALLEY = ("mass_rel_unc", "edge_unc_ev")
+ZERO_DEFAULTS = {"default_mass_rel": 0.0, "default_eps_rel": 0.0, "default_edge_ev": 0.0,
+                 "default_r0_rel": 0.0, "default_scissor_ev": 0.0}
+
+
+@pytest.fixture(scope="module")
+def settings():
+    with open(ROOT / "config" / "config.yaml", encoding="utf-8") as fh:
+        config = yaml.safe_load(fh)
+    keys = ("uncertainty", "survival", "ranking", "layers", "monolayer", "environments", "structure",
+            "emission_bands", "refinement")
+    return {k: copy.deepcopy(config[k]) for k in keys}
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory, settings):
+    """The demo campaign screened and propagated by the pipeline; the borderline entries attributed."""
+    tmp = tmp_path_factory.mktemp("demo")
+    table = keldysh.build_table(keldysh.default_s_grid(per_decade=4))
+    table_path = tmp / "table.npz"
+    io.save_arrays(table.to_arrays(), table_path)
+    campaign = ROOT / "inputs" / "demo"
+    paths = sorted(str(p) for p in (campaign / "entries").glob("*.json"))
+    outputs = {name: str(tmp / f"{name}.parquet") for name in pipeline.SHARD_TABLES}
+    pipeline.run_shard(paths, str(campaign), settings, str(table_path), str(tmp / "cache"), outputs)
+    entries, valleys = io.read_parquet(outputs["entries"]), io.read_parquet(outputs["valleys"])
+    unc = uncertainty.propagate_uncertainty(entries, valleys, settings, table)
+    entries = entries.merge(unc[["entry_id", "p_meets_all"]], on="entry_id")
+    chosen = entries[refinement.borderline(entries["p_meets_all"], settings["refinement"]["band"])]
+    assert len(chosen) >= 10                       # the demo is built to have borderline compounds
+    rows = refinement.attribute(chosen, valleys, settings, table)
+    return {"entries": entries, "valleys": valleys, "table": table, "borderline": chosen, "rows": rows,
+            "tmp": tmp, "outputs": outputs, "table_path": str(table_path)}
+
+
+def _zeroed(entries, valleys, settings):
+    e, v = entries.copy(), valleys.copy()
+    for c in UNC_ENTRY:
+        e[c] = np.nan
+    for c in UNC_VALLEY:
+        v[c] = np.nan
+    s = copy.deepcopy(settings)
+    s["uncertainty"].update(ZERO_DEFAULTS)
+    return e, v, s
+
+
+def _effective(frame, column, default):
+    return frame[column].astype(float).fillna(float(default))
+
+
+# --------------------------------------------------------------------------- #
+# Facts of the method, on the screen's own model
+# --------------------------------------------------------------------------- #
+def test_one_uncertain_input_carries_the_whole_verdict(demo, settings):
+    # Method fact (Sobol' 2001): if only one input varies, S = ST = 1 for every
+    # output that varies at all; no other group is attributed.
+    top = refinement.refinement_list(demo["rows"]).iloc[0]
+    assert top["input_kind"] in ("band_edges", "scissor")
+    ent = demo["entries"][demo["entries"]["entry_id"] == top["entry_id"]]
+    val = demo["valleys"][demo["valleys"]["entry_id"] == top["entry_id"]]
+    e, v, s = _zeroed(ent, val, settings)
+    if top["input_kind"] == "scissor":
+        e["scissor_unc_ev"] = 0.1
+    else:
+        v.loc[v["valley_index"] == top["valley_index"], "edge_unc_ev"] = 0.1
+    s["refinement"]["samples"] = 512
+    rows = refinement.attribute(e, v, s, demo["table"])
+    assert set(rows["input_group"]) == {top["input_group"]}
+    varied = rows[rows["variance"] > 0]
+    assert {"meets_all", "target_optical_gap_ev"} <= set(varied["output"])
+    for col in ("share_first", "share_total"):
+        err = varied[f"{col}_se"].to_numpy()
+        assert np.all(np.abs(varied[col].to_numpy() - 1.0) <= 4 * err + 0.02), varied[["output", col, f"{col}_se"]]
+
+
+def test_indices_order_and_sums_as_the_method_says(demo):
+    # Independent inputs: S_i <= ST_i and sum S <= 1 <= sum ST (Saltelli et al. 2010,
+    # sec. 2), each up to sampling error (the reported standard errors, summed in quadrature).
+    rows = demo["rows"]
+    verdict = rows[(rows["output"] == "meets_all") & (rows["variance"] > 0)]
+    assert len(verdict)
+    slack = 4 * np.hypot(verdict["share_first_se"], verdict["share_total_se"]) + 0.02
+    assert np.all(verdict["share_first"] <= verdict["share_total"] + slack)
+    for _, g in verdict.groupby("entry_id"):
+        s_err = 4 * np.sqrt(np.sum(g["share_first_se"] ** 2)) + 0.02
+        t_err = 4 * np.sqrt(np.sum(g["share_total_se"] ** 2)) + 0.02
+        assert g["share_first"].sum() <= 1.0 + s_err
+        assert g["share_total"].sum() >= 1.0 - t_err
+    # a 0/1 verdict's variance is p (1 - p) of its own samples (Bernoulli; common practice)
+    np.testing.assert_allclose(verdict["variance"], verdict["mean"] * (1 - verdict["mean"]), rtol=1e-12)
+
+
+def test_results_do_not_depend_on_shard_layout_order_or_blocks(demo, settings):
+    rows, chosen = demo["rows"], demo["borderline"]
+    subset = chosen.iloc[::3].sample(frac=1.0, random_state=1)           # another shard, shuffled
+    alone = refinement.attribute(subset, demo["valleys"], settings, demo["table"], block_cells=700)
+    expected = rows[rows["entry_id"].isin(set(subset["entry_id"]))].reset_index(drop=True)
+    pd.testing.assert_frame_equal(alone, expected)
+
+
+# --------------------------------------------------------------------------- #
+# End to end on the demo: re-running with the named input halved
+# --------------------------------------------------------------------------- #
+def _shift_and_halve(ent, val, settings, row, shift_sd):
+    """Copies with the named additive input's uncertainty halved and its centre moved by shift_sd sigma."""
+    e, v = ent.copy(), val.copy()
+    unc = settings["uncertainty"]
+    if row.input_kind == "scissor":
+        scissor = e["scissor_ev"].astype(float)
+        given = e["scissor_unc_ev"].astype(float)
+        sigma = given.where(given.notna(), np.where(scissor != 0, unc["default_scissor_ev"], 0.0))
+        e["scissor_ev"] = scissor + shift_sd * sigma
+        e["scissor_unc_ev"] = 0.5 * sigma
+    else:
+        assert row.input_kind == "band_edges"
+        m = v["valley_index"] == row.valley_index
+        sigma = _effective(v.loc[m], "edge_unc_ev", unc["default_edge_ev"])
+        for c in [c for c in v.columns if c.startswith("edge_") and c.endswith("_ev") and c != "edge_unc_ev"]:
+            v.loc[m, c] = v.loc[m, c] + shift_sd * sigma
+        v.loc[m, "edge_unc_ev"] = 0.5 * sigma
+    return e, v
+
+
+def test_each_borderline_compound_names_an_input_whose_halving_moves_its_probability(demo, settings):
+    """Re-run the propagation with the first listed input's uncertainty halved.
+
+    A refinement that halves the standard deviation s of an input learns the
+    part sqrt(3)/2 s u of its error (u standard normal) and leaves s/2: the
+    refined run is centred at the nominal value + sqrt(3)/2 s u with width s/2.
+    Re-running the propagation at the M quantiles u_j = Phi^-1((j - 1/2)/M)
+    gives the probabilities the refinement can end with. They must spread
+    measurably (beyond the binomial error of a run), and their variance must
+    agree with the attribution's expected effect share_halved x p(1 - p)
+    (brute-force double-loop Monte Carlo versus the pick-freeze estimate).
+    """
+    listed = refinement.refinement_list(demo["rows"], per_entry=3)
+    firsts = listed.drop_duplicates("entry_id")
+    assert set(firsts["entry_id"]) == set(demo["borderline"]["entry_id"])
+    n_samples, m = 2000, 16
+    u = special.ndtri((np.arange(m) + 0.5) / m)
+    checked = 0
+    for row in firsts.itertuples(index=False):
+        if row.input_kind not in ("band_edges", "scissor"):
+            continue                                   # centre shifts are additive only for these
+        ent = demo["entries"][demo["entries"]["entry_id"] == row.entry_id]
+        val = demo["valleys"][demo["valleys"]["entry_id"] == row.entry_id]
+        p = []
+        for uj in u:
+            e, v = _shift_and_halve(ent, val, settings, row, np.sqrt(0.75) * uj)
+            p.append(uncertainty.propagate_samples(e, v, settings, demo["table"],
+                                                   samples=n_samples)["meets_all"][0].mean())
+        p = np.array(p)
+        noise = np.sqrt(0.25 / n_samples)              # largest binomial error of one re-run
+        assert p.max() - p.min() > 6 * noise, (row.entry_id, p)
+        # variance of the refined probability vs the expected effect (same quantity, two estimators);
+        # the quantile grid and the pick-freeze estimate both carry errors of a few 0.01
+        brute = p.var() / (row.p_meets_all * (1 - row.p_meets_all))
+        assert abs(brute - row.share_halved) <= 0.1 + 3 * demo["rows"].set_index(
+            ["entry_id", "output", "input_group"]).loc[(row.entry_id, "meets_all", row.input_group),
+                                                       "share_halved_se"], (row.entry_id, brute, row.share_halved)
+        checked += 1
+    assert checked >= 0.8 * len(firsts)
+
+
+# --------------------------------------------------------------------------- #
+# Pipeline: per-record cache, the list and its CSV
+# --------------------------------------------------------------------------- #
+def test_run_attribution_caches_per_record(demo, settings, tmp_path):
+    entries, valleys = demo["entries"], demo["valleys"]
+    prop = tmp_path / "uncertainty.parquet"
+    io.write_parquet(entries[["entry_id", "p_meets_all"]], prop)
+    cache = tmp_path / "cache"
+    out1, out2 = tmp_path / "a1.parquet", tmp_path / "a2.parquet"
+    first = pipeline.run_attribution(demo["outputs"]["entries"], demo["outputs"]["valleys"], str(prop),
+                                     demo["table_path"], settings, str(cache), str(out1))
+    assert first == {"borderline": len(demo["borderline"]), "computed": len(demo["borderline"]), "reused": 0}
+    again = pipeline.run_attribution(demo["outputs"]["entries"], demo["outputs"]["valleys"], str(prop),
+                                     demo["table_path"], settings, str(cache), str(out2))
+    assert again["computed"] == 0 and again["reused"] == len(demo["borderline"])
+    pd.testing.assert_frame_equal(io.read_parquet(out1), io.read_parquet(out2))
+    # one revised record: only it is recomputed
+    revised = io.read_parquet(demo["outputs"]["entries"])
+    target = demo["borderline"]["entry_id"].iloc[0]
+    revised.loc[revised["entry_id"] == target, "input_hash"] = "revised"
+    rev_path = tmp_path / "entries.parquet"
+    io.write_parquet(revised, rev_path)
+    third = pipeline.run_attribution(str(rev_path), demo["outputs"]["valleys"], str(prop), demo["table_path"],
+                                     settings, str(cache), str(tmp_path / "a3.parquet"))
+    assert third["computed"] == 1 and third["reused"] == len(demo["borderline"]) - 1
+    # a changed refinement setting invalidates the cache
+    s = copy.deepcopy(settings)
+    s["refinement"]["samples"] = 64
+    fourth = pipeline.run_attribution(str(rev_path), demo["outputs"]["valleys"], str(prop), demo["table_path"],
+                                      s, str(cache), str(tmp_path / "a4.parquet"))
+    assert fourth["reused"] == 0
+    # every column carries its unit and description
+    units = io.parquet_units(out1)
+    assert units["share_first"] == "1" and units["p_meets_all"] == "1"
+
+
+def test_refinement_list_ranks_and_writes_a_plannable_csv(demo, settings, tmp_path):
+    rows = demo["rows"]
+    path = tmp_path / "shard.parquet"
+    io.write_parquet(rows, path)
+    outputs = {"attribution": str(tmp_path / "attribution.parquet"),
+               "refinement": str(tmp_path / "refinement.parquet"), "csv": str(tmp_path / "refinement.csv")}
+    n = pipeline.run_refinement_list([str(path)], settings, outputs, "cfg")
+    ranked = io.read_parquet(outputs["refinement"])
+    assert len(ranked) == n > 0
+    assert list(ranked["rank"]) == list(range(1, n + 1))
+    assert np.all(np.diff(ranked["expected_effect"]) <= 0)
+    assert ranked.groupby("entry_id").size().max() <= settings["refinement"]["per_compound"]
+    # expected effect = share halved x p(1-p) of the attribution's own base samples
+    verdict = rows[rows["output"] == "meets_all"].set_index(["entry_id", "input_group"])
+    ref = verdict.loc[list(zip(ranked["entry_id"], ranked["input_group"]))]
+    np.testing.assert_allclose(ranked["expected_effect"], ref["share_halved"] * ref["variance"], rtol=1e-12)
+    csv = pd.read_csv(outputs["csv"])
+    assert list(csv.columns) == list(refinement.DISPLAY.values())
+    first = ranked.iloc[0]
+    assert first["entry_id"] in first["advice"] and first["input_group"] in first["advice"]
+    assert "%" in first["advice"]
+
+
+def test_disabled_or_nothing_borderline_gives_an_empty_table(demo, settings, tmp_path):
+    prop = tmp_path / "uncertainty.parquet"
+    io.write_parquet(demo["entries"][["entry_id", "p_meets_all"]], prop)
+    s = copy.deepcopy(settings)
+    s["refinement"]["enabled"] = False
+    counts = pipeline.run_attribution(demo["outputs"]["entries"], demo["outputs"]["valleys"], str(prop),
+                                      demo["table_path"], s, str(tmp_path / "c"), str(tmp_path / "a.parquet"))
+    assert counts == {"borderline": 0, "computed": 0, "reused": 0}
+    frame = io.read_parquet(tmp_path / "a.parquet")
+    assert len(frame) == 0 and list(frame.columns) == list(refinement.COLUMNS)

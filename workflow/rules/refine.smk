@@ -1,0 +1,55 @@
+# Stage 2b: what to recompute next. For every record whose chance of meeting every
+# criterion lies in refinement.band, attribute the verdict's uncertainty to the input
+# groups (Saltelli 2010 / Jansen 1999 Sobol indices), per shard with a per-record cache
+# like the propagation's; then rank (compound, input, expected effect) for the campaign.
+
+
+localrules:
+    refinement_list,
+
+
+rule attribute_shard:
+    input:
+        table=rules.keldysh_table.output[0],
+        entries=rules.screen_shard.output.entries,
+        valleys=rules.screen_shard.output.valleys,
+        uncertainty=rules.screen_shard.output.uncertainty,
+        settings=attribution_settings,
+        code=code_files("attribute_shard", *REFINEMENT_MODULES),
+    output:
+        attribution="results/shards/{shard}/attribution.parquet",
+    log:
+        "results/logs/attribute_shard/{shard}.log",
+    benchmark:
+        "results/benchmarks/attribute_shard/{shard}.tsv"
+    threads: 1
+    conda:
+        "../../envs/flakelight.yaml"
+    shell:
+        adapter(
+            "attribute_shard",
+            inputs=("table", "entries", "valleys", "uncertainty", "settings"),
+            outputs=("attribution",),
+            wildcards=("shard",),
+        )
+
+
+rule refinement_list:
+    input:
+        attribution=shard_outputs("attribution"),
+        settings=refinement_list_settings,
+        code=code_files("refinement_list", "refinement", "attribution", "pipeline"),
+    output:
+        attribution="results/tables/attribution.parquet",
+        refinement="results/tables/refinement.parquet",
+        csv="results/refinement.csv",
+    log:
+        "results/logs/refinement_list/refinement_list.log",
+    conda:
+        "../../envs/flakelight.yaml"
+    shell:
+        adapter(
+            "refinement_list",
+            inputs=("attribution", "settings"),
+            outputs=("attribution", "refinement", "csv"),
+        )
