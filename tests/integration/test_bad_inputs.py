@@ -1,22 +1,27 @@
 """Malformed inputs: every bad record is rejected with a field and a reason, the run goes on.
 
 The corpus comes from tests/data/bad_inputs/make_corpus.py (written into a
-temporary campaign at test time; the > 2 MB record too). Two layers of checks:
+temporary campaign at test time; the > 2 MB record, named pipes, sockets and
+dangling links too). Two layers of checks:
 
-* per case, fast: :func:`flakelight.io.read_record` plus
-  :class:`flakelight.contract.RecordChecker` give a problem with the expected
-  field and reason (CIF cases: the structure analysis raises StructureError);
-* end to end, one Snakemake run (``--cores 2``) on a campaign that mixes eight
-  valid synthetic records with the whole corpus: the run exits 0, every bad
-  file has a reject row naming the field, every valid record is screened; and
-  one run on an empty entries/ folder, which must give empty but well-typed
-  tables (same columns and Arrow types as a non-empty run).
+* in process, one shard over everything: :func:`flakelight.pipeline.run_shard`
+  screens a campaign of eight valid synthetic records plus the whole corpus as
+  one shard. Per case: the record's file has a reject row with the expected
+  field, reason and stage. And every valid record is screened with exactly the
+  numbers of a run over the valid records alone (bad files beside it change
+  nothing);
+* end to end, one Snakemake run (``--cores 2``) on the same mix: the run exits 0,
+  every bad file has a reject row naming the field, every valid record is
+  screened; and one run on an empty entries/ folder, which must give empty but
+  well-typed tables (same columns and Arrow types as a non-empty run).
 """
 
 from __future__ import annotations
 
 import importlib.util
 import re
+import shutil
+import signal
 import subprocess
 import sys
 from pathlib import Path
@@ -26,11 +31,12 @@ import pyarrow.parquet as pq
 import pytest
 import yaml
 
-from flakelight import contract, io, sharding, structure
+from flakelight import io, keldysh, pipeline, sharding
 
 REPO = Path(__file__).resolve().parents[2]
 SNAKEMAKE = [sys.executable, "-m", "snakemake"]
-TARGETS = ("results/manifest.json", "results/shortlist.csv", "results/tables/screen_long.parquet")
+TARGETS = ("results/manifest.json", "results/shortlist.csv", "results/tables/screen_long.parquet",
+           "results/summary.html")
 TABLES = ("entries", "valleys", "rejects", "screen_long", "screen_wide")
 N_VALID = 8
 
@@ -79,55 +85,86 @@ def failure_text(res: subprocess.CompletedProcess, workdir: Path) -> str:
 # ---------------------------------------------------------------------------------------------
 
 def test_corpus_is_large_enough():
-    assert len(CASES) >= 40
+    assert len(CASES) >= 100
     assert len({c.stem.casefold() for c in CASES}) == len(CASES), "case stems must be unique"
+    assert len({c.source_file for c in CASES}) == len(CASES), "case files must be unique"
+
+
+SETTINGS = yaml.safe_load((REPO / "config" / "config.yaml").read_text())
+PHYSICS = {k: SETTINGS[k] for k in ("layers", "structure", "environments", "monolayer", "emission_bands")}
+
+
+def _valid_campaign(folder: Path) -> list[str]:
+    subprocess.run([sys.executable, str(REPO / "inputs" / "make_campaign.py"), "--out", str(folder),
+                    "--count", str(N_VALID), "--no-broken"], check=True, capture_output=True)
+    return sorted(p.stem for p in (folder / "entries").glob("*.json"))
+
+
+def _run_one_shard(campaign: Path, table: str, out: Path) -> dict[str, pd.DataFrame]:
+    """run_shard over every listed record of ``campaign`` as one shard (the workflow's listing)."""
+    listing = {"entries": io.campaign_listing(campaign, "entries")}
+    outputs = {k: str(out / f"{k}.parquet") for k in pipeline.SHARD_TABLES}
+
+    def alarm(signum, frame):
+        raise AssertionError("the shard blocked (a named pipe opened for reading?)")
+
+    old = signal.signal(signal.SIGALRM, alarm)
+    signal.alarm(300)
+    try:
+        pipeline.run_shard(pipeline.listed_paths(str(campaign), listing, "entries"), str(campaign), PHYSICS,
+                           table, str(out / "cache"), outputs)
+    finally:
+        signal.alarm(0)
+        signal.signal(signal.SIGALRM, old)
+    return {k: io.read_parquet(v) for k, v in outputs.items()}
 
 
 @pytest.fixture(scope="module")
-def checker():
-    return contract.RecordChecker(io.load_schema("entry.schema.json"))
+def shard_runs(tmp_path_factory):
+    """(tables of valid records alone, tables of valid records beside the corpus, valid stems)."""
+    work = tmp_path_factory.mktemp("bad_inputs_shard")
+    table = str(work / "keldysh.npz")
+    io.save_arrays(keldysh.build_table().to_arrays(), table)
+    alone = work / "alone"
+    valid = _valid_campaign(alone)
+    mixed = work / "mixed"
+    shutil.copytree(alone, mixed, symlinks=True)
+    _, extras = corpus.write_corpus(mixed, include_huge=True)
+    return _run_one_shard(alone, table, work / "out-alone"), _run_one_shard(mixed, table, work / "out-mixed"), \
+        valid, extras
 
 
-@pytest.fixture(scope="module")
-def corpus_dir(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("corpus")
-    corpus.write_corpus(folder, include_huge=True)
-    return folder
+@pytest.mark.parametrize("case", CASES, ids=lambda c: c.stem)
+def test_case_rejected_with_file_field_reason_and_stage(case, shard_runs):
+    rejects = shard_runs[1]["rejects"]
+    rows = rejects[rejects["source_file"] == case.source_file]
+    assert len(rows), f"no reject row for {case.source_file}"
+    shown = list(zip(rows["field"], rows["reason"], rows["stage"]))
+    assert any(f == case.field and re.search(case.reason, r) and st == case.stage for f, r, st in shown), shown
+    assert all(f and r for f, r, _ in shown)
 
 
-@pytest.mark.parametrize("case", [c for c in CASES if c.stage in ("read", "contract")], ids=lambda c: c.stem)
-def test_case_rejected_with_field_and_reason(case, checker, corpus_dir):
-    structures = corpus_dir / "structures"
-    raw = io.read_record(corpus_dir / "entries" / f"{case.stem}.json")
-    if raw.error is not None:
-        problems = [contract.Problem(raw.error_field, raw.error)]
-    else:
-        problems = checker.check(raw.data, stem=case.stem, structure_problem=lambda n: io.file_kind_problem(structures / n))
-    assert (raw.error is not None) == (case.stage == "read"), problems
-    assert problems, "a malformed record passed the contract"
-    assert all(p.field and p.reason for p in problems)
-    assert any(p.field == case.field and re.search(case.reason, p.reason) for p in problems), \
-        [(p.field, p.reason) for p in problems]
+def test_good_records_beside_bad_ones_are_screened_as_alone(shard_runs):
+    alone, mixed, valid, extras = shard_runs
+    assert len(alone["rejects"]) == 0
+    assert sorted(mixed["wide"]["entry_id"]) == sorted(valid + extras)
+    for name, keys in (("wide", ["entry_id"]), ("long", ["entry_id", "layers", "environment"]),
+                       ("entries", ["entry_id"]), ("valleys", ["entry_id", "valley_index"])):
+        a = alone[name].sort_values(keys).reset_index(drop=True)
+        m = mixed[name][mixed[name]["entry_id"].isin(valid)].sort_values(keys).reset_index(drop=True)
+        pd.testing.assert_frame_equal(a, m, check_exact=True, obj=name)
 
 
-@pytest.mark.parametrize("case", [c for c in CASES if c.stage == "structure"], ids=lambda c: c.stem)
-def test_corrupt_structure_raises_structure_error(case, corpus_dir):
-    data, reason = io.read_text_limited(corpus_dir / "structures" / f"{case.stem}.cif")
-    assert reason is None  # present and small: the analysis, not the reader, must refuse it
-    with pytest.raises(structure.StructureError):
-        structure.analyse_cif_text(data)
+def test_every_rejected_file_is_a_case(shard_runs):
+    rejects = shard_runs[1]["rejects"]
+    expected = {c.source_file for c in CASES} | {"Dup-Case.json"}
+    assert set(rejects["source_file"]) == expected
+    assert rejects["reason"].map(lambda r: r.encode("utf-8") is not None).all()
 
 
 @pytest.mark.parametrize("shards", [1, 2, 4, 7, 64, 4096])
 def test_case_duplicates_share_a_shard(shards):
     assert sharding.shard_of("Dup-Case", shards) == sharding.shard_of("dup-case", shards)
-
-
-def test_valid_extras_pass_the_contract(checker, corpus_dir):
-    for stem in [Path(p).stem for p in corpus.valid_extras()]:
-        raw = io.read_record(corpus_dir / "entries" / f"{stem}.json")
-        assert raw.error is None, (stem, raw.error)
-        assert checker.check(raw.data, stem=stem, structure_problem=lambda n: "file not found") == [], stem
 
 
 # ---------------------------------------------------------------------------------------------
@@ -155,7 +192,7 @@ def test_corpus_run_rejects_every_bad_file(corpus_run):
     assert (rejects["field"].str.len() > 0).all() and (rejects["reason"].str.len() > 0).all()
     missing, wrong = [], []
     for case in cases:
-        source = "dup-case.json" if case.stage == "duplicate" else f"{case.stem}.json"
+        source = case.source_file
         rows = rejects[rejects["source_file"] == source]
         if rows.empty:
             missing.append(source)
@@ -173,8 +210,15 @@ def test_corpus_run_screens_every_valid_record(corpus_run):
     assert sorted(wide["entry_id"]) == sorted(valid)
     assert not set(rejects["entry_id"]) & set(valid)
     assert not set(wide["entry_id"]) & {c.stem for c in cases}
+    manifest = io.read_json(work / "results" / "manifest.json")
+    assert "bad-fs-fifo.json" not in manifest["inputs"]["entries"]
+    assert "named pipe" in manifest["not_read"]["entries/bad-fs-fifo.json"]
+    assert "hidden file" in manifest["not_read"]["entries/.bad-name-hidden.json"]
     csv = pd.read_csv(work / "results" / "tables" / "rejects.csv")
     assert len(csv) == len(rejects)
+    # spreadsheet-safe (OWASP CSV injection guidance): a reason starting with '-' is neutralised
+    reason = csv.loc[csv["source_file"] == "bad-edge-uncertainty-negative.json", "reason"].iloc[0]
+    assert reason.startswith("'-0.1 eV is outside")
 
 
 @pytest.mark.slow
@@ -182,8 +226,11 @@ def test_corpus_run_rejects_are_escaped_plain_text(corpus_run):
     """Identifiers with markup or path separators never become file names or table keys."""
     work, _, _ = corpus_run
     rejects = pd.read_parquet(work / "results" / "tables" / "rejects.parquet")
-    # entry_id comes from the (valid) file name, never from the record's id field
-    assert rejects["entry_id"].str.fullmatch(r"[A-Za-z0-9_-]+").all()
+    # entry_id comes from the (valid) file name, never from the record's id field; files skipped
+    # for their names keep them, as storable text (non-UTF-8 bytes shown as \xNN)
+    read = rejects["stage"] != "skipped"
+    assert rejects.loc[read, "entry_id"].str.fullmatch(r"[A-Za-z0-9_-]+").all()
+    assert rejects.loc[~read, "entry_id"].map(lambda t: t.encode("utf-8") and t.isprintable()).all()
     assert not list((work / "results").rglob("x")), "an id like '../x' must not name a file"
 
 

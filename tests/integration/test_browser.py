@@ -280,3 +280,32 @@ def test_screenshot_artifact(driver, tmp_path):
     assert path.stat().st_size > 10_000 and path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     print(f"summary screenshot: {path}")
     print(f"summary print preview: {folder / 'summary-print.pdf'}")
+
+
+def test_every_plot_has_a_legend_and_colours_keep_one_meaning(driver, run):
+    legends = driver.execute_script(
+        "return Array.from(document.querySelectorAll('figure.plot')).map(f => "
+        "Array.from(f.querySelectorAll('ul.keys li')).filter(li => li.getBoundingClientRect().width > 0).length);")
+    assert len(legends) == 4 and min(legends) >= 2, legends
+    palette = driver.execute_script("var p = document.querySelector('.palette'); "
+                                    "return p && p.getBoundingClientRect().height > 0 ? p.textContent : '';")
+    assert "direct gap" in palette and "candidate" in palette
+    # A dot's colour is its gap character, whichever figure it is in; candidates differ by outline.
+    colours = driver.execute_script(
+        "var style = getComputedStyle(document.documentElement);"
+        "function probe(c) { var s = document.createElement('span'); s.style.color = c;"
+        " document.body.appendChild(s); var v = getComputedStyle(s).color; s.remove(); return v; }"
+        "var want = {direct: probe(style.getPropertyValue('--c-direct')),"
+        " indirect: probe(style.getPropertyValue('--c-indirect'))};"
+        "var bad = [];"
+        "['direct', 'indirect'].forEach(function (g) {"
+        " document.querySelectorAll('svg.chart circle.pt.g-' + g).forEach(function (c) {"
+        "  if (getComputedStyle(c).fill !== want[g]) { bad.push(c.getAttribute('data-id')); } }); });"
+        "var cand = document.querySelector('#plot-binding-gap circle.pt.cand');"
+        "var other = document.querySelector('#plot-binding-gap circle.pt:not(.cand)');"
+        "return {bad: bad, direct: document.querySelectorAll('svg.chart circle.pt.g-direct').length,"
+        " candStroke: cand ? getComputedStyle(cand).stroke : null,"
+        " otherStroke: other ? getComputedStyle(other).stroke : null};")
+    assert colours["direct"] > 0 and not colours["bad"], colours
+    if int(run["wide"]["meets_all_criteria"].sum()) and int((~run["wide"]["meets_all_criteria"]).sum()):
+        assert colours["candStroke"] != colours["otherStroke"]

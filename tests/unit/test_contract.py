@@ -119,7 +119,9 @@ def test_every_schema_property_is_described():
 @pytest.mark.parametrize("content, words", [
     (b"", "empty"),
     (b"   \n", "empty"),
-    (b"\xff\xfe{\x00}\x00", "not UTF-8"),
+    (b"\xff\xfe{\x00}\x00", "UTF-16 text"),
+    (b"{\"a\": \"\xff\"}", "not UTF-8"),
+    (b"{\"a\": \"\x00\"}", "NUL byte"),
     (b'{"id": NaN}', "non-finite number 'NaN'"),
     (b'{"id": Infinity}', "non-finite number 'Infinity'"),
     (b'{"id": ', "invalid JSON at line 1"),
@@ -197,7 +199,7 @@ def test_edge_given_in_one_band_is_checked_against_the_modelled_other(record, ma
         _normalize(record)
     (problem,) = err.value.problems
     assert problem.field == "valleys[0].edge_ev.2"
-    assert "no gap at 2 layer(s)" in problem.reason and "from the layer model" in problem.reason
+    assert "no gap at 2 layers" in problem.reason and "from the layer model" in problem.reason
 
 
 def test_conduction_edge_below_the_valence_band_in_one_band_only(record):

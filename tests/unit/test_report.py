@@ -9,10 +9,12 @@ from html.parser import HTMLParser
 from pathlib import Path
 
 import numpy as np
+import markupsafe
 import pandas as pd
 import pytest
 import yaml
 
+import page_text
 from flakelight import io, report
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -257,7 +259,8 @@ def test_hostile_text_is_escaped_everywhere(settings):
                  manifest=manifest)
     for text in HOSTILE[:3]:
         assert text not in page
-    assert html.escape(HOSTILE[1], quote=True) in page
+    assert str(markupsafe.escape(HOSTILE[1])) in page
+    assert html.unescape(str(markupsafe.escape(HOSTILE[1]))) == HOSTILE[1]
     parsed = _Collector()
     parsed.feed(page)
     assert not [t for t, _ in parsed.tags if t == "img"]
@@ -268,7 +271,7 @@ def test_hostile_text_is_escaped_everywhere(settings):
     data = json.loads(parsed.scripts[0][1])
     assert HOSTILE[0] in data["rows"]          # the data round-trips exactly ...
     assert "<" not in parsed.scripts[0][1]     # ... with no raw '<' in the block
-    assert parsed.scripts[1][1].strip() == report.SCRIPT.strip()
+    assert parsed.scripts[1][1] == report.page_script()
 
 
 def test_script_json_escapes_markup_and_line_separators():
@@ -280,7 +283,11 @@ def test_script_json_escapes_markup_and_line_separators():
 
 def test_content_security_policy_allows_only_the_page_script(settings):
     page = _page(settings)
-    digest = base64.b64encode(hashlib.sha256(report.SCRIPT.encode()).digest()).decode()
+    parsed = _Collector()
+    parsed.feed(page)
+    inline = parsed.scripts[1][1]  # the script as the browser sees it, hashed here with hashlib
+    assert inline == report.page_script()
+    digest = base64.b64encode(hashlib.sha256(inline.encode()).digest()).decode()
     meta = html.unescape(re.search(r'http-equiv="Content-Security-Policy" content="([^"]+)"', page).group(1))
     assert f"'sha256-{digest}'" in meta and "default-src 'none'" in meta
     assert "unsafe-inline" not in meta.split("script-src")[1].split(";")[0]
@@ -324,7 +331,8 @@ def test_candidate_rows_and_plot_points_match_the_table(settings):
 def test_uncertainty_columns_shown_only_when_present(settings):
     ids = [f"cmp-{i:02d}" for i in range(6)]
     plain = _page(settings, ranked=_ranked(ids, settings))
-    assert "P(all met)" not in plain and 'class="errbar"' not in plain
+    errbar = re.compile(r'<line class="errbar[ "]')
+    assert "P(all met)" not in plain and not errbar.search(plain)
     base = _ranked(ids, settings)
     extra = {"p_meets_all": np.linspace(0.2, 0.9, 6), "p_direct_target": np.full(6, 0.7)}
     for name in ("target_binding_ev", "target_optical_gap_ev", "target_emission_nm"):
@@ -332,7 +340,7 @@ def test_uncertainty_columns_shown_only_when_present(settings):
             extra[f"{name}_{q}"] = base[name].to_numpy() * f
     page = _page(settings, ranked=_ranked(ids, settings, extra=extra))
     assert "P(all met)" in page and "chance this criterion holds" in page
-    assert 'class="errbar"' in page
+    assert errbar.search(page)
     assert report.uncertainty_columns(list(extra))["quantiles"] == [
         "target_binding_ev", "target_emission_nm", "target_optical_gap_ev"]
 
@@ -344,6 +352,64 @@ def test_no_candidates_says_so(settings):
     page = _page(settings, ranked=ranked)
     assert "No compound meets every criterion" in page
     assert "Misses:" in page
+
+
+#: Wording changed on purpose since commit ba2d14c: (old text, new text), applied to that page's text.
+INTENDED_CHANGES = (
+    ("on_silica", "on silica"),  # display names of the surroundings instead of config keys
+    ("Large dots meet every criterion", "Large ringed dots meet every criterion"),  # candidates by outline
+    ("Filled dots are candidates", "Ringed dots are candidates"),
+    # bulk rows use a volume pair density (issue 17, 3D Saha bound fraction)
+    ("1e+12 cm\u207b\u00b2 Surroundings", "1e+12 cm\u207b\u00b2 (layers), 1e+17 cm\u207b\u00b3 (bulk) Surroundings"),
+)
+#: Added on purpose: the gap character of each point of the thickness figure (now its colour).
+ADDED_TO_TIPS = re.compile(r", (?:direct|indirect|unknown) gap(?= \||$)")
+
+
+def test_page_text_matches_the_page_before_the_template_move():
+    # Reference: visible text of the page written by commit ba2d14c (f-string page) for the
+    # same fixed inputs; see tests/unit/page_text.py for how it was made.
+    reference = json.loads(page_text.REFERENCE.read_text(encoding="utf-8"))["sections"]
+    now = page_text.visible_text(page_text.reference_page(report))
+    assert set(now) == set(reference)
+    for section, old in reference.items():
+        text, tips = old["text"], old["tips"]
+        for before, after in INTENDED_CHANGES:
+            text, tips = text.replace(before, after), tips.replace(before, after)
+        assert now[section]["text"] == text, section
+        assert ADDED_TO_TIPS.sub("", now[section]["tips"]) == tips, section
+
+
+def test_template_files_are_declared():
+    # DATA_FILES is what the workflow declares as code inputs of the page (common.smk reads it).
+    folder = Path(report.__file__).parent
+    on_disk = {str(p.relative_to(folder)) for p in (folder / "templates").iterdir() if p.is_file()}
+    assert set(report.DATA_FILES) == on_disk
+
+
+def test_every_figure_has_a_legend(settings):
+    page = _page(settings)
+    figures = re.findall(r'<figure class="plot">(.*?)</figure>', page, re.S)
+    assert len(figures) == 4
+    for body in figures:
+        keys = re.search(r'<ul class="keys"[^>]*>(.*?)</ul>', body, re.S)
+        assert keys and keys.group(1).count("<li>") >= 2, body[:200]
+    assert "Colours on this page" in page
+
+
+def test_one_colour_per_meaning(settings):
+    css = (Path(report.__file__).parent / "templates" / "summary.css").read_text(encoding="utf-8")
+    root = re.search(r":root\{(.*?)\}", css, re.S).group(1)
+    meanings = dict(re.findall(r"--(c-[\w-]+):\s*(#[0-9a-fA-F]{3,6})", root))
+    assert {"c-direct", "c-indirect", "c-pass", "c-fail", "c-window", "c-cand"} <= set(meanings)
+    values = [v.lower() for v in meanings.values()]
+    assert len(values) == len(set(values)), meanings  # no colour carries two meanings
+    rest = css.replace(root, "").lower()
+    for value in values:
+        assert value not in rest, value  # ... and each meaning is declared once, used by name
+    page = _page(settings)
+    for svg in re.findall(r'<svg class="chart".*?</svg>', page, re.S):
+        assert not re.search(r'\s(?:fill|stroke)="', svg)  # figures take colours from classes only
 
 
 # ---------------------------------------------------------------------------

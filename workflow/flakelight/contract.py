@@ -235,7 +235,7 @@ def _mass_block_problems(mass: dict, path: list) -> list[Problem]:
             for e in eig:
                 r = mass_problems(float(e))
                 if r:
-                    out.append(Problem(p, f"principal mass {r}"))
+                    out.append(Problem(p, f"principal {r if r.startswith('mass') else 'mass ' + r}"))
                     break
     if "perpendicular_me" in mass:
         r = mass_problems(mass["perpendicular_me"])

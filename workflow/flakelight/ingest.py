@@ -261,6 +261,7 @@ def layer_gap_problems(valleys: list[dict], *, max_layers: int, fit_exponent: bo
         if not np.isfinite(gap) or gap > 0:
             continue
         key = "bulk" if n == layer_model.BULK else str(n)
+        where = "in the bulk crystal" if n == layer_model.BULK else f"at {n} layer{'s' if n > 1 else ''}"
         vb = _extreme_valley(filled[:, j], ~is_cond, np.argmax)
         cb = _extreme_valley(filled[:, j], is_cond, np.argmin)
 
@@ -272,7 +273,7 @@ def layer_gap_problems(valleys: list[dict], *, max_layers: int, fit_exponent: bo
         scissor = f" with the scissor {scissor_ev:+.4g} eV" if scissor_ev else ""
         out.append(Problem(
             f"valleys[{shown}].edge_ev.{key}",
-            f"no gap at {key} layer(s): the lowest conduction edge {described(cb)}{scissor} is not above the "
+            f"no gap {where}: the lowest conduction edge {described(cb)}{scissor} is not above the "
             f"highest valence edge {described(vb)}; give this layer count for both bands or check the value"))
     return out
 

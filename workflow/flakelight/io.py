@@ -14,6 +14,7 @@ import json
 import math
 import os
 import stat
+import sys
 import tempfile
 from dataclasses import dataclass
 from pathlib import Path
@@ -257,6 +258,12 @@ def read_record(path: str | os.PathLike) -> RawRecord:
     digest = sha256_bytes(raw)
     if not raw.strip():
         return RawRecord(path, digest, error="file is empty")
+    if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
+        return RawRecord(path, digest, error="UTF-16 text (it starts with a UTF-16 byte-order mark); save it as UTF-8")
+    nul = raw.find(b"\x00")
+    if nul >= 0:
+        return RawRecord(path, digest, error=f"contains a NUL byte (at byte {nul}): binary data or UTF-16 text, "
+                                             "not UTF-8 JSON")
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -268,12 +275,14 @@ def read_record(path: str | os.PathLike) -> RawRecord:
                           object_pairs_hook=_object_pairs)
     except json.JSONDecodeError as exc:
         return RawRecord(path, digest, error=f"invalid JSON at line {exc.lineno} column {exc.colno}: {exc.msg}")
-    except (ValueError, RecursionError) as exc:
+    except RecursionError:
+        return RawRecord(path, digest, error="invalid JSON: arrays or objects nested too deeply")
+    except ValueError as exc:
+        if "integer string conversion" in str(exc):  # CPython's guard against huge integers
+            return RawRecord(path, digest, error="invalid JSON: an integer with more than "
+                                                 f"{sys.get_int_max_str_digits()} digits")
         return RawRecord(path, digest, error=f"invalid JSON: {exc}")
-    try:
-        problem = _content_problem(data, [])
-    except RecursionError:  # pragma: no cover - json.loads refuses deeper nesting first
-        problem = ("(record)", "nested too deeply")
+    problem = _content_problem(data, [])
     if problem:
         return RawRecord(path, digest, error=problem[1], error_field=problem[0])
     return RawRecord(path, digest, data=data)
@@ -402,13 +411,23 @@ def load_schema(name: str) -> dict:
         return json.load(fh)
 
 
+def read_library_text(relative: str) -> str:
+    """A text file shipped inside the library folder (the page's templates), by relative path."""
+    return (LIBRARY_DIR / relative).read_text(encoding="utf-8")
+
+
 def library_digest(modules: list[str] | None = None) -> str:
     """Short content hash of the library sources (all modules, or the named ones).
 
     Used as the code version of every result row and as part of cache keys, so
-    a change of the physics code invalidates cached results.
+    a change of the physics code invalidates cached results. Without ``modules``
+    the page's template files (``templates/``) count too.
     """
-    names = sorted(modules) if modules else sorted(p.name for p in LIBRARY_DIR.glob("*.py"))
+    if modules:
+        names = sorted(modules)
+    else:  # every module and the page's template files
+        names = sorted([p.name for p in LIBRARY_DIR.glob("*.py")]
+                       + [f"templates/{p.name}" for p in (LIBRARY_DIR / "templates").glob("*") if p.is_file()])
     h = hashlib.sha256()
     for name in names:
         h.update(name.encode())

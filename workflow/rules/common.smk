@@ -1,4 +1,5 @@
 # Helper functions, config validation and wildcard constraints. No rules here.
+import ast
 import functools
 import shlex
 import sys
@@ -100,10 +101,22 @@ def campaign_records(wildcards):
     return snapshot("records-all", {"entries": campaign_listing("entries"), "structures": campaign_listing("structures")})
 
 
+@functools.cache
+def library_data_files(module):
+    """Files a library module reads at run time (the page's templates): its ``DATA_FILES``
+    tuple, read from the source without importing the module."""
+    tree = ast.parse((LIBRARY / f"{module}.py").read_text(encoding="utf-8"))
+    for node in tree.body:
+        if isinstance(node, ast.Assign) and any(getattr(t, "id", None) == "DATA_FILES" for t in node.targets):
+            return [str(LIBRARY / name) for name in ast.literal_eval(node.value)]
+    return []
+
+
 def library_files(*modules):
-    """Library source files a rule imports, declared as inputs so code changes re-run it."""
+    """Library source files a rule imports, and the data files they read, declared as inputs
+    so code changes re-run it."""
     names = dict.fromkeys(("__init__", "units", "io") + modules)
-    return [str(LIBRARY / f"{m}.py") for m in names]
+    return [str(LIBRARY / f"{m}.py") for m in names] + [f for m in names for f in library_data_files(m)]
 
 
 def code_files(adapter_name, *modules):

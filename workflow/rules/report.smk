@@ -13,7 +13,7 @@ rule write_summary:
         entries=rules.join_tables.output.entries,
         manifest=rules.write_manifest.output[0],
         settings=summary_settings,
-        code=code_files("write_summary", "report", "ranking"),
+        code=code_files("write_summary", "report", "figures", "ranking"),
     output:
         html="results/summary.html",
         changes="results/tables/changes.parquet",

@@ -6,16 +6,19 @@ a temporary campaign folder (the > 2 MB record included), so the repository
 stays small. Every record is SYNTHETIC: the numbers of the valid template are
 invented and each case breaks it in one way.
 
-Each :class:`Case` names the files it writes (relative to the campaign folder),
-the stem of the record that must be rejected, the ``field`` that at least one
-reject row of that record must carry (exactly) and a regular expression its
-``reason`` must match, and the ``stage`` at which the record is rejected:
+Each :class:`Case` names the files it writes (relative to the campaign folder;
+a value is the file's bytes or a :class:`Special` file-system object such as a
+named pipe or a dangling link), the stem of the record that must be rejected,
+the ``field`` that at least one reject row of that record must carry (exactly)
+and a regular expression its ``reason`` must match, and the ``stage`` at which
+the record is rejected: ``skipped`` (a near-miss file name, never opened),
 ``read`` (io.read_record), ``contract`` (RecordChecker), ``structure`` (the CIF
-analysis) or ``duplicate`` (two identifiers equal without regard to case).
-File-level problems carry the field ``(file)``.
+analysis), ``normalise`` (ingest) or ``duplicate`` (identifiers equal apart from
+letter case). File-level problems carry the field ``(file)``, file-name ones
+``(file name)``. ``source`` is the record's file name when it is not
+``<stem>.json``.
 
-Some cases also write valid records that must be screened (``valid_stems``),
-e.g. the first of two case-insensitive duplicates.
+Some cases also write valid records that must be screened (``valid_stems``).
 
 Usage:
     python tests/data/bad_inputs/make_corpus.py --out /tmp/corpus        # writes entries/, structures/
@@ -27,13 +30,17 @@ from __future__ import annotations
 import argparse
 import copy
 import json
+import os
 import random
-from dataclasses import dataclass, field
+import socket
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable
 
 #: Size of the oversized record; the reader's limit is 2,000,000 bytes.
 HUGE_RECORD_BYTES = 2_200_000
+#: Size of the oversized CIF; the reader's limit is 5,000,000 bytes.
+HUGE_CIF_BYTES = 5_100_000
 NOTE = "SYNTHETIC test record from tests/data/bad_inputs/make_corpus.py; invented numbers"
 
 
@@ -63,6 +70,34 @@ def valid_record(ident: str) -> dict:
 
 
 @dataclass(frozen=True)
+class Special:
+    """A file-system object that is not a regular file with content.
+
+    ``kind``: ``directory``, ``fifo``, ``socket`` or ``symlink`` (to ``target``,
+    relative to the link's folder or absolute).
+    """
+
+    kind: str
+    target: str = ""
+
+    def create(self, path: Path) -> None:
+        if self.kind == "directory":
+            path.mkdir()
+        elif self.kind == "fifo":
+            os.mkfifo(path)
+        elif self.kind == "socket":
+            sock = socket.socket(socket.AF_UNIX)
+            try:
+                sock.bind(str(path))
+            finally:
+                sock.close()
+        elif self.kind == "symlink":
+            path.symlink_to(self.target)
+        else:
+            raise ValueError(self.kind)
+
+
+@dataclass(frozen=True)
 class Case:
     """One malformed input and what its reject row must say."""
 
@@ -70,13 +105,20 @@ class Case:
     field: str
     reason: str
     stage: str
-    files: dict[str, bytes]
+    files: dict[str, bytes | Special]
     valid_stems: tuple[str, ...] = ()
     note: str = ""
+    source: str = ""
 
     @property
     def entry_path(self) -> str:
         return f"entries/{self.stem}.json"
+
+    @property
+    def source_file(self) -> str:
+        """The record's file name as the rejects table shows it (non-UTF-8 bytes as \\xNN)."""
+        name = self.source or f"{self.stem}.json"
+        return name.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
 
 
 def _dump(obj: Any) -> bytes:
@@ -131,6 +173,22 @@ def _raw_case(stem: str, content: bytes, field: str, reason: str, stage: str = "
     return Case(stem, field, reason, stage, {f"entries/{stem}.json": content}, note=note)
 
 
+def _special_case(stem: str, special: Special, reason: str, note: str = "") -> Case:
+    """A record path that is not a regular file: rejected at the read, never opened."""
+    return Case(stem, "(file)", reason, "read", {f"entries/{stem}.json": special}, note=note)
+
+
+def _name_case(stem: str, name: str, reason: str, note: str = "") -> Case:
+    """A valid record under a near-miss file name: listed, skipped with a reason, never read."""
+    return Case(stem, "(file name)", reason, "skipped", {f"entries/{name}": _dump(valid_record(stem))},
+                note=note, source=name)
+
+
+def _text_case(stem: str, old: str, new: str, field: str, reason: str, note: str = "") -> Case:
+    """The valid record's JSON text with one literal replaced; rejected at the read."""
+    return _raw_case(stem, _replace_text(stem, old, new), field, reason, note=note)
+
+
 def _edge_keys(keys: dict) -> Callable[[dict], None]:
     return _set("valleys[0].edge_ev", keys)
 
@@ -158,13 +216,43 @@ def _samples(n: int) -> Callable[[dict], None]:
     return fn
 
 
-def _cif_case(stem: str, cif: bytes | None, field: str, reason: str, stage: str, note: str) -> Case:
+def _cif_case(stem: str, cif: bytes | Special | None, field: str, reason: str, stage: str, note: str) -> Case:
     rec = _mutated(stem, lambda r: (r.update(structure_file=f"{stem}.cif"),
                                     r.pop("layer_spacing_angstrom"), r.pop("inplane_lattice_angstrom")))
-    files = {f"entries/{stem}.json": _dump(rec)}
+    files: dict[str, bytes | Special] = {f"entries/{stem}.json": _dump(rec)}
     if cif is not None:
         files[f"structures/{stem}.cif"] = cif
     return Case(stem, field, reason, stage, files, note=note)
+
+
+#: Rock salt (NaCl), conventional cell a = 5.64 Angstrom (from memory): a 3D-bonded crystal
+#: written in P1 with its eight atoms, SYNTHETIC test input.
+ROCK_SALT_CIF = b"""data_rock_salt_synthetic
+_symmetry_space_group_name_H-M 'P 1'
+_cell_length_a 5.64
+_cell_length_b 5.64
+_cell_length_c 5.64
+_cell_angle_alpha 90
+_cell_angle_beta 90
+_cell_angle_gamma 90
+loop_
+_symmetry_equiv_pos_as_xyz
+'x, y, z'
+loop_
+_atom_site_label
+_atom_site_type_symbol
+_atom_site_fract_x
+_atom_site_fract_y
+_atom_site_fract_z
+Na1 Na 0.0 0.0 0.0
+Na2 Na 0.5 0.5 0.0
+Na3 Na 0.5 0.0 0.5
+Na4 Na 0.0 0.5 0.5
+Cl1 Cl 0.5 0.0 0.0
+Cl2 Cl 0.0 0.5 0.0
+Cl3 Cl 0.0 0.0 0.5
+Cl4 Cl 0.5 0.5 0.5
+"""
 
 
 def _huge_record(stem: str) -> bytes:
@@ -190,17 +278,18 @@ def cases(include_huge: bool = True) -> list[Case]:
                   r"Infinity"),
         _raw_case("bad-empty-file", b"", "(file)", r"empty"),
         _raw_case("bad-whitespace-only", b" \n\t \n", "(file)", r"empty"),
-        _raw_case("bad-utf16", json.dumps(valid_record("bad-utf16")).encode("utf-16"), "(file)", r"UTF-8"),
+        _raw_case("bad-utf16", json.dumps(valid_record("bad-utf16")).encode("utf-16"), "(file)",
+                  r"UTF-16 text \(it starts with a UTF-16 byte-order mark\); save it as UTF-8"),
         _raw_case("bad-utf16-be-no-bom", json.dumps(valid_record("bad-utf16-be-no-bom")).encode("utf-16-be"),
-                  "(file)", r"invalid JSON|UTF-8", note="ASCII in UTF-16-BE is valid UTF-8 with NUL bytes"),
+                  "(file)", r"contains a NUL byte \(at byte 0\).*UTF-16", note="ASCII in UTF-16-BE is valid UTF-8 with NUL bytes"),
         _raw_case("bad-latin1", json.dumps(_mutated("bad-latin1", _set("formula", "Qz2Lm\u00e9 (invented)")),
                                            ensure_ascii=False).encode("latin-1"), "(file)", r"UTF-8"),
         _raw_case("bad-binary-junk", bytes(rnd.getrandbits(8) for _ in range(4096)), "(file)", r"UTF-8|invalid JSON"),
         _raw_case("bad-nul-bytes", _dump(valid_record("bad-nul-bytes")).replace(b'"formula"', b'"form\x00ula"'),
-                  "(file)", r"invalid JSON"),
-        _raw_case("bad-deeply-nested", b"[" * 200_000 + b"]" * 200_000, "(file)", r"invalid JSON|nest|recursion"),
+                  "(file)", r"contains a NUL byte"),
+        _raw_case("bad-deeply-nested", b"[" * 200_000 + b"]" * 200_000, "(file)", r"nested too deeply"),
         _raw_case("bad-huge-int-digits", _replace_text("bad-huge-int-digits", "0.55", "1" + "0" * 5000),
-                  "(file)", r"invalid JSON|digits"),
+                  "(file)", r"an integer with more than \d+ digits"),
         # --- structure and types (JSON Schema) ------------------------------------------------
         _json_case("bad-array-not-object", lambda r: None, "(record)", r"not of type 'object'"),
         _json_case("bad-missing-id", _delete("id"), "(record)", r"'id' is a required property"),
@@ -293,6 +382,115 @@ def cases(include_huge: bool = True) -> list[Case]:
         _cif_case("bad-cif-binary", bytes(rnd.getrandbits(8) for _ in range(2048)), "structure_file",
                   r"bad-cif-binary\.cif: .+", "structure", "present but binary"),
         _cif_case("bad-cif-empty", b"", "structure_file", r"bad-cif-empty\.cif: .+", "structure", "present but empty"),
+        # --- not regular files: never opened --------------------------------------------------
+        _special_case("bad-fs-directory", Special("directory"), r"^is a directory, not a file$"),
+        _special_case("bad-fs-fifo", Special("fifo"), r"named pipe \(FIFO\)", "would block a plain open()"),
+        _special_case("bad-fs-socket", Special("socket"), r"is a socket"),
+        _special_case("bad-fs-dangling-link", Special("symlink", "missing-target.json"),
+                      r"dangling symbolic link \(its target 'missing-target\.json' does not exist\)"),
+        _special_case("bad-fs-link-dev-zero", Special("symlink", "/dev/zero"), r"is a device",
+                      "endless: a size check by reported size would read it without bound"),
+        _special_case("bad-fs-link-dev-null", Special("symlink", "/dev/null"), r"is a device"),
+        _special_case("bad-fs-link-loop", Special("symlink", "bad-fs-link-loop.json"),
+                      r"cannot read file: Too many levels of symbolic links"),
+        _special_case("bad-fs-link-to-directory", Special("symlink", "."), r"is a directory, not a file"),
+        # --- near-miss file names: listed, skipped with the reason, never read ----------------
+        _name_case("bad-name-hidden", ".bad-name-hidden.json", r"hidden file"),
+        _name_case("bad-name-upper-suffix", "bad-name-upper-suffix.JSON", r"suffix '\.JSON' is not '\.json'"),
+        _name_case("bad-name-mixed-suffix", "bad-name-mixed-suffix.Json", r"suffix '\.Json' is not '\.json'"),
+        _name_case("bad-name-backup", "bad-name-backup.json.bak", r"does not end in '\.json'"),
+        _name_case("bad-name-trailing-space", "bad-name-trailing-space.json ", r"does not end in '\.json'"),
+        _name_case("bad-name-editor-swap", ".bad-name-editor-swap.json.swp", r"hidden file"),
+        _name_case("bad-name-not-utf8", "bad-name-not-utf8-\udcff.json", r"not valid UTF-8"),
+        # --- content a table cannot hold or a reader cannot trust -----------------------------
+        _text_case("bad-dup-key-top", '"formula": "Qz2Lm (invented)"',
+                   '"formula": "Qz2Lm (invented)", "formula": "other"', "formula", r"more than once"),
+        _text_case("bad-dup-key-mass", '"isotropic_me": 0.55', '"isotropic_me": 0.55, "isotropic_me": 5.5',
+                   "valleys[0].mass.isotropic_me", r"more than once"),
+        _text_case("bad-dup-key-layer", '"1": -5.9', '"1": -5.9, "1": -2.0', "valleys[0].edge_ev.1",
+                   r"more than once"),
+        _text_case("bad-dup-key-id", '"id": "bad-dup-key-id"', '"id": "bad-dup-key-id", "id": "other"', "id",
+                   r"more than once"),
+        _text_case("bad-surrogate-formula", "Qz2Lm (invented)", "Qz2Lm \\ud800 (invented)", "formula",
+                   r"U\+D800 .*lone UTF-16 surrogate"),
+        _text_case("bad-surrogate-low-label", '"label": "G"', '"label": "\\udfff"', "valleys[1].label",
+                   r"U\+DFFF .*surrogate"),
+        _text_case("bad-surrogate-reversed-pair", "Qz2Lm (invented)", "\\udc00\\ud800", "formula",
+                   r"U\+DC00 .*surrogate"),
+        _text_case("bad-surrogate-provenance", "SYNTHETIC test", "SYNTHETIC \\udbff test", "provenance",
+                   r"U\+DBFF .*surrogate"),
+        _text_case("bad-surrogate-reference", "vacuum level", "vacuum \\ud834level", "energy_reference",
+                   r"surrogate"),
+        _text_case("bad-surrogate-key", '"formula":', '"\\ud800formula":', "(record)", r"a key holds .*surrogate"),
+        # --- every layer count checked in both bands (given or modelled) ----------------------
+        _json_case("bad-gap-valence-only-layer", _set("valleys[0].edge_ev.2", -3.0), "valleys[0].edge_ev.2",
+                   r"no gap at 2 layers: .*from the layer model", "normalise",
+                   note="valence edge for N=2 in one band only"),
+        _json_case("bad-gap-conduction-only-layer", _set("valleys[2].edge_ev.3", -7.0), "valleys[2].edge_ev.3",
+                   r"no gap at 3 layers", "normalise"),
+        _json_case("bad-gap-scissor-closes", _set("scissor_ev", -2.5), "valleys[0].edge_ev.1",
+                   r"no gap at 1 layer: .*scissor", "normalise"),
+        _json_case("bad-gap-layer-six", _set("valleys[1].edge_ev.6", -3.5), "valleys[1].edge_ev.6",
+                   r"no gap at 6 layers", "normalise"),
+        # --- more structure and type errors -----------------------------------------------------
+        _json_case("bad-root-null", lambda r: None, "(record)", r"not of type 'object'"),
+        _json_case("bad-root-string", lambda r: None, "(record)", r"not of type 'object'"),
+        _json_case("bad-energy-reference-empty", _set("energy_reference", ""), "energy_reference",
+                   r"should be non-empty|too short"),
+        _json_case("bad-formula-too-long", _set("formula", "Qz" * 61), "formula", r"too long"),
+        _json_case("bad-band-name", _set("valleys[1].band", "valance"), "valleys[1].band", r"is not one of"),
+        _json_case("bad-frame-unknown", _set("dielectric.frame", "lab"), "dielectric.frame", r"is not one of"),
+        _json_case("bad-tensor-two-rows", _set("dielectric.electronic", [[14.0, 0.0, 0.0], [0.0, 14.0, 0.0]]),
+                   "dielectric.electronic", r"too short|should be non-empty|expected"),
+        _json_case("bad-id-too-long", _set("id", "x" * 81), "id", r"does not match"),
+        _json_case("bad-missing-format", _delete("record_format"), "(record)", r"'record_format' is a required"),
+        _json_case("bad-valleys-empty", _set("valleys", []), "valleys", r"too short|should be non-empty"),
+        _json_case("bad-label-space", _set("valleys[0].label", "K point"), "valleys[0].label", r"does not match"),
+        _json_case("bad-scissor-absurd", _set("scissor_ev", 50.0), "scissor_ev", r"outside"),
+        _json_case("bad-normal-in-layer-frame", _set("dielectric.normal", [0, 0, 1]), "dielectric.normal",
+                   r"only meaningful with frame 'crystal'"),
+        _json_case("bad-screening-both", _set("monolayer_screening", {"polarizability_2d_angstrom": 6.0,
+                                                                      "screening_length_angstrom": 40.0}),
+                   "monolayer_screening", r"not both"),
+        _json_case("bad-screening-uncertainty-only", _set("monolayer_screening", {"relative_uncertainty": 0.1}),
+                   "monolayer_screening", r"give 'polarizability_2d_angstrom' or 'screening_length_angstrom'"),
+        _json_case("bad-angle-without-principal", _set("valleys[0].mass.angle_deg", 30.0),
+                   "valleys[0].mass.angle_deg", r"only meaningful with 'principal_me'"),
+        _json_case("bad-mass-tensor-negative", _set("valleys[1].mass", {"tensor_me": [[-0.5, 0.0], [0.0, 0.5]]}),
+                   "valleys[1].mass.tensor_me", r"^principal mass <= 0 \(-0\.5 m_e\)$"),
+        _json_case("bad-perpendicular-mass-zero", _set("valleys[2].mass.perpendicular_me", 0.0),
+                   "valleys[2].mass.perpendicular_me", r"<= 0"),
+        _json_case("bad-edge-uncertainty-negative", _set("valleys[0].edge_uncertainty_ev", -0.1),
+                   "valleys[0].edge_uncertainty_ev", r"outside"),
+        _json_case("bad-static-indefinite",
+                   _set("dielectric.static", [[20.0, 0.0, 0.0], [0.0, -20.0, 0.0], [0.0, 0.0, 8.0]]),
+                   "dielectric.static", r"definite"),
+        _json_case("bad-samples-length-mismatch",
+                   lambda r: (_samples(8)(r), r["valleys"][2]["band_samples"]["energy_ev"].pop()),
+                   "valleys[2].band_samples", r"8 k points but 7 energies"),
+        # --- structures that are not regular files, too large, or not layered -------------------
+        _cif_case("bad-cif-directory", Special("directory"), "structure_file",
+                  r"referenced structure 'bad-cif-directory\.cif' is a directory, not a file", "contract",
+                  "a folder named like a CIF"),
+        _cif_case("bad-cif-fifo", Special("fifo"), "structure_file", r"is a named pipe \(FIFO\)", "contract",
+                  "would block a plain open()"),
+        _cif_case("bad-cif-dangling-link", Special("symlink", "gone.cif"), "structure_file",
+                  r"dangling symbolic link", "contract", "link to a removed file"),
+        _cif_case("bad-cif-link-dev-zero", Special("symlink", "/dev/zero"), "structure_file", r"is a device",
+                  "contract", "endless"),
+        _cif_case("bad-cif-huge", b"#" * HUGE_CIF_BYTES, "structure_file", r"larger than the 5000000-byte limit",
+                  "contract", "beyond the reader's limit"),
+        _cif_case("bad-cif-non-layered", ROCK_SALT_CIF, "layer_spacing_angstrom",
+                  r"shows no 2D-bonded layers \(dimensionality 3\) to derive it from", "normalise",
+                  "a 3D-bonded crystal (rock salt) where a layered one was expected"),
+        _cif_case("bad-cif-nul", b"data_x\n\x00\x00_cell_length_a 3\n", "structure_file", r"NUL", "structure",
+                  "binary NUL bytes"),
+        _cif_case("bad-cif-two-blocks", ROCK_SALT_CIF + b"\n" + ROCK_SALT_CIF.replace(b"data_rock_salt_synthetic",
+                                                                                      b"data_second"),
+                  "structure_file", r"2 structures \(data blocks\)", "structure", "two data blocks"),
+        _cif_case("bad-cif-no-cell", b"data_x\nloop_\n_atom_site_label\n_atom_site_type_symbol\n"
+                  b"_atom_site_fract_x\n_atom_site_fract_y\n_atom_site_fract_z\nNa1 Na 0 0 0\n",
+                  "structure_file", r"no cell parameter", "structure", "atoms without a cell"),
     ]
     # Numbers that json.loads turns into inf (1e999) or an int too large for a float.
     overflow = {
@@ -302,13 +500,14 @@ def cases(include_huge: bool = True) -> list[Case]:
         "bad-eps-exponent-overflow": ("14.0", "-1e999"),
         "bad-edge-exponent-overflow": ("-5.9", "-1e999"),
     }
+    roots = {"bad-array-not-object": [valid_record("bad-array-not-object")], "bad-root-null": None,
+             "bad-root-string": "bad-root-string"}
     for i, case in enumerate(out):
         if case.stem in overflow:
             out[i] = Case(case.stem, case.field, case.reason, case.stage,
                           {case.entry_path: _replace_text(case.stem, *overflow[case.stem])})
-        elif case.stem == "bad-array-not-object":
-            out[i] = Case(case.stem, case.field, case.reason, case.stage,
-                          {case.entry_path: _dump([valid_record(case.stem)])})
+        elif case.stem in roots:
+            out[i] = Case(case.stem, case.field, case.reason, case.stage, {case.entry_path: _dump(roots[case.stem])})
     # Two files whose names differ only in case: same shard, both rejected, each naming the other.
     out.append(Case("dup-case", "id", r"duplicate identifier: dup-case\.json and Dup-Case\.json", "duplicate",
                     {"entries/Dup-Case.json": _dump(valid_record("Dup-Case")),
@@ -319,10 +518,18 @@ def cases(include_huge: bool = True) -> list[Case]:
 
 
 #: Valid records written beside the corpus that must be screened (edge cases, not errors).
-def valid_extras() -> dict[str, bytes]:
+def valid_extras() -> dict[str, bytes | Special]:
     return {
         "entries/ok-utf8-bom.json": b"\xef\xbb\xbf" + _dump(valid_record("ok-utf8-bom")),
         "entries/ok-crlf.json": _dump(valid_record("ok-crlf")).replace(b"\n", b"\r\n"),
+        # a character outside the Basic Multilingual Plane, escaped as a (valid) surrogate pair
+        "entries/ok-surrogate-pair.json": _replace_text("ok-surrogate-pair", "Qz2Lm (invented)",
+                                                        "Qz2Lm \\ud83d\\ude00 (invented)"),
+        # formula text a spreadsheet would take for a formula: screened, neutralised in CSV
+        "entries/ok-formula-like-text.json": _dump(_mutated("ok-formula-like-text", _set("formula", "=1+1"))),
+        # a link to a regular file elsewhere is read like the file
+        "archive/ok-linked.json": _dump(valid_record("ok-linked")),
+        "entries/ok-linked.json": Special("symlink", "../archive/ok-linked.json"),
     }
 
 
@@ -332,13 +539,20 @@ def write_corpus(campaign: Path, include_huge: bool = True) -> tuple[list[Case],
     for sub in ("entries", "structures"):
         (campaign / sub).mkdir(parents=True, exist_ok=True)
     all_cases = cases(include_huge)
-    valid = [Path(p).stem for p in valid_extras()]
+    valid = [Path(p).stem for p in valid_extras() if p.startswith("entries/")]
+    (campaign / "archive").mkdir(exist_ok=True)
     for case in all_cases:
         for rel, content in case.files.items():
-            (campaign / rel).write_bytes(content)
+            if isinstance(content, Special):
+                content.create(campaign / rel)
+            else:
+                (campaign / rel).write_bytes(content)
         valid.extend(case.valid_stems)
     for rel, content in valid_extras().items():
-        (campaign / rel).write_bytes(content)
+        if isinstance(content, Special):
+            content.create(campaign / rel)
+        else:
+            (campaign / rel).write_bytes(content)
     return all_cases, valid
 
 
@@ -351,7 +565,7 @@ def main() -> None:
     all_cases, valid = write_corpus(args.out, include_huge=not args.no_huge)
     if args.list:
         for c in all_cases:
-            print(f"{c.stem:32s} {c.stage:10s} {c.field}")
+            print(f"{c.source_file:36s} {c.stage:10s} {c.field}")
     print(f"{len(all_cases)} malformed cases, {len(valid)} valid extras written to {args.out}")
 
 
