@@ -10,6 +10,7 @@ configfile: "config/config.yaml"
 
 include: "workflow/rules/common.smk"
 include: "workflow/rules/keldysh.smk"
+include: "workflow/rules/import.smk"
 include: "workflow/rules/screen.smk"
 include: "workflow/rules/collect.smk"
 include: "workflow/rules/refine.smk"

@@ -43,10 +43,26 @@ ROWS = "(rows)"
 _FRAME_FIX = ("issue 17 item 6: 2-component band samples with a layer normal off z (demo lumen-0034, "
               "lumen-0047 in the golden inputs) are now rejected instead of being fitted in the wrong plane")
 EXPECTED_CHANGES: dict[tuple[str, str, str], str] = {
+    ("tables/entries.parquet", "edge_eps_top", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "edge_eps_bottom", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "edge_method", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "gap_t_form", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "gap_t_alpha_ev_per_k", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "gap_t_beta_k", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "gap_t_coupling", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "gap_t_phonon_ev", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "gap_t_reference_k", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/valleys.parquet", "degeneracy", "*"): "new record field (issue 17): valley degeneracy or spin sub-bands",
+    ("tables/valleys.parquet", "spin_split_ev", "*"): "new record field (issue 17): valley degeneracy or spin sub-bands",
+    ("tables/valleys.parquet", "edge_spin", "*"): "new record field (issue 17): valley degeneracy or spin sub-bands",
+    ("tables/entries.parquet", "source_hashes", "*"):
+        "added (issue 15): files an imported record was generated from; empty for hand-written records",
+}
+EXPECTED_CHANGES.update({
     (out, ROWS, "*"): _FRAME_FIX
     for out in ("tables/entries.parquet", "tables/valleys.parquet", "tables/rejects.parquet",
                 "tables/screen_long.parquet", "tables/screen_wide.parquet", "tables/rejects.csv")
-}
+})
 EXPECTED_CHANGES[("tables/screen_wide.parquet", "rank", "*")] = _FRAME_FIX + "; lower ranks move up"
 _BULK_3D = ("issue 17 item 3: bulk rows get the 3D Saha bound fraction at a volume density in a column of its "
             "own; the 2D bound fraction is for layer rows only")

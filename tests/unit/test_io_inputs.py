@@ -190,3 +190,20 @@ def test_record_hash_of_unread_files_differs_by_reason(tmp_path):
     a, b = io.read_record(tmp_path / "d.json"), io.read_record(tmp_path / "l.json")
     assert a.sha256 and b.sha256 and a.sha256 != b.sha256
     assert json.dumps(a.error) and json.dumps(b.error)
+
+
+def test_missing_file_names_a_case_variant_beside_it(tmp_path):
+    (tmp_path / "Mo-S.CIF").write_text("data_x\n")
+    assert io.file_kind_problem(tmp_path / "Mo-S.cif") == \
+        "file not found ('Mo-S.CIF' exists; file names are case-sensitive)"
+    assert io.file_kind_problem(tmp_path / "other.cif") == "file not found"
+
+
+def test_campaign_file_digest(tmp_path):
+    # source: FIPS 180-4 test vector, SHA-256("abc") (common practice)
+    (tmp_path / "a.json").write_bytes(b"abc")
+    (tmp_path / "a.JSON").write_bytes(b"abc")
+    assert io.campaign_file_digest(tmp_path / "a.json", "entries") == (
+        "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad", None)
+    digest, reason = io.campaign_file_digest(tmp_path / "a.JSON", "entries")
+    assert digest is None and "case-sensitive" in reason

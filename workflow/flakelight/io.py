@@ -102,10 +102,24 @@ def file_kind_problem(path: str | os.PathLike) -> str | None:
             except OSError:
                 target = "?"
             return f"is a dangling symbolic link (its target {target!r} does not exist)"
-        return "file not found"
+        return "file not found" + _case_sibling_hint(path)
     except OSError as exc:  # a link loop, a permission problem on the folder
         return f"cannot read file: {exc.strerror or exc}"
     return _not_regular_reason(st.st_mode)
+
+
+def _case_sibling_hint(path: str | os.PathLike) -> str:
+    """For a missing file, a note naming a file beside it whose name differs only in letter
+    case (file names are case-sensitive here, unlike on some laptops); else ''."""
+    folder, name = os.path.split(os.fspath(path))
+    try:
+        names = os.listdir(folder or ".")
+    except OSError:
+        return ""
+    twins = sorted(n for n in names if n != name and n.casefold() == name.casefold())
+    if not twins:
+        return ""
+    return f" ({printable_name(twins[0])!r} exists; file names are case-sensitive)"
 
 
 def read_limited(path: str | os.PathLike, limit: int) -> tuple[bytes | None, str | None, int]:
@@ -374,6 +388,29 @@ def campaign_listing(campaign: str | os.PathLike, kind: str) -> list[tuple[str, 
                 rows.append((entry.name, int(st.st_size), int(st.st_mtime_ns)))
             except OSError:
                 rows.append((entry.name, -1, -1))
+    return sorted(rows)
+
+
+def calculation_listing(campaign: str | os.PathLike) -> list[tuple[str, int, int]]:
+    """Files of the compound folders ``<campaign>/calculations/<id>/`` as ``(id/name, size, mtime_ns)``.
+
+    Hidden files and folders are skipped; no calculations folder lists nothing.
+    Sorted. The workflow keeps this listing (per shard) as a content-addressed
+    input of the import jobs, so a revised calculation file re-runs its shard.
+    """
+    root = Path(campaign) / "calculations"
+    rows = []
+    try:
+        folders = sorted(e.name for e in os.scandir(root) if e.is_dir() and not e.name.startswith("."))
+    except (FileNotFoundError, NotADirectoryError):
+        return []
+    for name in folders:
+        with os.scandir(root / name) as it:
+            for entry in it:
+                if entry.name.startswith(".") or not entry.is_file():
+                    continue
+                st = entry.stat()
+                rows.append((f"{name}/{entry.name}", int(st.st_size), int(st.st_mtime_ns)))
     return sorted(rows)
 
 

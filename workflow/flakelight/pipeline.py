@@ -214,6 +214,8 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
                 cif_bytes, cif_problem = io.read_text_limited(structures_dir / name)
                 if cif_bytes is not None:
                     cif_hash = io.sha256_bytes(cif_bytes)
+            elif name.startswith("."):
+                cif_problem = io.skip_reason(name, "structures")
         input_hash = io.sha256_bytes((raw.sha256 + cif_hash).encode())[:32]
 
         if stem in siblings:

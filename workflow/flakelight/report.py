@@ -142,6 +142,16 @@ def _fmt_score(x: float) -> str:
     return "n/a" if x is None or not np.isfinite(x) else f"{x:.3f}"
 
 
+def revised_sources(old: str, new: str) -> list[str]:
+    """Source files (of an imported record) whose hash differs between two ``source_hashes`` texts
+    ("path=sha256 path=sha256 ..."), plus files added or removed; empty when either side has none."""
+    if not old or not new:
+        return []
+    a = dict(item.split("=", 1) for item in old.split())
+    b = dict(item.split("=", 1) for item in new.split())
+    return sorted(k for k in set(a) | set(b) if a.get(k) != b.get(k))
+
+
 def compare_runs(previous: pd.DataFrame | None, current: pd.DataFrame) -> pd.DataFrame:
     """Compare the ranked snapshot of the previous run with this run's.
 
@@ -184,6 +194,8 @@ def compare_runs(previous: pd.DataFrame | None, current: pd.DataFrame) -> pd.Dat
     both["rel_old"] = both["rank_old"].where(common).rank(method="first")
     both["rel_new"] = both["rank_new"].where(common).rank(method="first")
 
+    source_old, source_new = (dict(zip(f["entry_id"].astype(str), f["source_hashes"].fillna("").astype(str)))
+                              if "source_hashes" in f.columns else {} for f in (previous, current))
     rows = []
     for rec in both.itertuples(index=False):
         side = rec.side
@@ -214,7 +226,8 @@ def compare_runs(previous: pd.DataFrame | None, current: pd.DataFrame) -> pd.Dat
                 parts.append("no longer meets all criteria")
             if revised:
                 kinds.append("input revised")
-                parts.append("record or structure file changed")
+                files = revised_sources(source_old.get(rec.entry_id, ""), source_new.get(rec.entry_id, ""))
+                parts.append(f"revised {', '.join(files)}" if files else "record or structure file changed")
             if moved:
                 kinds.append("rank moved")
                 step = int(old_rank - new_rank)
@@ -615,6 +628,24 @@ def _rejects(rejects: pd.DataFrame) -> dict:
     return {"records": int(rejects["entry_id"].nunique()) if len(rejects) else 0, "rows": rows}
 
 
+def _recompute(refinement: pd.DataFrame | None, settings: Mapping, max_compounds: int = 30) -> dict:
+    """View model of "What to recompute next": per borderline compound, the input whose
+    recomputation most likely settles its verdict (rows of
+    :func:`flakelight.refinement.refinement_list`), in plain words."""
+    ref = settings.get("refinement", {})
+    lo, hi = sorted(float(x) for x in ref.get("band", (0.1, 0.9)))
+    out = {"enabled": bool(ref.get("enabled", False)), "computed": refinement is not None,
+           "low": f"{100 * lo:.0f}", "high": f"{100 * hi:.0f}", "compounds": 0, "rows": [], "more": 0,
+           "per_compound": int(ref.get("per_compound", 1))}
+    if refinement is None or not len(refinement):
+        return out
+    firsts = refinement.drop_duplicates("entry_id")
+    shown = firsts.head(max_compounds)
+    out.update(compounds=len(firsts), more=len(firsts) - len(shown),
+               rows=[{"id": _text(x["entry_id"]), "advice": _text(x["advice"])} for x in shown.to_dict("records")])
+    return out
+
+
 def _methods(settings: Mapping) -> dict:
     from flakelight import ranking
 
@@ -710,7 +741,8 @@ def content_security_policy(script: str) -> str:
 
 def build_html(ranked: pd.DataFrame, long: pd.DataFrame, rejects: pd.DataFrame, manifest: Mapping,
                changes: pd.DataFrame, settings: Mapping, baseline: Mapping | None = None,
-               entries: pd.DataFrame | None = None, max_table_rows: int | None = MAX_TABLE_ROWS) -> str:
+               entries: pd.DataFrame | None = None, max_table_rows: int | None = MAX_TABLE_ROWS,
+               refinement: pd.DataFrame | None = None) -> str:
     """The self-contained HTML summary of one run (reads nothing but its own template files).
 
     Parameters
@@ -725,6 +757,8 @@ def build_html(ranked: pd.DataFrame, long: pd.DataFrame, rejects: pd.DataFrame, 
     entries : optional entries table; when given, provenance text is shown under each compound.
     max_table_rows : the compound table lists the best-ranked compounds up to this many rows
         (None: all). Plots and counts always use every compound.
+    refinement : optional ranked refinement list (:mod:`flakelight.refinement`) for the
+        section "What to recompute next"; None when the rule did not provide one.
 
     Returns
     -------
@@ -755,6 +789,7 @@ def build_html(ranked: pd.DataFrame, long: pd.DataFrame, rejects: pd.DataFrame, 
         "digest": _digest(changes, baseline),
         "make_first": _make_first(ranked, settings),
         "overview": _overview(ranked, rejects, manifest, settings),
+        "recompute": _recompute(refinement, settings),
         "table": _table(listed, settings, entries, left_out),
         "figures": _figures(ranked, long, settings),
         "changes": _changes(changes, baseline),
@@ -845,9 +880,12 @@ def write_summary(inputs: Mapping[str, str], outputs: Mapping[str, str], setting
     manifest = io.read_json(inputs["manifest"])
     entries = io.read_parquet(inputs["entries"]) if inputs.get("entries") else None
     if entries is not None:
-        entries = entries[[c for c in ("entry_id", "provenance") if c in entries.columns]]
+        entries = entries[[c for c in ("entry_id", "provenance", "source_hashes") if c in entries.columns]]
     config_hash = str(manifest.get("config_hash", ""))
     current = snapshot(ranked, run_utc=str(manifest.get("written_utc", "")), config_hash=config_hash)
+    if entries is not None and "source_hashes" in entries.columns:
+        sources = dict(zip(entries["entry_id"].astype(str), entries["source_hashes"].astype(str)))
+        current["source_hashes"] = pd.array([sources.get(str(e), "") for e in current["entry_id"]], dtype="string")
 
     folder = Path(history)
     last = _read_snapshot(folder / LAST_SNAPSHOT)
@@ -860,7 +898,9 @@ def write_summary(inputs: Mapping[str, str], outputs: Mapping[str, str], setting
     changes = compare_runs(baseline_frame, current)
     baseline = None if baseline_frame is None else _baseline_info(baseline_frame, config_hash)
 
-    page = build_html(ranked, long, rejects, manifest, changes, settings, baseline=baseline, entries=entries)
+    refinement = io.read_parquet(inputs["refinement"]) if inputs.get("refinement") else None
+    page = build_html(ranked, long, rejects, manifest, changes, settings, baseline=baseline, entries=entries,
+                      refinement=refinement)
     io.write_parquet(changes, outputs["changes"], descriptions=CHANGE_DESCRIPTIONS,
                      table_metadata={"config_hash": config_hash,
                                      "compared_with_run": baseline["run_utc"] if baseline else ""})

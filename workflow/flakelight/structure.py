@@ -71,6 +71,7 @@ __all__ = [
     "LayerGeometry",
     "StructureError",
     "analyse_cif_text",
+    "analyse_structure",
     "cif_content_hash",
     "compare_geometry",
 ]
@@ -591,6 +592,25 @@ def analyse_cif_text(cif_text, *, bonding: str = "crystalnn", tolerance: float =
     text = _decode(cif_text)
     captured: list[str] = []
     structure = _parse(text, captured)
+    return _analyse(structure, bonding, tolerance, captured)
+
+
+def analyse_structure(structure, *, bonding: str = "crystalnn", tolerance: float = DEFAULT_TOLERANCE) -> LayerGeometry:
+    """Layer geometry of a pymatgen ``Structure`` (e.g. one embedded in a band-structure file).
+
+    The same analysis as :func:`analyse_cif_text` without the CIF parsing step.
+
+    Raises
+    ------
+    StructureError
+        As :func:`analyse_cif_text`, for the checks that follow parsing.
+    """
+    if bonding not in BONDING_CRITERIA:
+        raise StructureError(f"unknown bonding criterion {bonding!r}; choose one of {BONDING_CRITERIA}")
+    return _analyse(structure, bonding, float(tolerance), [])
+
+
+def _analyse(structure, bonding: str, tolerance: float, captured: list[str]) -> LayerGeometry:
     notes: list[str] = []
     try:
         with _quiet(captured):

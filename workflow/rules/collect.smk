@@ -10,7 +10,7 @@ localrules:
 
 rule rank_candidates:
     input:
-        rejects=shard_outputs("rejects"),
+        rejects=shard_outputs("rejects") + import_outputs("rejects"),
         long=shard_outputs("exciton_long"),
         wide=shard_outputs("exciton_wide"),
         uncertainty=shard_outputs("uncertainty"),

@@ -11,6 +11,8 @@ sys.path.insert(0, str(Path(workflow.basedir) / "workflow"))
 from flakelight import PROPAGATION_MODULES, REFINEMENT_MODULES, SHARD_MODULES  # noqa: E402
 from flakelight.io import campaign_listing as campaign_listing_rows, canonical_json_hash, snapshot_json  # noqa: E402
 from flakelight.sharding import shard_name, shard_of_file  # noqa: E402
+from flakelight.importer import IMPORT_MODULES  # noqa: E402
+from flakelight.io import calculation_listing as calculation_listing_rows  # noqa: E402
 
 
 validate(config, schema="../schemas/config.schema.json")
@@ -203,3 +205,51 @@ def manifest_settings(wildcards):
 def summary_settings(wildcards):
     """Settings of the write_summary job: the whole config and the history folder."""
     return snapshot("summary", {"settings": config, "history": "results/history"})
+
+
+# ---------------------------------------------------------------- import of calculations
+
+
+@functools.cache
+def calculation_files():
+    """Files of the campaign's calculations/<id>/ folders as (id/name, size, mtime_ns); empty without them."""
+    return tuple(calculation_listing_rows(campaign_dir()))
+
+
+def has_calculations():
+    """True when the campaign holds compounds given as calculations (the import stage runs)."""
+    return bool(calculation_files())
+
+
+@functools.cache
+def _calculation_shard_rows():
+    """Listing rows of every shard's compound folders (a compound goes where its record would)."""
+    n = config["sharding"]["shards"]
+    rows = {i: [] for i in range(n)}
+    for row in calculation_files():
+        rows[shard_of_file(Path(row[0]).parts[0] + ".json", n)].append(row)
+    return rows
+
+
+def shard_calculations(wildcards):
+    """Listing of one shard's calculation files (a new name whenever one of them changes)."""
+    return snapshot(f"calculations-{wildcards.shard}", {"calculations": _calculation_shard_rows()[int(wildcards.shard)]})
+
+
+def import_settings(wildcards):
+    """Settings of the import_calculations jobs."""
+    return snapshot("import", {"campaign": str(campaign_dir()), "cache_root": "results/cache/imports"})
+
+
+def imported_records(wildcards):
+    """The records the import wrote for a shard (none without calculations)."""
+    return [f"results/imported/{wildcards.shard}/entries"] if has_calculations() else []
+
+
+def import_outputs(name):
+    """One output table of every import job (none without calculations)."""
+    return expand("results/imported/{shard}/{name}.parquet", shard=shard_names(), name=name) if has_calculations() else []
+
+
+#: Names of the optional inputs of screen_shard (its adapter gets --input imported only with calculations).
+SCREEN_IMPORT_INPUTS = ("imported",) if has_calculations() else ()

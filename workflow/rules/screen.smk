@@ -13,6 +13,8 @@ rule screen_shard:
         # a new name whenever one of them changes (common.smk: snapshot)
         records=shard_records,
         settings=screen_settings,
+        # records written by import_calculations for this shard (none without calculations/)
+        imported=imported_records,
         code=code_files("screen_shard", *SHARD_MODULES, *PROPAGATION_MODULES),
     output:
         entries="results/shards/{shard}/entries.parquet",
@@ -31,7 +33,7 @@ rule screen_shard:
     shell:
         adapter(
             "screen_shard",
-            inputs=("table", "records", "settings"),
+            inputs=("table", "records", "settings") + SCREEN_IMPORT_INPUTS,
             outputs=("entries", "valleys", "rejects", "long", "wide", "uncertainty"),
             wildcards=("shard",),
         )

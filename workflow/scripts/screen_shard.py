@@ -12,8 +12,11 @@ records = io.read_json(job.one("input", "records"))
 cache = str(Path(settings["cache_root"]) / job.wildcards["shard"])
 outputs = {name: job.one("output", name) for name in job.output}
 table = job.one("input", "table")
+# records the import stage wrote for this shard (rule import_calculations), beside the campaign's own
+imported = [str(Path(folder) / row[0]) for folder in job.input.get("imported", [])
+            for row in io.campaign_listing(Path(folder).parent, "entries")]
 pipeline.run_shard(
-    entry_paths=pipeline.listed_paths(settings["campaign"], records, "entries"),
+    entry_paths=pipeline.listed_paths(settings["campaign"], records, "entries") + imported,
     campaign=settings["campaign"],
     settings=settings["physics"],
     table_path=table,

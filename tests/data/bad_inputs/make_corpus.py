@@ -469,6 +469,20 @@ def cases(include_huge: bool = True) -> list[Case]:
                    lambda r: (_samples(8)(r), r["valleys"][2]["band_samples"]["energy_ev"].pop()),
                    "valleys[2].band_samples", r"8 k points but 7 energies"),
         # --- structures that are not regular files, too large, or not layered -------------------
+        Case("bad-cif-case-mismatch", "structure_file",
+             r"'bad-cif-case-mismatch\.cif' not found in structures/ \('bad-cif-case-mismatch\.CIF' exists; "
+             r"file names are case-sensitive\)", "contract",
+             {"entries/bad-cif-case-mismatch.json": _dump(_mutated("bad-cif-case-mismatch", lambda r: (
+                 r.update(structure_file="bad-cif-case-mismatch.cif"), r.pop("layer_spacing_angstrom"),
+                 r.pop("inplane_lattice_angstrom")))),
+              "structures/bad-cif-case-mismatch.CIF": ROCK_SALT_CIF},
+             note="the CIF's suffix differs in case from the name the record gives"),
+        Case("bad-cif-hidden", "structure_file", r"'\.bad-cif-hidden\.cif': hidden file", "contract",
+             {"entries/bad-cif-hidden.json": _dump(_mutated("bad-cif-hidden", lambda r: (
+                 r.update(structure_file=".bad-cif-hidden.cif"), r.pop("layer_spacing_angstrom"),
+                 r.pop("inplane_lattice_angstrom")))),
+              "structures/.bad-cif-hidden.cif": ROCK_SALT_CIF},
+             note="a hidden structure file is never read, even when a record names it"),
         _cif_case("bad-cif-directory", Special("directory"), "structure_file",
                   r"referenced structure 'bad-cif-directory\.cif' is a directory, not a file", "contract",
                   "a folder named like a CIF"),
@@ -527,6 +541,9 @@ def valid_extras() -> dict[str, bytes | Special]:
                                                         "Qz2Lm \\ud83d\\ude00 (invented)"),
         # formula text a spreadsheet would take for a formula: screened, neutralised in CSV
         "entries/ok-formula-like-text.json": _dump(_mutated("ok-formula-like-text", _set("formula", "=1+1"))),
+        # control characters are storable text: screened (and escaped wherever they are shown)
+        "entries/ok-control-characters.json": _replace_text("ok-control-characters", "Qz2Lm (invented)",
+                                                            "Qz2Lm\\u0000\\u001b[31m\\u202e (invented)"),
         # a link to a regular file elsewhere is read like the file
         "archive/ok-linked.json": _dump(valid_record("ok-linked")),
         "entries/ok-linked.json": Special("symlink", "../archive/ok-linked.json"),
