@@ -35,7 +35,7 @@ MARGIN_FULL_EV = 0.2
 
 
 def add_survival(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping) -> pd.DataFrame:
-    """Add binding/kT, the 2D Saha bound fraction, survival and Wannier flags to the long table.
+    """Add binding/kT, the Saha bound fractions (2D layers, 3D bulk), survival and Wannier flags to the long table.
 
     The one place these columns are computed (in the shard job, on fresh and
     cached rows alike); columns of an earlier temperature are replaced.
@@ -43,7 +43,7 @@ def add_survival(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping) -> p
     lattice = long["entry_id"].map(wide.set_index("entry_id")["lattice_angstrom"]).to_numpy(dtype=float)
     out = long.drop(columns=[c for c in survival.SURVIVAL_COLUMNS + ("bright_fraction",) if c in long.columns])
     for name, values in survival.survival_columns(long["binding_ev"], long["mu_inplane_me"], long["radius_angstrom"],
-                                         lattice, settings).items():
+                                                  lattice, settings, long["layers"].to_numpy()).items():
         out[name] = values
     out["bright_fraction"] = excitons.thermal_bright_fraction(
         long["bright_exciton_ev"].to_numpy(dtype=float), long["dark_exciton_ev"].to_numpy(dtype=float),

@@ -181,7 +181,8 @@ _LONG = [
     ("temperature_k", F, "K", "operating temperature (config survival)"),
     ("binding_over_kt", F, "1", "binding energy over kT at the operating temperature"),
     ("survives_kt", B, NO_UNIT, "binding energy above kT"),
-    ("bound_fraction", F, "1", "bound-exciton fraction of the 2D Saha equation at the configured pair density"),
+    ("bound_fraction", F, "1", "layer rows: bound-exciton fraction of the 2D Saha equation at the areal pair density survival.pair_density_per_cm2 (empty on bulk rows)"),
+    ("bound_fraction_3d", F, "1", "bulk rows: bound-exciton fraction of the 3D Saha equation at the volume pair density survival.pair_density_per_cm3 (empty on layer rows)"),
     ("wannier_ok", B, NO_UNIT, "exciton radius above wannier_ratio lattice constants (effective-mass picture holds)"),
 ]
 
