@@ -47,7 +47,7 @@ TABLES = ("entries", "valleys", "rejects", "screen_long", "screen_wide")
 N_RECORDS = 40
 N_SHARDS = 4
 #: Jobs allowed downstream of the shards (aggregation, manifest, report).
-DOWNSTREAM = {"rank_candidates", "join_tables", "write_manifest", "write_summary"}
+DOWNSTREAM = {"check_screen", "rank_candidates", "join_tables", "write_manifest", "write_summary"}
 
 pytestmark = pytest.mark.slow
 
