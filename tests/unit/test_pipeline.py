@@ -112,6 +112,33 @@ def test_cache_reuses_unchanged_and_recomputes_revised(tmp_path, record, table_p
             != t1["wide"].set_index("entry_id").loc["ok-1", "mu_1l_me"])
 
 
+def _tables_equal(got: dict, want: dict) -> None:
+    for name in pipeline.SHARD_TABLES:
+        pd.testing.assert_frame_equal(got[name], want[name], obj=name)
+
+
+def test_renamed_file_is_screened_again(tmp_path, record, table_path):
+    """A record rejected for its file name, renamed to the name its identifier asks for, is
+    screened (the cache knows records by name and content, not by content alone)."""
+    entries = _campaign(tmp_path, record, [("nwename.json", json.dumps(dict(record, id="newname")))])
+    counts, tables = _run(tmp_path, entries, table_path, tag="a")
+    assert list(tables["rejects"]["entry_id"]) == ["nwename"]
+    (entries / "nwename.json").rename(entries / "newname.json")
+    counts, tables = _run(tmp_path, entries, table_path, tag="b")
+    assert "newname" in set(tables["wide"]["entry_id"]) and not len(tables["rejects"])
+    _tables_equal(tables, _run(tmp_path / "clean", entries, table_path, tag="c")[1])
+
+
+def test_file_copied_after_a_run_gets_its_own_row(tmp_path, record, table_path):
+    entries = _campaign(tmp_path, record)
+    _run(tmp_path, entries, table_path, tag="a")
+    (entries / "ok-1y.json").write_bytes((entries / "ok-1.json").read_bytes())
+    counts, tables = _run(tmp_path, entries, table_path, tag="b")
+    assert list(tables["rejects"]["source_file"]) == ["ok-1y.json"]  # its identifier names another file
+    assert "ok-1" in set(tables["wide"]["entry_id"])
+    _tables_equal(tables, _run(tmp_path / "clean", entries, table_path, tag="c")[1])
+
+
 def test_physics_change_invalidates_cache(tmp_path, record, table_path):
     entries = _campaign(tmp_path, record)
     _run(tmp_path, entries, table_path, tag="a")
@@ -176,7 +203,7 @@ def test_structure_supplies_geometry_and_flags_non_layered(tmp_path, record, tab
 UNC_SETTINGS = {
     "uncertainty": {"samples": 64, "seed": 3, "default_mass_rel": 0.15, "default_eps_rel": 0.1,
                     "default_edge_ev": 0.05, "default_r0_rel": 0.2, "default_scissor_ev": 0.1},
-    "survival": {"temperature_k": 300.0, "pair_density_per_cm2": 1e12, "wannier_ratio": 2.0},
+    "survival": {"temperature_k": 300.0, "pair_density_per_cm2": 1e12, "pair_density_per_cm3": 1e17, "wannier_ratio": 2.0},
     "ranking": {"environment": "suspended", "target_layers": 1, "require_direct": True, "min_direct_margin_ev": 0.0,
                 "min_binding_over_kt": 1.0, "window_nm": [400, 1600],
                 "weights": {"binding": 0.4, "margin": 0.3, "window": 0.3}, "shortlist_size": 5, "order_by": "score"},
@@ -221,14 +248,18 @@ def test_atomic_write_clears_leftovers_of_a_killed_writer(tmp_path):
 
 def test_snapshot_name_follows_content(tmp_path):
     # source: common practice (content-addressed file names: same content, same name;
-    # new content, new and newer file; stale siblings removed, other prefixes kept)
+    # new content, new and newer file; writing never removes anything)
     first = io.snapshot_json(tmp_path, "rank", {"t": 300.0})
     assert io.snapshot_json(tmp_path, "rank", {"t": 300.0}) == first
     other = io.snapshot_json(tmp_path, "rank-x", {"t": 300.0})
     second = io.snapshot_json(tmp_path, "rank", {"t": 77.0})
     assert second != first and io.read_json(second) == {"t": 77.0}
-    assert sorted(p.name for p in tmp_path.iterdir()) == sorted([Path(second).name, Path(other).name])
-    # back to the first content: written anew, so it is newer than anything made in between
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(Path(p).name for p in (first, second, other))
+    # a real run removes what it does not use; back to the first content later, the file
+    # is written anew, so it is newer than anything made in between
+    (tmp_path / "notes.json").write_text("{}")
+    assert io.remove_snapshots_except(tmp_path, {second, other}) == [Path(first).name]
+    assert (tmp_path / "notes.json").exists()
     again = io.snapshot_json(tmp_path, "rank", {"t": 300.0})
     assert again == first and Path(again).stat().st_mtime_ns >= Path(other).stat().st_mtime_ns
 

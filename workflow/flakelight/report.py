@@ -462,7 +462,9 @@ def _overview(ranked, rejects, manifest, settings) -> dict:
             ("Emission window", f"{lo:g}\u2013{hi:g} nm"),
             ("Score weights", ", ".join(f"{k} {float(v):g}" for k, v in r.get("weights", {}).items())),
             ("Order", "by " + str(r.get("order_by", "score"))),
-            ("Pair density for bound fraction", f"{_num(surv.get('pair_density_per_cm2')):.3g} cm\u207b\u00b2"),
+            ("Pair density for bound fraction",
+             f"{_num(surv.get('pair_density_per_cm2')):.3g} cm\u207b\u00b2 (layers), "
+             f"{_num(surv.get('pair_density_per_cm3')):.3g} cm\u207b\u00b3 (bulk)"),
             ("Surroundings screened", ", ".join(_env_with_constants(name, settings)
                                                 for name in settings.get("environments", {}))),
         ],
@@ -908,8 +910,12 @@ def write_summary(inputs: Mapping[str, str], outputs: Mapping[str, str], setting
     rotate = True
     baseline_frame = last
     if last is not None and _same_ranking(last, current):
+        # A repeat of the last run: report what that run reported (against the run
+        # before it, or as a first run), so a re-run equals the run it repeats.
         rotate = False
-        baseline_frame = previous if previous is not None else last
+        baseline_frame = previous
+    if not len(current):  # an empty screen never becomes the baseline of the next run
+        rotate = False
     changes = compare_runs(baseline_frame, current)
     baseline = None if baseline_frame is None else _baseline_info(baseline_frame, config_hash)
 
