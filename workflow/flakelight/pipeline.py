@@ -246,14 +246,18 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
             norm = ingest.normalize(raw.data, source_file=source, input_hash=input_hash, max_layers=max_layers,
                                     geometry=geometry, structure_hash=cif_hash or None,
                                     non_layered=settings["structure"]["non_layered"],
-                                    reconcile_rel_tol=settings["structure"]["reconcile_rel_tol"],
-                                    fit_exponent=bool(settings["layers"]["fit_exponent"]))
+                                    reconcile_rel_tol=settings["structure"]["reconcile_rel_tol"])
         except ingest.Rejected as exc:
             reject_rows += _reject_rows(stem, source, exc.problems, "normalise", input_hash, stamps)
             continue
         new_entries.append({**norm.entry, **stamps})
         new_valleys.extend({**v, **stamps} for v in norm.valleys)
 
+    new_entries, new_valleys, gapless = ingest.without_gapless(
+        new_entries, new_valleys, max_layers=max_layers, fit_exponent=bool(settings["layers"]["fit_exponent"]))
+    for entry, problems in gapless:
+        reject_rows += _reject_rows(entry["entry_id"], entry["source_file"], problems, "normalise",
+                                    entry["input_hash"], stamps)
     entries_new = ingest.typed_frame(new_entries, ingest.ENTRY_COLUMNS + list(stamps))
     valleys_new = ingest.typed_frame(new_valleys, ingest.valley_columns(max_layers) + list(stamps))
     table = KeldyshTable.from_arrays(io.load_arrays(table_path))
