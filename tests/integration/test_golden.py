@@ -41,6 +41,18 @@ ROWS = "(rows)"
 
 #: Named differences from the reference: (output, column or ROWS, entry_id or "*") -> reason.
 EXPECTED_CHANGES: dict[tuple[str, str, str], str] = {
+    ("tables/entries.parquet", "edge_eps_top", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "edge_eps_bottom", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "edge_method", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "gap_t_form", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "gap_t_alpha_ev_per_k", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "gap_t_beta_k", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "gap_t_coupling", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "gap_t_phonon_ev", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/entries.parquet", "gap_t_reference_k", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
+    ("tables/valleys.parquet", "degeneracy", "*"): "new record field (issue 17): valley degeneracy or spin sub-bands",
+    ("tables/valleys.parquet", "spin_split_ev", "*"): "new record field (issue 17): valley degeneracy or spin sub-bands",
+    ("tables/valleys.parquet", "edge_spin", "*"): "new record field (issue 17): valley degeneracy or spin sub-bands",
     ("tables/entries.parquet", "source_hashes", "*"):
         "added (issue 15): files an imported record was generated from; empty for hand-written records",
 }

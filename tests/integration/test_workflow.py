@@ -95,3 +95,17 @@ def test_ci_runs_the_readme_test_command():
     assert "pytest" in test_command
     ci = (REPO / ".ci" / "run").read_text().splitlines()
     assert test_command in ci
+
+
+def test_page_templates_are_code_inputs_of_the_summary(small_run):
+    # Editing a template must re-run the page: the files report.py reads (its DATA_FILES) are
+    # declared inputs of write_summary, as Snakemake's own dry run lists them.
+    from flakelight import report
+
+    work, _ = small_run
+    res = snakemake(work, "-n", "--forcerun", "write_summary", "results/summary.html")
+    block = res.stdout.split("rule write_summary:")[1]
+    declared = block.split("input:")[1].split("\n")[0]
+    library = REPO / "workflow" / "flakelight"
+    for name in report.DATA_FILES:
+        assert str(library / name) in declared, name

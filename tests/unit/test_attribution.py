@@ -159,6 +159,16 @@ def test_verdict_threshold_matches_bivariate_normal_closed_form(sig1, sig2, t):
     np.testing.assert_allclose(res.total, [1 - s2, 1 - s1], atol=0.035)
 
 
+def test_halved_effect_never_exceeds_first_order():
+    # Law of total variance (derived in the attribution module docstring): u is part
+    # of z, so Var E[Y|u] <= Var E[Y|z]. Checked on a nonlinear verdict with an
+    # interaction, up to sampling error.
+    n = 40_000
+    design = A.sobol_design(_draws(np.random.default_rng(12), (), n, 3, k=4), [[0], [1], [2]], residual=0.5)
+    res = A.sobol_indices(*_evaluate(lambda z: (z[..., 0] * z[..., 1] + 0.5 * z[..., 2] ** 2) > 0.3, design))
+    assert np.all(res.reduced <= res.first + 4 * np.hypot(res.reduced_se, res.first_se))
+
+
 def test_verdict_halved_effect_closed_form():
     # z_1 = sqrt(3)/2 u + v/2: E[Y | u] = Phi(sigma_1 sqrt(3)/2 u / sqrt(sigma_1^2/4 + sigma_2^2))
     # -> the threshold formula with sigma_i = sqrt(3)/2 sigma_1 and
@@ -236,8 +246,12 @@ def test_design_columns_and_sizes():
     np.testing.assert_array_equal(d.ab[0][:, [1, 3]], d.a[:, [1, 3]])
     np.testing.assert_array_equal(d.ab[1][:, 1], d.b[:, 1])
     np.testing.assert_array_equal(d.ab[1][:, [0, 2, 3]], d.a[:, [0, 2, 3]])
-    assert A.design_size(100, 7, reduced=False) == 900          # N (d + 2), Saltelli 2010 sec. 3
-    assert A.design_size(100, 7, reduced=True) == 1600
+    assert A.design_size(100, 7) == 900                           # N (d + 2), Saltelli 2010 sec. 3
+    assert A.design_size(100, 7, n_reduced=3) == 1200
+    dr = A.sobol_design(_draws(rng, (), 5, 4, k=4), [[0, 2], [1], [3]], residual=0.5, reduced=[2, 0])
+    assert dr.ab_reduced.shape == (2, 5, 4)
+    np.testing.assert_array_equal(dr.ab_reduced[0][:, [0, 1, 2]], dr.a[:, [0, 1, 2]])   # group 2 = column 3
+    assert not np.any(dr.ab_reduced[0][:, 3] == dr.a[:, 3])
     with pytest.raises(ValueError):
         A.sobol_design(z, [[0], [0, 1]])                          # overlapping groups
     with pytest.raises(ValueError):

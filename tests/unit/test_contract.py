@@ -86,6 +86,19 @@ CASES = [
     ("sample count mismatch", lambda r: r["valleys"][2].update(
         band_samples={"k_per_angstrom": [[0, 0]] * 7, "energy_ev": [0.0] * 6}) or r["valleys"][2].pop("mass"),
      "valleys[2].band_samples", "7 k points but 6 energies"),
+    ("spin split without spin", _set(["valleys", 2, "spin_split_ev"], 0.03), "valleys[2]", "together"),
+    ("spin without split", _set(["valleys", 2, "edge_spin"], "up"), "valleys[2]", "together"),
+    ("negative spin split", lambda r: r["valleys"][2].update(spin_split_ev=-0.03, edge_spin="up"),
+     "valleys[2].spin_split_ev", "minimum"),
+    ("unknown spin", lambda r: r["valleys"][2].update(spin_split_ev=0.03, edge_spin="sideways"),
+     "valleys[2].edge_spin", "is not one of"),
+    ("zero degeneracy", _set(["valleys", 0, "degeneracy"], 0), "valleys[0].degeneracy", "minimum"),
+    ("degeneracy disagrees", lambda r: [v.update(degeneracy=2 + i) for i, v in enumerate(r["valleys"])],
+     "valleys[2].degeneracy", "elsewhere"),
+    ("varshni without beta", _set(["gap_temperature"], {"form": "varshni", "alpha_ev_per_k": 4e-4}),
+     "gap_temperature", "'varshni' needs"),
+    ("edge origin below vacuum", _set(["band_edge_origin"], {"eps_top": 0.5, "eps_bottom": 1.0}),
+     "band_edge_origin.eps_top", "minimum"),
 ]
 
 

@@ -20,7 +20,7 @@ from flakelight import io, report
 ROOT = Path(__file__).resolve().parents[2]
 HOSTILE = ['<script>alert(1)</script>', '"><img src=x onerror=alert(1)>', "</script><script>alert(2)</script>",
            "<!-- \u2028 \u2029 & ' \""]
-SECTIONS = ("make-first", "overview", "table", "plots", "changes", "rejects", "methods", "cautions")
+SECTIONS = ("make-first", "overview", "recompute", "table", "plots", "changes", "rejects", "methods", "cautions")
 
 
 @pytest.fixture(scope="module")
@@ -359,7 +359,10 @@ INTENDED_CHANGES = (
     ("on_silica", "on silica"),  # display names of the surroundings instead of config keys
     ("Large dots meet every criterion", "Large ringed dots meet every criterion"),  # candidates by outline
     ("Filled dots are candidates", "Ringed dots are candidates"),
+    (" Overview All compounds", " Overview Recompute next All compounds"),  # link to the added section
 )
+#: Sections added on purpose since commit ba2d14c.
+ADDED_SECTIONS = {"recompute"}  # "What to recompute next" (flakelight.refinement)
 #: Added on purpose: the gap character of each point of the thickness figure (now its colour).
 ADDED_TO_TIPS = re.compile(r", (?:direct|indirect|unknown) gap(?= \||$)")
 
@@ -369,7 +372,7 @@ def test_page_text_matches_the_page_before_the_template_move():
     # same fixed inputs; see tests/unit/page_text.py for how it was made.
     reference = json.loads(page_text.REFERENCE.read_text(encoding="utf-8"))["sections"]
     now = page_text.visible_text(page_text.reference_page(report))
-    assert set(now) == set(reference)
+    assert set(now) == set(reference) | ADDED_SECTIONS
     for section, old in reference.items():
         text, tips = old["text"], old["tips"]
         for before, after in INTENDED_CHANGES:
@@ -486,3 +489,45 @@ def test_large_screen_lists_the_best_ranked_rows(settings):
     assert len(data["rows"]) == 15
     scatter = page.split('id="plot-binding-gap"')[1].split("</svg>")[0]
     assert scatter.count("<circle") == len(ranked)  # plots still show every compound
+
+
+def _refinement_rows(ids):
+    from flakelight import refinement
+
+    rows = []
+    for i, ident in enumerate(ids):
+        row = {"rank": i + 1, "entry_id": ident, "input_group": "band edge, valley K (conduction)",
+               "input_kind": "band_edges", "valley_index": 1, "recompute": refinement.GROUP_KINDS["band_edges"][1],
+               "p_meets_all": 0.5, "share_first": 0.7, "share_total": 0.8, "share_halved": 0.4,
+               "expected_effect": 0.1, "mostly_through": "gap direct"}
+        row["advice"] = refinement.plain_words(pd.Series(row))
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def test_recompute_section_lists_each_borderline_compound_in_words(settings):
+    ranked = _ranked([f"cmp-{i:02d}" for i in range(9)], settings)
+    evil = '<img src=x onerror=alert(1)>'
+    page = report.build_html(ranked, _long(ranked, settings), _rejects(), MANIFEST, report.empty_changes(),
+                             settings, refinement=_refinement_rows(["cmp-01", "cmp-03", evil]))
+    section = page[page.index('<section id="recompute"'):]
+    section = section[:section.index("</section>")]
+    assert section.count("<li>") == 3
+    assert "Recompute the band edge, valley K (conduction) of cmp-01" in section
+    assert "it decides 70 % of whether cmp-01 meets every criterion" in section
+    assert evil not in page and "&lt;img src=x onerror=alert(1)&gt;" in section
+
+
+def test_recompute_section_says_why_it_is_empty(settings):
+    import copy
+
+    ranked = _ranked(["cmp-00"], settings)
+    empty = _refinement_rows([]).reindex(columns=["entry_id", "advice"])
+    page = report.build_html(ranked, _long(ranked, settings), _rejects(), MANIFEST, report.empty_changes(),
+                             settings, refinement=empty)
+    assert "No compound has a chance between 10 % and 90 %" in page
+    off = copy.deepcopy(settings)
+    off["refinement"]["enabled"] = False
+    page = report.build_html(ranked, _long(ranked, off), _rejects(), MANIFEST, report.empty_changes(), off,
+                             refinement=empty)
+    assert "switched off" in page

@@ -40,8 +40,10 @@ with the same Saltelli formula from the matrix A_B^(u,i), which takes u from
 B and v from A (A and B themselves are built as ``sqrt(1 - c**2) u + c v`` so
 their columns stay standard normal). c = 0 gives back S_i; for an additive
 Gaussian model the reduced effect is ``(1 - c**2) S_i`` (3/4 S_i when
-halved), for a threshold verdict it can be much smaller or larger. Cost: N d
-more evaluations.
+halved), for a threshold verdict it can be much smaller. It never exceeds S_i
+(u is part of z, so by the law of total variance Var E[Y|u] <= Var E[Y|z]);
+a caller may therefore compute it only for the groups with the largest S_i.
+Cost: N more evaluations per group.
 
 Standard errors
 ---------------
@@ -83,9 +85,9 @@ class SobolDesign(NamedTuple):
         The two independent base matrices (standard normals).
     ab : numpy.ndarray, shape (..., d, N, D)
         ``ab[..., i, :, :]`` is A with group i's columns taken from B.
-    ab_reduced : numpy.ndarray or None, shape (..., d, N, D)
-        A with the "learned" part u of group i taken from B (present when
-        the design was built with a ``residual`` factor).
+    ab_reduced : numpy.ndarray or None, shape (..., r, N, D)
+        A with the "learned" part u of group i taken from B, for the r groups
+        asked for (present when the design was built with a ``residual``).
     """
 
     a: np.ndarray
@@ -108,9 +110,10 @@ class SobolIndices(NamedTuple):
         NaN where the variance is 0).
     first_se, total_se : numpy.ndarray, shape (..., d)
         Their standard errors (see module docstring).
-    reduced, reduced_se : numpy.ndarray or None, shape (..., d)
-        Expected fraction of ``variance`` removed if group i's uncertainty
-        were reduced by the design's ``residual`` factor, and its error.
+    reduced, reduced_se : numpy.ndarray or None, shape (..., r)
+        Expected fraction of ``variance`` removed if a group's uncertainty
+        were reduced by the design's ``residual`` factor, and its error (for
+        the r groups of ``y_ab_reduced``).
     """
 
     mean: np.ndarray
@@ -123,9 +126,9 @@ class SobolIndices(NamedTuple):
     reduced_se: np.ndarray | None
 
 
-def design_size(n_base: int, n_groups: int, reduced: bool) -> int:
-    """Model evaluations of a design: N (d + 2), plus N d with a reduced-uncertainty block."""
-    return int(n_base) * (int(n_groups) * (2 if reduced else 1) + 2)
+def design_size(n_base: int, n_groups: int, n_reduced: int = 0) -> int:
+    """Model evaluations of a design: N (d + 2), plus N per reduced-uncertainty matrix."""
+    return int(n_base) * (int(n_groups) + 2 + int(n_reduced))
 
 
 def _group_masks(groups: Sequence[Sequence[int]], n_dims: int) -> np.ndarray:
@@ -143,7 +146,7 @@ def _group_masks(groups: Sequence[Sequence[int]], n_dims: int) -> np.ndarray:
 
 
 def sobol_design(draws: np.ndarray, groups: Sequence[Sequence[int]],
-                 residual: float | None = None) -> SobolDesign:
+                 residual: float | None = None, reduced: Sequence[int] | None = None) -> SobolDesign:
     """Build the pick-freeze sample matrices from independent standard normals.
 
     Parameters
@@ -157,6 +160,9 @@ def sobol_design(draws: np.ndarray, groups: Sequence[Sequence[int]],
     residual : float, optional
         Factor c in [0, 1) by which a group's standard deviation would shrink
         (0.5 = halved); adds :attr:`SobolDesign.ab_reduced`.
+    reduced : sequence of int, optional
+        Groups (indices into ``groups``) that get a reduced-uncertainty matrix,
+        in this order (default: all).
 
     Returns
     -------
@@ -184,7 +190,8 @@ def sobol_design(draws: np.ndarray, groups: Sequence[Sequence[int]],
         u_a, v_a, u_b, v_b = (z[..., j, :, :] for j in range(4))
         a, b = s * u_a + c * v_a, s * u_b + c * v_b
         mixed = s * u_b + c * v_a
-        ab_reduced = np.where(masks[:, None, :], mixed[..., None, :, :], a[..., None, :, :])
+        chosen = masks if reduced is None else masks[np.asarray(reduced, dtype=np.int64).reshape(-1)]
+        ab_reduced = np.where(chosen[:, None, :], mixed[..., None, :, :], a[..., None, :, :])
     ab = np.where(masks[:, None, :], b[..., None, :, :], a[..., None, :, :])
     return SobolDesign(a=a, b=b, ab=ab, ab_reduced=ab_reduced)
 
@@ -198,8 +205,9 @@ def sobol_indices(y_a, y_b, y_ab, y_ab_reduced=None) -> SobolIndices:
         Model output on A and on B (float or bool; a bool verdict is 0/1).
     y_ab : array_like, shape (..., d, N)
         Model output on each A_B^(i).
-    y_ab_reduced : array_like, shape (..., d, N), optional
-        Model output on each A_B^(u,i) of a design built with ``residual``.
+    y_ab_reduced : array_like, shape (..., r, N), optional
+        Model output on each A_B^(u,i) of a design built with ``residual``
+        (r groups; the reduced effects are returned in that order).
 
     Returns
     -------
@@ -234,8 +242,8 @@ def sobol_indices(y_a, y_b, y_ab, y_ab_reduced=None) -> SobolIndices:
         reduced = reduced_se = None
         if y_ab_reduced is not None:
             fr = np.asarray(y_ab_reduced, dtype=float)
-            if fr.shape != fab.shape:
-                raise ValueError("y_ab_reduced must have the shape of y_ab")
+            if fr.shape[:-2] != fa.shape[:-1] or fr.shape[-1] != n:
+                raise ValueError("y_ab_reduced must have shape (..., r, N)")
             reduced, reduced_se = ratio(fb_c * (fr - fa[..., None, :]))
     return SobolIndices(mean=mean, variance=variance, first=first, total=total, first_se=first_se,
                         total_se=total_se, reduced=reduced, reduced_se=reduced_se)

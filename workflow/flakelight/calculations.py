@@ -688,7 +688,8 @@ def _constraint_text(k: np.ndarray, directions: list[str], n_group: int) -> tupl
     rows = np.c_[u[:, 0] ** 2, 2 * u[:, 0] * u[:, 1], u[:, 1] ** 2]
     _, s, vt = np.linalg.svd(rows)
     rank = int(np.sum(s > 1e-8 * s[0]))
-    by = f"samples along {', '.join(directions)}"
+    by = ("the uniform-grid samples around the point" if directions == ["uniform grid"]
+          else f"samples along {', '.join(directions)}")
     by += f" and their images under the {n_group}-element little group of the point" if n_group > 1 else \
         " (no symmetry adds directions)"
     if rank == 3:
@@ -779,7 +780,7 @@ def fit_valley(k: np.ndarray, e: np.ndarray, band_kind: str, at_origin: bool, di
                 fit = _symmetric_fit(k, e, band_kind, basis)
             except bandfit.MassFitError as exc:
                 return ValleyFit(k, e, at_origin, None, f"{text}; fit failed: {exc}", n_group)
-            text = (f"{rank} of 3 in-plane components fixed by samples along {', '.join(directions)}; the "
+            text = (f"{rank} of 3 in-plane components fixed by the samples ({', '.join(directions)}); the "
                     f"{n_group}-element little group leaves {basis.shape[1]} independent components, all fixed "
                     "(fitted with the symmetry imposed)")
             return ValleyFit(k, e, at_origin, fit, text, n_group, symmetric=True)

@@ -70,6 +70,8 @@ def _schema_message(err) -> str:
 
 def _oneof_hint(path: list) -> str:
     """Readable reason for a failed ``oneOf`` at a record path."""
+    if path and path[-1] == "gap_temperature":
+        return "'varshni' needs 'alpha_ev_per_k' and 'beta_k'; 'bose-einstein' needs 'coupling' and 'phonon_energy_ev'"
     if path and path[-1] == "mass":
         return "give exactly one in-plane mass form: 'isotropic_me', 'principal_me' or 'tensor_me'"
     if len(path) == 2 and path[0] == "valleys":
@@ -332,6 +334,7 @@ def physical_problems(record: dict, *, stem: str,
 
     bands = {"valence": 0, "conduction": 0}
     seen: dict[tuple[str, str], int] = {}
+    degeneracies: dict[str, int] = {}
     for i, valley in enumerate(record["valleys"]):
         base = ["valleys", i]
         bands[valley["band"]] += 1
@@ -352,6 +355,12 @@ def physical_problems(record: dict, *, stem: str,
             out.extend(_mass_block_problems(valley["mass"], base + ["mass"]))
         if "band_samples" in valley:
             out.extend(_samples_problems(valley["band_samples"], base + ["band_samples"]))
+        if ("spin_split_ev" in valley) != ("edge_spin" in valley):
+            out.append(Problem(format_path(base), "give 'spin_split_ev' and 'edge_spin' together"))
+        degeneracy = degeneracies.setdefault(valley["label"], valley.get("degeneracy", 1))
+        if valley.get("degeneracy", 1) != degeneracy:
+            out.append(Problem(format_path(base + ["degeneracy"]),
+                               f"label {valley['label']!r} is given degeneracy {degeneracy} elsewhere"))
     for band, count in bands.items():
         if count == 0:
             out.append(Problem("valleys", f"no {band} valley given; need at least one valence and one conduction valley"))

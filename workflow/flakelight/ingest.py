@@ -46,6 +46,10 @@ class NormalizedRecord:
     warnings: list[str] = field(default_factory=list)
 
 
+#: Valley-table code of the edge sub-band's spin (see :mod:`flakelight.excitons`).
+_SPIN_CODE = {"up": 1, "down": -1, "": 0}
+
+
 def edge_column(layers: int) -> str:
     """Column name of the band edge at a layer count (0 = bulk)."""
     return "edge_bulk_ev" if layers == 0 else f"edge_{layers}l_ev"
@@ -156,6 +160,8 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
     else:
         r0, r0_source = math.nan, "bulk estimate"
 
+    origin = record.get("band_edge_origin", {})
+    thermal = record.get("gap_temperature", {})
     entry = {
         "entry_id": ident,
         "source_file": source_file,
@@ -185,6 +191,15 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
         "r0_rel_unc": float(screening.get("relative_uncertainty", math.nan)),
         "scissor_ev": float(record.get("scissor_ev", 0.0)),
         "scissor_unc_ev": float(record.get("scissor_uncertainty_ev", math.nan)),
+        "edge_eps_top": float(origin.get("eps_top", 1.0)),
+        "edge_eps_bottom": float(origin.get("eps_bottom", 1.0)),
+        "edge_method": origin.get("method", "not stated"),
+        "gap_t_form": thermal.get("form", ""),
+        "gap_t_alpha_ev_per_k": float(thermal.get("alpha_ev_per_k", math.nan)),
+        "gap_t_beta_k": float(thermal.get("beta_k", math.nan)),
+        "gap_t_coupling": float(thermal.get("coupling", math.nan)),
+        "gap_t_phonon_ev": float(thermal.get("phonon_energy_ev", math.nan)),
+        "gap_t_reference_k": float(thermal.get("calculation_temperature_k", 0.0)) if thermal else math.nan,
     }
 
     valleys = []
@@ -208,6 +223,9 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
             **fit_info,
             "mass_rel_unc": float(mass.get("relative_uncertainty", math.nan)),
             "edge_unc_ev": float(valley.get("edge_uncertainty_ev", math.nan)),
+            "degeneracy": float(valley.get("degeneracy", 1)),
+            "spin_split_ev": float(valley.get("spin_split_ev", math.nan)),
+            "edge_spin": _SPIN_CODE[valley.get("edge_spin", "")],
         }
         valleys.append(row)
     entry["warnings"] = " | ".join(warnings)
@@ -335,7 +353,9 @@ ENTRY_COLUMNS = [
     "normal_source", *[f"eps_inf_{c}" for c, _, _ in TENSOR_COMPONENTS],
     *[f"eps_static_{c}" for c, _, _ in TENSOR_COMPONENTS], "eps_rel_unc", "spacing_angstrom",
     "spacing_source", "lattice_angstrom", "lattice_source", "is_layered_structure", "vdw_gap_angstrom",
-    "r0_given_angstrom", "r0_source", "r0_rel_unc", "scissor_ev", "scissor_unc_ev", "warnings",
+    "r0_given_angstrom", "r0_source", "r0_rel_unc", "scissor_ev", "scissor_unc_ev", "edge_eps_top",
+    "edge_eps_bottom", "edge_method", "gap_t_form", "gap_t_alpha_ev_per_k", "gap_t_beta_k", "gap_t_coupling",
+    "gap_t_phonon_ev", "gap_t_reference_k", "warnings",
 ]
 
 
@@ -344,17 +364,19 @@ def valley_columns(max_layers: int) -> list[str]:
     return ["entry_id", "valley_index", "input_hash", "label", "band",
             *[edge_column(n) for n in range(1, max_layers + 1)], edge_column(0),
             "inv_mass_xx", "inv_mass_xy", "inv_mass_yy", "mass_perp_me", "mass_source",
-            "mass_fit_rms_ev", "mass_nonparabolic", "mass_rel_unc", "edge_unc_ev"]
+            "mass_fit_rms_ev", "mass_nonparabolic", "mass_rel_unc", "edge_unc_ev", "degeneracy", "spin_split_ev",
+            "edge_spin"]
 
 
 #: Columns of the entry and valley tables that hold text or flags (the rest are float64).
 STRING_COLUMNS = {
     "entry_id", "source_file", "input_hash", "formula", "provenance", "energy_reference", "structure_file",
-    "structure_hash", "source_hashes", "dielectric_frame", "normal_source", "spacing_source", "lattice_source", "r0_source",
-    "warnings", "label", "band", "mass_source", "physics_hash", "code_version",
+    "structure_hash", "source_hashes", "dielectric_frame", "normal_source", "spacing_source", "lattice_source",
+    "r0_source", "warnings", "label", "band", "mass_source", "physics_hash", "code_version", "edge_method",
+    "gap_t_form",
 }
 BOOLEAN_COLUMNS = {"is_layered_structure", "mass_nonparabolic"}
-INTEGER_COLUMNS = {"valley_index"}
+INTEGER_COLUMNS = {"valley_index", "edge_spin"}
 
 
 def typed_frame(rows: list[dict], columns: list[str]) -> pd.DataFrame:

@@ -205,7 +205,7 @@ def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, t
     """
     ref = settings["refinement"]
     n_base = int(ref["samples"])
-    halved = ref["effect"] == "halved"
+    n_halved = int(ref["per_compound"]) if ref["effect"] == "halved" else 0
     seed = int(settings["uncertainty"]["seed"])
     kinds = [k for k in GROUP_KINDS if k in set(ref["groups"])]
     if len(entries) == 0 or n_base < 2 or not kinds:
@@ -219,28 +219,27 @@ def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, t
     labels, bands = vt["label"].astype(str).to_numpy(), vt["band"].astype(str).to_numpy()
     vindex = vt["valley_index"].to_numpy(dtype=np.int64)
     groups = [_entry_groups(prep, e, kinds, labels, bands, vindex) for e in range(len(prep.ids))]
-    n_mat = np.array([2 + len(g[0]) * (2 if halved else 1) for g in groups])
+    n_groups = np.array([len(g[0]) for g in groups])
 
-    # entries with the same design size evaluate together: reorder so they are contiguous
-    order = np.lexsort((np.arange(len(n_mat)), n_mat))
-    order = order[np.array([len(groups[i][0]) > 0 for i in order], dtype=bool)]
+    # entries with the same number of groups evaluate together: reorder so they are contiguous
+    order = np.lexsort((np.arange(len(n_groups)), n_groups))
+    order = order[n_groups[order] > 0]
     if not len(order):
         return empty_frame()
     entries = entries.iloc[order].reset_index(drop=True)
     prep = uncertainty.prepare_inputs(entries, valleys, settings)
     groups = [groups[i] for i in order]
-    n_mat = n_mat[order]
+    n_groups = n_groups[order]
 
     rows: list[pd.DataFrame] = []
     start = 0
     while start < len(order):
-        m = int(n_mat[start])
+        d = int(n_groups[start])
+        step = max(1, block_cells // ((d + 2) * n_base))
         stop = start
-        per_entry = m * n_base
-        step = max(1, block_cells // per_entry)
-        while stop < len(order) and n_mat[stop] == m and stop - start < step:
+        while stop < len(order) and n_groups[stop] == d and stop - start < step:
             stop += 1
-        rows.append(_attribute_block(prep, start, stop, groups[start:stop], m, n_base, halved, seed, table,
+        rows.append(_attribute_block(prep, start, stop, groups[start:stop], n_base, n_halved, seed, table,
                                      block_cells))
         start = stop
     frame = pd.concat(rows, ignore_index=True)
@@ -259,56 +258,77 @@ def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, t
     return frame.sort_values(["entry_id", "output", "input_group"], kind="stable").reset_index(drop=True)
 
 
-def _attribute_block(prep, a: int, b: int, groups, m: int, n_base: int, halved: bool, seed: int, table,
-                     block_cells: int) -> pd.DataFrame:
-    """Indices of entries a..b-1, which share the design size m (matrices of n_base samples)."""
+def _evaluate_design(prep, a: int, b: int, zs, table, block_cells: int) -> dict[str, np.ndarray]:
+    """Model outputs (b - a, S) of entries a..b-1 on their draws zs[i] (S, 3 + 2 k_i), in blocks."""
     n_e = b - a
-    s_tot = m * n_base
+    s_tot = zs[0].shape[0]
     k = np.diff(prep.vstart[a:b + 1])
     z_ent = np.empty((3, n_e, s_tot))
     z_mass = np.empty((int(k.sum()), s_tot))
     z_edge = np.empty_like(z_mass)
     pos = 0
-    for i in range(n_e):
+    for i, z in enumerate(zs):
         ke = int(k[i])
-        rng = np.random.default_rng(attribution_seed_sequence(seed, prep.ids[a + i]))
-        draws = rng.standard_normal((4 if halved else 2, n_base, 3 + 2 * ke))
-        design = attribution.sobol_design(draws, groups[i][0], residual=0.5 if halved else None)
-        mats = [design.a[None], design.b[None], design.ab]
-        if halved:
-            mats.append(design.ab_reduced)
-        z = np.concatenate(mats, axis=0).reshape(s_tot, 3 + 2 * ke)       # (matrix, sample) major
         z_ent[:, i, :] = z[:, :3].T
         z_mass[pos:pos + ke] = z[:, 3:3 + ke].T
         z_edge[pos:pos + ke] = z[:, 3 + ke:].T
         pos += ke
-    if n_e == 1 and s_tot > block_cells:
-        parts = []
-        for s0 in range(0, s_tot, block_cells):
-            s1 = min(s0 + block_cells, s_tot)
-            parts.append(uncertainty.evaluate_draws(prep, a, b, z_ent[:, :, s0:s1], z_mass[:, s0:s1],
-                                                    z_edge[:, s0:s1], table))
-        res = {key: np.concatenate([p[key] for p in parts], axis=1) for key in parts[0]}
-    else:
-        res = uncertainty.evaluate_draws(prep, a, b, z_ent, z_mass, z_edge, table)
+    step = s_tot if n_e * s_tot <= block_cells else max(1, block_cells // n_e)
+    parts = [uncertainty.evaluate_draws(prep, a, b, z_ent[:, :, s0:s0 + step], z_mass[:, s0:s0 + step],
+                                        z_edge[:, s0:s0 + step], table) for s0 in range(0, s_tot, step)]
+    if len(parts) == 1:
+        return parts[0]
+    return {key: np.concatenate([p[key] for p in parts], axis=1) for key in parts[0]}
+
+
+def _attribute_block(prep, a: int, b: int, groups, n_base: int, n_halved: int, seed: int, table,
+                     block_cells: int) -> pd.DataFrame:
+    """Indices of entries a..b-1, which share the number of groups d.
+
+    Stage 1 evaluates A, B and every A_B^(i); with ``n_halved`` > 0, stage 2
+    evaluates the halved-uncertainty matrices of the n_halved groups with the
+    largest first-order share of the verdict (the halved effect never exceeds
+    the first-order one; see :mod:`flakelight.attribution`).
+    """
+    n_e = b - a
     d = len(groups[0][0])
+    r = min(n_halved, d)
+    k = np.diff(prep.vstart[a:b + 1])
+    designs = []
+    for i in range(n_e):
+        rng = np.random.default_rng(attribution_seed_sequence(seed, prep.ids[a + i]))
+        draws = rng.standard_normal((4 if r else 2, n_base, 3 + 2 * int(k[i])))
+        designs.append(attribution.sobol_design(draws, groups[i][0], residual=0.5 if r else None))
+    stage1 = [np.concatenate([g.a[None], g.b[None], g.ab], axis=0).reshape((d + 2) * n_base, -1) for g in designs]
+    y1 = {name: np.asarray(v, dtype=float).reshape(n_e, d + 2, n_base)
+          for name, v in _evaluate_design(prep, a, b, stage1, table, block_cells).items() if name in OUTPUTS}
+    idx = {name: attribution.sobol_indices(y[:, 0], y[:, 1], y[:, 2:]) for name, y in y1.items()}
+    halved = {name: (np.full((n_e, d), np.nan), np.full((n_e, d), np.nan)) for name in OUTPUTS}
+    if r:
+        first = np.nan_to_num(idx["meets_all"].first, nan=-np.inf)
+        top = np.argsort(-first, axis=1, kind="stable")[:, :r]
+        stage2 = [g.ab_reduced[top[i]].reshape(r * n_base, -1) for i, g in enumerate(designs)]
+        res2 = _evaluate_design(prep, a, b, stage2, table, block_cells)
+        rows = np.arange(n_e)[:, None]
+        for name, y in y1.items():
+            y2 = np.asarray(res2[name], dtype=float).reshape(n_e, r, n_base)
+            red = attribution.sobol_indices(y[:, 0], y[:, 1], y[:, 2:][rows, top], y2)
+            halved[name][0][rows, top] = red.reduced
+            halved[name][1][rows, top] = red.reduced_se
     out = []
     for name in OUTPUTS:
-        y = np.asarray(res[name], dtype=float).reshape(n_e, m, n_base)
-        idx = attribution.sobol_indices(y[:, 0], y[:, 1], y[:, 2:2 + d], y[:, 2 + d:] if halved else None)
-        nan = np.full((n_e, d), np.nan)
+        res = idx[name]
         out.append(pd.DataFrame({
             "entry_id": np.repeat(prep.ids[a:b], d),
             "output": name,
             "input_group": [g for grp in groups for g in grp[1]],
             "input_kind": [g for grp in groups for g in grp[2]],
             "valley_index": [g for grp in groups for g in grp[3]],
-            "mean": np.repeat(idx.mean, d),
-            "variance": np.repeat(idx.variance, d),
-            "share_first": idx.first.reshape(-1), "share_first_se": idx.first_se.reshape(-1),
-            "share_total": idx.total.reshape(-1), "share_total_se": idx.total_se.reshape(-1),
-            "share_halved": (idx.reduced if halved else nan).reshape(-1),
-            "share_halved_se": (idx.reduced_se if halved else nan).reshape(-1),
+            "mean": np.repeat(res.mean, d),
+            "variance": np.repeat(res.variance, d),
+            "share_first": res.first.reshape(-1), "share_first_se": res.first_se.reshape(-1),
+            "share_total": res.total.reshape(-1), "share_total_se": res.total_se.reshape(-1),
+            "share_halved": halved[name][0].reshape(-1), "share_halved_se": halved[name][1].reshape(-1),
         }))
     return pd.concat(out, ignore_index=True)
 

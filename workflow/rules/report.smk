@@ -12,6 +12,7 @@ rule write_summary:
         rejects=rules.rank_candidates.output.rejects,
         entries=rules.join_tables.output.entries,
         manifest=rules.write_manifest.output[0],
+        refinement=rules.refinement_list.output.refinement,
         settings=summary_settings,
         code=code_files("write_summary", "report", "figures", "ranking"),
     output:
@@ -24,6 +25,6 @@ rule write_summary:
     shell:
         adapter(
             "write_summary",
-            inputs=("long", "wide", "rejects", "entries", "manifest", "settings"),
+            inputs=("long", "wide", "rejects", "entries", "manifest", "refinement", "settings"),
             outputs=("html", "changes"),
         )

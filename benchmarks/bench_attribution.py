@@ -1,0 +1,137 @@
+"""Benchmark: attribution of borderline verdicts versus the propagation it builds on.
+
+Run with ``.venv/bin/python benchmarks/bench_attribution.py`` from the
+repository root. Steps:
+
+1. generate and normalise 10,000 invented records exactly as
+   ``bench_uncertainty.py`` does (``inputs/make_campaign.py --count 10000
+   --no-broken --cif-fraction 0``, then ``pipeline.run_shard``; not timed here);
+2. in a fresh child process: run ``uncertainty.propagate_uncertainty`` with
+   400 samples (the propagation, as the shard job runs it), then
+   ``refinement.attribute`` on the records whose ``p_meets_all`` lies in the
+   configured band, with the configured ``refinement`` settings (base samples,
+   effect, groups); report both wall times, their ratio, the number of
+   borderline records, the model evaluations of each, and the resident-memory
+   high-water mark of each step (``VmHWM``, reset between steps);
+3. with ``--profile``: a second, untimed attribution under ``cProfile``,
+   printing where the time goes (model evaluation, drawing and design,
+   estimators, table assembly).
+
+Options: ``--count``, ``--samples`` (propagation samples), ``--base`` (override
+``refinement.samples``), ``--effect`` (override ``refinement.effect``),
+``--keep DIR`` (reuse/keep the normalised campaign), ``--profile``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT / "workflow"))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+import bench_uncertainty as bu  # noqa: E402  (same campaign, same machine report)
+
+
+def _settings(base: int | None, effect: str | None) -> dict:
+    cfg = bu._config()
+    keys = ("uncertainty", "survival", "ranking", "layers", "monolayer", "environments", "refinement")
+    settings = {k: cfg[k] for k in keys}
+    if base is not None:
+        settings["refinement"]["samples"] = base
+    if effect is not None:
+        settings["refinement"]["effect"] = effect
+    return settings
+
+
+def child(entries_path: str, valleys_path: str, table_path: str, samples: int, base: int | None,
+          effect: str | None, profile: bool) -> None:
+    """Propagation then attribution; print one JSON line (and a profile when asked)."""
+    from flakelight import attribution, io, keldysh, refinement, uncertainty
+
+    settings = _settings(base, effect)
+    entries, valleys = io.read_parquet(entries_path), io.read_parquet(valleys_path)
+    table = keldysh.KeldyshTable.from_arrays(io.load_arrays(table_path))
+    bu._high_water_kib(reset=True)
+    t0 = time.perf_counter()
+    unc = uncertainty.propagate_uncertainty(entries, valleys, settings, table, samples=samples)
+    t_prop = time.perf_counter() - t0
+    rss_prop = bu._high_water_kib(reset=True)
+
+    t0 = time.perf_counter()
+    merged = entries.merge(unc[["entry_id", "p_meets_all"]], on="entry_id")
+    chosen = merged[refinement.borderline(merged["p_meets_all"], settings["refinement"]["band"])]
+    rows = refinement.attribute(chosen, valleys, settings, table)
+    t_attr = time.perf_counter() - t0
+    rss_attr = bu._high_water_kib()
+
+    ref = settings["refinement"]
+    verdict = rows[rows["output"] == "meets_all"]
+    groups = verdict.groupby("entry_id").size()
+    per_compound = int(ref["per_compound"]) if ref["effect"] == "halved" else 0
+    evaluations = sum(attribution.design_size(int(ref["samples"]), int(d), min(per_compound, int(d)))
+                      for d in groups)
+    print(json.dumps({
+        "entries": len(entries), "samples": samples, "propagation_s": t_prop, "attribution_s": t_attr,
+        "ratio": t_attr / t_prop, "borderline": int(len(chosen)), "attributed": int(len(groups)),
+        "mean_groups": float(groups.mean()) if len(groups) else 0.0,
+        "base": int(ref["samples"]), "effect": ref["effect"],
+        "propagation_evaluations": len(entries) * samples, "attribution_evaluations": int(evaluations),
+        "rss_propagation_mib": rss_prop / 1024, "rss_attribution_mib": rss_attr / 1024,
+    }))
+    if profile:
+        import cProfile
+        import pstats
+
+        prof = cProfile.Profile()
+        prof.enable()
+        refinement.attribute(chosen, valleys, settings, table)
+        prof.disable()
+        stats = pstats.Stats(prof, stream=sys.stderr)
+        stats.sort_stats("cumulative").print_stats(25)
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--count", type=int, default=10_000)
+    parser.add_argument("--samples", type=int, default=400)
+    parser.add_argument("--base", type=int, default=None)
+    parser.add_argument("--effect", choices=("halved", "removed"), default=None)
+    parser.add_argument("--keep", type=Path, default=None, help="folder to keep/reuse the normalised campaign")
+    parser.add_argument("--profile", action="store_true")
+    parser.add_argument("--child", nargs=4, help=argparse.SUPPRESS)
+    args = parser.parse_args()
+    if args.child:
+        child(*args.child[:3], int(args.child[3]), args.base, args.effect, args.profile)
+        return
+    print("machine:", bu.machine())
+    with tempfile.TemporaryDirectory(prefix="bench_attr_") as tmp:
+        work = args.keep or Path(tmp)
+        work.mkdir(parents=True, exist_ok=True)
+        entries, valleys = bu.prepare(work, args.count)
+        table = bu._table_path(work)
+        cmd = [sys.executable, __file__, "--child", str(entries), str(valleys), str(table), str(args.samples)]
+        cmd += (["--base", str(args.base)] if args.base is not None else [])
+        cmd += (["--effect", args.effect] if args.effect else []) + (["--profile"] if args.profile else [])
+        res = subprocess.run(cmd, check=True, capture_output=True, text=True)
+        r = json.loads(res.stdout.strip().splitlines()[-1])
+        print(f"{r['entries']} entries: propagation x {r['samples']} samples {r['propagation_s']:.1f} s "
+              f"({r['propagation_evaluations'] / 1e6:.1f} M model evaluations, peak RSS "
+              f"{r['rss_propagation_mib']:.0f} MiB)")
+        print(f"attribution of {r['borderline']} borderline records ({r['attributed']} with uncertain inputs, "
+              f"{r['mean_groups']:.1f} input groups on average), N = {r['base']}, effect {r['effect']}: "
+              f"{r['attribution_s']:.1f} s ({r['attribution_evaluations'] / 1e6:.1f} M model evaluations, "
+              f"peak RSS {r['rss_attribution_mib']:.0f} MiB)")
+        print(f"ratio attribution / propagation: {r['ratio']:.2f}")
+        if args.profile:
+            print(res.stderr)
+
+
+if __name__ == "__main__":
+    main()
