@@ -265,3 +265,16 @@ def test_read_record_never_raises_on_bytes(tmp_path, data):
         assert _storable(raw.data)
     else:
         raw.error.encode("utf-8")
+
+
+@pytest.mark.parametrize("kind, words", [("fifo", "named pipe"), ("link to /dev/zero", "is a device"),
+                                         ("directory", "is a directory")])
+def test_calculation_files_are_read_by_the_same_rules(tmp_path, kind, words):
+    from flakelight import calcio
+    from flakelight.calculations import ImportProblem
+
+    path = _special(tmp_path, kind)
+    for read in (lambda: calcio._load_json(path, "c/x.json"), lambda: calcio.planar_average(path, "c/x", [0, 0, 1])):
+        with no_hang(), pytest.raises(ImportProblem) as err:
+            read()
+        assert words in str(err.value.reason)
