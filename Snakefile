@@ -21,3 +21,11 @@ rule all:
     default_target: True
     input:
         final_outputs(),
+
+
+onstart:
+    remove_old_snapshots()
+
+
+onsuccess:
+    print(run_summary())

@@ -51,12 +51,12 @@ BARE = r"""
 import sys, time, json
 from pathlib import Path
 sys.path.insert(0, sys.argv[1])
-from flakelight import pipeline, io
+from flakelight import io, keldysh, pipeline
 cfg = json.loads(Path(sys.argv[2]).read_text())
 work = Path(sys.argv[3])
 entries = sorted(str(p) for p in (Path(cfg["campaign"]) / "entries").glob("*.json"))
 t0 = time.perf_counter()
-pipeline.build_keldysh_table(str(work / "keldysh_table.npz"))
+io.save_arrays(keldysh.build_table().to_arrays(), work / "keldysh_table.npz")
 t1 = time.perf_counter()
 keys = ("layers", "structure", "environments", "monolayer", "emission_bands")
 shard = {n: str(work / "shard" / f"{n}.parquet") for n in pipeline.SHARD_TABLES}

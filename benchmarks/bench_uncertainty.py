@@ -51,11 +51,11 @@ def _table_path(work: Path) -> Path:
     cached = ROOT / "results" / "cache" / "keldysh_table.npz"
     if cached.exists():
         return cached
-    from flakelight import pipeline
+    from flakelight import io, keldysh
 
     path = work / "keldysh_table.npz"
     if not path.exists():
-        pipeline.build_keldysh_table(str(path))
+        io.save_arrays(keldysh.build_table().to_arrays(), path)
     return path
 
 

@@ -12,8 +12,9 @@ dangling links too). Two layers of checks:
   nothing);
 * end to end, one Snakemake run (``--cores 2``) on the same mix: the run exits 0,
   every bad file has a reject row naming the field, every valid record is
-  screened; and one run on an empty entries/ folder, which must give empty but
-  well-typed tables (same columns and Arrow types as a non-empty run).
+  screened; and one run whose only record file is rejected, which must stop with
+  a reason before writing final tables, its shards' empty tables well typed (same
+  columns and Arrow types as a non-empty run).
 """
 
 from __future__ import annotations
@@ -168,7 +169,7 @@ def test_case_duplicates_share_a_shard(shards):
 
 
 # ---------------------------------------------------------------------------------------------
-# End to end: one run on valid records plus the whole corpus, one on an empty folder
+# End to end: one run on valid records plus the whole corpus, one that screens nothing
 # ---------------------------------------------------------------------------------------------
 
 @pytest.fixture(scope="module")
@@ -236,31 +237,41 @@ def test_corpus_run_rejects_are_escaped_plain_text(corpus_run):
 
 @pytest.fixture(scope="module")
 def empty_run(tmp_path_factory):
+    """A campaign whose only record file is rejected: the shard jobs run and write empty
+    tables, then the run stops (nothing screened) before the final tables are written."""
     work = tmp_path_factory.mktemp("empty_run")
     campaign = work / "campaign"
     (campaign / "entries").mkdir(parents=True)
     (campaign / "structures").mkdir()
+    (campaign / "entries" / "only.json").write_text("{")
     write_config(work, campaign)
     res = snakemake(work, *TARGETS)
-    assert res.returncode == 0, failure_text(res, work)
-    return work
+    return work, res
 
 
 @pytest.mark.slow
-def test_empty_folder_gives_empty_tables(empty_run):
-    for name in TABLES:
-        assert len(pd.read_parquet(empty_run / "results" / "tables" / f"{name}.parquet")) == 0, name
-    assert len(pd.read_csv(empty_run / "results" / "shortlist.csv")) == 0
+def test_a_screen_of_nothing_stops_with_a_reason(empty_run):
+    work, res = empty_run
+    assert res.returncode != 0
+    assert "flakelight: nothing was screened: all 1 record files were rejected" in res.stderr, res.stderr[-3000:]
+    assert not (work / "results" / "tables").exists()
+    assert not (work / "results" / "shortlist.csv").exists()
 
 
+#: Final table name -> name of the shard table it is joined from.
+SHARD_TABLE = {"entries": "entries", "valleys": "valleys", "rejects": "rejects", "screen_long": "exciton_long",
+               "screen_wide": "exciton_wide"}
 
 
 @pytest.mark.slow
 @pytest.mark.parametrize("name", TABLES)
 def test_empty_tables_are_well_typed(empty_run, corpus_run, name):
-    """Same columns and Arrow types as the tables of a non-empty run (no null-typed columns)."""
-    empty = pq.read_schema(empty_run / "results" / "tables" / f"{name}.parquet")
-    full = pq.read_schema(corpus_run[0] / "results" / "tables" / f"{name}.parquet")
+    """Shard tables without rows have the same columns and Arrow types as those with rows (no
+    null-typed columns), so a shard without a screened record joins with the others."""
+    work, _ = empty_run
+    paths = sorted((work / "results" / "shards").glob(f"*/{SHARD_TABLE[name]}.parquet"))
+    empty = next(pq.read_schema(p) for p in paths if pq.read_metadata(p).num_rows == 0)
+    full = pq.read_schema(next((corpus_run[0] / "results" / "shards").glob(f"*/{SHARD_TABLE[name]}.parquet")))
     assert empty.names == full.names
     mismatched = {f.name: (str(f.type), str(full.field(f.name).type)) for f in empty
                   if f.type != full.field(f.name).type}

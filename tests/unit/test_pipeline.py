@@ -112,6 +112,33 @@ def test_cache_reuses_unchanged_and_recomputes_revised(tmp_path, record, table_p
             != t1["wide"].set_index("entry_id").loc["ok-1", "mu_1l_me"])
 
 
+def _tables_equal(got: dict, want: dict) -> None:
+    for name in pipeline.SHARD_TABLES:
+        pd.testing.assert_frame_equal(got[name], want[name], obj=name)
+
+
+def test_renamed_file_is_screened_again(tmp_path, record, table_path):
+    """A record rejected for its file name, renamed to the name its identifier asks for, is
+    screened (the cache knows records by name and content, not by content alone)."""
+    entries = _campaign(tmp_path, record, [("nwename.json", json.dumps(dict(record, id="newname")))])
+    counts, tables = _run(tmp_path, entries, table_path, tag="a")
+    assert list(tables["rejects"]["entry_id"]) == ["nwename"]
+    (entries / "nwename.json").rename(entries / "newname.json")
+    counts, tables = _run(tmp_path, entries, table_path, tag="b")
+    assert "newname" in set(tables["wide"]["entry_id"]) and not len(tables["rejects"])
+    _tables_equal(tables, _run(tmp_path / "clean", entries, table_path, tag="c")[1])
+
+
+def test_file_copied_after_a_run_gets_its_own_row(tmp_path, record, table_path):
+    entries = _campaign(tmp_path, record)
+    _run(tmp_path, entries, table_path, tag="a")
+    (entries / "ok-1y.json").write_bytes((entries / "ok-1.json").read_bytes())
+    counts, tables = _run(tmp_path, entries, table_path, tag="b")
+    assert list(tables["rejects"]["source_file"]) == ["ok-1y.json"]  # its identifier names another file
+    assert "ok-1" in set(tables["wide"]["entry_id"])
+    _tables_equal(tables, _run(tmp_path / "clean", entries, table_path, tag="c")[1])
+
+
 def test_physics_change_invalidates_cache(tmp_path, record, table_path):
     entries = _campaign(tmp_path, record)
     _run(tmp_path, entries, table_path, tag="a")
@@ -221,14 +248,18 @@ def test_atomic_write_clears_leftovers_of_a_killed_writer(tmp_path):
 
 def test_snapshot_name_follows_content(tmp_path):
     # source: common practice (content-addressed file names: same content, same name;
-    # new content, new and newer file; stale siblings removed, other prefixes kept)
+    # new content, new and newer file; writing never removes anything)
     first = io.snapshot_json(tmp_path, "rank", {"t": 300.0})
     assert io.snapshot_json(tmp_path, "rank", {"t": 300.0}) == first
     other = io.snapshot_json(tmp_path, "rank-x", {"t": 300.0})
     second = io.snapshot_json(tmp_path, "rank", {"t": 77.0})
     assert second != first and io.read_json(second) == {"t": 77.0}
-    assert sorted(p.name for p in tmp_path.iterdir()) == sorted([Path(second).name, Path(other).name])
-    # back to the first content: written anew, so it is newer than anything made in between
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(Path(p).name for p in (first, second, other))
+    # a real run removes what it does not use; back to the first content later, the file
+    # is written anew, so it is newer than anything made in between
+    (tmp_path / "notes.json").write_text("{}")
+    assert io.remove_snapshots_except(tmp_path, {second, other}) == [Path(first).name]
+    assert (tmp_path / "notes.json").exists()
     again = io.snapshot_json(tmp_path, "rank", {"t": 300.0})
     assert again == first and Path(again).stat().st_mtime_ns >= Path(other).stat().st_mtime_ns
 

@@ -436,6 +436,13 @@ def test_write_summary_keeps_history_and_reports_changes(tmp_path, settings):
     assert len(io.read_parquet(outputs["changes"])) == 0
     assert (history / report.LAST_SNAPSHOT).exists()
     assert "first run recorded" in Path(outputs["html"]).read_text(encoding="utf-8")
+    # Repeating the first run reports exactly what the first run reported (a re-run, say
+    # after a lost results/ folder, must equal the run it repeats).
+    report.write_summary(first, outputs, settings, str(history))
+    assert len(io.read_parquet(outputs["changes"])) == 0
+    assert io.parquet_metadata(outputs["changes"])["compared_with_run"] == ""
+    assert "first run recorded" in Path(outputs["html"]).read_text(encoding="utf-8")
+    assert not (history / report.PREVIOUS_SNAPSHOT).exists()
 
     revised = _ranked(ids[1:] + ["cmp-new"], settings)
     revised.loc[revised["entry_id"] == "cmp-03", "input_hash"] = "changed"

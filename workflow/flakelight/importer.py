@@ -24,16 +24,13 @@ from typing import Mapping, Sequence
 
 from typing import TYPE_CHECKING
 
-from flakelight import io
+from flakelight import io, provenance
 
 if TYPE_CHECKING:  # numpy, scipy and pymatgen load only when a job imports (the Snakefile imports this module)
     from flakelight.calculations import ImportProblem, ImportResult
 
 log = logging.getLogger("flakelight")
 
-#: Library modules the import depends on (their hash is part of the cache key).
-IMPORT_MODULES = ("__init__", "units", "io", "dielectric", "bandfit", "structure", "calculations", "calcio",
-                  "importer")
 #: Stage name of import rejects in the rejects table.
 STAGE = "import"
 #: Columns of the rejects table (those of flakelight.pipeline.REJECT_COLUMNS; a test keeps them equal,
@@ -189,7 +186,7 @@ def run_import(names: Sequence[str], campaign: str, cache_dir: str, outputs: Map
 
     from flakelight.calculations import ImportProblem
 
-    code_version = io.library_digest([f"{m}.py" for m in IMPORT_MODULES])
+    code_version = provenance.code_version(__name__.rsplit(".", 1)[-1])  # this module's import graph
     cache = Path(cache_dir)
     records_dir = Path(outputs["records"])
     records_dir.mkdir(parents=True, exist_ok=True)

@@ -420,26 +420,41 @@ def snapshot_json(folder: str | os.PathLike, prefix: str, content: Any) -> str:
     The file name carries a digest of the content, so a rule that takes the file
     as input re-runs exactly when the content changes: the name changes (Snakemake's
     ``input`` trigger) and the new file is newer than the rule's outputs (its
-    ``mtime`` trigger). Older snapshots with the same prefix are removed, so
-    returning to an earlier content writes a fresh (newer) file again. The
-    workflow keeps job settings and campaign listings this way instead of in rule
-    ``params``.
-    """
-    import re
+    ``mtime`` trigger). The workflow keeps job settings and campaign listings this
+    way instead of in rule ``params``.
 
+    Nothing is ever removed or rewritten here (a dry run calls this too, possibly
+    while a real run reads these files): snapshots the current run does not use are
+    removed by :func:`remove_snapshots_except`, from a real run holding Snakemake's
+    lock, so that returning to an earlier content later writes a fresh (newer) file.
+    """
     text = json.dumps(content, sort_keys=True, separators=(",", ":"), default=str) + "\n"
     folder = Path(folder)
     path = folder / f"{prefix}-{sha256_bytes(text.encode('utf-8'))[:16]}.json"
     if not path.exists():
         write_text(text, path)
-    pattern = re.compile(re.escape(prefix) + r"-[0-9a-f]{16}\.json")
-    for old in folder.glob(f"{prefix}-*.json"):
-        if old != path and pattern.fullmatch(old.name):
+    return str(path)
+
+
+def remove_snapshots_except(folder: str | os.PathLike, keep: set[str]) -> list[str]:
+    """Remove the snapshots (``<prefix>-<16 hex digits>.json``) in ``folder`` not in ``keep``.
+
+    Call only from a real run that holds the workflow's lock (Snakemake's ``onstart``),
+    with ``keep`` the snapshots that run uses. Returns the names removed.
+    """
+    import re
+
+    pattern = re.compile(r".+-[0-9a-f]{16}\.json")
+    keep = {os.path.abspath(p) for p in keep}
+    removed = []
+    for old in Path(folder).glob("*.json"):
+        if pattern.fullmatch(old.name) and os.path.abspath(old) not in keep:
             try:
                 old.unlink()
-            except FileNotFoundError:  # removed by a concurrent run
+                removed.append(old.name)
+            except FileNotFoundError:
                 pass
-    return str(path)
+    return sorted(removed)
 
 
 def load_schema(name: str) -> dict:
@@ -470,6 +485,26 @@ def library_digest(modules: list[str] | None = None) -> str:
         h.update(name.encode())
         h.update((LIBRARY_DIR / name).read_bytes())
     return h.hexdigest()[:16]
+
+
+def read_source(path: str | os.PathLike) -> str:
+    """Text of a source file (UTF-8)."""
+    return Path(path).read_text(encoding="utf-8")
+
+
+def library_sources(folder: str | os.PathLike = LIBRARY_DIR) -> dict[str, str]:
+    """Source text of every library module, by module name (``"io"``, ``"__init__"``, ...)."""
+    return {p.stem: read_source(p) for p in sorted(Path(folder).glob("*.py"))}
+
+
+def schema_files(folder: str | os.PathLike = SCHEMA_DIR) -> list[Path]:
+    """The JSON schemas shipped in workflow/schemas (read by the library and the workflow)."""
+    return sorted(Path(folder).glob("*.json"))
+
+
+def schema_sources(folder: str | os.PathLike = SCHEMA_DIR) -> dict[str, str]:
+    """Text of every JSON schema, by file name."""
+    return {p.name: read_source(p) for p in schema_files(folder)}
 
 
 def _atomic_target(path: str | os.PathLike) -> tuple[Path, str]:

@@ -26,12 +26,15 @@ from typing import Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from flakelight import PROPAGATION_MODULES, REFINEMENT_MODULES, SHARD_MODULES, contract, ingest, io, screen
+from flakelight import contract, ingest, io, provenance, screen
 from flakelight.keldysh import KeldyshTable
 
 log = logging.getLogger("flakelight")
 
 SHARD_TABLES = ("entries", "valleys", "rejects", "long", "wide")
+
+#: Reject reasons a shard passes on for the console summary (the rest are in the rejects table).
+REASONS_SHOWN = 3
 
 REJECT_COLUMNS = ["entry_id", "source_file", "field", "reason", "stage",
                   "input_hash", "physics_hash", "code_version"]
@@ -110,6 +113,21 @@ def _load_cache(cache_dir: Path, stamps: Mapping[str, str]) -> dict[str, pd.Data
     return out
 
 
+def _file_key(stem: str, input_hash: str) -> str:
+    """Cache key of a record file: its name and its content (record plus CIF bytes).
+
+    Content alone is not enough: a renamed or copied file holds the same bytes
+    under another name, and its fate (screened, or rejected for a name that does
+    not match its identifier) depends on the name.
+    """
+    return f"{stem}\0{input_hash}"
+
+
+def _file_keys(frame: pd.DataFrame) -> pd.Series:
+    """:func:`_file_key` of every row of a shard table (``entry_id`` is the file stem)."""
+    return frame["entry_id"].astype(str) + "\0" + frame["input_hash"].astype(str)
+
+
 def _typed(frame: pd.DataFrame) -> pd.DataFrame:
     """Give object columns a string type so empty tables keep a schema (Arrow would say null)."""
     obj = [c for c in frame.columns if frame[c].dtype == object]
@@ -180,16 +198,16 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
     Returns counts of screened, rejected and reused records.
     """
     stamps = {"physics_hash": io.canonical_json_hash(dict(settings))[:16],
-              "code_version": _code_version(SHARD_MODULES)}
+              "code_version": stage_code_version()}
     max_layers = settings["layers"]["max_layers"]
     structures_dir = Path(campaign) / "structures"
     checker = contract.RecordChecker(io.load_schema("entry.schema.json"))
     cache = _load_cache(Path(cache_dir), stamps)
-    cached_hashes = set()
+    cached_keys = set()
     if cache:
         old_rejects = cache["rejects"]
         cache["rejects"] = old_rejects[~old_rejects["stage"].isin(CONTEXT_STAGES)] if len(old_rejects) else old_rejects
-        cached_hashes = set(cache["entries"]["input_hash"]) | set(cache["rejects"]["input_hash"])
+        cached_keys = set(_file_keys(cache["entries"])) | set(_file_keys(cache["rejects"]))
 
     reused: set[str] = set()
     new_entries, new_valleys, reject_rows = [], [], []
@@ -224,8 +242,8 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
                 "id", f"duplicate identifier: {source} and {others} differ only in letter case; all of them "
                       "are rejected until one is renamed or removed")], "duplicate", input_hash, stamps)
             continue
-        if input_hash in cached_hashes:
-            reused.add(input_hash)
+        if _file_key(stem, input_hash) in cached_keys:
+            reused.add(_file_key(stem, input_hash))
             continue
         if raw.error is not None:
             reject_rows += _reject_rows(stem, source, [contract.Problem(raw.error_field, raw.error)], "read",
@@ -270,7 +288,7 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
         parts = [fresh]
         if cache:
             old = cache[name]
-            parts.append(old[_is_in(old["input_hash"], reused)])
+            parts.append(old[_is_in(_file_keys(old), reused)])
         parts = [p for p in parts if len(p)]
         if not parts:
             return fresh
@@ -297,20 +315,13 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
         io.copy_file(outputs[name], Path(cache_dir) / f"{name}.parquet")
     if len(memo) != memo_size:
         io.write_json({"code_version": stamps["code_version"], "analyses": memo}, memo_path)
-    counts = {"screened": int(len(tables["entries"])),
-              "rejected": int(tables["rejects"]["entry_id"].nunique()) if len(tables["rejects"]) else 0,
-              "reused": len(reused), "computed": len(new_entries)}
+    rejects = tables["rejects"]
+    counts = {"records": len(entry_paths), "screened": int(len(tables["entries"])),
+              "rejected": int(rejects["entry_id"].nunique()) if len(rejects) else 0,
+              "reused": len(reused), "computed": len(new_entries),
+              "reasons": [f"{r.source_file}: {r.field}: {r.reason}" for r in rejects.head(REASONS_SHOWN).itertuples()]}
     log.info("shard done: %s", counts)
     return counts
-
-
-def build_keldysh_table(path: str) -> None:
-    """Compute the Rytova-Keldysh table with the accurate solver and save it."""
-    from flakelight import keldysh
-
-    table = keldysh.build_table()
-    io.save_arrays(table.to_arrays(), path)
-    log.info("Keldysh table written: %d grid points", len(table.to_arrays()["s"]) if "s" in table.to_arrays() else -1)
 
 
 def _concat(paths: Sequence[str]) -> pd.DataFrame:
@@ -426,7 +437,7 @@ def write_manifest(entry_paths: Sequence[str], structure_paths: Sequence[str], w
         "tool": "flakelight",
         "written_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
         "code_version": io.library_digest(),
-        "screen_code_version": _code_version(SHARD_MODULES),
+        "screen_code_version": stage_code_version(),
         "git": git_version(workdir),
         "config_hash": config_hash,
         "config": dict(config),
@@ -453,13 +464,15 @@ CAUTIONS = [
 
 
 def _record_keys(frame: pd.DataFrame) -> pd.Series:
-    """Per-row cache key of a normalised record: its input hash and physics hash."""
-    return frame["input_hash"].astype(str) + ":" + frame["physics_hash"].astype(str)
+    """Per-row cache key of a normalised record: its file key and physics hash."""
+    return _file_keys(frame) + ":" + frame["physics_hash"].astype(str)
 
 
-def _code_version(modules: Sequence[str]) -> str:
-    """Content hash of the named library modules (the code version of a stage's rows)."""
-    return io.library_digest([f"{m}.py" for m in modules])
+def stage_code_version() -> str:
+    """Code version of the shard stage (screen and propagation): a digest of every library
+    module this module can import, followed through the import graph
+    (:func:`flakelight.provenance.code_version`), and of the schemas."""
+    return provenance.code_version(__name__.rsplit(".", 1)[-1])
 
 
 def run_propagation(entries_path: str, valleys_path: str, table_path: str, settings: Mapping,
@@ -475,7 +488,7 @@ def run_propagation(entries_path: str, valleys_path: str, table_path: str, setti
     entries = io.read_parquet(entries_path)
     valleys = io.read_parquet(valleys_path)
     stamps = {"settings_hash": io.canonical_json_hash(dict(settings))[:16],
-              "code_version": _code_version(PROPAGATION_MODULES)}
+              "code_version": stage_code_version()}
     cache_path = Path(cache_dir) / "uncertainty.parquet"
     keys = _record_keys(entries)
     reused = pd.DataFrame()
@@ -512,7 +525,7 @@ def run_attribution(entries_path: str, valleys_path: str, uncertainty_path: str,
     entries = io.read_parquet(entries_path)
     probabilities = io.read_parquet(uncertainty_path, columns=["entry_id", "p_meets_all"])
     stamps = {"settings_hash": io.canonical_json_hash(dict(settings))[:16],
-              "code_version": _code_version(REFINEMENT_MODULES)}
+              "code_version": stage_code_version()}
     ref = settings["refinement"]
     chosen = set(probabilities["entry_id"][refinement.borderline(probabilities["p_meets_all"], ref["band"])]) \
         if ref["enabled"] else set()

@@ -908,8 +908,12 @@ def write_summary(inputs: Mapping[str, str], outputs: Mapping[str, str], setting
     rotate = True
     baseline_frame = last
     if last is not None and _same_ranking(last, current):
+        # A repeat of the last run: report what that run reported (against the run
+        # before it, or as a first run), so a re-run equals the run it repeats.
         rotate = False
-        baseline_frame = previous if previous is not None else last
+        baseline_frame = previous
+    if not len(current):  # an empty screen never becomes the baseline of the next run
+        rotate = False
     changes = compare_runs(baseline_frame, current)
     baseline = None if baseline_frame is None else _baseline_info(baseline_frame, config_hash)
 

@@ -3,19 +3,42 @@
 
 
 localrules:
+    check_screen,
     rank_candidates,
     join_tables,
     write_manifest,
 
 
+# A run that screens nothing stops here, before any job that writes results/tables, the
+# shortlist, the page or the history has started (Snakemake removes a job's old outputs
+# only when the job starts).
+rule check_screen:
+    input:
+        counts=expand("results/shards/{shard}/counts.json", shard=shard_names()),
+        code=code_files("check_screen"),
+    output:
+        counts="results/cache/screen_counts.json",
+    log:
+        "results/logs/check_screen/check_screen.log",
+    conda:
+        "../../envs/flakelight.yaml"
+    shell:
+        adapter(
+            "check_screen",
+            inputs=("counts",),
+            outputs=("counts",),
+        )
+
+
 rule rank_candidates:
     input:
+        checked=rules.check_screen.output.counts,
         rejects=shard_outputs("rejects") + import_outputs("rejects"),
         long=shard_outputs("exciton_long"),
         wide=shard_outputs("exciton_wide"),
         uncertainty=shard_outputs("uncertainty"),
         settings=rank_settings,
-        code=code_files("rank_candidates", "survival", "ranking", "pipeline", "assemble"),
+        code=code_files("rank_candidates"),
     output:
         rejects="results/tables/rejects.parquet",
         rejects_csv="results/tables/rejects.csv",
@@ -37,12 +60,13 @@ rule rank_candidates:
 # ranking, by a job that imports pyarrow and numpy only (flakelight.assemble).
 rule join_tables:
     input:
+        checked=rules.check_screen.output.counts,
         long=shard_outputs("exciton_long"),
         wide=shard_outputs("exciton_wide"),
         entries=shard_outputs("entries"),
         valleys=shard_outputs("valleys"),
         settings=join_settings,
-        code=code_files("join_tables", "survival", "assemble"),
+        code=code_files("join_tables"),
     output:
         long="results/tables/screen_long.parquet",
         entries="results/tables/entries.parquet",
@@ -64,7 +88,7 @@ rule write_manifest:
         tables=rules.rank_candidates.output.wide,
         records=campaign_records,
         settings=manifest_settings,
-        code=code_files("write_manifest", "pipeline"),
+        code=code_files("write_manifest"),
     output:
         manifest="results/manifest.json",
     log:

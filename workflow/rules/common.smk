@@ -8,21 +8,23 @@ from pathlib import Path
 from snakemake.utils import validate
 
 sys.path.insert(0, str(Path(workflow.basedir) / "workflow"))
-from flakelight import PROPAGATION_MODULES, REFINEMENT_MODULES, SHARD_MODULES  # noqa: E402
+from flakelight.configcheck import cross_problems  # noqa: E402
+from flakelight.provenance import adapter_files  # noqa: E402
+from flakelight import io  # noqa: E402
 from flakelight.io import campaign_listing as campaign_listing_rows, canonical_json_hash, snapshot_json  # noqa: E402
 from flakelight.sharding import shard_name, shard_of_file  # noqa: E402
-from flakelight.importer import IMPORT_MODULES  # noqa: E402
 from flakelight.io import calculation_listing as calculation_listing_rows  # noqa: E402
 
 
 validate(config, schema="../schemas/config.schema.json")
+if cross_problems(config):  # before any job: one line per problem, each with its key path
+    sys.exit("flakelight: the config has problems:\n  " + "\n  ".join(cross_problems(config)))
 
 
 wildcard_constraints:
     shard=r"\d{3}",
 
 
-LIBRARY = Path(workflow.basedir) / "workflow" / "flakelight"
 ADAPTERS = Path(workflow.basedir) / "workflow" / "scripts"
 
 
@@ -67,6 +69,35 @@ def campaign_listing(kind):
     return tuple(campaign_listing_rows(campaign_dir(), kind))
 
 
+def campaign_problem():
+    """Why the campaign cannot be screened (missing folder, no record files), or None."""
+    folder = campaign_dir()
+    where = f"'{folder}' (config key campaign, working directory {Path.cwd()})"
+    if not folder.is_dir():
+        return f"the campaign folder {where} does not exist"
+    if has_calculations() or campaign_listing("entries"):
+        return None
+    if not (folder / "entries").is_dir():
+        return f"the campaign folder {where} has no entries/ folder for the record files (nor calculations/)"
+    return f"the campaign folder {where} holds no record files (entries/*.json) and no calculations/"
+
+
+def run_summary():
+    """Console lines that end a successful run: records read, screened, rejected (with the
+    rejects CSV and the first reasons), candidates and the page (from the run's outputs)."""
+    counts_path, manifest_path = Path("results/cache/screen_counts.json"), Path("results/manifest.json")
+    if not counts_path.exists() or not manifest_path.exists():
+        return "flakelight: run finished (no complete screen yet: rule all was not asked for)"
+    counts, manifest = io.read_json(counts_path), io.read_json(manifest_path)
+    lines = [f"flakelight: {counts['records']} record files read, {counts['screened']} screened, "
+             f"{counts['rejected']} rejected, {manifest['counts']['candidates']} candidates."]
+    if counts["rejected"]:
+        lines.append("  rejects: results/tables/rejects.csv; first reasons:")
+        lines += [f"    {reason}" for reason in counts["reasons"]]
+    lines.append("  summary page: results/summary.html; shortlist: results/shortlist.csv")
+    return "\n".join(lines)
+
+
 def shard_names():
     """Names of all shards, e.g. ['000', '001', ...]."""
     return [shard_name(i) for i in range(config["sharding"]["shards"])]
@@ -82,14 +113,29 @@ def _shard_rows():
     return rows
 
 
+#: Snapshots this Snakemake process uses (kept by `remove_old_snapshots`).
+SNAPSHOTS_USED = set()
+
+
 def snapshot(prefix, content):
     """Path of the content-addressed JSON snapshot `prefix` (written when new).
 
     Rules take their settings and listings as such files, never as `params`: a changed
     value re-runs the rule under any re-run trigger, and Snakemake, holding no params and
     running no `script:` jobs, never loads pandas (a quarter of a second on every run).
+    Writing one never removes another: dry runs call this too (see `remove_old_snapshots`).
     """
-    return snapshot_json(SNAPSHOTS, prefix, content)
+    path = snapshot_json(SNAPSHOTS, prefix, content)
+    SNAPSHOTS_USED.add(path)
+    return path
+
+
+def remove_old_snapshots():
+    """Remove the snapshots this run does not use (called by `onstart`, which Snakemake runs
+    only in a real run, holding the lock, after planning: a dry run never removes a file
+    that a running run reads)."""
+    if Path(SNAPSHOTS).is_dir():
+        io.remove_snapshots_except(SNAPSHOTS, SNAPSHOTS_USED)
 
 
 def shard_records(wildcards):
@@ -103,28 +149,12 @@ def campaign_records(wildcards):
     return snapshot("records-all", {"entries": campaign_listing("entries"), "structures": campaign_listing("structures")})
 
 
-@functools.cache
-def library_data_files(module):
-    """Files a library module reads at run time (the page's templates): its ``DATA_FILES``
-    tuple, read from the source without importing the module."""
-    tree = ast.parse((LIBRARY / f"{module}.py").read_text(encoding="utf-8"))
-    for node in tree.body:
-        if isinstance(node, ast.Assign) and any(getattr(t, "id", None) == "DATA_FILES" for t in node.targets):
-            return [str(LIBRARY / name) for name in ast.literal_eval(node.value)]
-    return []
-
-
-def library_files(*modules):
-    """Library source files a rule imports, and the data files they read, declared as inputs
-    so code changes re-run it."""
-    names = dict.fromkeys(("__init__", "units", "io") + modules)
-    return [str(LIBRARY / f"{m}.py") for m in names] + [f for m in names for f in library_data_files(m)]
-
-
-def code_files(adapter_name, *modules):
-    """Sources behind a job: its adapter, the adapters' argument parser and the library
-    modules it imports (declared as inputs: editing any of them re-runs the rule)."""
-    return [str(ADAPTERS / f"{adapter_name}.py"), str(ADAPTERS / "adapter_args.py")] + library_files(*modules)
+def code_files(adapter_name):
+    """Sources behind a job, declared as inputs so that editing any of them re-runs it: the
+    adapter, the helpers it imports, every library module reachable through imports from
+    it, the data files those modules declare (``DATA_FILES``: the page's templates) and the
+    schemas (derived from the code by flakelight.provenance, never listed by hand)."""
+    return adapter_files(ADAPTERS / f"{adapter_name}.py")
 
 
 def physics_settings():
@@ -253,3 +283,8 @@ def import_outputs(name):
 
 #: Names of the optional inputs of screen_shard (its adapter gets --input imported only with calculations).
 SCREEN_IMPORT_INPUTS = ("imported",) if has_calculations() else ()
+
+
+# Start-up checks: stop before any job (and before results/ is touched) with a one-line reason.
+if campaign_problem():
+    sys.exit(f"flakelight: {campaign_problem()}; nothing was run and results/ is unchanged")

@@ -11,7 +11,7 @@ rule import_calculations:
         # the shard's calculation files (names, sizes, times): a new name whenever one changes
         listing=shard_calculations,
         settings=import_settings,
-        code=code_files("import_calculations", *IMPORT_MODULES),
+        code=code_files("import_calculations"),
     output:
         records=directory("results/imported/{shard}/entries"),
         rejects="results/imported/{shard}/rejects.parquet",

@@ -3,7 +3,7 @@
 
 rule keldysh_table:
     input:
-        code=code_files("keldysh_table", "keldysh"),
+        code=code_files("keldysh_table"),
     output:
         table="results/cache/keldysh_table.npz",
     log:

@@ -15,7 +15,7 @@ rule attribute_shard:
         valleys=rules.screen_shard.output.valleys,
         uncertainty=rules.screen_shard.output.uncertainty,
         settings=attribution_settings,
-        code=code_files("attribute_shard", *REFINEMENT_MODULES),
+        code=code_files("attribute_shard"),
     output:
         attribution="results/shards/{shard}/attribution.parquet",
     log:
@@ -38,7 +38,7 @@ rule refinement_list:
     input:
         attribution=shard_outputs("attribution"),
         settings=refinement_list_settings,
-        code=code_files("refinement_list", "refinement", "attribution", "pipeline"),
+        code=code_files("refinement_list"),
     output:
         attribution="results/tables/attribution.parquet",
         refinement="results/tables/refinement.parquet",

@@ -14,7 +14,7 @@ rule write_summary:
         manifest=rules.write_manifest.output[0],
         refinement=rules.refinement_list.output.refinement,
         settings=summary_settings,
-        code=code_files("write_summary", "report", "figures", "ranking"),
+        code=code_files("write_summary"),
     output:
         html="results/summary.html",
         changes="results/tables/changes.parquet",

@@ -15,7 +15,7 @@ rule screen_shard:
         settings=screen_settings,
         # records written by import_calculations for this shard (none without calculations/)
         imported=imported_records,
-        code=code_files("screen_shard", *SHARD_MODULES, *PROPAGATION_MODULES),
+        code=code_files("screen_shard"),
     output:
         entries="results/shards/{shard}/entries.parquet",
         valleys="results/shards/{shard}/valleys.parquet",
@@ -23,6 +23,7 @@ rule screen_shard:
         long="results/shards/{shard}/exciton_long.parquet",
         wide="results/shards/{shard}/exciton_wide.parquet",
         uncertainty="results/shards/{shard}/uncertainty.parquet",
+        counts="results/shards/{shard}/counts.json",
     log:
         "results/logs/screen_shard/{shard}.log",
     benchmark:
@@ -34,7 +35,7 @@ rule screen_shard:
         adapter(
             "screen_shard",
             inputs=("table", "records", "settings") + SCREEN_IMPORT_INPUTS,
-            outputs=("entries", "valleys", "rejects", "long", "wide", "uncertainty"),
+            outputs=("entries", "valleys", "rejects", "long", "wide", "uncertainty", "counts"),
             wildcards=("shard",),
         )
 

@@ -1,9 +1,9 @@
 """Adapter of rule keldysh_table: build the Rytova-Keldysh table once."""
 import adapter_args
 
-from flakelight import io, pipeline
+from flakelight import io, keldysh
 
 job = adapter_args.parse()
 io.start_log(job.log)
-pipeline.build_keldysh_table(job.one("output", "table"))
+io.save_arrays(keldysh.build_table().to_arrays(), job.one("output", "table"))
 io.end_job()  # last statement: skips the interpreter teardown (see io.end_job)

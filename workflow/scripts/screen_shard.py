@@ -15,13 +15,13 @@ table = job.one("input", "table")
 # records the import stage wrote for this shard (rule import_calculations), beside the campaign's own
 imported = [str(Path(folder) / row[0]) for folder in job.input.get("imported", [])
             for row in io.campaign_listing(Path(folder).parent, "entries")]
-pipeline.run_shard(
+counts = pipeline.run_shard(
     entry_paths=pipeline.listed_paths(settings["campaign"], records, "entries") + imported,
     campaign=settings["campaign"],
     settings=settings["physics"],
     table_path=table,
     cache_dir=cache,
-    outputs={k: v for k, v in outputs.items() if k != "uncertainty"},
+    outputs={k: v for k, v in outputs.items() if k not in ("uncertainty", "counts")},
 )
 pipeline.run_propagation(
     entries_path=outputs["entries"],
@@ -31,4 +31,5 @@ pipeline.run_propagation(
     cache_dir=cache,
     output=outputs["uncertainty"],
 )
+io.write_json(counts, outputs["counts"])
 io.end_job()  # last statement: skips the interpreter teardown (see io.end_job)

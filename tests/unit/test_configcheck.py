@@ -1,0 +1,53 @@
+"""Start-up cross checks of the config (flakelight.configcheck): every message names its key path."""
+
+from __future__ import annotations
+
+import copy
+from pathlib import Path
+
+import pytest
+import yaml
+
+from flakelight.configcheck import cross_problems
+
+CONFIG = yaml.safe_load((Path(__file__).resolve().parents[2] / "config" / "config.yaml").read_text())
+
+
+def changed(**edits) -> dict:
+    config = copy.deepcopy(CONFIG)
+    for path, value in edits.items():
+        *parents, key = path.split("__")
+        node = config
+        for p in parents:
+            node = node[int(p)] if isinstance(node, list) else node[p]
+        node[int(key) if isinstance(node, list) else key] = value
+    return config
+
+
+def test_the_shipped_config_passes():
+    assert cross_problems(CONFIG) == []
+
+
+@pytest.mark.parametrize("edits, key_path", [
+    ({"ranking__environment": "vacuum"}, "ranking.environment"),
+    ({"ranking__target_layers": 7}, "ranking.target_layers"),
+    ({"layers__max_layers": 2, "ranking__target_layers": 3}, "ranking.target_layers"),
+    ({"ranking__window_nm": [1000, 550]}, "ranking.window_nm"),
+    ({"ranking__weights": {"binding": 0, "margin": 0, "window": 0}}, "ranking.weights"),
+    ({"ranking__order_by": "probability", "uncertainty__samples": 0}, "ranking.order_by"),
+    ({"emission_bands__1__min_nm": 2000}, "emission_bands[1].min_nm"),
+    ({"emission_bands__2__name": "visible"}, "emission_bands[2].name"),
+])
+def test_each_cross_reference_is_checked_with_its_key_path(edits, key_path):
+    problems = cross_problems(changed(**edits))
+    assert len(problems) == 1, problems
+    assert problems[0].startswith(key_path + ":"), problems
+
+
+def test_every_problem_is_reported_at_once():
+    problems = cross_problems(changed(ranking__environment="vacuum", ranking__target_layers=9))
+    assert [p.split(":")[0] for p in problems] == ["ranking.environment", "ranking.target_layers"]
+
+
+def test_target_layers_equal_to_max_layers_is_fine():
+    assert cross_problems(changed(ranking__target_layers=CONFIG["layers"]["max_layers"])) == []
