@@ -47,6 +47,29 @@ def _tensor_crystal(eps_par: float, eps_perp: float, tilt_deg: float) -> tuple[l
     return [[_round(v) for v in row] for row in eps], [_round(v, 6) for v in n]
 
 
+def _crystal_frame_samples(samples: dict, normal: list, m: float, m_perp: float) -> dict:
+    """Band samples on a 3x3x3 grid around the extremum, in the crystal frame of a tilted normal.
+
+    Layer-frame k (in-plane +-0.04, along the normal +-0.03 1/A) with E = E0 + hbar^2/(2 m_e)
+    (k_par^2 / m + k_n^2 / m_perp), written as crystal-frame vectors k_par1 e1 + k_par2 e2 + k_n n.
+    The screen must rotate them back into the layer frame before fitting.
+    """
+    n = np.asarray(normal, dtype=float)
+    n /= np.linalg.norm(n)
+    e1 = np.array([1.0, 0.0, 0.0]) - n[0] * n
+    e1 /= np.linalg.norm(e1)
+    e2 = np.cross(n, e1)
+    hb = sc.hbar**2 / (2 * sc.m_e) / sc.electron_volt / sc.angstrom**2  # hbar^2/2m_e, eV A^2
+    e0 = min(samples["energy_ev"])
+    ks, es = [], []
+    for a in (-0.04, 0.0, 0.04):
+        for b in (-0.04, 0.0, 0.04):
+            for c in (-0.03, 0.0, 0.03):
+                ks.append([_round(v, 7) for v in a * e1 + b * e2 + c * n])
+                es.append(_round(e0 + hb * ((a * a + b * b) / m + c * c / m_perp), 7))
+    return {"k_per_angstrom": ks, "energy_ev": es, "extremum_at_origin": True}
+
+
 def make_record(rng: np.random.Generator, ident: str, with_cif: bool) -> dict:
     eps_par = rng.uniform(5.0, 17.0)
     eps_perp = rng.uniform(2.5, min(eps_par, 9.0))
@@ -99,7 +122,7 @@ def make_record(rng: np.random.Generator, ident: str, with_cif: bool) -> dict:
         ks = [[kx, ky] for kx in (-0.04, 0.0, 0.04) for ky in (-0.04, 0.0, 0.04)]
         e0 = valleys[2]["edge_ev"]["1"]
         hb = sc.hbar**2 / (2 * sc.m_e) / sc.electron_volt / sc.angstrom**2  # hbar^2/2m_e, eV A^2
-        valleys[2].pop("mass")
+        m_perp = valleys[2].pop("mass")["perpendicular_me"]
         valleys[2]["band_samples"] = {
             "k_per_angstrom": ks,
             "energy_ev": [_round(e0 + hb * (kx * kx + ky * ky) / m, 7) for kx, ky in ks],
@@ -122,6 +145,8 @@ def make_record(rng: np.random.Generator, ident: str, with_cif: bool) -> dict:
         eps, normal = _tensor_crystal(eps_par, eps_perp, tilt)
         record["dielectric"] = {"frame": "crystal", "normal": normal, "electronic": eps,
                                 "relative_uncertainty": 0.1}
+        if "band_samples" in valleys[2]:
+            valleys[2]["band_samples"] = _crystal_frame_samples(valleys[2]["band_samples"], normal, me_k, m_perp)
     else:
         record["dielectric"] = {"frame": "layer",
                                 "electronic": _tensor_layer(eps_par, eps_perp, rng.uniform(0, 0.2)),

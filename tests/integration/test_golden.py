@@ -40,6 +40,8 @@ import make_golden  # noqa: E402
 ROWS = "(rows)"
 
 #: Named differences from the reference: (output, column or ROWS, entry_id or "*") -> reason.
+_FRAME_FIX = ("issue 17 item 6: 2-component band samples with a layer normal off z (demo lumen-0034, "
+              "lumen-0047 in the golden inputs) are now rejected instead of being fitted in the wrong plane")
 EXPECTED_CHANGES: dict[tuple[str, str, str], str] = {
     ("tables/entries.parquet", "edge_eps_top", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
     ("tables/entries.parquet", "edge_eps_bottom", "*"): "new record field (issue 17): band-edge surroundings or gap temperature dependence",
@@ -56,6 +58,16 @@ EXPECTED_CHANGES: dict[tuple[str, str, str], str] = {
     ("tables/entries.parquet", "source_hashes", "*"):
         "added (issue 15): files an imported record was generated from; empty for hand-written records",
 }
+EXPECTED_CHANGES.update({
+    (out, ROWS, "*"): _FRAME_FIX
+    for out in ("tables/entries.parquet", "tables/valleys.parquet", "tables/rejects.parquet",
+                "tables/screen_long.parquet", "tables/screen_wide.parquet", "tables/rejects.csv")
+})
+EXPECTED_CHANGES[("tables/screen_wide.parquet", "rank", "*")] = _FRAME_FIX + "; lower ranks move up"
+_BULK_3D = ("issue 17 item 3: bulk rows get the 3D Saha bound fraction at a volume density in a column of its "
+            "own; the 2D bound fraction is for layer rows only")
+EXPECTED_CHANGES[("tables/screen_long.parquet", "bound_fraction", "*")] = _BULK_3D
+EXPECTED_CHANGES[("tables/screen_long.parquet", "bound_fraction_3d", "*")] = _BULK_3D
 
 #: Stamps that legitimately change with any code or settings edit (never compared by value;
 #: their presence and dtype still are).

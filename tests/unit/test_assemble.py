@@ -14,7 +14,7 @@ from scipy import constants as sc
 
 from flakelight import assemble, io, ranking
 
-SETTINGS = {"survival": {"temperature_k": 77.0, "pair_density_per_cm2": 1e12, "wannier_ratio": 2.0}}
+SETTINGS = {"survival": {"temperature_k": 77.0, "pair_density_per_cm2": 1e12, "pair_density_per_cm3": 1e17, "wannier_ratio": 2.0}}
 REPO = Path(__file__).resolve().parents[2]
 
 

@@ -203,7 +203,7 @@ def test_structure_supplies_geometry_and_flags_non_layered(tmp_path, record, tab
 UNC_SETTINGS = {
     "uncertainty": {"samples": 64, "seed": 3, "default_mass_rel": 0.15, "default_eps_rel": 0.1,
                     "default_edge_ev": 0.05, "default_r0_rel": 0.2, "default_scissor_ev": 0.1},
-    "survival": {"temperature_k": 300.0, "pair_density_per_cm2": 1e12, "wannier_ratio": 2.0},
+    "survival": {"temperature_k": 300.0, "pair_density_per_cm2": 1e12, "pair_density_per_cm3": 1e17, "wannier_ratio": 2.0},
     "ranking": {"environment": "suspended", "target_layers": 1, "require_direct": True, "min_direct_margin_ev": 0.0,
                 "min_binding_over_kt": 1.0, "window_nm": [400, 1600],
                 "weights": {"binding": 0.4, "margin": 0.3, "window": 0.3}, "shortlist_size": 5, "order_by": "score"},

@@ -10,7 +10,7 @@ from scipy import constants as sc
 from flakelight import ranking
 
 SETTINGS = {
-    "survival": {"temperature_k": 300.0, "pair_density_per_cm2": 1e12, "wannier_ratio": 2.0},
+    "survival": {"temperature_k": 300.0, "pair_density_per_cm2": 1e12, "pair_density_per_cm3": 1e17, "wannier_ratio": 2.0},
     "environments": {"hbn": {"top": 4.5, "bottom": 4.5}},
     "ranking": {"environment": "hbn", "target_layers": 1, "require_direct": True, "min_direct_margin_ev": 0.05,
                 "min_binding_over_kt": 3.0, "window_nm": [600, 900],

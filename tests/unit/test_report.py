@@ -359,6 +359,8 @@ INTENDED_CHANGES = (
     ("on_silica", "on silica"),  # display names of the surroundings instead of config keys
     ("Large dots meet every criterion", "Large ringed dots meet every criterion"),  # candidates by outline
     ("Filled dots are candidates", "Ringed dots are candidates"),
+    # bulk rows use a volume pair density (issue 17, 3D Saha bound fraction)
+    ("1e+12 cm\u207b\u00b2 Surroundings", "1e+12 cm\u207b\u00b2 (layers), 1e+17 cm\u207b\u00b3 (bulk) Surroundings"),
     (" Overview All compounds", " Overview Recompute next All compounds"),  # link to the added section
 )
 #: Sections added on purpose since commit ba2d14c.

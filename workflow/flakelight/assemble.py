@@ -59,7 +59,8 @@ def with_survival(part, lookup, settings: Mapping):
     rows = pc.index_in(part.column("entry_id").cast(pa.large_string()), value_set=ids)
     columns = survival.survival_columns(
         *(_float_column(part, c) for c in ("binding_ev", "mu_inplane_me", "radius_angstrom")),
-        pc.take(lattice, rows).to_numpy(zero_copy_only=False), settings)
+        pc.take(lattice, rows).to_numpy(zero_copy_only=False), settings,
+        part.column("layers").to_numpy(zero_copy_only=False))
     for name, values in columns.items():
         part = part.append_column(name, pa.array(values))
     return part

@@ -9,6 +9,8 @@ Radius convention (used consistently in this module): a "Bohr radius" or
 psi ~ exp(-r / a). Hence a_3D = a0 eps / mu, a_2D = a_3D / 2 (psi_2D ~
 exp(-2 r / a_3D)), and in D = alpha dimensions a_alpha = a_3D (alpha - 1) / 2.
 The root-mean-square radius is sqrt(3) a_3D in 3D and sqrt(3/8) a_3D in 2D.
+:func:`bulk_exciton` also gives the *in-plane rms radius* sqrt(<x^2 + y^2>),
+the convention shared with the Rytova-Keldysh radius of the layers.
 """
 
 from __future__ import annotations
@@ -32,6 +34,8 @@ __all__ = [
     "binding_fractional_ev",
     "bohr_radius_fractional_angstrom",
     "fractional_dimension_from_thickness",
+    "BulkExciton",
+    "bulk_exciton",
 ]
 
 
@@ -491,3 +495,95 @@ def fractional_dimension_from_thickness(thickness_angstrom, radius_3d_angstrom):
     L = np.asarray(thickness_angstrom, dtype=float)
     a = np.asarray(radius_3d_angstrom, dtype=float)
     return 3.0 - np.exp(-L / (2.0 * a))
+
+
+class BulkExciton(NamedTuple):
+    """The bulk exciton of the model that gives its binding (arrays over compounds).
+
+    Attributes
+    ----------
+    model : numpy.ndarray of str
+        ``"3d-anisotropic"`` (variational uniaxial model, when an out-of-plane
+        reduced mass is known) or ``"3d-hydrogenic"`` (isotropic, constant
+        sqrt(eps_par eps_perp), in-plane mass).
+    binding_1s_ev, binding_2s_ev, binding_3s_ev : numpy.ndarray
+        Binding energies in eV. 2s and 3s follow the 1s of the same model as
+        the hydrogenic series scaled to it, E_ns = E_1s / n^2: exact for the
+        isotropic model; for the uniaxial model within 5 % of a numerical
+        solution for anisotropy parameters 0.5 <= gamma <= 3, and an
+        underestimate of the first excited level for strongly layered
+        crystals (about 12 % at gamma = 0.2; tested in
+        tests/unit/test_hydrogenic.py).
+    decay_inplane_angstrom, decay_normal_angstrom : numpy.ndarray
+        1s decay lengths in the plane and along the normal, Angstrom.
+    rms_radius_inplane_angstrom : numpy.ndarray
+        In-plane rms radius sqrt(<x^2 + y^2>) = sqrt(2) x in-plane decay
+        length (the 1s envelope exp(-sqrt(rho^2/a^2 + z^2/b^2)) has
+        <x^2> = <y^2> = a^2), Angstrom: the same convention as the
+        Rytova-Keldysh radius of the layers.
+    mott_radius_angstrom : numpy.ndarray
+        Geometric mean of the decay lengths, (a^2 b)^(1/3), Angstrom: the
+        Bohr radius to use in the 3D Mott criterion
+        (:func:`flakelight.survival.mott_density_3d_per_cm3`).
+    """
+
+    model: np.ndarray
+    binding_1s_ev: np.ndarray
+    binding_2s_ev: np.ndarray
+    binding_3s_ev: np.ndarray
+    decay_inplane_angstrom: np.ndarray
+    decay_normal_angstrom: np.ndarray
+    rms_radius_inplane_angstrom: np.ndarray
+    mott_radius_angstrom: np.ndarray
+
+
+def bulk_exciton(mu_par_me, mu_perp_me, eps_par, eps_perp):
+    """The bulk (3D) exciton: binding of 1s-3s and radii of one model per compound.
+
+    Where the out-of-plane reduced mass is finite and positive, the
+    variational uniaxial model (:func:`binding_3d_anisotropic`) gives the
+    binding and the radii; elsewhere the isotropic hydrogenic model with
+    eps = sqrt(eps_par eps_perp) and the in-plane mass. Every radius and the
+    2s/3s levels come from the same model as the 1s binding (2s, 3s as
+    E_1s / n^2, see :class:`BulkExciton`).
+
+    Parameters
+    ----------
+    mu_par_me : array_like
+        In-plane reduced mass (in-plane average for anisotropic bands), m_e.
+    mu_perp_me : array_like
+        Out-of-plane reduced mass, m_e; NaN when unknown.
+    eps_par, eps_perp : array_like
+        In-plane and out-of-plane dielectric constants.
+
+    Returns
+    -------
+    BulkExciton
+
+    References
+    ----------
+    Wannier, Phys. Rev. 52, 191 (1937); Kohn and Luttinger, Phys. Rev. 98,
+    915 (1955); R. A. Faulkner, Phys. Rev. 184, 713 (1969).
+    """
+    mu_par, mu_perp, e_par, e_perp = np.broadcast_arrays(
+        *(np.atleast_1d(np.asarray(v, dtype=float)) for v in (mu_par_me, mu_perp_me, eps_par, eps_perp)))
+    eps = np.sqrt(e_par * e_perp)
+    rydberg = effective_rydberg_ev(mu_par, eps)
+    a_iso = bohr_radius_3d_angstrom(mu_par, eps)
+    aniso = np.isfinite(mu_perp) & (mu_perp > 0) & np.isfinite(mu_par)
+    e1 = np.array(rydberg, dtype=float, copy=True)
+    a_in = np.array(a_iso, dtype=float, copy=True)
+    a_n = np.array(a_iso, dtype=float, copy=True)
+    if aniso.any():
+        r = binding_3d_anisotropic(mu_par[aniso], mu_perp[aniso], e_par[aniso], e_perp[aniso])
+        e1[aniso], a_in[aniso], a_n[aniso] = r.binding_ev, r.radius_a_angstrom, r.radius_b_angstrom
+    return BulkExciton(
+        model=np.where(aniso, "3d-anisotropic", "3d-hydrogenic").astype(object),
+        binding_1s_ev=e1,
+        binding_2s_ev=e1 / 4.0,
+        binding_3s_ev=e1 / 9.0,
+        decay_inplane_angstrom=a_in,
+        decay_normal_angstrom=a_n,
+        rms_radius_inplane_angstrom=np.sqrt(2.0) * a_in,
+        mott_radius_angstrom=np.cbrt(a_in * a_in * a_n),
+    )

@@ -75,8 +75,12 @@ def _tensor_columns(prefix: str, tensor: np.ndarray | None) -> dict:
     return {f"{prefix}_{name}": float(tensor[i, j]) for name, i, j in TENSOR_COMPONENTS}
 
 
-def _inverse_mass(valley: dict, path: str, warnings: list[str]) -> tuple[np.ndarray, dict]:
-    """In-plane inverse-mass tensor (1/m_e, carrier sign) and fit diagnostics."""
+def _inverse_mass(valley: dict, path: str, normal: np.ndarray, warnings: list[str]) -> tuple[np.ndarray, dict]:
+    """In-plane inverse-mass tensor (1/m_e, carrier sign, layer frame) and fit diagnostics.
+
+    Band samples are in the frame of ``dielectric.frame``; ``normal`` is the layer
+    normal in that frame, so the fit rotates them into the layer frame.
+    """
     if "mass" in valley:
         m = valley["mass"]
         if "isotropic_me" in m:
@@ -87,21 +91,23 @@ def _inverse_mass(valley: dict, path: str, warnings: list[str]) -> tuple[np.ndar
                 np.array([m1]), np.array([m2]), np.array([m.get("angle_deg", 0.0)]))[0]
         else:
             inv = masses.inverse_mass_tensor_2d_from_tensor(np.array([m["tensor_me"]], dtype=float))[0]
-        return inv, {"mass_source": "given", "mass_fit_rms_ev": math.nan, "mass_nonparabolic": False}
+        return inv, {"mass_source": "given", "mass_fit_rms_ev": math.nan, "mass_nonparabolic": False,
+                     "mass_perp_me": float(m.get("perpendicular_me", math.nan))}
     samples = valley["band_samples"]
     k = np.asarray(samples["k_per_angstrom"], dtype=float)
     e = np.asarray(samples["energy_ev"], dtype=float)
     try:
-        fit = bandfit.fit_effective_mass(k, e, valley["band"],
+        fit = bandfit.fit_effective_mass(k, e, valley["band"], layer_normal=normal,
                                          fix_k0=bool(samples.get("extremum_at_origin", False)))
     except bandfit.MassFitError as exc:
         raise Rejected([Problem(f"{path}.band_samples", f"mass fit failed: {exc}")]) from exc
+    warnings.extend(f"{path}.band_samples: {note}" for note in fit.warnings if note.startswith("out-of-plane"))
     if fit.nonparabolic:
         warnings.append(f"{path}: band samples show a notable non-parabolic (quartic) term; "
                         "the fitted mass describes the band bottom only")
     return np.asarray(fit.inverse_mass_tensor, dtype=float), {
         "mass_source": "fitted", "mass_fit_rms_ev": float(fit.rms_residual_ev),
-        "mass_nonparabolic": bool(fit.nonparabolic)}
+        "mass_nonparabolic": bool(fit.nonparabolic), "mass_perp_me": float(fit.perpendicular_mass_me)}
 
 
 def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: int,
@@ -205,7 +211,7 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
     valleys = []
     for i, valley in enumerate(record["valleys"]):
         path = f"valleys[{i}]"
-        inv, fit_info = _inverse_mass(valley, path, warnings)
+        inv, fit_info = _inverse_mass(valley, path, normal, warnings)
         mass = valley.get("mass", {})
         ignored = [k for k in valley["edge_ev"] if k != "bulk" and int(k) > max_layers]
         if ignored:
@@ -219,7 +225,6 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
             **{edge_column(n): float(valley["edge_ev"].get(str(n), math.nan)) for n in range(1, max_layers + 1)},
             edge_column(0): float(valley["edge_ev"]["bulk"]),
             "inv_mass_xx": float(inv[0, 0]), "inv_mass_xy": float(inv[0, 1]), "inv_mass_yy": float(inv[1, 1]),
-            "mass_perp_me": float(mass.get("perpendicular_me", math.nan)),
             **fit_info,
             "mass_rel_unc": float(mass.get("relative_uncertainty", math.nan)),
             "edge_unc_ev": float(valley.get("edge_uncertainty_ev", math.nan)),

@@ -33,11 +33,11 @@ MARGIN_FULL_EV = 0.2
 
 
 def add_survival(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping) -> pd.DataFrame:
-    """Add binding/kT, the 2D Saha bound fraction, survival and Wannier flags to the long table."""
+    """Add binding/kT, the Saha bound fractions (2D layers, 3D bulk), survival and Wannier flags to the long table."""
     lattice = long["entry_id"].map(wide.set_index("entry_id")["lattice_angstrom"]).to_numpy(dtype=float)
     out = long.copy()
     for name, values in survival.survival_columns(long["binding_ev"], long["mu_inplane_me"], long["radius_angstrom"],
-                                         lattice, settings).items():
+                                                  lattice, settings, long["layers"].to_numpy()).items():
         out[name] = values
     return out
 

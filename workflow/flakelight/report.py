@@ -462,7 +462,9 @@ def _overview(ranked, rejects, manifest, settings) -> dict:
             ("Emission window", f"{lo:g}\u2013{hi:g} nm"),
             ("Score weights", ", ".join(f"{k} {float(v):g}" for k, v in r.get("weights", {}).items())),
             ("Order", "by " + str(r.get("order_by", "score"))),
-            ("Pair density for bound fraction", f"{_num(surv.get('pair_density_per_cm2')):.3g} cm\u207b\u00b2"),
+            ("Pair density for bound fraction",
+             f"{_num(surv.get('pair_density_per_cm2')):.3g} cm\u207b\u00b2 (layers), "
+             f"{_num(surv.get('pair_density_per_cm3')):.3g} cm\u207b\u00b3 (bulk)"),
             ("Surroundings screened", ", ".join(_env_with_constants(name, settings)
                                                 for name in settings.get("environments", {}))),
         ],

@@ -29,6 +29,9 @@ HBAR2_OVER_2ME_EV_A2: float = _c.hbar**2 / (2.0 * _c.m_e) / _c.electron_volt / _
 #: Conversion factor from cm^-2 to Angstrom^-2.
 PER_CM2_TO_PER_ANGSTROM2: float = (_c.angstrom / _c.centi) ** 2
 
+#: Conversion factor from cm^-3 to Angstrom^-3.
+PER_CM3_TO_PER_ANGSTROM3: float = (_c.angstrom / _c.centi) ** 3
+
 
 def thermal_energy_ev(temperature_k):
     """Thermal energy k_B T in eV for a temperature in kelvin (scalar or array)."""
