@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 import operator
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -19,7 +20,7 @@ import pandas as pd
 
 from typing import TYPE_CHECKING
 
-from flakelight import bandfit, dielectric, masses
+from flakelight import bandfit, dielectric, masses, tables
 from flakelight.contract import Problem
 
 if TYPE_CHECKING:  # pymatgen is imported only when a structure is analysed
@@ -319,8 +320,16 @@ def layer_gap_problems(valleys: list[dict], *, max_layers: int, fit_exponent: bo
     counts = [*range(1, max_layers + 1), layer_model.BULK]
     edges = np.array([[v[edge_column(n)] for n in counts] for v in valleys], dtype=float)
     filled = layer_model.fill_edges(edges, np.array(counts), fit_exponent=fit_exponent).filled_ev
-    _, codes = np.unique([v["label"] for v in valleys], return_inverse=True)
     is_cond = np.array([v["band"] == "conduction" for v in valleys])
+    # CBM - VBM at every layer count, as gap_character computes it (absent edges ignored);
+    # only a record where it is not positive somewhere needs the full analysis below.
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # a layer count without any edge of a band
+        vbm = np.nanmax(np.where(is_cond[:, None], np.nan, filled), axis=0)
+        cbm = np.nanmin(np.where(is_cond[:, None], filled + scissor_ev, np.nan), axis=0)
+    if not np.any(cbm - vbm <= 0):
+        return []
+    _, codes = np.unique([v["label"] for v in valleys], return_inverse=True)
     gaps = layer_model.gap_character(np.zeros(len(valleys), dtype=int), codes, is_cond, filled,
                                      scissor_ev=[scissor_ev], n_compounds=1)
     out = []
@@ -373,20 +382,8 @@ def valley_columns(max_layers: int) -> list[str]:
             "edge_spin"]
 
 
-#: Columns of the entry and valley tables that hold text or flags (the rest are float64).
-STRING_COLUMNS = {
-    "entry_id", "source_file", "input_hash", "formula", "provenance", "energy_reference", "structure_file",
-    "structure_hash", "source_hashes", "dielectric_frame", "normal_source", "spacing_source", "lattice_source",
-    "r0_source", "warnings", "label", "band", "mass_source", "physics_hash", "code_version", "edge_method",
-    "gap_t_form",
-}
-BOOLEAN_COLUMNS = {"is_layered_structure", "mass_nonparabolic"}
-INTEGER_COLUMNS = {"valley_index", "edge_spin"}
-
-
 def typed_frame(rows: list[dict], columns: list[str]) -> pd.DataFrame:
     """Rows as a DataFrame with a fixed type per column, also when there are no rows."""
     frame = pd.DataFrame(rows, columns=columns)
-    types = {c: ("str" if c in STRING_COLUMNS else "boolean" if c in BOOLEAN_COLUMNS
-                 else "int64" if c in INTEGER_COLUMNS else "float64") for c in columns}
+    types = {c: tables.pandas_dtype(c) for c in columns}  # declared once, in flakelight.tables
     return frame.astype(types)

@@ -41,3 +41,14 @@ def thermal_energy_ev(temperature_k):
 def wavelength_nm_from_energy_ev(energy_ev):
     """Vacuum photon wavelength in nm for a photon energy in eV (scalar or array)."""
     return HC_EV_NM / energy_ev
+
+
+#: Electron rest energy m_e c^2 in eV (CODATA).
+ELECTRON_REST_ENERGY_EV: float = _c.physical_constants["electron mass energy equivalent in MeV"][0] * 1.0e6
+
+#: e^2 / (2 eps0 c m_e) in m^2/s: radiative rate per oscillator strength per area of a
+#: sheet of dipoles in vacuum (SI, CODATA).
+SHEET_RADIATIVE_RATE_M2_PER_S: float = _c.e**2 / (2.0 * _c.epsilon_0 * _c.c * _c.m_e)
+
+#: Conversion factor from Angstrom^-2 to m^-2.
+PER_ANGSTROM2_TO_PER_M2: float = 1.0 / _c.angstrom**2
