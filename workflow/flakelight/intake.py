@@ -66,8 +66,7 @@ def check_and_normalise(raw, *, stem: str, source: str, input_hash: str, cif_byt
                                 max_layers=settings["layers"]["max_layers"], geometry=geometry,
                                 structure_hash=cif_hash or None,
                                 non_layered=settings["structure"]["non_layered"],
-                                reconcile_rel_tol=settings["structure"]["reconcile_rel_tol"],
-                                fit_exponent=bool(settings["layers"]["fit_exponent"]))
+                                reconcile_rel_tol=settings["structure"]["reconcile_rel_tol"])
     except ingest.Rejected as exc:
         return Outcome(problems=exc.problems, stage="normalise")
     return Outcome(entry=norm.entry, valleys=norm.valleys)

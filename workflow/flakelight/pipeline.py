@@ -167,6 +167,11 @@ def screen_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, t
         new_entries.append({**outcome.entry, **stamps})
         new_valleys.extend({**v, **stamps} for v in outcome.valleys)
 
+    new_entries, new_valleys, gapless = ingest.without_gapless(
+        new_entries, new_valleys, max_layers=max_layers, fit_exponent=bool(settings["layers"]["fit_exponent"]))
+    for entry, problems in gapless:
+        reject_rows += _reject_rows(entry["entry_id"], entry["source_file"], problems, "normalise",
+                                    entry["input_hash"], stamps)
     entries_new = ingest.typed_frame(new_entries, ingest.ENTRY_COLUMNS + list(stamps))
     valleys_new = ingest.typed_frame(new_valleys, ingest.valley_columns(max_layers) + list(stamps))
     long_new, wide_new = screen.screen_entries(entries_new, valleys_new, settings, _keldysh_table(table))
