@@ -31,6 +31,14 @@ if total["screened"] == 0:
     sys.exit(1)
 target = job.one("output", "counts")
 os.makedirs(os.path.dirname(target) or ".", exist_ok=True)
+# A job killed while writing leaves its temporary file; the re-run clears it
+# (the same rule as flakelight.io's atomic writers).
+for name in os.listdir(os.path.dirname(target) or "."):
+    if name.startswith(".screen_counts.") and name.endswith(".part"):
+        try:
+            os.unlink(os.path.join(os.path.dirname(target) or ".", name))
+        except OSError:
+            pass
 fd, tmp = tempfile.mkstemp(prefix=".screen_counts.", suffix=".part", dir=os.path.dirname(target) or ".")
 with os.fdopen(fd, "w", encoding="utf-8") as fh:
     json.dump(total, fh, indent=2, sort_keys=True)
