@@ -92,7 +92,7 @@ def test_corpus_is_large_enough():
 
 
 SETTINGS = yaml.safe_load((REPO / "config" / "config.yaml").read_text())
-PHYSICS = {k: SETTINGS[k] for k in ("layers", "structure", "environments", "monolayer", "emission_bands")}
+PHYSICS = {k: SETTINGS[k] for k in ("layers", "structure", "environments", "monolayer", "excitons", "emission_bands")}
 
 
 def _valid_campaign(folder: Path) -> list[str]:
