@@ -59,23 +59,13 @@ t0 = time.perf_counter()
 io.save_arrays(keldysh.build_table().to_arrays(), work / "keldysh_table.npz")
 t1 = time.perf_counter()
 keys = ("layers", "structure", "environments", "monolayer", "emission_bands")
-shard = {n: str(work / "shard" / f"{n}.parquet") for n in pipeline.SHARD_TABLES}
-pipeline.run_shard(entries, cfg["campaign"], {k: cfg[k] for k in keys}, str(work / "keldysh_table.npz"),
-                   str(work / "cache"), shard)
+ukeys = ("uncertainty", "survival", "ranking", "layers", "monolayer", "environments")
+shard = {n: str(work / "shard" / f"{n}.parquet") for n in pipeline.SHARD_TABLES + ("uncertainty",)}
+counts = pipeline.run_shard_job(entries, cfg["campaign"], {k: cfg[k] for k in keys}, {k: cfg[k] for k in ukeys},
+                                str(work / "keldysh_table.npz"), str(work / "cache"), shard)
 t2 = time.perf_counter()
-inputs = {"entries": [shard["entries"]], "valleys": [shard["valleys"]], "rejects": [shard["rejects"]],
-          "long": [shard["long"]], "wide": [shard["wide"]]}
-t_unc = 0.0
-if sys.argv[4] == "with-uncertainty":  # the rank rule takes the Monte Carlo table as input
-    from flakelight import keldysh, uncertainty
-    t = time.perf_counter()
-    ukeys = ("uncertainty", "survival", "ranking", "layers", "monolayer", "environments")
-    table = keldysh.KeldyshTable.from_arrays(io.load_arrays(str(work / "keldysh_table.npz")))
-    frame = uncertainty.propagate_uncertainty(io.read_parquet(shard["entries"]), io.read_parquet(shard["valleys"]),
-                                              {k: cfg[k] for k in ukeys}, table)
-    io.write_parquet(frame, str(work / "uncertainty.parquet"))
-    inputs["uncertainty"] = [str(work / "uncertainty.parquet")]
-    t_unc = time.perf_counter() - t
+inputs = {name: [shard[name]] for name in shard}
+t_unc = 0.0  # the propagation runs inside the shard job (counted in shard_s)
 t2b = time.perf_counter()
 outputs = {n: str(work / "tables" / f"{n}.parquet") for n in ("rejects", "wide")}
 outputs.update(rejects_csv=str(work / "tables" / "rejects.csv"), shortlist=str(work / "shortlist.csv"))
@@ -83,7 +73,7 @@ pipeline.run_rank(inputs, outputs, {k: cfg[k] for k in ("survival", "ranking", "
                   io.canonical_json_hash(cfg)[:16])
 from flakelight import assemble
 assemble.run_join(inputs, {n: str(work / "tables" / f"{n}.parquet") for n in ("long", "entries", "valleys")},
-                  {"survival": cfg["survival"]}, io.canonical_json_hash(cfg)[:16])
+                  io.canonical_json_hash(cfg)[:16])
 t3 = time.perf_counter()
 print(json.dumps({"table_s": t1 - t0, "shard_s": t2 - t1, "uncertainty_s": t_unc, "rank_s": t3 - t2b}))
 """

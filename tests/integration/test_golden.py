@@ -114,6 +114,10 @@ def _differences(output: str, old: pd.DataFrame, new: pd.DataFrame) -> list[str]
         if not _allowed(output, col)[0]:
             side = "added" if col in new.columns else "removed"
             problems.append(f"{output}: column {col!r} {side}")
+    common_old = [c for c in old.columns if c in new.columns]
+    common_new = [c for c in new.columns if c in old.columns]
+    if common_old != common_new:
+        problems.append(f"{output}: column order changed")
     old, new = _sorted(old), _sorted(new)
     keys = [k for k in KEYS if k in old.columns and k in new.columns]
     if (output, ROWS, "*") in EXPECTED_CHANGES:
@@ -171,4 +175,23 @@ def test_comparison_detects_a_changed_value():
     assert _differences("tables/screen_long.parquet", old, moved)
     assert _differences("tables/screen_long.parquet", old, old.assign(layers=[1, 1]))
     assert _differences("tables/screen_long.parquet", old, old.assign(extra=1.0))
+    assert _differences("tables/screen_long.parquet", old, old[["entry_id", "layers", "binding_ev"]])
     assert not _differences("tables/screen_long.parquet", old, old.assign(binding_ev=[0.1, 0.2 * (1 + 1e-13)]))
+
+
+@pytest.mark.slow
+def test_every_written_column_has_unit_and_description(golden_run):
+    """Every field of every Parquet table the run wrote carries a unit and a description."""
+    import pyarrow.parquet as pq
+
+    _, results = golden_run
+    missing = []
+    for path in sorted(results.glob("**/*.parquet")):
+        if "cache" in path.relative_to(results).parts:
+            continue
+        for field in pq.read_schema(path):
+            meta = field.metadata or {}
+            if not meta.get(b"unit") or not meta.get(b"description"):
+                missing.append(f"{path.relative_to(results)}: {field.name}")
+    assert not missing, "columns without unit or description (declare them in flakelight.tables):\n" + \
+        "\n".join(missing)

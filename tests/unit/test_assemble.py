@@ -8,7 +8,6 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-import pyarrow as pa
 import pytest
 from scipy import constants as sc
 
@@ -33,33 +32,38 @@ def shard_tables(ids, lattice, seed):
 @pytest.fixture
 def shards(tmp_path):
     parts = [shard_tables(["a", "c"], [3.2, 3.6], 1), shard_tables(["b"], [4.0], 2)]
-    empty_long = parts[0][0].iloc[:0]
-    empty_wide = parts[0][1].iloc[:0]
-    parts.append((empty_long, empty_wide))  # a shard whose every record was rejected
+    parts.append((parts[0][0].iloc[:0], parts[0][1].iloc[:0]))  # a shard whose every record was rejected
     paths = []
     for i, (long, wide) in enumerate(parts):
-        lp, wp = tmp_path / f"{i}_long.parquet", tmp_path / f"{i}_wide.parquet"
-        io.write_parquet(long, lp, units={"binding_ev": "eV"}, table_metadata={"generation": f"g{i}"})
-        io.write_parquet(wide, wp)
-        paths.append((str(lp), str(wp)))
+        lp = tmp_path / f"{i}_long.parquet"
+        # as the shard job writes it: survival columns included (ranking.add_survival)
+        io.write_parquet(ranking.add_survival(long, wide, SETTINGS), lp, table_metadata={"generation": f"g{i}"})
+        paths.append(str(lp))
     return parts, paths
 
 
-def test_join_equals_the_pandas_survival_step(shards, tmp_path):
-    # source: derived here -- the Arrow join must give exactly the rows and values of
-    # ranking.add_survival (the pandas route, checked against CODATA in test_ranking)
+def test_join_stacks_the_shard_rows(shards, tmp_path):
+    # source: derived here -- the Arrow join gives exactly the shards' rows, in shard order
     parts, paths = shards
     out = tmp_path / "long.parquet"
-    rows = assemble.run_join_long([p[0] for p in paths], [p[1] for p in paths], str(out), SETTINGS, "cfg123")
+    rows = assemble.run_join_long(paths, str(out), "cfg123")
     got = pd.read_parquet(out)
-    wide = pd.concat([w for _, w in parts[:2]], ignore_index=True)
-    want = ranking.add_survival(pd.concat([lg for lg, _ in parts[:2]], ignore_index=True), wide, SETTINGS)
+    want = pd.concat([ranking.add_survival(lg, w, SETTINGS) for lg, w in parts[:2]], ignore_index=True)
     want["config_hash"] = "cfg123"
     assert rows == len(want) == 18
     pd.testing.assert_frame_equal(got, want, check_exact=True, check_dtype=False)
+
+
+def test_survival_columns_of_the_long_table():
+    # source: E_b/kT with k and e from CODATA (scipy.constants); a NaN binding stays NaN
+    long, wide = shard_tables(["a", "c"], [3.2, 3.6], 1)
+    got = ranking.add_survival(long, wide, SETTINGS)
     assert got["binding_over_kt"].iloc[0] == pytest.approx(got["binding_ev"].iloc[0] / (sc.k * 77.0 / sc.e),
                                                          rel=1e-12)
     assert np.isnan(got["binding_over_kt"].iloc[1]) and not got["survives_kt"].iloc[1]
+    # computed once: a second call replaces the columns instead of adding more
+    again = ranking.add_survival(got, wide, {"survival": {**SETTINGS["survival"], "temperature_k": 300.0}})
+    assert list(again.columns) == list(got.columns) and (again["temperature_k"] == 300.0).all()
 
 
 def test_join_keeps_units_and_drops_shard_stamps(shards, tmp_path):
@@ -67,19 +71,18 @@ def test_join_keeps_units_and_drops_shard_stamps(shards, tmp_path):
     # does not carry one shard's cache generation)
     _, paths = shards
     out = tmp_path / "long.parquet"
-    assemble.run_join_long([p[0] for p in paths], [p[1] for p in paths], str(out), SETTINGS, "cfg123")
+    assemble.run_join_long(paths, str(out), "cfg123")
     units = io.parquet_units(out)
     assert units["binding_ev"] == "eV" and units["temperature_k"] == "K"
     meta = io.parquet_metadata(out)
     assert meta == {"config_hash": "cfg123"}
 
 
-def test_unknown_compound_gets_no_lattice(tmp_path):
+def test_unknown_compound_gets_no_lattice():
     # source: common practice (a missing lattice constant fails the Wannier check, never passes it)
-    long, wide = shard_tables(["a"], [3.2], 3)
-    part = assemble.with_survival(pa.Table.from_pandas(long, preserve_index=False),
-                                  assemble.lattice_lookup([]), SETTINGS)
-    assert not any(part.column("wannier_ok").to_pylist())
+    long, _ = shard_tables(["a"], [3.2], 3)
+    part = ranking.add_survival(long, pd.DataFrame({"entry_id": [], "lattice_angstrom": []}), SETTINGS)
+    assert not part["wannier_ok"].any()
 
 
 def test_join_module_imports_no_pandas():

@@ -5,6 +5,7 @@ File names are added by the shard job (see test_pipeline_rejects_name_file_and_f
 
 from __future__ import annotations
 
+import copy
 import json
 
 import pytest
@@ -179,12 +180,20 @@ def test_gate_agrees_on_types(checker, record, value):
 # Every layer count is checked in both bands (given, or filled by the layer model)
 # ---------------------------------------------------------------------------------------------
 
-def _normalize(record, max_layers=4):
+def _gap_check(*records, max_layers=4):
+    """(kept entry ids, {rejected id: problems}) of normalised records through ingest.without_gapless."""
     from flakelight import ingest
 
-    return ingest.normalize(record, source_file="fixture-a.json", input_hash="h", max_layers=max_layers,
-                            geometry=None, structure_hash=None, non_layered="warn", reconcile_rel_tol=0.05,
-                            fit_exponent=False)
+    entries, valleys = [], []
+    for rec in records:
+        norm = ingest.normalize(rec, source_file=f"{rec['id']}.json", input_hash="h", max_layers=max_layers,
+                                geometry=None, structure_hash=None, non_layered="warn", reconcile_rel_tol=0.05)
+        entries.append(norm.entry)
+        valleys.extend(norm.valleys)
+    kept, kept_valleys, rejected = ingest.without_gapless(entries, valleys, max_layers=max_layers,
+                                                          fit_exponent=False)
+    assert {v["entry_id"] for v in kept_valleys} == {e["entry_id"] for e in kept}
+    return [e["entry_id"] for e in kept], {e["entry_id"]: problems for e, problems in rejected}
 
 
 def _bilayer_edge(e1, e_bulk):
@@ -199,41 +208,41 @@ def _bilayer_edge(e1, e_bulk):
 
 @pytest.mark.parametrize("margin_ev, rejected", [(+0.005, False), (-0.005, True)])
 def test_edge_given_in_one_band_is_checked_against_the_modelled_other(record, margin_ev, rejected):
-    from flakelight import ingest
-
     # conduction minimum at N=2 from the fixture's valleys K (-4.1, -4.15) and Q (-3.8, -4.2),
     # plus its scissor 0.5 eV
     cbm2 = min(_bilayer_edge(-4.1, -4.15), _bilayer_edge(-3.8, -4.2)) + record["scissor_ev"]
+    other = copy.deepcopy(record)
+    other["id"] = "fixture-b"
     record["valleys"][0]["edge_ev"]["2"] = cbm2 - margin_ev
+    kept, rejected_ids = _gap_check(other, record)
     if not rejected:
-        assert _normalize(record).entry["entry_id"] == "fixture-a"
+        assert kept == ["fixture-b", "fixture-a"] and not rejected_ids
         return
-    with pytest.raises(ingest.Rejected) as err:
-        _normalize(record)
-    (problem,) = err.value.problems
+    assert kept == ["fixture-b"]
+    (problem,) = rejected_ids["fixture-a"]
     assert problem.field == "valleys[0].edge_ev.2"
     assert "no gap at 2 layers" in problem.reason and "from the layer model" in problem.reason
 
 
 def test_conduction_edge_below_the_valence_band_in_one_band_only(record):
-    from flakelight import ingest
-
     record["valleys"][3]["edge_ev"]["3"] = -7.0  # conduction Q at N=3 far below every valence edge
-    with pytest.raises(ingest.Rejected) as err:
-        _normalize(record)
-    assert [p.field for p in err.value.problems] == ["valleys[3].edge_ev.3"]
+    kept, rejected = _gap_check(record)
+    assert kept == [] and [p.field for p in rejected["fixture-a"]] == ["valleys[3].edge_ev.3"]
 
 
 def test_scissor_that_closes_the_gap_is_rejected_at_every_layer_count(record):
-    from flakelight import ingest
-
     record["scissor_ev"] = -2.0  # bulk: CBM -4.2 - 2.0 = -6.2 eV below VBM -5.6 eV
-    with pytest.raises(ingest.Rejected) as err:
-        _normalize(record, max_layers=3)
-    assert [p.field.rsplit(".", 1)[1] for p in err.value.problems] == ["1", "2", "3", "bulk"]
-    assert all("scissor" in p.reason for p in err.value.problems)
+    _, rejected = _gap_check(record, max_layers=3)
+    problems = rejected["fixture-a"]
+    assert [p.field.rsplit(".", 1)[1] for p in problems] == ["1", "2", "3", "bulk"]
+    assert all("scissor" in p.reason for p in problems)
 
 
 def test_layer_counts_beyond_max_layers_are_not_checked(record):
+    from flakelight import ingest
+
     record["valleys"][0]["edge_ev"]["9"] = 0.0  # ignored (with a warning) when max_layers = 4
-    assert "exceed max_layers" in _normalize(record).entry["warnings"]
+    assert _gap_check(record) == (["fixture-a"], {})
+    norm = ingest.normalize(record, source_file="a.json", input_hash="h", max_layers=4, geometry=None,
+                            structure_hash=None, non_layered="warn", reconcile_rel_tol=0.05)
+    assert "exceed max_layers" in norm.entry["warnings"]

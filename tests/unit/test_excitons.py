@@ -181,8 +181,7 @@ def test_record_fields_reach_the_valley_table(record):
     record["gap_temperature"] = {"form": "varshni", "alpha_ev_per_k": 4e-4, "beta_k": 200.0}
     record["band_edge_origin"] = {"eps_top": 1.0, "eps_bottom": 3.9, "method": "gw"}
     norm = ingest.normalize(record, source_file="x.json", input_hash="h", max_layers=3, geometry=None,
-                            structure_hash=None, non_layered="warn", reconcile_rel_tol=0.05,
-                            fit_exponent=False)
+                            structure_hash=None, non_layered="warn", reconcile_rel_tol=0.05)
     valleys = ingest.typed_frame(norm.valleys, ingest.valley_columns(3))
     assert valleys["edge_spin"].tolist() == [0, 0, -1, 0]
     assert valleys["degeneracy"].tolist() == [2.0, 1.0, 2.0, 1.0]

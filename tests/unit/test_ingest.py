@@ -36,7 +36,7 @@ def _samples_normal_along_y():
 
 def _normalize(record):
     return ingest.normalize(record, source_file="x.json", input_hash="h", max_layers=6, geometry=None,
-                            structure_hash=None, non_layered="warn", reconcile_rel_tol=0.05, fit_exponent=False)
+                            structure_hash=None, non_layered="warn", reconcile_rel_tol=0.05)
 
 
 def _crystal_frame(record, normal):

@@ -207,3 +207,74 @@ def test_campaign_file_digest(tmp_path):
         "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad", None)
     digest, reason = io.campaign_file_digest(tmp_path / "a.JSON", "entries")
     assert digest is None and "case-sensitive" in reason
+
+
+# ---------------------------------------------------------------------------------------------
+# Properties (hypothesis): the reader never raises, and what it returns is always storable
+# ---------------------------------------------------------------------------------------------
+
+from hypothesis import HealthCheck, given, settings, strategies as st  # noqa: E402
+
+_TEXT = st.text(st.one_of(st.characters(), st.characters(min_codepoint=0xD800, max_codepoint=0xDFFF)),
+                max_size=8)
+_JSON = st.recursive(st.none() | st.booleans() | st.integers(-2**63, 2**63) | st.floats(allow_nan=False, allow_infinity=False)
+                     | _TEXT, lambda inner: st.lists(inner, max_size=4) | st.dictionaries(_TEXT, inner, max_size=4),
+                     max_leaves=12)
+
+
+def _has_surrogate(obj) -> bool:
+    if isinstance(obj, str):
+        return any(0xD800 <= ord(c) <= 0xDFFF for c in obj)
+    if isinstance(obj, dict):
+        return any(_has_surrogate(k) or _has_surrogate(v) for k, v in obj.items())
+    if isinstance(obj, list):
+        return any(_has_surrogate(v) for v in obj)
+    return False
+
+
+def _storable(obj) -> bool:
+    try:
+        json.dumps(obj, ensure_ascii=False).encode("utf-8")
+    except UnicodeEncodeError:
+        return False
+    return True
+
+
+@settings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(obj=_JSON)
+def test_parsed_records_are_storable_or_rejected_with_a_path(tmp_path, obj):
+    path = tmp_path / "x.json"
+    path.write_text(json.dumps(obj))  # ASCII with \\u escapes, lone surrogates included
+    raw = io.read_record(path)
+    if not _has_surrogate(obj):
+        assert raw.error is None and raw.data == obj
+    elif raw.error is not None:
+        assert "surrogate" in raw.error and raw.error_field
+        raw.error_field.encode("utf-8")
+    else:  # only valid surrogate pairs, joined into characters by the parser
+        assert _storable(raw.data)
+
+
+@settings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(data=st.binary(max_size=600))
+def test_read_record_never_raises_on_bytes(tmp_path, data):
+    path = tmp_path / "x.json"
+    path.write_bytes(data)
+    raw = io.read_record(path)
+    if raw.error is None:
+        assert _storable(raw.data)
+    else:
+        raw.error.encode("utf-8")
+
+
+@pytest.mark.parametrize("kind, words", [("fifo", "named pipe"), ("link to /dev/zero", "is a device"),
+                                         ("directory", "is a directory")])
+def test_calculation_files_are_read_by_the_same_rules(tmp_path, kind, words):
+    from flakelight import calcio
+    from flakelight.calculations import ImportProblem
+
+    path = _special(tmp_path, kind)
+    for read in (lambda: calcio._load_json(path, "c/x.json"), lambda: calcio.planar_average(path, "c/x", [0, 0, 1])):
+        with no_hang(), pytest.raises(ImportProblem) as err:
+            read()
+        assert words in str(err.value.reason)

@@ -39,8 +39,7 @@ def frames(*records):
     entries, valleys = [], []
     for rec in records:
         norm = ingest.normalize(rec, source_file=f"{rec['id']}.json", input_hash="h" + rec["id"], max_layers=6,
-                                geometry=None, structure_hash=None, non_layered="warn", reconcile_rel_tol=0.05,
-                                fit_exponent=False)
+                                geometry=None, structure_hash=None, non_layered="warn", reconcile_rel_tol=0.05)
         entries.append(norm.entry)
         valleys.extend(norm.valleys)
     return (pd.DataFrame(entries, columns=ingest.ENTRY_COLUMNS),

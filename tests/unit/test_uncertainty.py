@@ -247,9 +247,17 @@ def test_criteria_agree_with_ranking(demo, settings, table, overrides):
     at = long[(long["layers"] == int(r["target_layers"])) & (long["environment"] == r["environment"])]
     at = at.set_index("entry_id").reindex(ranked["entry_id"])
     char = at["gap_character"].to_numpy(dtype=object)
-    got = U.criteria(char == "direct", np.isin(char, ["direct", "indirect"]),
-                     at["direct_margin_ev"].to_numpy(dtype=float), at["binding_over_kt"].to_numpy(dtype=float),
-                     at["emission_nm"].to_numpy(dtype=float), r)
+    margin = at["direct_margin_ev"].to_numpy(dtype=float)
+    e_kt = at["binding_over_kt"].to_numpy(dtype=float)
+    lam = at["emission_nm"].to_numpy(dtype=float)
+    lo, hi = sorted(r["window_nm"])
+    # The configured rules restated here (common practice: a NaN quantity fails its test).
+    with np.errstate(invalid="ignore"):
+        got = {"pass_direct": (char == "direct") if r["require_direct"] else np.isin(char, ["direct", "indirect"]),
+               "pass_margin": np.nan_to_num(margin, nan=-np.inf) >= r["min_direct_margin_ev"],
+               "pass_binding": np.nan_to_num(e_kt, nan=-np.inf) >= r["min_binding_over_kt"],
+               "pass_window": (lam >= lo) & (lam <= hi)}
+    got["meets_all"] = got["pass_direct"] & got["pass_margin"] & got["pass_binding"] & got["pass_window"]
     for key in ("pass_direct", "pass_margin", "pass_binding", "pass_window"):
         np.testing.assert_array_equal(got[key], ranked[key].to_numpy(dtype=bool), err_msg=key)
     np.testing.assert_array_equal(got["meets_all"], ranked["meets_all_criteria"].to_numpy(dtype=bool))

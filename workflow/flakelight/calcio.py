@@ -38,14 +38,13 @@ DESCRIPTION = "calcset.json"
 
 
 def _load_json(path: Path, rel: str):
+    from flakelight import io
+
+    # regular files only, at most the limit read (a named pipe would block, /dev/zero never end)
+    raw, reason, _ = io.read_limited(path, MAX_CALC_BYTES)
+    if raw is None:
+        raise ImportProblem(rel, "(file)", reason)
     try:
-        size = path.stat().st_size
-    except OSError:
-        raise ImportProblem(rel, "(file)", "file not found") from None
-    if size > MAX_CALC_BYTES:
-        raise ImportProblem(rel, "(file)", f"file is {size} bytes, larger than the {MAX_CALC_BYTES}-byte limit")
-    try:
-        raw = path.read_bytes()
         return json.loads(raw.decode("utf-8"))
     except UnicodeDecodeError as exc:
         raise ImportProblem(rel, "(file)", f"not UTF-8 text (byte {exc.start})") from None
@@ -187,8 +186,11 @@ def planar_average(path: Path, rel: str, normal) -> tuple[np.ndarray, float]:
 
     from pymatgen.io.vasp.outputs import Locpot
 
-    if not path.is_file():
-        raise ImportProblem(rel, "(file)", "file not found")
+    from flakelight import io
+
+    problem = io.file_kind_problem(path)  # regular files only: pymatgen would block on a named pipe
+    if problem:
+        raise ImportProblem(rel, "(file)", problem)
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")

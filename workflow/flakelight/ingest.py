@@ -11,6 +11,8 @@ stage raises :class:`Rejected` with the field and reason.
 from __future__ import annotations
 
 import math
+import operator
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -18,7 +20,7 @@ import pandas as pd
 
 from typing import TYPE_CHECKING
 
-from flakelight import bandfit, dielectric, masses
+from flakelight import bandfit, dielectric, masses, tables
 from flakelight.contract import Problem
 
 if TYPE_CHECKING:  # pymatgen is imported only when a structure is analysed
@@ -111,13 +113,11 @@ def _inverse_mass(valley: dict, path: str, normal: np.ndarray, warnings: list[st
 
 def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: int,
               geometry: LayerGeometry | None, structure_hash: str | None,
-              non_layered: str, reconcile_rel_tol: float, fit_exponent: bool) -> NormalizedRecord:
+              non_layered: str, reconcile_rel_tol: float) -> NormalizedRecord:
     """Flatten a contract-valid record; raise :class:`Rejected` when it cannot be screened.
 
-    ``fit_exponent`` is the layer model's setting (config ``layers.fit_exponent``):
-    the band edges of layer counts a valley does not give are filled with the
-    same model the screen uses, and every layer count must then keep a gap
-    (:func:`layer_gap_problems`).
+    The gap at layer counts the record does not give is checked afterwards, for
+    many records at once (:func:`without_gapless`).
     """
     warnings: list[str] = []
     ident = record["id"]
@@ -234,17 +234,66 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
             "edge_spin": _SPIN_CODE[valley.get("edge_spin", "")],
         }
         valleys.append(row)
-    problems = layer_gap_problems(valleys, max_layers=max_layers, fit_exponent=fit_exponent,
-                                  scissor_ev=entry["scissor_ev"])
-    if problems:
-        raise Rejected(problems)
     entry["warnings"] = " | ".join(warnings)
     return NormalizedRecord(entry, valleys, warnings)
 
 
+def without_gapless(entries: list[dict], valleys: list[dict], *, max_layers: int,
+                    fit_exponent: bool) -> tuple[list[dict], list[dict], list[tuple[dict, list[Problem]]]]:
+    """Split normalised records into those with a gap at every layer count and the rest.
+
+    The band edges of the layer counts a valley does not give are filled by the
+    screen's layer model (:func:`flakelight.layers.fill_edges`, vectorised over
+    all records); a record is kept when at every layer count 1..``max_layers``
+    and bulk its lowest conduction edge (plus its scissor) lies above its highest
+    valence edge (:func:`flakelight.layers.gap_character`). So an edge given for a
+    layer count in one band only is checked against the other band's modelled
+    edge, and no screen row can carry a negative gap.
+
+    Parameters
+    ----------
+    entries, valleys : rows of :func:`normalize` (``entry_id`` links them), edges in eV.
+    max_layers : largest layer count screened.
+    fit_exponent : the layer model's setting (config ``layers.fit_exponent``).
+
+    Returns
+    -------
+    (kept entries, kept valleys, [(entry, problems)] of the records without a gap)
+    """
+    from flakelight import layers as layer_model
+
+    if not entries:
+        return entries, valleys, []
+    counts = np.array([*range(1, max_layers + 1), layer_model.BULK])
+    columns = [edge_column(int(n)) for n in counts]
+    index = {e["entry_id"]: i for i, e in enumerate(entries)}
+    owner = np.array([index[v["entry_id"]] for v in valleys], dtype=int)
+    order = np.argsort(owner, kind="stable")
+    row = operator.itemgetter(*columns)
+    edges = np.array([row(v) for v in valleys], dtype=float).reshape(len(valleys), len(counts))
+    codes = pd.factorize(pd.Series([v["label"] for v in valleys], dtype=object))[0]
+    is_cond = np.array([v["band"] == "conduction" for v in valleys], dtype=bool)
+    filled = layer_model.fill_edges(edges[order], counts, fit_exponent=fit_exponent).filled_ev
+    scissor = np.array([e["scissor_ev"] for e in entries], dtype=float)
+    gaps = layer_model.gap_character(owner[order], codes[order], is_cond[order], filled, scissor_ev=scissor,
+                                     n_compounds=len(entries)).fundamental_gap_ev
+    bad_ids = {entries[i]["entry_id"] for i in np.flatnonzero(np.any(gaps <= 0, axis=1))}
+    if not bad_ids:
+        return entries, valleys, []
+    rejected = []
+    for entry in entries:
+        if entry["entry_id"] in bad_ids:
+            own = [v for v in valleys if v["entry_id"] == entry["entry_id"]]
+            rejected.append((entry, layer_gap_problems(own, max_layers=max_layers, fit_exponent=fit_exponent,
+                                                       scissor_ev=entry["scissor_ev"])))
+    return ([e for e in entries if e["entry_id"] not in bad_ids],
+            [v for v in valleys if v["entry_id"] not in bad_ids], rejected)
+
+
 def layer_gap_problems(valleys: list[dict], *, max_layers: int, fit_exponent: bool,
                        scissor_ev: float) -> list[Problem]:
-    """Layer counts at which the record, completed by the layer model, has no gap.
+    """Layer counts at which one record, completed by the layer model, has no gap (the
+    explanation behind :func:`without_gapless`).
 
     Each valley's edges at the layer counts it does not give are filled by
     :func:`flakelight.layers.fill_edges` (the screen's own model); then at every
@@ -271,8 +320,16 @@ def layer_gap_problems(valleys: list[dict], *, max_layers: int, fit_exponent: bo
     counts = [*range(1, max_layers + 1), layer_model.BULK]
     edges = np.array([[v[edge_column(n)] for n in counts] for v in valleys], dtype=float)
     filled = layer_model.fill_edges(edges, np.array(counts), fit_exponent=fit_exponent).filled_ev
-    _, codes = np.unique([v["label"] for v in valleys], return_inverse=True)
     is_cond = np.array([v["band"] == "conduction" for v in valleys])
+    # CBM - VBM at every layer count, as gap_character computes it (absent edges ignored);
+    # only a record where it is not positive somewhere needs the full analysis below.
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # a layer count without any edge of a band
+        vbm = np.nanmax(np.where(is_cond[:, None], np.nan, filled), axis=0)
+        cbm = np.nanmin(np.where(is_cond[:, None], filled + scissor_ev, np.nan), axis=0)
+    if not np.any(cbm - vbm <= 0):
+        return []
+    _, codes = np.unique([v["label"] for v in valleys], return_inverse=True)
     gaps = layer_model.gap_character(np.zeros(len(valleys), dtype=int), codes, is_cond, filled,
                                      scissor_ev=[scissor_ev], n_compounds=1)
     out = []
@@ -325,20 +382,8 @@ def valley_columns(max_layers: int) -> list[str]:
             "edge_spin"]
 
 
-#: Columns of the entry and valley tables that hold text or flags (the rest are float64).
-STRING_COLUMNS = {
-    "entry_id", "source_file", "input_hash", "formula", "provenance", "energy_reference", "structure_file",
-    "structure_hash", "source_hashes", "dielectric_frame", "normal_source", "spacing_source", "lattice_source",
-    "r0_source", "warnings", "label", "band", "mass_source", "physics_hash", "code_version", "edge_method",
-    "gap_t_form",
-}
-BOOLEAN_COLUMNS = {"is_layered_structure", "mass_nonparabolic"}
-INTEGER_COLUMNS = {"valley_index", "edge_spin"}
-
-
 def typed_frame(rows: list[dict], columns: list[str]) -> pd.DataFrame:
     """Rows as a DataFrame with a fixed type per column, also when there are no rows."""
     frame = pd.DataFrame(rows, columns=columns)
-    types = {c: ("str" if c in STRING_COLUMNS else "boolean" if c in BOOLEAN_COLUMNS
-                 else "int64" if c in INTEGER_COLUMNS else "float64") for c in columns}
+    types = {c: tables.pandas_dtype(c) for c in columns}  # declared once, in flakelight.tables
     return frame.astype(types)

@@ -528,10 +528,17 @@ def _arrow_table(frame: pd.DataFrame | pa.Table, units: Mapping[str, str], descr
     metadata on its fields and ``table_metadata`` on its schema."""
     import pyarrow as pa
 
+    from flakelight import tables
+
     table = frame if isinstance(frame, pa.Table) else pa.Table.from_pandas(frame, preserve_index=False)
     # An empty object column has no type (Arrow: null); all such columns here hold text.
     table = table.cast(pa.schema([f.with_type(pa.large_string()) if pa.types.is_null(f.type) else f
                                   for f in table.schema], metadata=table.schema.metadata))
+    # Unit, description and type of every declared column come from flakelight.tables;
+    # ``units``/``descriptions`` only fill in columns it does not declare.
+    names = table.schema.names
+    units = {**units, **tables.units_for(names)}
+    descriptions = {**descriptions, **tables.descriptions_for(names)}
     fields = []
     for f in table.schema:
         meta = dict(f.metadata or {})
@@ -539,11 +546,22 @@ def _arrow_table(frame: pd.DataFrame | pa.Table, units: Mapping[str, str], descr
             meta[b"unit"] = units[f.name].encode()
         if f.name in descriptions:
             meta[b"description"] = descriptions[f.name].encode()
+        declared = tables.lookup(f.name)
+        if declared is not None:
+            f = f.with_type(_arrow_type(declared.dtype))
         fields.append(f.with_metadata(meta) if meta else f)
     schema_meta = dict(table.schema.metadata or {})
     for key, value in (table_metadata or {}).items():
         schema_meta[key.encode()] = str(value).encode()
     return table.cast(pa.schema(fields, metadata=schema_meta))
+
+
+def _arrow_type(dtype: str):
+    """Arrow type of a dtype name of :mod:`flakelight.tables`."""
+    import pyarrow as pa
+
+    return {"string": pa.large_string(), "float64": pa.float64(), "int16": pa.int16(), "int32": pa.int32(),
+            "int64": pa.int64(), "bool": pa.bool_()}[dtype]
 
 
 def _dictionary_columns(schema: pa.Schema) -> list[str]:

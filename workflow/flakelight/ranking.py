@@ -33,16 +33,62 @@ MARGIN_FULL_EV = 0.2
 
 
 def add_survival(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping) -> pd.DataFrame:
-    """Add binding/kT, the Saha bound fractions (2D layers, 3D bulk), survival and Wannier flags to the long table."""
+    """Add binding/kT, the Saha bound fractions (2D layers, 3D bulk), survival and Wannier flags to the long table.
+
+    The one place these columns are computed (in the shard job, on fresh and
+    cached rows alike); columns of an earlier temperature are replaced.
+    """
     lattice = long["entry_id"].map(wide.set_index("entry_id")["lattice_angstrom"]).to_numpy(dtype=float)
-    out = long.copy()
+    out = long.drop(columns=[c for c in survival.SURVIVAL_COLUMNS if c in long.columns])
     for name, values in survival.survival_columns(long["binding_ev"], long["mu_inplane_me"], long["radius_angstrom"],
                                                   lattice, settings, long["layers"].to_numpy()).items():
         out[name] = values
     return out
 
 
-SURVIVAL_UNITS = survival.SURVIVAL_UNITS
+def criteria(is_direct, complete, direct_margin_ev, binding_over_kt, emission_nm,
+             ranking: Mapping) -> dict[str, np.ndarray]:
+    """The four ranking criteria, vectorized: the one definition used by :func:`rank` and the Monte Carlo.
+
+    Parameters
+    ----------
+    is_direct, complete : array_like of bool
+        Direct character and "both band edges present" at the target layer
+        count (:class:`flakelight.layers.GapCharacter` fields).
+    direct_margin_ev : array_like
+        Indirect minus direct gap, eV (NaN fails).
+    binding_over_kt : array_like
+        E_b / kT (NaN fails).
+    emission_nm : array_like
+        Emission wavelength, nm (NaN fails).
+    ranking : mapping
+        The ``ranking`` config section (require_direct, min_direct_margin_ev,
+        min_binding_over_kt, window_nm).
+
+    Returns
+    -------
+    dict of numpy.ndarray of bool
+        ``pass_direct``, ``pass_margin``, ``pass_binding``, ``pass_window``,
+        ``meets_all``.
+
+    References
+    ----------
+    Common practice (thresholds are the configured criteria).
+    """
+    comp = np.asarray(complete, dtype=bool)
+    direct = np.asarray(is_direct, dtype=bool) & comp
+    lo, hi = sorted(float(x) for x in ranking["window_nm"])
+    margin = np.nan_to_num(np.asarray(direct_margin_ev, dtype=float), nan=-np.inf)
+    e_kt = np.nan_to_num(np.asarray(binding_over_kt, dtype=float), nan=-np.inf)
+    lam = np.asarray(emission_nm, dtype=float)
+    out = {
+        "pass_direct": direct if ranking["require_direct"] else comp,
+        "pass_margin": margin >= float(ranking["min_direct_margin_ev"]),
+        "pass_binding": e_kt >= float(ranking["min_binding_over_kt"]),
+        "pass_window": (lam >= lo) & (lam <= hi),
+    }
+    out["meets_all"] = out["pass_direct"] & out["pass_margin"] & out["pass_binding"] & out["pass_window"]
+    return out
 
 
 def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
@@ -72,11 +118,10 @@ def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
     lam = col("emission_nm")
     lo, hi = sorted(float(x) for x in r["window_nm"])
     character = at["gap_character"].to_numpy(dtype=object)
-    out["pass_direct"] = (character == "direct") if r["require_direct"] else np.isin(character, ["direct", "indirect"])
-    out["pass_margin"] = np.nan_to_num(margin, nan=-np.inf) >= float(r["min_direct_margin_ev"])
-    out["pass_binding"] = np.nan_to_num(e_kt, nan=-np.inf) >= float(r["min_binding_over_kt"])
-    out["pass_window"] = (lam >= lo) & (lam <= hi)
-    out["meets_all_criteria"] = out[["pass_direct", "pass_margin", "pass_binding", "pass_window"]].all(axis=1)
+    passed = criteria(character == "direct", np.isin(character, ["direct", "indirect"]), margin, e_kt, lam, r)
+    for key in ("pass_direct", "pass_margin", "pass_binding", "pass_window"):
+        out[key] = passed[key]
+    out["meets_all_criteria"] = passed["meets_all"]
 
     with np.errstate(invalid="ignore", divide="ignore"):
         need = max(float(r["min_binding_over_kt"]), 1e-9)
@@ -102,11 +147,6 @@ def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
                               na_position="last")
     frame["rank"] = np.arange(1, len(frame) + 1, dtype="int32")
     return frame.drop(columns="_id").reset_index(drop=True)
-
-
-RANK_UNITS = {"target_optical_gap_ev": "eV", "target_emission_nm": "nm", "target_binding_ev": "eV",
-              "target_binding_over_kt": "1", "target_direct_margin_ev": "eV", "target_radius_angstrom": "Angstrom",
-              "score": "1", "score_binding": "1", "score_margin": "1", "score_window": "1"}
 
 
 def shortlist(ranked: pd.DataFrame, settings: Mapping) -> pd.DataFrame:

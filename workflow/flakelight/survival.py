@@ -32,7 +32,6 @@ __all__ = [
     "MOTT_3D_CRITERION",
     "is_wannier",
     "survival_columns",
-    "SURVIVAL_UNITS",
 ]
 
 
@@ -336,6 +335,10 @@ def is_wannier(radius_angstrom, lattice_constant_angstrom, threshold=2.0):
         return r > threshold * a
 
 
+#: Names of the columns :func:`survival_columns` returns, in order.
+SURVIVAL_COLUMNS = ("temperature_k", "binding_over_kt", "survives_kt", "bound_fraction", "bound_fraction_3d", "wannier_ok")
+
+
 def survival_columns(binding_ev, mu_inplane_me, radius_angstrom, lattice_angstrom,
                      settings: Mapping, layers) -> dict[str, np.ndarray]:
     """The temperature-dependent columns of the long table, as numpy arrays.
@@ -384,6 +387,3 @@ def survival_columns(binding_ev, mu_inplane_me, radius_angstrom, lattice_angstro
                                           np.asarray(lattice_angstrom, dtype=float), float(surv["wannier_ratio"])),
     }
 
-
-#: Units of the columns :func:`survival_columns` adds (the flags are dimensionless booleans).
-SURVIVAL_UNITS = {"temperature_k": "K", "binding_over_kt": "1", "bound_fraction": "1", "bound_fraction_3d": "1"}

@@ -47,22 +47,19 @@ quantity monotonic in one input is its point estimate. Zero uncertainty gives
 factors of exactly 1 and shifts of exactly 0: the point estimate of
 :func:`flakelight.screen.screen_entries` is then reproduced bit for bit.
 
-Model per sample (the choices of :mod:`flakelight.screen`)
-----------------------------------------------------------
-Gap character at ``ranking.target_layers`` and in bulk from
-:func:`flakelight.layers.gap_character` (scissor included); the bright pair is
-the lowest direct (same-label) pair at that layer count, its reduced mass the
-geometric mean of the principal in-plane reduced masses
-(:func:`flakelight.masses.inplane_average_mass_me`); r0(N) = N r0(1) when
-``monolayer.few_layer_r0_scaling``; kappa of ``ranking.environment``;
-Rytova-Keldysh binding from the interpolated table; optical gap = direct gap -
-binding; emission = hc / optical gap; E_b/kT at ``survival.temperature_k``;
-bulk binding = 3D hydrogenic with sqrt(eps_par eps_perp) and the bulk
-bright-pair mass. The four ranking criteria of :func:`flakelight.ranking.rank`
-are re-implemented vectorized in :func:`criteria` (a unit test checks they
-agree). Label ties (direct gaps degenerate within 1e-9 eV) resolve to the
-lexically smallest label of the entry, so results never depend on which other
-entries share the shard.
+Model per sample: the exciton model itself
+------------------------------------------
+Each block of samples is one call of :func:`flakelight.model.evaluate` (the
+function the nominal screen calls), with the entry x sample cells as its
+compound axis, the layer counts ``[ranking.target_layers, bulk]`` and the
+surroundings ``ranking.environment``; it is asked only for the Rytova-Keldysh
+binding, optical gap and emission at the target layer count and the bulk 3D
+hydrogenic binding. E_b/kT at ``survival.temperature_k`` comes from
+:func:`flakelight.survival.binding_over_kt`, and the four ranking criteria from
+:func:`flakelight.ranking.criteria`, the function the ranking uses. Label ties
+(direct gaps degenerate within 1e-9 eV) resolve to the lexically smallest
+label of the entry (:func:`flakelight.model.label_codes`), so results never
+depend on which other entries share the shard.
 
 Determinism and memory
 ----------------------
@@ -105,21 +102,17 @@ import numpy as np
 import pandas as pd
 from scipy import special
 
-from flakelight import dielectric, hydrogenic, keldysh, layers as layer_model, masses, survival
-from flakelight.ingest import TENSOR_COMPONENTS, edge_column
+from flakelight import dielectric, keldysh, layers as layer_model, model, ranking, screen, survival
 
 __all__ = [
     "BLOCK_CELLS",
     "PERCENTILES",
     "QUANTITIES",
     "OUTPUT_COLUMNS",
-    "UNITS",
-    "DESCRIPTIONS",
     "lognormal_sigma",
     "first_order_binding_rel_unc",
     "reduced_mass_rel_unc",
     "entry_seed_sequence",
-    "criteria",
     "row_percentiles",
     "propagate_samples",
     "propagate_uncertainty",
@@ -133,12 +126,6 @@ PERCENTILES: tuple[float, ...] = (16.0, 50.0, 84.0)
 QUANTITIES: tuple[str, ...] = ("target_binding_ev", "target_optical_gap_ev", "target_emission_nm",
                                "bulk_binding_ev")
 _PROBABILITIES = ("p_direct_target", "p_meets_all", "p_pass_margin", "p_pass_binding", "p_pass_window")
-_UNIT_OF = {"target_binding_ev": "eV", "target_optical_gap_ev": "eV", "target_emission_nm": "nm",
-            "bulk_binding_ev": "eV"}
-_TEXT_OF = {"target_binding_ev": "Rytova-Keldysh binding at the target layer count in the ranking environment",
-            "target_optical_gap_ev": "optical gap (direct gap - binding) at the target layer count",
-            "target_emission_nm": "emission wavelength at the target layer count",
-            "bulk_binding_ev": "bulk 3D hydrogenic binding (geometric-mean dielectric constant)"}
 
 
 def _pcol(quantity: str, q: float) -> str:
@@ -149,24 +136,6 @@ def _pcol(quantity: str, q: float) -> str:
 OUTPUT_COLUMNS: list[str] = (["entry_id", "input_hash"]
                              + [_pcol(name, q) for name in QUANTITIES for q in PERCENTILES]
                              + list(_PROBABILITIES) + ["n_samples", "seed"])
-
-#: Units of the output columns (for Parquet field metadata).
-UNITS: dict[str, str] = {**{_pcol(n, q): _UNIT_OF[n] for n in QUANTITIES for q in PERCENTILES},
-                         **{p: "1" for p in _PROBABILITIES}, "n_samples": "1"}
-
-#: One-line descriptions of the output columns.
-DESCRIPTIONS: dict[str, str] = {
-    **{_pcol(n, q): f"{int(q)}th percentile (Monte Carlo) of the {_TEXT_OF[n]}"
-       for n in QUANTITIES for q in PERCENTILES},
-    "p_direct_target": "probability that the gap is direct at the target layer count",
-    "p_meets_all": "probability that every ranking criterion is met",
-    "p_pass_margin": "probability that the direct-indirect margin criterion is met",
-    "p_pass_binding": "probability that the binding/kT criterion is met",
-    "p_pass_window": "probability that the emission lies in the target window",
-    "n_samples": "Monte Carlo samples per entry (0 = propagation disabled)",
-    "seed": "campaign seed; each entry's stream also depends on its identifier",
-    "input_hash": "content hash of the record the row was computed from",
-}
 
 
 # --------------------------------------------------------------------------- #
@@ -267,51 +236,6 @@ def entry_seed_sequence(seed: int, entry_id: str) -> np.random.SeedSequence:
     return np.random.SeedSequence([int(seed), int.from_bytes(digest[:8], "big")])
 
 
-def criteria(is_direct, complete, direct_margin_ev, binding_over_kt, emission_nm,
-             ranking: Mapping) -> dict[str, np.ndarray]:
-    """The four ranking tests of :func:`flakelight.ranking.rank`, vectorized.
-
-    Parameters
-    ----------
-    is_direct, complete : array_like of bool
-        Direct character and "both band edges present" at the target layer
-        count (:class:`flakelight.layers.GapCharacter` fields).
-    direct_margin_ev : array_like
-        Indirect minus direct gap, eV (NaN fails).
-    binding_over_kt : array_like
-        E_b / kT (NaN fails).
-    emission_nm : array_like
-        Emission wavelength, nm (NaN fails).
-    ranking : mapping
-        The ``ranking`` config section (require_direct, min_direct_margin_ev,
-        min_binding_over_kt, window_nm).
-
-    Returns
-    -------
-    dict of numpy.ndarray of bool
-        ``pass_direct``, ``pass_margin``, ``pass_binding``, ``pass_window``,
-        ``meets_all``.
-
-    References
-    ----------
-    Common practice (thresholds are the configured criteria).
-    """
-    comp = np.asarray(complete, dtype=bool)
-    direct = np.asarray(is_direct, dtype=bool) & comp
-    lo, hi = sorted(float(x) for x in ranking["window_nm"])
-    margin = np.nan_to_num(np.asarray(direct_margin_ev, dtype=float), nan=-np.inf)
-    e_kt = np.nan_to_num(np.asarray(binding_over_kt, dtype=float), nan=-np.inf)
-    lam = np.asarray(emission_nm, dtype=float)
-    out = {
-        "pass_direct": direct if ranking["require_direct"] else comp,
-        "pass_margin": margin >= float(ranking["min_direct_margin_ev"]),
-        "pass_binding": e_kt >= float(ranking["min_binding_over_kt"]),
-        "pass_window": (lam >= lo) & (lam <= hi),
-    }
-    out["meets_all"] = out["pass_direct"] & out["pass_margin"] & out["pass_binding"] & out["pass_window"]
-    return out
-
-
 def row_percentiles(values, q) -> np.ndarray:
     """Percentiles along the last axis, ignoring non-finite values (linear interpolation).
 
@@ -359,6 +283,7 @@ class _Prepared(NamedTuple):
     input_hash: np.ndarray
     vstart: np.ndarray          # (n+1,) valley offsets per entry
     eps_par: np.ndarray
+    eps_perp: np.ndarray
     eps_bulk: np.ndarray
     spacing: np.ndarray
     r0_given: np.ndarray
@@ -373,11 +298,16 @@ class _Prepared(NamedTuple):
     edges: np.ndarray           # (V, 2) filled edges at [target, bulk]
     sig_mass: np.ndarray
     sig_edge: np.ndarray        # eV
-    n_labels: int
-    kappa: float
-    r0_scale: float
+    layers: np.ndarray          # [target, bulk]
+    kappa: np.ndarray           # (1,) the ranking environment
+    model_settings: model.ModelSettings
     temperature_k: float
     ranking: Mapping
+
+
+#: What the Monte Carlo asks of the exciton model (flakelight.model.evaluate).
+_STACK_WANTED = frozenset({"binding_ev", "optical_gap_ev", "emission_nm"})
+_BULK_WANTED = frozenset({"bulk_binding_ev"})
 
 
 def _given_or(values, default) -> np.ndarray:
@@ -394,7 +324,7 @@ def _prepare(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping) ->
         raise ValueError(f"ranking.target_layers = {target} is outside 1..layers.max_layers = {max_layers}")
     env = settings["environments"][rk["environment"]]
     kappa = (env["top"] + env["bottom"]) / 2
-    lay = np.array(list(range(1, max_layers + 1)) + [layer_model.BULK])
+    lay = screen.layer_counts(max_layers)
 
     entries = entries.reset_index(drop=True)
     n = len(entries)
@@ -402,9 +332,7 @@ def _prepare(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping) ->
     if pd.Index(ids).has_duplicates:
         raise ValueError("entry_id values must be unique within a shard")
 
-    t = np.full((n, 3, 3), np.nan)
-    for name, i, j in TENSOR_COMPONENTS:
-        t[:, i, j] = t[:, j, i] = entries[f"eps_inf_{name}"].to_numpy(dtype=float)
+    t = screen._tensor(entries, "eps_inf")
     eps = dielectric.layer_constants(t)
     finite_t = np.all(np.isfinite(t), axis=(1, 2))
     lam_min = np.full(n, np.nan)
@@ -420,53 +348,27 @@ def _prepare(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping) ->
     sc_default = np.where(scissor != 0.0, float(unc["default_scissor_ev"]), 0.0)
     sig_sc = np.where(np.isfinite(sc_unc), sc_unc, sc_default)
 
-    owner = pd.Index(ids).get_indexer(valleys["entry_id"])
-    keep = owner >= 0
-    vt = valleys[keep]
-    owner = owner[keep]
-    order = np.lexsort((vt["valley_index"].to_numpy(), owner))
-    vt = vt.iloc[order].reset_index(drop=True)
-    owner = owner[order]
+    vt, owner, code, raw = screen.valley_arrays(entries, valleys, lay)
     counts = np.bincount(owner, minlength=n) if len(owner) else np.zeros(n, dtype=np.int64)
     vstart = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
-
-    # label codes: lexical order within each entry (shard-independent tie-breaking)
-    labels = vt["label"].astype(str).to_numpy()
-    code = np.zeros(len(vt), dtype=np.int64)
-    n_labels = 1
-    if len(vt):
-        _, lex = np.unique(labels, return_inverse=True)        # global lexical code
-        o2 = np.lexsort((lex, owner))
-        step = np.ones(len(vt), dtype=np.int64)
-        step[1:] = (owner[o2][1:] != owner[o2][:-1]) | (lex[o2][1:] != lex[o2][:-1])
-        dense = np.cumsum(step)
-        start = np.ones(len(vt), dtype=bool)
-        start[1:] = owner[o2][1:] != owner[o2][:-1]
-        base = np.maximum.accumulate(np.where(start, dense, 0))
-        code[o2] = dense - base                                 # dense rank within the entry
-        n_labels = int(code.max()) + 1
-
-    inv = np.empty((len(vt), 2, 2))
-    inv[:, 0, 0] = vt["inv_mass_xx"].to_numpy(dtype=float)
-    inv[:, 0, 1] = inv[:, 1, 0] = vt["inv_mass_xy"].to_numpy(dtype=float)
-    inv[:, 1, 1] = vt["inv_mass_yy"].to_numpy(dtype=float)
-    raw = vt[[edge_column(int(x)) for x in lay]].to_numpy(dtype=float).reshape(len(vt), len(lay))
     fill = layer_model.fill_edges(raw, lay, fit_exponent=bool(settings["layers"]["fit_exponent"]))
     edges = fill.filled_ev[:, [target - 1, len(lay) - 1]]
 
     return _Prepared(
         ids=ids, input_hash=entries["input_hash"].to_numpy(dtype=object), vstart=vstart,
-        eps_par=np.asarray(eps.eps_parallel, dtype=float), eps_bulk=np.asarray(eps.eps_bulk_effective, dtype=float),
+        eps_par=np.asarray(eps.eps_parallel, dtype=float), eps_perp=np.asarray(eps.eps_perpendicular, dtype=float),
+        eps_bulk=np.asarray(eps.eps_bulk_effective, dtype=float),
         spacing=entries["spacing_angstrom"].to_numpy(dtype=float),
         r0_given=entries["r0_given_angstrom"].to_numpy(dtype=float), scissor=scissor,
         sig_eps=sig_eps, p_eps_lo=p_eps_lo,
         sig_r0=lognormal_sigma(_given_or(entries["r0_rel_unc"], unc["default_r0_rel"])),
         sig_scissor=sig_sc, code=code, is_cond=(vt["band"] == "conduction").to_numpy(dtype=bool),
-        inv=inv, edges=edges,
+        inv=screen.inverse_mass(vt), edges=edges,
         sig_mass=lognormal_sigma(_given_or(vt["mass_rel_unc"], unc["default_mass_rel"])),
         sig_edge=_given_or(vt["edge_unc_ev"], unc["default_edge_ev"]),
-        n_labels=n_labels, kappa=kappa,
-        r0_scale=float(target) if settings["monolayer"]["few_layer_r0_scaling"] else 1.0,
+        layers=np.array([target, layer_model.BULK]), kappa=np.array([kappa], dtype=float),
+        model_settings=model.ModelSettings.from_config(settings, stack=_STACK_WANTED, bulk=_BULK_WANTED,
+                                                       principal_masses=False),
         temperature_k=float(settings["survival"]["temperature_k"]), ranking=rk)
 
 
@@ -487,15 +389,6 @@ def _truncate_below(z, p_lo):
     res[upper] = -special.ndtri((1.0 - pa[upper]) * special.ndtr(-za[upper]))
     res[~upper] = special.ndtri(pa[~upper] + (1.0 - pa[~upper]) * special.ndtr(za[~upper]))
     out[act] = np.maximum(res, special.ndtri(pa))
-    return out
-
-
-def _pick(table, labels):
-    """table[c, labels[c, j]] for every compound c and column j; NaN where NO_LABEL."""
-    rows = np.arange(table.shape[0])[:, None]
-    safe = np.where(labels < 0, 0, labels)
-    out = table[rows, safe]
-    out[labels < 0] = np.nan
     return out
 
 
@@ -532,29 +425,22 @@ def _evaluate_block(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, tabl
     f_r0 = np.exp(prep.sig_r0[sl, None] * z_ent[1]).reshape(-1)
     scissor = (prep.scissor[sl, None] + prep.sig_scissor[sl, None] * z_ent[2]).reshape(-1)
     rep = np.repeat(np.arange(a, b), n_s)
-    eps_par = prep.eps_par[rep] * f_eps
-    eps_bulk = prep.eps_bulk[rep] * f_eps
-    r0_given = prep.r0_given[rep]
-    r0_1 = np.where(np.isfinite(r0_given), r0_given,
-                    keldysh.screening_length_from_bulk_angstrom(eps_par, prep.spacing[rep])) * f_r0
-
-    gc = layer_model.gap_character(owner, code, cond, edges, scissor_ev=scissor, n_compounds=n_c)
-
-    tab = np.full((2, n_c, prep.n_labels, 2, 2), np.nan)
-    tab[cond.astype(int), owner, code] = inv
-    w = _pick(tab[1], gc.direct_label) + _pick(tab[0], gc.direct_label)   # (C, 2, 2, 2)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mu = masses.inplane_average_mass_me(w)                              # (C, 2): target, bulk
-    kappa = np.full(n_c, prep.kappa)
-    eb = keldysh.keldysh_binding_ev(mu[:, 0], r0_1 * prep.r0_scale, kappa, table)
-    opt = layer_model.optical_gap_ev(gc.direct_gap_ev[:, 0], eb)
-    lam = layer_model.emission_wavelength_nm(opt)
-    bulk = hydrogenic.binding_3d_ev(mu[:, 1], eps_bulk)
+    res = model.evaluate(model.ModelInputs(
+        layers=prep.layers, owner=owner, label_code=code, is_conduction=cond, edges_ev=edges, inv_mass=inv,
+        mass_perp_me=np.full(len(code), np.nan), scissor_ev=scissor, eps_parallel=prep.eps_par[rep] * f_eps,
+        eps_perpendicular=prep.eps_perp[rep] * f_eps, eps_bulk=prep.eps_bulk[rep] * f_eps,
+        spacing_angstrom=prep.spacing[rep], r0_given_angstrom=prep.r0_given[rep], kappa=prep.kappa,
+        r0_factor=f_r0), prep.model_settings, table)
+    gc = res.gap
+    eb = res.stack["binding_ev"][:, 0, 0]
+    lam = res.stack["emission_nm"][:, 0, 0]
     with np.errstate(divide="ignore", invalid="ignore"):
         e_kt = survival.binding_over_kt(eb, prep.temperature_k)
-    crit = criteria(gc.is_direct[:, 0], gc.complete[:, 0], gc.direct_margin_ev[:, 0], e_kt, lam, prep.ranking)
-    out = {"target_binding_ev": eb, "target_optical_gap_ev": opt, "target_emission_nm": lam,
-           "bulk_binding_ev": bulk, "direct_target": gc.is_direct[:, 0] & gc.complete[:, 0], **crit}
+    crit = ranking.criteria(gc.is_direct[:, 0], gc.complete[:, 0], gc.direct_margin_ev[:, 0], e_kt, lam,
+                            prep.ranking)
+    out = {"target_binding_ev": eb, "target_optical_gap_ev": res.stack["optical_gap_ev"][:, 0, 0],
+           "target_emission_nm": lam, "bulk_binding_ev": res.bulk["bulk_binding_ev"],
+           "direct_target": gc.is_direct[:, 0] & gc.complete[:, 0], **crit}
     return {key: np.asarray(v).reshape(n_e, n_s) for key, v in out.items()}
 
 

@@ -62,7 +62,6 @@ rule join_tables:
     input:
         checked=rules.check_screen.output.counts,
         long=shard_outputs("exciton_long"),
-        wide=shard_outputs("exciton_wide"),
         entries=shard_outputs("entries"),
         valleys=shard_outputs("valleys"),
         settings=join_settings,
@@ -78,7 +77,7 @@ rule join_tables:
     shell:
         adapter(
             "join_tables",
-            inputs=("long", "wide", "entries", "valleys", "settings"),
+            inputs=("long", "entries", "valleys", "settings"),
             outputs=("long", "entries", "valleys"),
         )
 

@@ -39,7 +39,8 @@ def job_python():
 def adapter(name, inputs=(), outputs=(), wildcards=()):
     """Shell command of a rule: workflow/scripts/<name>.py with its named inputs, outputs,
     wildcards and log (parsed by workflow/scripts/adapter_args.py)."""
-    words = [shlex.quote(job_python()), shlex.quote(str(ADAPTERS / f"{name}.py")), "--log {log:q}"]
+    words = [shlex.quote(job_python()), shlex.quote(str(ADAPTERS / f"{name}.py")), "--log {log:q}",
+             "--threads {threads}"]
     words += [f"--input {k} {{input.{k}:q}}" for k in inputs]
     words += [f"--output {k} {{output.{k}:q}}" for k in outputs]
     words += [f"--wildcard {w} {{wildcards.{w}:q}}" for w in wildcards]
@@ -223,7 +224,7 @@ def rank_settings(wildcards):
 
 def join_settings(wildcards):
     """Settings of the join_tables job."""
-    return snapshot("join", {"settings": {"survival": config["survival"]}, "config_hash": config_hash()})
+    return snapshot("join", {"config_hash": config_hash()})
 
 
 def manifest_settings(wildcards):

@@ -10,7 +10,8 @@ rule keldysh_table:
         "results/logs/keldysh_table/keldysh_table.log",
     benchmark:
         "results/benchmarks/keldysh_table/keldysh_table.tsv"
-    threads: 1
+    # the grid points are independent: solved in parallel on up to 4 cores (fewer if fewer given)
+    threads: 4
     conda:
         "../../envs/flakelight.yaml"
     shell:

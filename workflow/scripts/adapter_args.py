@@ -27,6 +27,7 @@ class Job:
     output: dict[str, list[str]]
     wildcards: dict[str, str]
     log: str
+    threads: int = 1
 
     def one(self, kind: str, name: str) -> str:
         """The single path of input or output ``name`` (an error if there are several)."""
@@ -43,6 +44,7 @@ def parse(argv: list[str] | None = None) -> Job:
     parser.add_argument("--output", nargs="+", action="append", default=[], metavar=("NAME", "PATH"))
     parser.add_argument("--wildcard", nargs=2, action="append", default=[], metavar=("NAME", "VALUE"))
     parser.add_argument("--log", required=True)
+    parser.add_argument("--threads", type=int, default=1, help="cores Snakemake gave the job")
     args = parser.parse_args(argv)
     return Job(input={a[0]: a[1:] for a in args.input}, output={a[0]: a[1:] for a in args.output},
-               wildcards={k: v for k, v in args.wildcard}, log=args.log)
+               wildcards={k: v for k, v in args.wildcard}, log=args.log, threads=args.threads)

@@ -9,7 +9,6 @@ settings = io.read_json(job.one("input", "settings"))
 assemble.run_join(
     inputs={k: v for k, v in job.input.items() if k not in ("code", "settings")},
     outputs={name: job.one("output", name) for name in job.output},
-    settings=settings["settings"],
     config_hash=settings["config_hash"],
 )
 io.end_job()  # last statement: skips the interpreter teardown (see io.end_job)

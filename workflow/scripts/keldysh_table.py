@@ -5,5 +5,5 @@ from flakelight import io, keldysh
 
 job = adapter_args.parse()
 io.start_log(job.log)
-io.save_arrays(keldysh.build_table().to_arrays(), job.one("output", "table"))
+io.save_arrays(keldysh.build_table(workers=job.threads).to_arrays(), job.one("output", "table"))
 io.end_job()  # last statement: skips the interpreter teardown (see io.end_job)

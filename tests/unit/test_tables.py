@@ -1,0 +1,52 @@
+"""The table schema: every column declared once with dtype, unit and description; docs current."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pyarrow.parquet as pq
+import pytest
+
+from flakelight import tables
+
+REPO = Path(__file__).resolve().parents[2]
+GOLDEN = REPO / "tests" / "data" / "golden"
+
+
+def test_every_declaration_is_complete():
+    for col in tables.COLUMNS.values():
+        assert col.dtype in {"string", "float64", "int16", "int32", "int64", "bool"}, col
+        assert col.unit and col.description, col
+
+
+@pytest.mark.parametrize("name, unit, needle", [
+    ("edge_3l_ev", "eV", "3 layer"),
+    ("binding_1l_ev__encapsulated", "eV", "encapsulated"),
+    ("target_emission_nm_p84", "nm", "84th percentile"),
+    ("bulk_binding_ev_p16", "eV", "16th percentile"),
+])
+def test_families_resolve(name, unit, needle):
+    col = tables.lookup(name)
+    assert col is not None and col.unit == unit and needle in col.description
+
+
+def test_undeclared_column_is_unknown():
+    assert tables.lookup("no_such_column") is None
+    with pytest.raises(KeyError):
+        tables.pandas_dtype("no_such_column")
+
+
+@pytest.mark.parametrize("path", sorted((GOLDEN / "demo").glob("tables__*.parquet")), ids=lambda p: p.name)
+def test_every_output_column_is_declared_with_its_type(path):
+    # The tables written by the reference run (tests/data/golden) hold every column of the outputs.
+    for field in pq.read_schema(path):
+        col = tables.lookup(field.name)
+        assert col is not None, f"{path.name}: {field.name} not declared in flakelight.tables"
+        expected = "string" if str(field.type) == "large_string" else "bool" if str(field.type) == "bool" \
+            else "float64" if str(field.type) == "double" else str(field.type)
+        assert col.dtype == expected, field.name
+
+
+def test_column_docs_are_current():
+    assert (REPO / "docs" / "columns.md").read_text() == tables.column_docs(), \
+        "regenerate: PYTHONPATH=workflow python -m flakelight.tables > docs/columns.md"
