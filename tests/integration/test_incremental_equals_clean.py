@@ -370,6 +370,11 @@ def _differences(got: dict, want: dict) -> list[str]:
                         problems.append(f"{name}: {len(g)} vs {len(w)} rows\n" + "\n".join(rows))
                     else:
                         problems.append(f"{name} {part} differs:\n  incremental {g}\n  clean       {w}")
+        elif isinstance(want[name], dict) and isinstance(got[name], dict):  # the manifest: name the keys
+            keys = sorted(k for k in set(got[name]) | set(want[name]) if got[name].get(k) != want[name].get(k))
+            problems.append(f"{name} differs in {keys}:\n" + "\n".join(
+                f"  {k}: incremental {str(got[name].get(k))[:300]}\n  {k}: clean       {str(want[name].get(k))[:300]}"
+                for k in keys))
         else:
             problems.append(f"{name} differs:\n  incremental {str(got[name])[:800]}\n  clean       {str(want[name])[:800]}")
     return problems

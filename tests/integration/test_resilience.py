@@ -39,7 +39,7 @@ import pytest
 import yaml
 
 from flakelight import pipeline, sharding
-from flakelight.survival import SURVIVAL_COLUMNS
+from flakelight.ranking import TEMPERATURE_COLUMNS
 
 REPO = Path(__file__).resolve().parents[2]
 SNAKEMAKE = [sys.executable, "-m", "snakemake"]
@@ -312,7 +312,7 @@ def test_temperature_change_repropagates_without_rescreening(second_run):
             # the long table's survival columns (computed in the shard job) follow the temperature;
             # every screened column stays exactly as it was
             now, before = pd.read_parquet(d / f"{t}.parquet"), screened[(d.name, t)]
-            warm = [c for c in SURVIVAL_COLUMNS if c in before.columns]
+            warm = [c for c in TEMPERATURE_COLUMNS if c in before.columns]
             pd.testing.assert_frame_equal(now.drop(columns=warm), before.drop(columns=warm),
                                           check_exact=True, obj=f"{d.name}/{t}")
             if warm:

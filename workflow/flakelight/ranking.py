@@ -33,6 +33,10 @@ from flakelight import excitons, survival
 #: Direct-indirect margin (eV) that earns the full margin component.
 MARGIN_FULL_EV = 0.2
 
+#: Every long-table column that follows the operating temperature: written by
+#: :func:`add_survival` only, replaced when the temperature changes.
+TEMPERATURE_COLUMNS = survival.SURVIVAL_COLUMNS + ("bright_fraction",)
+
 
 def add_survival(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping) -> pd.DataFrame:
     """Add binding/kT, the Saha bound fractions (2D layers, 3D bulk), survival and Wannier flags to the long table.
@@ -41,7 +45,7 @@ def add_survival(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping) -> p
     cached rows alike); columns of an earlier temperature are replaced.
     """
     lattice = long["entry_id"].map(wide.set_index("entry_id")["lattice_angstrom"]).to_numpy(dtype=float)
-    out = long.drop(columns=[c for c in survival.SURVIVAL_COLUMNS + ("bright_fraction",) if c in long.columns])
+    out = long.drop(columns=[c for c in TEMPERATURE_COLUMNS if c in long.columns])
     for name, values in survival.survival_columns(long["binding_ev"], long["mu_inplane_me"], long["radius_angstrom"],
                                                   lattice, settings, long["layers"].to_numpy()).items():
         out[name] = values

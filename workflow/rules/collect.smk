@@ -87,7 +87,7 @@ rule write_manifest:
         tables=rules.rank_candidates.output.wide,
         records=campaign_records,
         settings=manifest_settings,
-        code=code_files("write_manifest"),
+        code=sorted(set(code_files("write_manifest")) | set(library_files())),
     output:
         manifest="results/manifest.json",
     log:

@@ -158,6 +158,13 @@ def code_files(adapter_name):
     return adapter_files(ADAPTERS / f"{adapter_name}.py")
 
 
+def library_files():
+    """Every library module and page template: the manifest's ``code_version`` digests them
+    all (flakelight.io.library_digest), so the manifest job depends on them all."""
+    lib = io.LIBRARY_DIR
+    return sorted(str(p) for p in [*lib.glob("*.py"), *(lib / "templates").glob("*")] if p.is_file())
+
+
 def physics_settings():
     """The config sections the shard computation depends on (a change re-runs the shards)."""
     keys = ("layers", "structure", "environments", "monolayer", "excitons", "emission_bands")
