@@ -1,4 +1,4 @@
-# flakelight: screen layered compounds for bright, strongly bound excitons.
+# lamellume: screen layered compounds for bright, strongly bound excitons.
 # This file only lists the workflow's parts; see README.md for the tour.
 from snakemake.utils import min_version
 

@@ -53,7 +53,7 @@ def _settings(base: int | None, effect: str | None) -> dict:
 def child(entries_path: str, valleys_path: str, table_path: str, samples: int, base: int | None,
           effect: str | None, profile: bool) -> None:
     """Propagation then attribution; print one JSON line (and a profile when asked)."""
-    from flakelight import attribution, io, keldysh, refinement, uncertainty
+    from lamellume import attribution, io, keldysh, refinement, uncertainty
 
     settings = _settings(base, effect)
     entries, valleys = io.read_parquet(entries_path), io.read_parquet(valleys_path)

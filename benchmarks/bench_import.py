@@ -9,7 +9,7 @@ pymatgen writes it), then measures in this process:
 
 * **pymatgen load**: ``monty.serialization.loadfn`` of every band-structure file
   (pymatgen rebuilds its ``BandStructureSymmLine`` objects), nothing else;
-* **import**: ``flakelight.importer.run_import`` of every compound from an empty
+* **import**: ``lamellume.importer.run_import`` of every compound from an empty
   cache: descriptions, band structures, structures, layer analysis, symmetry,
   valleys, mass fits, records and tables written;
 * **re-import, one revised**: the same with the cache filled and one
@@ -74,10 +74,10 @@ def write_campaign(root: Path, count: int, seed: int = 11) -> list[str]:
             path.write_text(json.dumps(bs.as_dict()))
             files.append(path)
             calcs.append({"layers": key, "bands": path.name, "vacuum_level_ev": 0.0})
-        (folder / "eps.json").write_text(json.dumps({"dielectric_format": "flakelight-dielectric/1", "frame": "layer",
+        (folder / "eps.json").write_text(json.dumps({"dielectric_format": "lamellume-dielectric/1", "frame": "layer",
                                                      "electronic": [[14.0, 0, 0], [0, 14.0, 0], [0, 0, 6.0]]}))
         (folder / "calcset.json").write_text(json.dumps({
-            "calcset_format": "flakelight-calcset/1", "provenance": mc.SYNTHETIC, "calculations": calcs,
+            "calcset_format": "lamellume-calcset/1", "provenance": mc.SYNTHETIC, "calculations": calcs,
             "dielectric": {"file": "eps.json"}, "fit_radius_per_angstrom": 0.05}))
     return files
 
@@ -90,7 +90,7 @@ def main(argv=None) -> int:
 
     from monty.serialization import loadfn
 
-    from flakelight import importer
+    from lamellume import importer
 
     tmp = Path(tempfile.mkdtemp(prefix="bench-import-"))
     root = args.keep or tmp / "campaign"

@@ -15,7 +15,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "workflow"))
 
-from flakelight import keldysh as K  # noqa: E402
+from lamellume import keldysh as K  # noqa: E402
 
 N_COMPOUNDS = 100_000
 KAPPAS = np.array([1.0, 2.45, 4.0])  # suspended, SiO2-like substrate, hBN-encapsulated-like

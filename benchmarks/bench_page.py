@@ -24,7 +24,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path[:0] = [str(ROOT / "workflow"), str(ROOT / "tests" / "unit")]
 
 import page_text  # noqa: E402  (the fixed settings and manifest of the page tests)
-from flakelight import report  # noqa: E402
+from lamellume import report  # noqa: E402
 
 REPEATS = 3
 
@@ -74,7 +74,7 @@ def time_build(module, ranked, long) -> tuple[float, int]:
 
 def module_at(rev: str):
     """report.py of a git revision, importable beside today's library."""
-    text = subprocess.run(["git", "-C", str(ROOT), "show", f"{rev}:workflow/flakelight/report.py"],
+    text = subprocess.run(["git", "-C", str(ROOT), "show", f"{rev}:workflow/lamellume/report.py"],
                           check=True, capture_output=True, text=True).stdout
     path = Path(tempfile.mkdtemp()) / f"report_{rev}.py"
     path.write_text(text, encoding="utf-8")

@@ -13,7 +13,7 @@ For each campaign size N it
    directory, including the Keldysh table build;
 3. times a no-op re-run, then a re-run after revising one record (one mass changed);
 4. times the bare lower bound: one Python process that builds the Keldysh table,
-   calls ``flakelight.pipeline.run_shard`` on all records at once, propagates the
+   calls ``lamellume.pipeline.run_shard`` on all records at once, propagates the
    uncertainties (when rule rank_candidates takes them as input) and then calls
    ``pipeline.run_rank`` (no Snakemake, no sharding);
 5. records peak memory two ways: the largest single process (``/usr/bin/time -v``,
@@ -51,7 +51,7 @@ BARE = r"""
 import sys, time, json
 from pathlib import Path
 sys.path.insert(0, sys.argv[1])
-from flakelight import io, keldysh, pipeline
+from lamellume import io, keldysh, pipeline
 cfg = json.loads(Path(sys.argv[2]).read_text())
 work = Path(sys.argv[3])
 entries = sorted(str(p) for p in (Path(cfg["campaign"]) / "entries").glob("*.json"))
@@ -71,7 +71,7 @@ outputs = {n: str(work / "tables" / f"{n}.parquet") for n in ("rejects", "wide")
 outputs.update(rejects_csv=str(work / "tables" / "rejects.csv"), shortlist=str(work / "shortlist.csv"))
 pipeline.run_rank(inputs, outputs, {k: cfg[k] for k in ("survival", "ranking", "environments")},
                   io.canonical_json_hash(cfg)[:16])
-from flakelight import assemble
+from lamellume import assemble
 assemble.run_join(inputs, {n: str(work / "tables" / f"{n}.parquet") for n in ("long", "entries", "valleys")},
                   io.canonical_json_hash(cfg)[:16])
 t3 = time.perf_counter()

@@ -1,4 +1,4 @@
-"""Time flakelight.structure.analyse_cif_text per structure and bonding criterion.
+"""Time lamellume.structure.analyse_cif_text per structure and bonding criterion.
 
 Run: ``.venv/bin/python benchmarks/bench_structure.py [repeats]`` from the
 repository root. Prints the mean and minimum wall time per call (CIF parsing,
@@ -21,7 +21,7 @@ sys.path.insert(0, str(ROOT / "tests" / "unit"))
 from pymatgen.io.cif import CifWriter  # noqa: E402
 
 import test_structure as cases  # noqa: E402
-from flakelight.structure import BONDING_CRITERIA, analyse_cif_text  # noqa: E402
+from lamellume.structure import BONDING_CRITERIA, analyse_cif_text  # noqa: E402
 
 
 def _entries():

@@ -5,11 +5,11 @@ root. Steps:
 
 1. generate 10,000 invented records with ``inputs/make_campaign.py --count 10000
    --no-broken --cif-fraction 0`` into a temporary folder;
-2. normalise them with ``flakelight.pipeline.run_shard`` (one shard; timed
+2. normalise them with ``lamellume.pipeline.run_shard`` (one shard; timed
    separately, not part of the propagation);
 3. in a fresh child process (so the peak resident memory belongs to the
    propagation, not to step 2), read the normalised entries/valleys tables and
-   run ``flakelight.uncertainty.propagate_uncertainty`` with 1,000 samples;
+   run ``lamellume.uncertainty.propagate_uncertainty`` with 1,000 samples;
    report wall time, the resident-memory high-water mark of the child
    (``VmHWM`` of /proc/self/status, reset after loading the inputs by writing
    5 to /proc/self/clear_refs; ``resource.getrusage().ru_maxrss`` where /proc
@@ -51,7 +51,7 @@ def _table_path(work: Path) -> Path:
     cached = ROOT / "results" / "cache" / "keldysh_table.npz"
     if cached.exists():
         return cached
-    from flakelight import io, keldysh
+    from lamellume import io, keldysh
 
     path = work / "keldysh_table.npz"
     if not path.exists():
@@ -61,7 +61,7 @@ def _table_path(work: Path) -> Path:
 
 def prepare(work: Path, count: int) -> tuple[Path, Path]:
     """Generate and normalise the campaign; return (entries.parquet, valleys.parquet)."""
-    from flakelight import pipeline
+    from lamellume import pipeline
 
     entries, valleys = work / "norm" / "entries.parquet", work / "norm" / "valleys.parquet"
     if entries.exists() and valleys.exists():
@@ -103,7 +103,7 @@ def child(entries_path: str, valleys_path: str, table_path: str, samples: int) -
     """Run one propagation and print a JSON line with the measurements."""
     import tracemalloc
 
-    from flakelight import io, keldysh, uncertainty
+    from lamellume import io, keldysh, uncertainty
 
     cfg = _config()
     settings = {k: cfg[k] for k in ("uncertainty", "survival", "ranking", "layers", "monolayer", "environments")}

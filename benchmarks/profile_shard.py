@@ -47,7 +47,7 @@ def main() -> None:
     parser.add_argument("--size", type=int, default=2500)
     parser.add_argument("--out", type=Path, default=ROOT / "benchmarks" / "out" / "profile")
     args = parser.parse_args()
-    from flakelight import io, keldysh, pipeline
+    from lamellume import io, keldysh, pipeline
 
     out = args.out.resolve()
     shutil.rmtree(out, ignore_errors=True)
@@ -77,7 +77,7 @@ def main() -> None:
     print("|---|---|---|")
     for stage, (module, function) in STAGES.items():
         cum = sum(v[3] for (path, _, name), v in stats.items()
-                  if name == function and path.endswith(f"flakelight/{module}"))
+                  if name == function and path.endswith(f"lamellume/{module}"))
         print(f"| {stage} | {cum:.2f} | {cum / total:.0%} |")
     print(f"| whole job | {total:.2f} | 100% |")
 

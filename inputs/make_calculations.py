@@ -211,9 +211,9 @@ def write_demo(campaign: Path) -> list[str]:
             d = band_structure_dict(s, k, labels, hex_bands, p, shift_ev=spec["shift"])
             write_json(d, folder / f"bands_{key}.json")
             calcs.append({"layers": key, "bands": f"bands_{key}.json", "vacuum_level_ev": spec["shift"]})
-        write_json({"dielectric_format": "flakelight-dielectric/1", "frame": "crystal", "electronic": spec["eps"]},
+        write_json({"dielectric_format": "lamellume-dielectric/1", "frame": "crystal", "electronic": spec["eps"]},
                    folder / "dielectric.json")
-        write_json({"calcset_format": "flakelight-calcset/1", "formula": f"Hx{ident[-1]}Yq2 (invented)",
+        write_json({"calcset_format": "lamellume-calcset/1", "formula": f"Hx{ident[-1]}Yq2 (invented)",
                     "provenance": SYNTHETIC, "calculations": calcs, "dielectric": {"file": "dielectric.json"},
                     "fit_radius_per_angstrom": 0.04}, folder / "calcset.json")
         ids.append(ident)
@@ -226,9 +226,9 @@ def write_demo(campaign: Path) -> list[str]:
             d = band_structure_dict(s, k, {"\\Gamma": [0, 0, 0]}, rect_bands, p, line=False)
             write_json(d, folder / f"bands_{key}.json")
             calcs.append({"layers": key, "bands": f"bands_{key}.json", "vacuum_level_ev": 0.0})
-        write_json({"dielectric_format": "flakelight-dielectric/1", "frame": "layer", "electronic": spec["eps"]},
+        write_json({"dielectric_format": "lamellume-dielectric/1", "frame": "layer", "electronic": spec["eps"]},
                    folder / "dielectric.json")
-        write_json({"calcset_format": "flakelight-calcset/1", "formula": "RcZt (invented)", "provenance": SYNTHETIC,
+        write_json({"calcset_format": "lamellume-calcset/1", "formula": "RcZt (invented)", "provenance": SYNTHETIC,
                     "calculations": calcs, "dielectric": {"file": "dielectric.json"}, "fit_radius_per_angstrom": 0.15},
                    folder / "calcset.json")
         ids.append(ident)

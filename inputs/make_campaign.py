@@ -134,7 +134,7 @@ def make_record(rng: np.random.Generator, ident: str, with_cif: bool) -> dict:
     for valley in valleys:  # no random draw: the stream of the invented numbers stays as it was
         valley["degeneracy"] = DEGENERACY[valley["label"]]
     record: dict = {
-        "record_format": "flakelight-record/1",
+        "record_format": "lamellume-record/1",
         "id": ident,
         "formula": f"Lm{rng.integers(1, 3)}Xq{rng.integers(2, 4)} (invented)",
         "provenance": SYNTHETIC_NOTE,
@@ -199,7 +199,7 @@ def _valley(label, band, one, bulk, mass, **extra):
 
 def showcase_records() -> dict[str, dict]:
     """Hand-made invented compounds, one per brightness case the page explains (no random draws)."""
-    base = {"record_format": "flakelight-record/1", "provenance": SYNTHETIC_NOTE + "; hand-made showcase",
+    base = {"record_format": "lamellume-record/1", "provenance": SYNTHETIC_NOTE + "; hand-made showcase",
             "energy_reference": "vacuum level", "layer_spacing_angstrom": 6.4, "inplane_lattice_angstrom": 3.3,
             "dielectric": {"frame": "layer", "electronic": _tensor_layer(13.0, 6.0, 0.0),
                            "relative_uncertainty": 0.1},

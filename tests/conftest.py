@@ -8,7 +8,7 @@ from pathlib import Path
 
 import pytest
 
-from flakelight import contract, io
+from lamellume import contract, io
 
 REPO = Path(__file__).resolve().parents[1]
 DATA = Path(__file__).resolve().parent / "unit" / "data"

@@ -11,7 +11,7 @@ import numpy as np
 import sympy as sp
 from scipy import constants as c
 
-# hbar^2 / (2 m_e) in eV A^2 straight from CODATA (scipy.constants), not from flakelight.units.
+# hbar^2 / (2 m_e) in eV A^2 straight from CODATA (scipy.constants), not from lamellume.units.
 C_EV_A2 = c.hbar**2 / (2 * c.m_e) / c.e / c.angstrom**2
 
 

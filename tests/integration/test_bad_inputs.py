@@ -4,7 +4,7 @@ The corpus comes from tests/data/bad_inputs/make_corpus.py (written into a
 temporary campaign at test time; the > 2 MB record, named pipes, sockets and
 dangling links too). Two layers of checks:
 
-* in process, one shard over everything: :func:`flakelight.pipeline.run_shard`
+* in process, one shard over everything: :func:`lamellume.pipeline.run_shard`
   screens a campaign of eight valid synthetic records plus the whole corpus as
   one shard. Per case: the record's file has a reject row with the expected
   field, reason and stage. And every valid record is screened with exactly the
@@ -32,7 +32,7 @@ import pyarrow.parquet as pq
 import pytest
 import yaml
 
-from flakelight import io, keldysh, pipeline, sharding
+from lamellume import io, keldysh, pipeline, sharding
 
 REPO = Path(__file__).resolve().parents[2]
 SNAKEMAKE = [sys.executable, "-m", "snakemake"]
@@ -44,7 +44,7 @@ N_VALID = 8
 
 def _load_corpus_module():
     path = REPO / "tests" / "data" / "bad_inputs" / "make_corpus.py"
-    spec = importlib.util.spec_from_file_location("flakelight_bad_input_corpus", path)
+    spec = importlib.util.spec_from_file_location("lamellume_bad_input_corpus", path)
     module = importlib.util.module_from_spec(spec)
     sys.modules[spec.name] = module  # dataclasses look the module up while the class is built
     spec.loader.exec_module(module)
@@ -253,7 +253,7 @@ def empty_run(tmp_path_factory):
 def test_a_screen_of_nothing_stops_with_a_reason(empty_run):
     work, res = empty_run
     assert res.returncode != 0
-    assert "flakelight: nothing was screened: all 1 record files were rejected" in res.stderr, res.stderr[-3000:]
+    assert "lamellume: nothing was screened: all 1 record files were rejected" in res.stderr, res.stderr[-3000:]
     assert not (work / "results" / "tables").exists()
     assert not (work / "results" / "shortlist.csv").exists()
 

@@ -6,7 +6,7 @@ Snakemake command line twice -- the second time after revising one record and
 deleting another, so the change report has something to show -- and the page is
 then driven with Selenium: console errors, table rows, plots, filter, toggle,
 sort, tooltips, the injection attempts, and a full-page screenshot kept as a
-test artifact (in $FLAKELIGHT_ARTIFACTS when set, else pytest's tmp_path; the
+test artifact (in $LAMELLUME_ARTIFACTS when set, else pytest's tmp_path; the
 path is printed).
 
 Needs: Debian packages ``chromium`` and ``chromium-driver`` (/usr/bin/chromium,
@@ -33,8 +33,8 @@ import yaml
 ROOT = Path(__file__).resolve().parents[2]
 PWN = ['<script>window.__pwned=1</script>', '<img src=x onerror="window.__pwned=1">']
 HOSTILE_ID = "hostile-0001"
-CHROMIUM = os.environ.get("FLAKELIGHT_CHROMIUM", "/usr/bin/chromium")
-CHROMEDRIVER = os.environ.get("FLAKELIGHT_CHROMEDRIVER", "/usr/bin/chromedriver")
+CHROMIUM = os.environ.get("LAMELLUME_CHROMIUM", "/usr/bin/chromium")
+CHROMEDRIVER = os.environ.get("LAMELLUME_CHROMEDRIVER", "/usr/bin/chromedriver")
 
 pytestmark = pytest.mark.slow
 
@@ -112,7 +112,7 @@ def driver(run):
     from selenium.webdriver.chrome.service import Service
 
     os.environ.setdefault("SE_OFFLINE", "true")  # never let Selenium Manager go online
-    profile = tempfile.mkdtemp(prefix="flakelight-chromium-")
+    profile = tempfile.mkdtemp(prefix="lamellume-chromium-")
     options = webdriver.ChromeOptions()
     options.binary_location = CHROMIUM
     for flag in ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
@@ -269,7 +269,7 @@ def test_change_report_lists_the_revision(driver, run):
 
 
 def test_screenshot_artifact(driver, tmp_path):
-    folder = Path(os.environ.get("FLAKELIGHT_ARTIFACTS") or tmp_path)
+    folder = Path(os.environ.get("LAMELLUME_ARTIFACTS") or tmp_path)
     folder.mkdir(parents=True, exist_ok=True)
     driver.execute_script("window.scrollTo(0, 0);")
     height = driver.execute_script("return document.documentElement.scrollHeight")

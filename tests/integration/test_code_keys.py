@@ -1,10 +1,10 @@
 """No module can change a result without changing the key that guards it.
 
 Cache keys and rule code inputs are derived from the import graph
-(:mod:`flakelight.provenance`). Two checks that do not trust that derivation:
+(:mod:`lamellume.provenance`). Two checks that do not trust that derivation:
 
 * every job of a real workflow run is traced: a ``sitecustomize`` module on the
-  jobs' ``PYTHONPATH`` writes down, as the job leaves, every ``flakelight`` module
+  jobs' ``PYTHONPATH`` writes down, as the job leaves, every ``lamellume`` module
   and adapter helper the process actually loaded. Each of those files must be
   among the code inputs Snakemake holds for the job's rule;
 * for every library module the shard job loaded, a copy of the library where that
@@ -26,11 +26,11 @@ from pathlib import Path
 import pytest
 import yaml
 
-from flakelight import provenance
+from lamellume import provenance
 
 REPO = Path(__file__).resolve().parents[2]
 ADAPTERS = REPO / "workflow" / "scripts"
-LIBRARY = REPO / "workflow" / "flakelight"
+LIBRARY = REPO / "workflow" / "lamellume"
 
 pytestmark = pytest.mark.slow
 
@@ -41,11 +41,11 @@ TRACER = textwrap.dedent('''
     _exit = os._exit
 
     def _dump():
-        folder = os.environ.get("FLAKELIGHT_TRACE_DIR")
+        folder = os.environ.get("LAMELLUME_TRACE_DIR")
         if not folder or not sys.argv or not sys.argv[0].endswith(".py"):
             return
         files = sorted({getattr(m, "__file__", None) or "" for name, m in list(sys.modules.items())
-                        if name == "flakelight" or name.startswith("flakelight.") or name == "adapter_args"} - {""})
+                        if name == "lamellume" or name.startswith("lamellume.") or name == "adapter_args"} - {""})
         with open(os.path.join(folder, f"{os.getpid()}.json"), "w") as fh:
             json.dump({"script": os.path.abspath(sys.argv[0]), "files": files}, fh)
 
@@ -77,7 +77,7 @@ def traces(tmp_path_factory) -> list[dict]:
     trace_dir = work / "trace"
     trace_dir.mkdir()
     env = {**os.environ, "PYTHONPATH": os.pathsep.join([str(site), os.environ.get("PYTHONPATH", "")]),
-           "FLAKELIGHT_TRACE_DIR": str(trace_dir)}
+           "LAMELLUME_TRACE_DIR": str(trace_dir)}
     res = subprocess.run([sys.executable, "-m", "snakemake", "-s", str(REPO / "Snakefile"), "--directory", str(work),
                           "--configfile", str(work / "config.yaml"), "--cores", "2"],
                          capture_output=True, text=True, cwd=work, env=env, timeout=900, check=False)
@@ -110,14 +110,14 @@ def test_structure_analysis_was_exercised(traces):
 def test_any_change_to_a_module_the_shard_loads_changes_its_cache_key(traces, tmp_path):
     shard = next(t for t in traces if Path(t["script"]).stem == "screen_shard")
     loaded = {Path(p).stem for p in shard["files"] if Path(p).parent.resolve() == LIBRARY.resolve()}
-    base = tmp_path / "base" / "flakelight"
+    base = tmp_path / "base" / "lamellume"
     shutil.copytree(LIBRARY, base, ignore=shutil.ignore_patterns("__pycache__"))
     shutil.copytree(REPO / "workflow" / "schemas", base.parent / "schemas")
     reference = provenance.code_version("pipeline", base)
     assert reference == provenance.code_version("pipeline", LIBRARY)
     unchanged = []
     for module in sorted(p.stem for p in LIBRARY.glob("*.py")):
-        copy = tmp_path / module / "flakelight"
+        copy = tmp_path / module / "lamellume"
         shutil.copytree(base, copy)
         shutil.copytree(base.parent / "schemas", copy.parent / "schemas")
         path = copy / f"{module}.py"
@@ -130,7 +130,7 @@ def test_any_change_to_a_module_the_shard_loads_changes_its_cache_key(traces, tm
 
 
 def test_a_schema_change_changes_every_key(tmp_path):
-    library = tmp_path / "workflow" / "flakelight"
+    library = tmp_path / "workflow" / "lamellume"
     shutil.copytree(LIBRARY, library, ignore=shutil.ignore_patterns("__pycache__"))
     shutil.copytree(REPO / "workflow" / "schemas", library.parent / "schemas")
     before = provenance.code_version("pipeline", library)
@@ -142,8 +142,8 @@ def test_a_schema_change_changes_every_key(tmp_path):
 
 def test_no_hand_kept_module_lists_remain():
     """The old tuples of module names (SHARD_MODULES, PROPAGATION_MODULES) are gone for good."""
-    import flakelight
+    import lamellume
 
-    assert not [name for name in dir(flakelight) if name.endswith("_MODULES")]
-    for path in list((REPO / "workflow" / "rules").glob("*.smk")) + [REPO / "workflow" / "flakelight" / "pipeline.py"]:
+    assert not [name for name in dir(lamellume) if name.endswith("_MODULES")]
+    for path in list((REPO / "workflow" / "rules").glob("*.smk")) + [REPO / "workflow" / "lamellume" / "pipeline.py"]:
         assert "_MODULES" not in path.read_text(), path

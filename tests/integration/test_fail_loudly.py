@@ -62,7 +62,7 @@ def test_a_successful_run_ends_with_the_console_summary(finished):
     work, res = finished
     text = res.stdout + res.stderr
     # 4 valid records plus the generator's 7 deliberately broken ones
-    assert "flakelight: 11 record files read, 4 screened, 7 rejected" in text, text[-3000:]
+    assert "lamellume: 11 record files read, 4 screened, 7 rejected" in text, text[-3000:]
     assert "candidates." in text
     assert "rejects: results/tables/rejects.csv; first reasons:" in text
     assert "    broken-" in text  # a reason names its file
@@ -81,7 +81,7 @@ def test_a_missing_or_empty_campaign_stops_before_any_job(finished, setup, reaso
     before = digests(work)
     res = snakemake(work, "--config", "campaign=elsewhere")
     assert res.returncode != 0
-    lines = [line for line in (res.stdout + res.stderr).splitlines() if line.startswith("flakelight:")]
+    lines = [line for line in (res.stdout + res.stderr).splitlines() if line.startswith("lamellume:")]
     assert len(lines) == 1 and reason in lines[0] and "'elsewhere'" in lines[0], res.stdout + res.stderr
     assert "Execute" not in res.stdout + res.stderr  # no job ran
     assert digests(work) == before
@@ -113,7 +113,7 @@ def test_a_run_that_screens_nothing_fails_and_keeps_the_previous_results(finishe
     res = snakemake(work, "--config", "campaign=all-bad")
     text = res.stdout + res.stderr
     assert res.returncode != 0
-    lines = [line for line in text.splitlines() if line.startswith("flakelight: nothing was screened")]
+    lines = [line for line in text.splitlines() if line.startswith("lamellume: nothing was screened")]
     assert len(lines) == 1, text[-3000:]
     assert "all 2 record files were rejected" in lines[0] and "one.json" in lines[0]
     assert digests(work) == before

@@ -309,5 +309,5 @@ def test_every_written_column_has_unit_and_description(golden_run):
             meta = field.metadata or {}
             if not meta.get(b"unit") or not meta.get(b"description"):
                 missing.append(f"{path.relative_to(results)}: {field.name}")
-    assert not missing, "columns without unit or description (declare them in flakelight.tables):\n" + \
+    assert not missing, "columns without unit or description (declare them in lamellume.tables):\n" + \
         "\n".join(missing)

@@ -57,9 +57,9 @@ def _calculations(campaign: Path) -> None:
         s = mc.hex_structure(key, a=A_HEX, c_bulk=C_HEX)
         _write(folder, f"bands_{key}.json", mc.band_structure_dict(s, k, labels, mc.hex_bands, p, shift_ev=-2.1))
         calcs.append({"layers": key, "bands": f"bands_{key}.json", "vacuum_level_ev": -2.1})
-    _write(folder, "eps.json", {"dielectric_format": "flakelight-dielectric/1", "frame": "layer",
+    _write(folder, "eps.json", {"dielectric_format": "lamellume-dielectric/1", "frame": "layer",
                                 "electronic": EPS_HEX})
-    _write(folder, "calcset.json", {"calcset_format": "flakelight-calcset/1", "provenance": mc.SYNTHETIC,
+    _write(folder, "calcset.json", {"calcset_format": "lamellume-calcset/1", "provenance": mc.SYNTHETIC,
                                     "calculations": calcs, "dielectric": {"file": "eps.json"},
                                     "fit_radius_per_angstrom": 0.03})
     folder = campaign / "calculations" / "calc-rect"
@@ -70,9 +70,9 @@ def _calculations(campaign: Path) -> None:
                                    {"\\Gamma": [0, 0, 0]}, mc.rect_bands, p, line=False)
         _write(folder, f"bands_{key}.json", d)
         calcs.append({"layers": key, "bands": f"bands_{key}.json", "vacuum_level_ev": 0.0})
-    _write(folder, "eps.json", {"dielectric_format": "flakelight-dielectric/1", "frame": "layer",
+    _write(folder, "eps.json", {"dielectric_format": "lamellume-dielectric/1", "frame": "layer",
                                 "electronic": EPS_RECT})
-    _write(folder, "calcset.json", {"calcset_format": "flakelight-calcset/1", "provenance": mc.SYNTHETIC,
+    _write(folder, "calcset.json", {"calcset_format": "lamellume-calcset/1", "provenance": mc.SYNTHETIC,
                                     "calculations": calcs, "dielectric": {"file": "eps.json"},
                                     "fit_radius_per_angstrom": 0.06})
     broken = campaign / "calculations" / "calc-broken"
@@ -99,7 +99,7 @@ def _hand_records(campaign: Path) -> None:
                {"label": "K", "band": "valence", "edge_ev": edges["Kv"], "mass": {"isotropic_me": m_kv}},
                {"label": "K", "band": "conduction", "edge_ev": edges["Kc"], "mass": {"isotropic_me": m_kc}}]
     _write(campaign / "entries", "hand-hexa.json", {
-        "record_format": "flakelight-record/1", "id": "hand-hexa", "energy_reference": "vacuum level",
+        "record_format": "lamellume-record/1", "id": "hand-hexa", "energy_reference": "vacuum level",
         "layer_spacing_angstrom": C_HEX, "inplane_lattice_angstrom": A_HEX,
         "dielectric": {"frame": "layer", "electronic": EPS_HEX}, "valleys": valleys})
     rect = []
@@ -110,7 +110,7 @@ def _hand_records(campaign: Path) -> None:
         rect.append({"label": "Gamma", "band": band, "edge_ev": {k: p[key] for k, p in RECT.items()},
                      "mass": {"principal_me": [float(m[0]), float(m[1])], "angle_deg": 0.0}})
     _write(campaign / "entries", "hand-rect.json", {
-        "record_format": "flakelight-record/1", "id": "hand-rect", "energy_reference": "vacuum level",
+        "record_format": "lamellume-record/1", "id": "hand-rect", "energy_reference": "vacuum level",
         "layer_spacing_angstrom": 5.5, "inplane_lattice_angstrom": 3.0,
         "dielectric": {"frame": "layer", "electronic": EPS_RECT}, "valleys": rect})
 
@@ -175,7 +175,7 @@ def test_revised_calculation_reimports_its_compound_alone(run):
     d["efermi"] += 1e-3  # a revision that leaves the physics unchanged
     path.write_text(json.dumps(d))
     _snakemake(run)
-    from flakelight.sharding import shard_name, shard_of_file
+    from lamellume.sharding import shard_name, shard_of_file
 
     shard = shard_name(shard_of_file("calc-rect.json", 2))
     log = (run / "results" / "logs" / "import_calculations" / f"{shard}.log").read_text()

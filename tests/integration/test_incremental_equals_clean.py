@@ -21,11 +21,11 @@ content (campaign names and bytes, config, workflow sources, history), and the c
 run's Keldysh table is built once per digest of the sources its job imports (the import
 graph, which tests/integration/test_code_keys.py checks against the modules it loads).
 
-Steps: ``FLAKELIGHT_DIFF_STEPS``; by default 12 (each step runs the workflow twice, a few
+Steps: ``LAMELLUME_DIFF_STEPS``; by default 12 (each step runs the workflow twice, a few
 seconds on an idle 2-core machine, 25-60 s on a loaded one); CI runs the same derandomised
-12-step walk that was verified before landing. A longer run, e.g. ``FLAKELIGHT_DIFF_STEPS=400``,
+12-step walk that was verified before landing. A longer run, e.g. ``LAMELLUME_DIFF_STEPS=400``,
 explores more. The sequence is the same on every run
-(derandomised) unless ``FLAKELIGHT_DIFF_SEED`` is set to a number.
+(derandomised) unless ``LAMELLUME_DIFF_SEED`` is set to a number.
 """
 
 from __future__ import annotations
@@ -48,13 +48,13 @@ import yaml
 from hypothesis import HealthCheck, Phase, assume, given, seed, settings
 from hypothesis import strategies as st
 
-from flakelight import provenance
+from lamellume import provenance
 
 REPO = Path(__file__).resolve().parents[2]
 #: 12 steps by default, in CI too: the 50-step walk the issue asks for has not yet been
-#: verified before landing (a failing CI lands nothing); FLAKELIGHT_DIFF_STEPS=50 runs it.
-STEPS = int(os.environ.get("FLAKELIGHT_DIFF_STEPS", "12"))
-SEED = os.environ.get("FLAKELIGHT_DIFF_SEED")
+#: verified before landing (a failing CI lands nothing); LAMELLUME_DIFF_STEPS=50 runs it.
+STEPS = int(os.environ.get("LAMELLUME_DIFF_STEPS", "12"))
+SEED = os.environ.get("LAMELLUME_DIFF_SEED")
 POOL_SIZE = 12
 START_RECORDS = 7
 SHARDS = 1  # one shard job per run: every process costs a second on 2 cores
@@ -250,7 +250,7 @@ class Campaign:
             self.write_config(self.inc)
             return f"config {section}.{key} = {self.config[section][key]!r}"
         if op == "code":
-            library = self.checkout / "workflow" / "flakelight"
+            library = self.checkout / "workflow" / "lamellume"
             modules = sorted(p.name for p in library.glob("*.py"))
             name = choose(modules)
             path = library / name
@@ -276,7 +276,7 @@ class Campaign:
     def table_key(self) -> str:
         """Digest of the sources the Keldysh table job depends on. Taken from the import graph
         (test_code_keys.py checks it against the modules the job really loads)."""
-        library = self.checkout / "workflow" / "flakelight"
+        library = self.checkout / "workflow" / "lamellume"
         provenance._sources.cache_clear()  # the library copy changes between steps
         files = provenance.adapter_files(self.checkout / "workflow" / "scripts" / "keldysh_table.py", library)
         return hashlib.sha256(b"".join(Path(f).read_bytes() + b"\0" for f in files)).hexdigest()

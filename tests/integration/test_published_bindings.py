@@ -32,7 +32,7 @@ def _record(ident: str, mu: float, r0: float) -> dict:
     """A minimal valid record: direct K gap, isotropic masses 2 mu, the published r0 (invented edges)."""
     mass = {"isotropic_me": 2.0 * mu, "perpendicular_me": 8.0 * mu}
     return {
-        "record_format": "flakelight-record/1",
+        "record_format": "lamellume-record/1",
         "id": ident,
         "formula": "test row from a published table",
         "provenance": "test input built from published model parameters; band edges invented",

@@ -38,8 +38,8 @@ import pyarrow.parquet as pq
 import pytest
 import yaml
 
-from flakelight import pipeline, sharding
-from flakelight.ranking import TEMPERATURE_COLUMNS
+from lamellume import pipeline, sharding
+from lamellume.ranking import TEMPERATURE_COLUMNS
 
 REPO = Path(__file__).resolve().parents[2]
 SNAKEMAKE = [sys.executable, "-m", "snakemake"]

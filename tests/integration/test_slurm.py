@@ -3,7 +3,7 @@
 The cluster check installs Debian packages, starts daemons as root and takes about
 three minutes, so it runs only when asked for:
 
-    FLAKELIGHT_SLURM=1 .venv/bin/python -m pytest tests/integration/test_slurm.py
+    LAMELLUME_SLURM=1 .venv/bin/python -m pytest tests/integration/test_slurm.py
 
 It wraps tests/integration/slurm/run_slurm_check.sh; CI calls that script directly.
 The profile checks below are cheap and always run.
@@ -56,10 +56,10 @@ def test_local_profile_is_local():
 
 
 @pytest.mark.slow
-@pytest.mark.skipif(os.environ.get("FLAKELIGHT_SLURM") != "1",
-                    reason="set FLAKELIGHT_SLURM=1 to run the demo on a local SLURM cluster")
+@pytest.mark.skipif(os.environ.get("LAMELLUME_SLURM") != "1",
+                    reason="set LAMELLUME_SLURM=1 to run the demo on a local SLURM cluster")
 def test_demo_on_slurm_matches_local_run():
-    env = {**os.environ, "FLAKELIGHT_VENV": sys.prefix}
+    env = {**os.environ, "LAMELLUME_VENV": sys.prefix}
     result = subprocess.run(["bash", str(CHECK)], env=env, capture_output=True, text=True,
                             timeout=900)
     assert result.returncode == 0, result.stdout[-6000:] + result.stderr[-3000:]

@@ -12,7 +12,7 @@ import pandas as pd
 import pytest
 import yaml
 
-from flakelight import io
+from lamellume import io
 
 REPO = Path(__file__).resolve().parents[2]
 SNAKEMAKE = [sys.executable, "-m", "snakemake"]
@@ -100,12 +100,12 @@ def test_ci_runs_the_readme_test_command():
 def test_page_templates_are_code_inputs_of_the_summary(small_run):
     # Editing a template must re-run the page: the files report.py reads (its DATA_FILES) are
     # declared inputs of write_summary, as Snakemake's own dry run lists them.
-    from flakelight import report
+    from lamellume import report
 
     work, _ = small_run
     res = snakemake(work, "-n", "--forcerun", "write_summary", "results/summary.html")
     block = res.stdout.split("rule write_summary:")[1]
     declared = block.split("input:")[1].split("\n")[0]
-    library = REPO / "workflow" / "flakelight"
+    library = REPO / "workflow" / "lamellume"
     for name in report.DATA_FILES:
         assert str(library / name) in declared, name

@@ -6,7 +6,7 @@ holds the visible text of the page that commit's ``report.build_html`` wrote for
 :func:`reference_inputs`; ``test_report.py`` renders the same inputs with today's
 code and compares section by section. Written once by::
 
-    git show ba2d14c:workflow/flakelight/report.py > /tmp/report_ba2d14c.py
+    git show ba2d14c:workflow/lamellume/report.py > /tmp/report_ba2d14c.py
     .venv/bin/python tests/unit/page_text.py /tmp/report_ba2d14c.py
 
 Do not regenerate it with the current code: it is the page of that commit. A

@@ -1,4 +1,4 @@
-"""The Arrow-only join of the final long table (flakelight.assemble)."""
+"""The Arrow-only join of the final long table (lamellume.assemble)."""
 
 from __future__ import annotations
 
@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 from scipy import constants as sc
 
-from flakelight import assemble, io, ranking
+from lamellume import assemble, io, ranking
 
 SETTINGS = {"survival": {"temperature_k": 77.0, "pair_density_per_cm2": 1e12, "pair_density_per_cm3": 1e17, "wannier_ratio": 2.0}}
 REPO = Path(__file__).resolve().parents[2]
@@ -89,7 +89,7 @@ def test_unknown_compound_gets_no_lattice():
 
 def test_join_module_imports_no_pandas():
     # source: common practice -- the join job starts fast because it never loads pandas
-    code = ("import sys; sys.path.insert(0, 'workflow'); import flakelight.assemble; "
+    code = ("import sys; sys.path.insert(0, 'workflow'); import lamellume.assemble; "
             "print('pandas' in sys.modules)")
     res = subprocess.run([sys.executable, "-c", code], cwd=REPO, capture_output=True, text=True, check=True)
     assert res.stdout.strip() == "False"

@@ -1,4 +1,4 @@
-"""Tests for flakelight.attribution (Saltelli 2010 first-order, Jansen 1999 total indices).
+"""Tests for lamellume.attribution (Saltelli 2010 first-order, Jansen 1999 total indices).
 
 Every expected value is a closed form derived in the comment beside it (or in
 the docstring of the helper that computes it) and evaluated with numpy/scipy
@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from flakelight import attribution as A
+from lamellume import attribution as A
 
 
 def _draws(rng, shape_lead, n, d, k=2):

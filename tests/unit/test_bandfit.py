@@ -1,4 +1,4 @@
-"""Tests of flakelight.bandfit: effective-mass tensors from sampled band energies.
+"""Tests of lamellume.bandfit: effective-mass tensors from sampled band energies.
 
 Synthetic bands are built here from E = E0 + hbar^2/(2 m_e) (k - k0)^T W (k - k0)
 with hbar, m_e and e typed below from CODATA (not the library's constant), or
@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 from scipy.spatial.transform import Rotation
 
-from flakelight.bandfit import MassFit, MassFitError, fit_effective_mass, fit_effective_masses
+from lamellume.bandfit import MassFit, MassFitError, fit_effective_mass, fit_effective_masses
 
 # CODATA 2018 recommended values (E. Tiesinga et al., Rev. Mod. Phys. 93, 025010 (2021)):
 HBAR_J_S = 1.054571817e-34  # reduced Planck constant (exact since the 2019 SI: h / 2 pi)
@@ -315,7 +315,7 @@ def test_in_plane_axes_match_dielectric_rotation():
     # The fitted in-plane tensor is expressed in the same in-plane axes as the dielectric tensor:
     # an in-plane direction u carrying both the light mass and the larger permittivity must come
     # out as the same principal axis in both.
-    from flakelight.dielectric import to_layer_frame
+    from lamellume.dielectric import to_layer_frame
 
     normal = np.array([0.3, -0.5, 0.8]) / np.linalg.norm([0.3, -0.5, 0.8])
     q = _frame_with_normal(normal, spin_deg=33.0)

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from scipy import integrate
 
-from flakelight import brightness as br
+from lamellume import brightness as br
 
 
 @pytest.mark.parametrize("gap, p2", [(1.5, 20.0), (2.4, 3.2), (0.5, 10.0)])
@@ -29,7 +29,7 @@ def test_kane_energy_massive_dirac_mos2():
     # Massive Dirac model of MoS2 (Xiao et al., PRL 108, 196802 (2012); a t = 3.51 eV A,
     # Delta = 1.66 eV, from memory): m_c = m_v = Delta hbar^2 / (2 (a t)^2), and
     # E_P = 2 m_e (a t)^2 / hbar^2 = (a t)^2 / (hbar^2 / 2 m_e).
-    from flakelight.units import HBAR2_OVER_2ME_EV_A2
+    from lamellume.units import HBAR2_OVER_2ME_EV_A2
     at, delta = 3.51, 1.66
     m = delta * HBAR2_OVER_2ME_EV_A2 / at**2
     np.testing.assert_allclose(br.kane_energy_ev(delta, m / 2.0), at**2 / HBAR2_OVER_2ME_EV_A2,

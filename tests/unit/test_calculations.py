@@ -1,4 +1,4 @@
-"""Import of first-principles band structures (flakelight.calculations, calcio, importer).
+"""Import of first-principles band structures (lamellume.calculations, calcio, importer).
 
 The band structures are built from model dispersions with known valleys
 (inputs/make_calculations.py), written through pymatgen's own serialisation
@@ -19,8 +19,8 @@ import numpy as np
 import pytest
 from monty.json import MontyEncoder
 
-from flakelight import calculations, importer
-from flakelight.calculations import ImportProblem
+from lamellume import calculations, importer
+from lamellume.calculations import ImportProblem
 
 REPO = Path(__file__).resolve().parents[2]
 _spec = importlib.util.spec_from_file_location("make_calculations", REPO / "inputs" / "make_calculations.py")
@@ -52,9 +52,9 @@ def _write_compound(root: Path, name: str, calcs: dict, *, dielectric=None, extr
             entry["vacuum_level_ev"] = v
         entries.append(entry)
     (folder / "eps.json").write_text(json.dumps(dielectric or {
-        "dielectric_format": "flakelight-dielectric/1", "frame": "crystal",
+        "dielectric_format": "lamellume-dielectric/1", "frame": "crystal",
         "electronic": [[15.0, 0, 0], [0, 15.0, 0], [0, 0, 6.0]]}))
-    desc = {"calcset_format": "flakelight-calcset/1", "calculations": entries, "dielectric": {"file": "eps.json"},
+    desc = {"calcset_format": "lamellume-calcset/1", "calculations": entries, "dielectric": {"file": "eps.json"},
             **(extra or {})}
     (folder / "calcset.json").write_text(json.dumps(desc))
     return folder
@@ -104,7 +104,7 @@ def test_hexagonal_labels_and_exact_edges(hex_result):
         np.testing.assert_allclose(_valley(rec, "K", "valence")["edge_ev"][key], k_v, rtol=0, atol=1e-12)
         np.testing.assert_allclose(_valley(rec, "K", "conduction")["edge_ev"][key], k_c, rtol=0, atol=1e-12)
     assert rec["energy_reference"] == "vacuum level"
-    assert rec["record_format"] == "flakelight-record/1"
+    assert rec["record_format"] == "lamellume-record/1"
 
 
 @pytest.mark.parametrize("label, band, sign", [("Gamma", "valence", -1.0), ("K", "valence", -1.0),
@@ -115,7 +115,7 @@ def test_hexagonal_masses_match_analytic_curvature(hex_result, label, band, sign
     row = next(r for r in hex_result.report if r["label"] == label and r["band"] == band)
     np.testing.assert_allclose(sorted(row["masses_me"]), expected, rtol=0.01)
     # the record carries the samples; the screen refits them with the same band fit
-    from flakelight import bandfit
+    from lamellume import bandfit
 
     v = _valley(hex_result.record, label, band)
     fit = bandfit.fit_effective_mass(np.array(v["band_samples"]["k_per_angstrom"]),
@@ -159,7 +159,7 @@ def rect_result(tmp_path_factory):
                                             line=False, shift_ev=0.4)
     eps_crystal = ROT @ np.diag([13.0, 11.0, 8.0]) @ ROT.T
     _write_compound(root, "rect", calcs, shift=0.4, extra={"fit_radius_per_angstrom": 0.05},
-                    dielectric={"dielectric_format": "flakelight-dielectric/1", "frame": "crystal",
+                    dielectric={"dielectric_format": "lamellume-dielectric/1", "frame": "crystal",
                                 "electronic": eps_crystal.tolist()})
     return importer.read_compound(root, "rect")
 
@@ -349,7 +349,7 @@ def test_shard_rejects_one_and_carries_on(tmp_path):
            "report": str(tmp_path / "out" / "report.parquet")}
     counts = importer.run_import(["good", "broken"], str(tmp_path), str(tmp_path / "cache"), out)
     assert counts == {"imported": 1, "rejected": 1, "reused": 0}
-    from flakelight import io
+    from lamellume import io
 
     rejects = io.read_parquet(out["rejects"])
     assert list(rejects["entry_id"]) == ["broken"]
@@ -378,7 +378,7 @@ def test_segments_follow_pymatgen_branches():
     k, labels = mc.path_kpoints(mc.HEX_PATH, 7)
     d = mc.band_structure_dict(s, k, labels, mc.hex_bands, HEX_1)
     bs = BandStructureSymmLine.from_dict(d)
-    from flakelight import calcio
+    from lamellume import calcio
 
     band, _ = calcio.band_data_from_dict(d, "x")
     ours = calculations.segments_from_labels(calculations.kpoint_labels(band))
@@ -443,6 +443,6 @@ def test_slab_normal_of_a_tilted_rotated_slab():
 
 
 def test_import_rejects_have_the_columns_of_the_rejects_table():
-    from flakelight import pipeline
+    from lamellume import pipeline
 
     assert importer.REJECT_COLUMNS == pipeline.REJECT_COLUMNS

@@ -1,4 +1,4 @@
-"""Start-up cross checks of the config (flakelight.configcheck): every message names its key path."""
+"""Start-up cross checks of the config (lamellume.configcheck): every message names its key path."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 import yaml
 
-from flakelight.configcheck import cross_problems
+from lamellume.configcheck import cross_problems
 
 CONFIG = yaml.safe_load((Path(__file__).resolve().parents[2] / "config" / "config.yaml").read_text())
 

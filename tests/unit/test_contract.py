@@ -10,7 +10,7 @@ import json
 
 import pytest
 
-from flakelight import io
+from lamellume import io
 
 
 def _set(path, value):
@@ -182,7 +182,7 @@ def test_gate_agrees_on_types(checker, record, value):
 
 def _gap_check(*records, max_layers=4):
     """(kept entry ids, {rejected id: problems}) of normalised records through ingest.without_gapless."""
-    from flakelight import ingest
+    from lamellume import ingest
 
     entries, valleys = [], []
     for rec in records:
@@ -239,7 +239,7 @@ def test_scissor_that_closes_the_gap_is_rejected_at_every_layer_count(record):
 
 
 def test_layer_counts_beyond_max_layers_are_not_checked(record):
-    from flakelight import ingest
+    from lamellume import ingest
 
     record["valleys"][0]["edge_ev"]["9"] = 0.0  # ignored (with a warning) when max_layers = 4
     assert _gap_check(record) == (["fixture-a"], {})

@@ -1,9 +1,9 @@
-"""Tests for flakelight.dielectric: layer frames, layer constants, tensor validation."""
+"""Tests for lamellume.dielectric: layer frames, layer constants, tensor validation."""
 
 import numpy as np
 import pytest
 
-from flakelight.dielectric import (
+from lamellume.dielectric import (
     layer_constants,
     rotation_to_layer_frame,
     to_layer_frame,

@@ -1,4 +1,4 @@
-"""Tests for flakelight.excitons: valley pairs, spin sub-bands, lowest bright/dark exciton, bright fraction."""
+"""Tests for lamellume.excitons: valley pairs, spin sub-bands, lowest bright/dark exciton, bright fraction."""
 
 import itertools
 import math
@@ -6,7 +6,7 @@ import math
 import numpy as np
 import pytest
 
-from flakelight import excitons as X
+from lamellume import excitons as X
 
 K, GAMMA, Q = 0, 1, 2  # arbitrary label codes
 KB_EV_PER_K = 8.617333262e-5  # Boltzmann constant, CODATA 2018 (exact SI value / e), from memory
@@ -175,7 +175,7 @@ def test_spin_input_checks():
 
 
 def test_record_fields_reach_the_valley_table(record):
-    from flakelight import ingest
+    from lamellume import ingest
     record["valleys"][2].update(spin_split_ev=0.03, edge_spin="down", degeneracy=2)
     record["valleys"][0].update(degeneracy=2)
     record["gap_temperature"] = {"form": "varshni", "alpha_ev_per_k": 4e-4, "beta_k": 200.0}

@@ -1,4 +1,4 @@
-"""Tests of flakelight.gapshift: thermal gap shifts and the image-charge gap shift of a slab.
+"""Tests of lamellume.gapshift: thermal gap shifts and the image-charge gap shift of a slab.
 
 References: published Varshni and O'Donnell-Chen parameters with handbook room-temperature
 gaps; an independent numerical solution of the three-region electrostatics (a 4x4 linear
@@ -12,7 +12,7 @@ import pytest
 import sympy as sp
 from scipy import integrate
 
-from flakelight.gapshift import (
+from lamellume.gapshift import (
     bose_einstein_shift_ev,
     environment_gap_change_ev,
     gap_at_temperature_ev,

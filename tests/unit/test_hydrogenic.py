@@ -1,10 +1,10 @@
-"""Tests for flakelight.hydrogenic: 3D, anisotropic 3D, 2D and fractional-dimension excitons."""
+"""Tests for lamellume.hydrogenic: 3D, anisotropic 3D, 2D and fractional-dimension excitons."""
 
 import numpy as np
 import pytest
 from sympy.physics.hydrogen import E_nl
 
-from flakelight.hydrogenic import (
+from lamellume.hydrogenic import (
     anisotropy_parameter,
     binding_2d_anisotropic,
     binding_2d_ev,
@@ -17,7 +17,7 @@ from flakelight.hydrogenic import (
     bulk_exciton,
     fractional_dimension_from_thickness,
 )
-from flakelight.units import BOHR_RADIUS_ANGSTROM, HARTREE_EV, RYDBERG_EV
+from lamellume.units import BOHR_RADIUS_ANGSTROM, HARTREE_EV, RYDBERG_EV
 
 
 @pytest.mark.parametrize("n", [1, 2, 3, 5])
@@ -29,7 +29,7 @@ def test_3d_levels_match_sympy_hydrogen(n, mu, eps):
 
 
 def test_hydrogen_atom_limit():
-    # mu = 1, eps = 1: binding = Ry and radius = a0 (CODATA values via flakelight.units).
+    # mu = 1, eps = 1: binding = Ry and radius = a0 (CODATA values via lamellume.units).
     np.testing.assert_allclose(binding_3d_ev(1.0, 1.0), RYDBERG_EV, rtol=1e-15)
     np.testing.assert_allclose(bohr_radius_3d_angstrom(1.0, 1.0), BOHR_RADIUS_ANGSTROM, rtol=1e-15)
     np.testing.assert_allclose(RYDBERG_EV, 13.605693, rtol=1e-7)  # CODATA 2018, from memory
@@ -223,7 +223,7 @@ def test_thickness_to_dimension_mapping():
 @pytest.mark.parametrize("mu, eps_par, eps_perp", [(0.25, 10.0, 5.0), (0.058, 12.9, 12.9), (1.1, 3.0, 2.0)])
 def test_bulk_exciton_isotropic_fallback_is_hydrogen(mu, eps_par, eps_perp):
     # No out-of-plane mass: hydrogen scaled by mu/eps^2 with eps = sqrt(eps_par eps_perp);
-    # levels from sympy's hydrogen, radii a0 eps/mu (CODATA via flakelight.units).
+    # levels from sympy's hydrogen, radii a0 eps/mu (CODATA via lamellume.units).
     b = bulk_exciton(mu, np.nan, eps_par, eps_perp)
     eps = np.sqrt(eps_par * eps_perp)
     for n, got in ((1, b.binding_1s_ev), (2, b.binding_2s_ev), (3, b.binding_3s_ev)):

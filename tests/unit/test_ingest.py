@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from flakelight import ingest
+from lamellume import ingest
 
 HBAR_J_S = 1.054571817e-34  # CODATA 2018 (exact in the 2019 SI)
 M_E_KG = 9.1093837015e-31  # CODATA 2018

@@ -1,10 +1,10 @@
-"""The pure check-and-normalise step of a shard job (flakelight.intake)."""
+"""The pure check-and-normalise step of a shard job (lamellume.intake)."""
 
 from __future__ import annotations
 
 import pytest
 
-from flakelight import intake, io
+from lamellume import intake, io
 
 SETTINGS = {"layers": {"max_layers": 6, "fit_exponent": False},
             "structure": {"non_layered": "warn", "reconcile_rel_tol": 0.05}}

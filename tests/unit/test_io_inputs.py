@@ -12,7 +12,7 @@ from contextlib import contextmanager
 import pandas as pd
 import pytest
 
-from flakelight import io
+from lamellume import io
 
 
 @contextmanager
@@ -270,8 +270,8 @@ def test_read_record_never_raises_on_bytes(tmp_path, data):
 @pytest.mark.parametrize("kind, words", [("fifo", "named pipe"), ("link to /dev/zero", "is a device"),
                                          ("directory", "is a directory")])
 def test_calculation_files_are_read_by_the_same_rules(tmp_path, kind, words):
-    from flakelight import calcio
-    from flakelight.calculations import ImportProblem
+    from lamellume import calcio
+    from lamellume.calculations import ImportProblem
 
     path = _special(tmp_path, kind)
     for read in (lambda: calcio._load_json(path, "c/x.json"), lambda: calcio.planar_average(path, "c/x", [0, 0, 1])):

@@ -1,7 +1,7 @@
-"""Tests for flakelight.keldysh (Rytova-Keldysh monolayer excitons).
+"""Tests for lamellume.keldysh (Rytova-Keldysh monolayer excitons).
 
 Each check names its source: a paper, "computed with sympy/mpmath", or
-"derived here" (the derivation is in the module docstring of flakelight.keldysh).
+"derived here" (the derivation is in the module docstring of lamellume.keldysh).
 """
 
 import io
@@ -12,8 +12,8 @@ import pytest
 import sympy as sp
 from scipy import integrate, special
 
-from flakelight import keldysh as K
-from flakelight.units import BOHR_RADIUS_ANGSTROM, HARTREE_EV, RYDBERG_EV
+from lamellume import keldysh as K
+from lamellume.units import BOHR_RADIUS_ANGSTROM, HARTREE_EV, RYDBERG_EV
 
 E2 = HARTREE_EV * BOHR_RADIUS_ANGSTROM  # e^2/(4 pi eps0) in eV Angstrom
 NU = np.arange(1, 4) - 0.5  # n - 1/2 for 1s, 2s, 3s

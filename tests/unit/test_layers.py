@@ -1,11 +1,11 @@
-"""Tests for flakelight.layers: chain confinement, gap character, crossover, emission."""
+"""Tests for lamellume.layers: chain confinement, gap character, crossover, emission."""
 
 import numpy as np
 import pytest
 from scipy import constants
 
-from flakelight import layers as L
-from flakelight.units import HC_EV_NM
+from lamellume import layers as L
+from lamellume.units import HC_EV_NM
 
 LAYERS = np.array([1, 2, 3, 4, 5, 6, L.BULK])
 K, GAMMA, Q = 0, 1, 2  # arbitrary label codes used by the synthetic compounds

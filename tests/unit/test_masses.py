@@ -1,10 +1,10 @@
-"""Tests for flakelight.masses: inverse-mass tensors, principal masses, averages, validation."""
+"""Tests for lamellume.masses: inverse-mass tensors, principal masses, averages, validation."""
 
 import numpy as np
 import pytest
 
-from flakelight.hydrogenic import binding_2d_anisotropic, binding_2d_ev
-from flakelight.masses import (
+from lamellume.hydrogenic import binding_2d_anisotropic, binding_2d_ev
+from lamellume.masses import (
     harmonic_mean_mass_me,
     inplane_average_mass_me,
     inverse_mass_tensor_2d_from_principal,

@@ -6,9 +6,9 @@ import numpy as np
 import pytest
 from scipy import constants as sc
 
-from flakelight import keldysh, model
+from lamellume import keldysh, model
 
-# CODATA via scipy.constants, independent of flakelight.units.
+# CODATA via scipy.constants, independent of lamellume.units.
 RY_EV = sc.value("Rydberg constant times hc in eV")
 
 

@@ -8,7 +8,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from flakelight import io, keldysh, pipeline
+from lamellume import io, keldysh, pipeline
 
 SETTINGS = {
     "layers": {"max_layers": 4, "fit_exponent": False},

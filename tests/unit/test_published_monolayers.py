@@ -1,6 +1,6 @@
 """Published monolayer exciton binding energies reproduced from their published inputs.
 
-Library level (flakelight.keldysh). The same tables run end to end through the workflow in
+Library level (lamellume.keldysh). The same tables run end to end through the workflow in
 tests/integration/test_published_bindings.py; both read the tables from PUBLISHED below.
 
 Every value below was typed from memory of the cited papers (marked so per row); the
@@ -12,7 +12,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from flakelight import keldysh
+from lamellume import keldysh
 
 # Each row: (label, reduced mass mu in m_e, screening length r0 in Angstrom,
 #            kappa = mean dielectric constant of the surroundings, published E_b in eV).

@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 from scipy import constants as sc
 
-from flakelight import ranking
+from lamellume import ranking
 
 SETTINGS = {
     "survival": {"temperature_k": 300.0, "pair_density_per_cm2": 1e12, "pair_density_per_cm3": 1e17, "wannier_ratio": 2.0},

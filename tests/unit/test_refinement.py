@@ -1,4 +1,4 @@
-"""Tests for flakelight.refinement (what to recompute next) and its pipeline wiring.
+"""Tests for lamellume.refinement (what to recompute next) and its pipeline wiring.
 
 The indices of the estimators themselves are checked against closed forms in
 test_attribution.py. Here the model is the screen's own, so the references are
@@ -18,7 +18,7 @@ import pytest
 import yaml
 from scipy import special
 
-from flakelight import io, keldysh, pipeline, refinement, uncertainty
+from lamellume import io, keldysh, pipeline, refinement, uncertainty
 
 ROOT = Path(__file__).resolve().parents[2]
 UNC_ENTRY = ("eps_rel_unc", "r0_rel_unc", "scissor_unc_ev")

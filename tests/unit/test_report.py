@@ -1,4 +1,4 @@
-"""Tests for flakelight.report: the change report, the HTML summary and its safety."""
+"""Tests for lamellume.report: the change report, the HTML summary and its safety."""
 
 import base64
 import hashlib
@@ -15,7 +15,7 @@ import pytest
 import yaml
 
 import page_text
-from flakelight import io, report
+from lamellume import io, report
 
 ROOT = Path(__file__).resolve().parents[2]
 HOSTILE = ['<script>alert(1)</script>', '"><img src=x onerror=alert(1)>', "</script><script>alert(2)</script>",
@@ -267,7 +267,7 @@ def test_hostile_text_is_escaped_everywhere(settings):
     assert not [(t, a) for t, attrs in parsed.tags for a in attrs if a.lower().startswith("on")]
     # Exactly our two scripts: the JSON data block and the page script.
     assert len(parsed.scripts) == 2
-    assert parsed.scripts[0][0] == {"type": "application/json", "id": "flakelight-data"}
+    assert parsed.scripts[0][0] == {"type": "application/json", "id": "lamellume-data"}
     data = json.loads(parsed.scripts[0][1])
     assert HOSTILE[0] in data["rows"]          # the data round-trips exactly ...
     assert "<" not in parsed.scripts[0][1]     # ... with no raw '<' in the block
@@ -367,7 +367,7 @@ INTENDED_CHANGES = (
 #: (issue 17); their new wording is checked by test_brightness_words_* and test_methods_*.
 REWRITTEN_SECTIONS = {"make-first", "methods", "overview", "table"}
 #: Sections added on purpose since commit ba2d14c.
-ADDED_SECTIONS = {"recompute"}  # "What to recompute next" (flakelight.refinement)
+ADDED_SECTIONS = {"recompute"}  # "What to recompute next" (lamellume.refinement)
 #: Added on purpose: the gap character of each point of the thickness figure (now its colour).
 ADDED_TO_TIPS = re.compile(r", (?:direct|indirect|unknown) gap(?= \||$)")
 
@@ -499,7 +499,7 @@ def test_large_screen_lists_the_best_ranked_rows(settings):
     assert page.count('data-candidate="1"') == 15
     assert "5 further candidate(s) and 10 other compound(s)" in page
     assert "cmp-" in page and '"rows"' in page
-    data = json.loads(re.search(r'id="flakelight-data">(.*?)</script>', page).group(1))
+    data = json.loads(re.search(r'id="lamellume-data">(.*?)</script>', page).group(1))
     assert len(data["rows"]) == 15
     scatter = page.split('id="plot-binding-gap"')[1].split("</svg>")[0]
     assert scatter.count("<circle") == len(ranked)  # plots still show every compound
@@ -532,7 +532,7 @@ def test_methods_describe_the_exciton_level_verdict_and_model_error(settings):
                   "emission is at the calculation"):
         assert words in page, words
 def _refinement_rows(ids):
-    from flakelight import refinement
+    from lamellume import refinement
 
     rows = []
     for i, ident in enumerate(ids):

@@ -14,9 +14,9 @@ import pandas as pd
 import pytest
 from scipy import constants as sc
 
-from flakelight import ingest, keldysh, screen
+from lamellume import ingest, keldysh, screen
 
-# CODATA via scipy.constants, independent of flakelight.units.
+# CODATA via scipy.constants, independent of lamellume.units.
 RY_EV = sc.value("Rydberg constant times hc in eV")
 HC_EV_NM = sc.h * sc.c / sc.e * 1e9
 

@@ -5,7 +5,7 @@ import subprocess
 import sys
 from pathlib import Path
 
-from flakelight.sharding import shard_name, shard_of
+from lamellume.sharding import shard_name, shard_of
 
 
 def test_assignment_is_sha256_of_casefolded_stem():
@@ -16,7 +16,7 @@ def test_assignment_is_sha256_of_casefolded_stem():
 
 def test_stable_across_interpreters():
     """Python's hash() is salted per process; the shard rule must not be."""
-    code = "import sys; sys.path.insert(0, 'workflow'); from flakelight.sharding import shard_of; " \
+    code = "import sys; sys.path.insert(0, 'workflow'); from lamellume.sharding import shard_of; " \
            "print([shard_of(f'x{i}', 5) for i in range(20)])"
     outs = {subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
                            env={"PYTHONHASHSEED": str(seed)},

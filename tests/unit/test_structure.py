@@ -1,4 +1,4 @@
-"""Tests of flakelight.structure: layer geometry from CIF text.
+"""Tests of lamellume.structure: layer geometry from CIF text.
 
 Structures are built with pymatgen from lattice parameters and Wyckoff
 positions, written to CIF text with CifWriter and analysed from that text, so
@@ -16,7 +16,7 @@ import pytest
 from pymatgen.core import Lattice, Structure
 from pymatgen.io.cif import CifWriter
 
-from flakelight.structure import (
+from lamellume.structure import (
     LayerGeometry,
     StructureError,
     analyse_cif_text,

@@ -1,10 +1,10 @@
-"""Tests for flakelight.survival: thermal energy, 2D and 3D Saha bound fractions, Mott densities, validity."""
+"""Tests for lamellume.survival: thermal energy, 2D and 3D Saha bound fractions, Mott densities, validity."""
 
 import numpy as np
 import pytest
 from scipy.optimize import brentq
 
-from flakelight.survival import (
+from lamellume.survival import (
     MOTT_3D_CRITERION,
     binding_over_kt,
     bound_fraction_2d,
@@ -99,7 +99,7 @@ def test_wannier_flag():
 # --------------------------------------------------------------------------- 3D (bulk)
 
 # CODATA 2018 values typed here (Tiesinga et al., Rev. Mod. Phys. 93, 025010 (2021)), SI units,
-# so the 3D checks do not go through flakelight.units.
+# so the 3D checks do not go through lamellume.units.
 _HBAR = 1.054571817e-34  # J s
 _ME = 9.1093837015e-31  # kg
 _KB = 1.380649e-23  # J/K (exact, 2019 SI)
@@ -172,7 +172,7 @@ def test_mott_3d_criterion_and_units():
 def test_survival_columns_keep_2d_and_3d_apart():
     # Layer rows: 2D Saha at the areal density; bulk rows (layers 0): 3D Saha at the volume density,
     # each in its own column, NaN on the other kind of row (no column mixes cm^-2 and cm^-3 inputs).
-    from flakelight.survival import survival_columns
+    from lamellume.survival import survival_columns
 
     settings = {"survival": {"temperature_k": 300.0, "pair_density_per_cm2": 1e12, "pair_density_per_cm3": 1e17,
                              "wannier_ratio": 2.0}}

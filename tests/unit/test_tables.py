@@ -7,7 +7,7 @@ from pathlib import Path
 import pyarrow.parquet as pq
 import pytest
 
-from flakelight import tables
+from lamellume import tables
 
 REPO = Path(__file__).resolve().parents[2]
 GOLDEN = REPO / "tests" / "data" / "golden"
@@ -41,7 +41,7 @@ def test_every_output_column_is_declared_with_its_type(path):
     # The tables written by the reference run (tests/data/golden) hold every column of the outputs.
     for field in pq.read_schema(path):
         col = tables.lookup(field.name)
-        assert col is not None, f"{path.name}: {field.name} not declared in flakelight.tables"
+        assert col is not None, f"{path.name}: {field.name} not declared in lamellume.tables"
         expected = "string" if str(field.type) == "large_string" else "bool" if str(field.type) == "bool" \
             else "float64" if str(field.type) == "double" else str(field.type)
         assert col.dtype == expected, field.name
@@ -49,4 +49,4 @@ def test_every_output_column_is_declared_with_its_type(path):
 
 def test_column_docs_are_current():
     assert (REPO / "docs" / "columns.md").read_text() == tables.column_docs(), \
-        "regenerate: PYTHONPATH=workflow python -m flakelight.tables > docs/columns.md"
+        "regenerate: PYTHONPATH=workflow python -m lamellume.tables > docs/columns.md"

@@ -1,8 +1,8 @@
-"""Tests for flakelight.uncertainty (Monte Carlo propagation of input uncertainties).
+"""Tests for lamellume.uncertainty (Monte Carlo propagation of input uncertainties).
 
 Each check names its source beside it: an analytic result ("derived here",
 "computed by hand"), the first-order law of propagation (JCGM 100:2008, GUM),
-or the point estimate of flakelight.screen / flakelight.ranking themselves.
+or the point estimate of lamellume.screen / lamellume.ranking themselves.
 """
 
 import copy
@@ -15,9 +15,9 @@ import pytest
 import yaml
 from scipy import special
 
-from flakelight import hydrogenic, ingest, io, keldysh, pipeline, ranking, screen
-from flakelight import uncertainty as U
-from flakelight.units import RYDBERG_EV
+from lamellume import hydrogenic, ingest, io, keldysh, pipeline, ranking, screen
+from lamellume import uncertainty as U
+from lamellume.units import RYDBERG_EV
 
 ROOT = Path(__file__).resolve().parents[2]
 NO_MODEL_ERROR = {"model_rel_unc_layers": 0.0, "model_rel_unc_bulk": 0.0}
@@ -210,7 +210,7 @@ def test_linear_propagation_keldysh_2d_hydrogen_limit(settings, table):
 # --------------------------------------------------------------------------- #
 @pytest.mark.parametrize("environment, target", [("encapsulated", 1), ("suspended", 2), ("on_silica", 1)])
 def test_zero_uncertainty_reproduces_screen(demo, settings, table, environment, target):
-    # Reference: flakelight.screen.screen_entries / ranking.rank on the same inputs (point estimate).
+    # Reference: lamellume.screen.screen_entries / ranking.rank on the same inputs (point estimate).
     e, v, s = _zero(demo["entries"], demo["valleys"], settings)
     s["ranking"].update(environment=environment, target_layers=target)
     out = U.propagate_uncertainty(e, v, s, table, samples=16)
@@ -241,7 +241,7 @@ def test_zero_uncertainty_reproduces_screen(demo, settings, table, environment, 
     {"min_direct_margin_ev": 0.0, "min_binding_over_kt": 8.0, "window_nm": [1000, 600]},
 ])
 def test_criteria_agree_with_ranking(demo, settings, table, overrides):
-    # Reference: the pass_* columns of flakelight.ranking.rank on the demo data.
+    # Reference: the pass_* columns of lamellume.ranking.rank on the demo data.
     s = copy.deepcopy(settings)
     s["ranking"].update(overrides)
     long, wide = screen.screen_entries(demo["entries"], demo["valleys"], s, table)

@@ -21,7 +21,7 @@ rule check_screen:
     log:
         "results/logs/check_screen/check_screen.log",
     conda:
-        "../../envs/flakelight.yaml"
+        "../../envs/lamellume.yaml"
     shell:
         adapter(
             "check_screen",
@@ -47,7 +47,7 @@ rule rank_candidates:
     log:
         "results/logs/rank_candidates/rank_candidates.log",
     conda:
-        "../../envs/flakelight.yaml"
+        "../../envs/lamellume.yaml"
     shell:
         adapter(
             "rank_candidates",
@@ -57,7 +57,7 @@ rule rank_candidates:
 
 
 # The long table (about 20 rows per compound), entries and valleys are joined beside the
-# ranking, by a job that imports pyarrow and numpy only (flakelight.assemble).
+# ranking, by a job that imports pyarrow and numpy only (lamellume.assemble).
 rule join_tables:
     input:
         checked=rules.check_screen.output.counts,
@@ -73,7 +73,7 @@ rule join_tables:
     log:
         "results/logs/join_tables/join_tables.log",
     conda:
-        "../../envs/flakelight.yaml"
+        "../../envs/lamellume.yaml"
     shell:
         adapter(
             "join_tables",
@@ -93,7 +93,7 @@ rule write_manifest:
     log:
         "results/logs/write_manifest/write_manifest.log",
     conda:
-        "../../envs/flakelight.yaml"
+        "../../envs/lamellume.yaml"
     shell:
         adapter(
             "write_manifest",

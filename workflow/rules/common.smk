@@ -8,17 +8,17 @@ from pathlib import Path
 from snakemake.utils import validate
 
 sys.path.insert(0, str(Path(workflow.basedir) / "workflow"))
-from flakelight.configcheck import cross_problems  # noqa: E402
-from flakelight.provenance import adapter_files  # noqa: E402
-from flakelight import io  # noqa: E402
-from flakelight.io import campaign_listing as campaign_listing_rows, canonical_json_hash, snapshot_json  # noqa: E402
-from flakelight.sharding import shard_name, shard_of_file  # noqa: E402
-from flakelight.io import calculation_listing as calculation_listing_rows  # noqa: E402
+from lamellume.configcheck import cross_problems  # noqa: E402
+from lamellume.provenance import adapter_files  # noqa: E402
+from lamellume import io  # noqa: E402
+from lamellume.io import campaign_listing as campaign_listing_rows, canonical_json_hash, snapshot_json  # noqa: E402
+from lamellume.sharding import shard_name, shard_of_file  # noqa: E402
+from lamellume.io import calculation_listing as calculation_listing_rows  # noqa: E402
 
 
 validate(config, schema="../schemas/config.schema.json")
 if cross_problems(config):  # before any job: one line per problem, each with its key path
-    sys.exit("flakelight: the config has problems:\n  " + "\n  ".join(cross_problems(config)))
+    sys.exit("lamellume: the config has problems:\n  " + "\n  ".join(cross_problems(config)))
 
 
 wildcard_constraints:
@@ -88,9 +88,9 @@ def run_summary():
     rejects CSV and the first reasons), candidates and the page (from the run's outputs)."""
     counts_path, manifest_path = Path("results/cache/screen_counts.json"), Path("results/manifest.json")
     if not counts_path.exists() or not manifest_path.exists():
-        return "flakelight: run finished (no complete screen yet: rule all was not asked for)"
+        return "lamellume: run finished (no complete screen yet: rule all was not asked for)"
     counts, manifest = io.read_json(counts_path), io.read_json(manifest_path)
-    lines = [f"flakelight: {counts['records']} record files read, {counts['screened']} screened, "
+    lines = [f"lamellume: {counts['records']} record files read, {counts['screened']} screened, "
              f"{counts['rejected']} rejected, {manifest['counts']['candidates']} candidates."]
     if counts["rejected"]:
         lines.append("  rejects: results/tables/rejects.csv; first reasons:")
@@ -154,13 +154,13 @@ def code_files(adapter_name):
     """Sources behind a job, declared as inputs so that editing any of them re-runs it: the
     adapter, the helpers it imports, every library module reachable through imports from
     it, the data files those modules declare (``DATA_FILES``: the page's templates) and the
-    schemas (derived from the code by flakelight.provenance, never listed by hand)."""
+    schemas (derived from the code by lamellume.provenance, never listed by hand)."""
     return adapter_files(ADAPTERS / f"{adapter_name}.py")
 
 
 def library_files():
     """Every library module and page template: the manifest's ``code_version`` digests them
-    all (flakelight.io.library_digest), so the manifest job depends on them all."""
+    all (lamellume.io.library_digest), so the manifest job depends on them all."""
     lib = io.LIBRARY_DIR
     return sorted(str(p) for p in [*lib.glob("*.py"), *(lib / "templates").glob("*")] if p.is_file())
 
@@ -296,4 +296,4 @@ SCREEN_IMPORT_INPUTS = ("imported",) if has_calculations() else ()
 
 # Start-up checks: stop before any job (and before results/ is touched) with a one-line reason.
 if campaign_problem():
-    sys.exit(f"flakelight: {campaign_problem()}; nothing was run and results/ is unchanged")
+    sys.exit(f"lamellume: {campaign_problem()}; nothing was run and results/ is unchanged")

@@ -22,7 +22,7 @@ rule import_calculations:
         "results/benchmarks/import_calculations/{shard}.tsv"
     threads: 1
     conda:
-        "../../envs/flakelight.yaml"
+        "../../envs/lamellume.yaml"
     shell:
         adapter(
             "import_calculations",

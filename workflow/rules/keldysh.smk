@@ -13,7 +13,7 @@ rule keldysh_table:
     # the grid points are independent: solved in parallel on up to 4 cores (fewer if fewer given)
     threads: 4
     conda:
-        "../../envs/flakelight.yaml"
+        "../../envs/lamellume.yaml"
     shell:
         adapter(
             "keldysh_table",

@@ -24,7 +24,7 @@ rule attribute_shard:
         "results/benchmarks/attribute_shard/{shard}.tsv"
     threads: 1
     conda:
-        "../../envs/flakelight.yaml"
+        "../../envs/lamellume.yaml"
     shell:
         adapter(
             "attribute_shard",
@@ -46,7 +46,7 @@ rule refinement_list:
     log:
         "results/logs/refinement_list/refinement_list.log",
     conda:
-        "../../envs/flakelight.yaml"
+        "../../envs/lamellume.yaml"
     shell:
         adapter(
             "refinement_list",

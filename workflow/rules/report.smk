@@ -21,7 +21,7 @@ rule write_summary:
     log:
         "results/logs/write_summary/write_summary.log",
     conda:
-        "../../envs/flakelight.yaml"
+        "../../envs/lamellume.yaml"
     shell:
         adapter(
             "write_summary",

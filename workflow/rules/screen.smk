@@ -30,7 +30,7 @@ rule screen_shard:
         "results/benchmarks/screen_shard/{shard}.tsv"
     threads: 1
     conda:
-        "../../envs/flakelight.yaml"
+        "../../envs/lamellume.yaml"
     shell:
         adapter(
             "screen_shard",

@@ -4,7 +4,7 @@ Runs between the shard jobs and every job that writes results/tables, the
 shortlist, the page or the history, so a run that screens nothing fails before
 any of them has started (Snakemake removes a job's old outputs only when the job
 starts). It sits on the critical path of every re-run, so it imports nothing
-beyond the standard library (no numpy through flakelight.io: a tenth of a second).
+beyond the standard library (no numpy through lamellume.io: a tenth of a second).
 """
 import json
 import os
@@ -24,7 +24,7 @@ with open(job.log, "a", encoding="utf-8") as log:
     log.write(f"screen counts: {total}\n")
 if total["screened"] == 0:
     reasons = "; ".join(total["reasons"]) or "none given"
-    message = (f"flakelight: nothing was screened: all {total['records']} record files were rejected "
+    message = (f"lamellume: nothing was screened: all {total['records']} record files were rejected "
                f"(first reasons: {reasons}); the tables, shortlist, page and history of the previous run are "
                "left as they were; every reason is in results/shards/*/rejects.parquet")
     print(message, file=sys.stderr, flush=True)
@@ -32,7 +32,7 @@ if total["screened"] == 0:
 target = job.one("output", "counts")
 os.makedirs(os.path.dirname(target) or ".", exist_ok=True)
 # A job killed while writing leaves its temporary file; the re-run clears it
-# (the same rule as flakelight.io's atomic writers).
+# (the same rule as lamellume.io's atomic writers).
 for name in os.listdir(os.path.dirname(target) or "."):
     if name.startswith(".screen_counts.") and name.endswith(".part"):
         try:

@@ -1,7 +1,7 @@
 """Adapter of rule import_calculations: turn one shard's compound folders into records."""
 import adapter_args
 
-from flakelight import importer, io
+from lamellume import importer, io
 
 job = adapter_args.parse()
 io.start_log(job.log)

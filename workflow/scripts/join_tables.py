@@ -1,7 +1,7 @@
 """Adapter of rule join_tables: final long, entries and valleys tables (Arrow only, no pandas)."""
 import adapter_args
 
-from flakelight import assemble, io
+from lamellume import assemble, io
 
 job = adapter_args.parse()
 io.start_log(job.log)

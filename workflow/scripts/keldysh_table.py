@@ -1,7 +1,7 @@
 """Adapter of rule keldysh_table: build the Rytova-Keldysh table once."""
 import adapter_args
 
-from flakelight import io, keldysh
+from lamellume import io, keldysh
 
 job = adapter_args.parse()
 io.start_log(job.log)

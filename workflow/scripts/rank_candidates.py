@@ -1,7 +1,7 @@
 """Adapter of rule rank_candidates: combine shards, add survival, rank, shortlist."""
 import adapter_args
 
-from flakelight import io, pipeline
+from lamellume import io, pipeline
 
 job = adapter_args.parse()
 io.start_log(job.log)

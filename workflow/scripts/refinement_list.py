@@ -1,7 +1,7 @@
 """Adapter of rule refinement_list: the campaign's ranked list of what to recompute next."""
 import adapter_args
 
-from flakelight import io, pipeline
+from lamellume import io, pipeline
 
 job = adapter_args.parse()
 io.start_log(job.log)

@@ -3,7 +3,7 @@ from pathlib import Path
 
 import adapter_args
 
-from flakelight import io, pipeline
+from lamellume import io, pipeline
 
 job = adapter_args.parse()
 io.start_log(job.log)

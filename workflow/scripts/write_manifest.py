@@ -1,7 +1,7 @@
 """Adapter of rule write_manifest: record what this run was made from."""
 import adapter_args
 
-from flakelight import io, pipeline
+from lamellume import io, pipeline
 
 job = adapter_args.parse()
 io.start_log(job.log)

@@ -1,7 +1,7 @@
 """Adapter of rule write_summary: the HTML summary and the run-to-run change report."""
 import adapter_args
 
-from flakelight import io, report
+from lamellume import io, report
 
 job = adapter_args.parse()
 io.start_log(job.log)

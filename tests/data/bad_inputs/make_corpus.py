@@ -47,7 +47,7 @@ NOTE = "SYNTHETIC test record from tests/data/bad_inputs/make_corpus.py; invente
 def valid_record(ident: str) -> dict:
     """A small valid record with invented numbers (direct gap at K as a monolayer)."""
     return {
-        "record_format": "flakelight-record/1",
+        "record_format": "lamellume-record/1",
         "id": ident,
         "formula": "Qz2Lm (invented)",
         "provenance": NOTE,
@@ -297,8 +297,8 @@ def cases(include_huge: bool = True) -> list[Case]:
         _json_case("bad-missing-dielectric", _delete("dielectric"), "(record)", r"'dielectric' is a required"),
         _json_case("bad-missing-electronic", _delete("dielectric.electronic"), "dielectric",
                    r"'electronic' is a required"),
-        _json_case("bad-wrong-format-tag", _set("record_format", "flakelight-record/0"), "record_format",
-                   r"flakelight-record/1"),
+        _json_case("bad-wrong-format-tag", _set("record_format", "lamellume-record/0"), "record_format",
+                   r"lamellume-record/1"),
         _json_case("bad-id-number", _set("id", 42), "id", r"not of type 'string'"),
         _json_case("bad-mass-string", _set("valleys[0].mass.isotropic_me", "0.55"), "valleys[0].mass.isotropic_me",
                    r"not of type 'number'"),

@@ -15,22 +15,22 @@
 #
 # Runs as root on Debian 12 (SLURM 22.05); works from any checkout: paths are taken
 # relative to this script. Environment:
-#   FLAKELIGHT_VENV            virtual environment to use (default: <checkout>/.venv)
-#   FLAKELIGHT_SLURM_TIMEOUT   seconds allowed for each snakemake run (default: 600)
-#   FLAKELIGHT_SLURM_SHARDS    shards of the demo run (default: 2; one SLURM job each)
-#   FLAKELIGHT_SLURM_TARGETS   space-separated targets (default: the tables, shortlist
+#   LAMELLUME_VENV            virtual environment to use (default: <checkout>/.venv)
+#   LAMELLUME_SLURM_TIMEOUT   seconds allowed for each snakemake run (default: 600)
+#   LAMELLUME_SLURM_SHARDS    shards of the demo run (default: 2; one SLURM job each)
+#   LAMELLUME_SLURM_TARGETS   space-separated targets (default: the tables, shortlist
 #                              and manifest)
-#   FLAKELIGHT_SLURM_KEEP=1    keep the temporary folder (it is kept on failure anyway)
-#   FLAKELIGHT_SLURM_PORT_BASE first of four local TCP ports (default: 16810)
+#   LAMELLUME_SLURM_KEEP=1    keep the temporary folder (it is kept on failure anyway)
+#   LAMELLUME_SLURM_PORT_BASE first of four local TCP ports (default: 16810)
 set -euo pipefail
 
 here="$(cd "$(dirname "${BASH_SOURCE[0]}")" && pwd)"
 repo="$(cd "$here/../../.." && pwd)"
-venv="${FLAKELIGHT_VENV:-$repo/.venv}"
-limit="${FLAKELIGHT_SLURM_TIMEOUT:-600}"
-shards="${FLAKELIGHT_SLURM_SHARDS:-2}"
+venv="${LAMELLUME_VENV:-$repo/.venv}"
+limit="${LAMELLUME_SLURM_TIMEOUT:-600}"
+shards="${LAMELLUME_SLURM_SHARDS:-2}"
 partition="debug"
-account="flakelight"
+account="lamellume"
 packages=(slurmctld slurmd slurm-client munge slurmdbd mariadb-server)
 tables=(
     results/tables/screen_long.parquet
@@ -38,18 +38,18 @@ tables=(
     results/tables/entries.parquet
     results/tables/rejects.parquet
 )
-read -r -a targets <<<"${FLAKELIGHT_SLURM_TARGETS:-${tables[*]} results/shortlist.csv results/manifest.json}"
+read -r -a targets <<<"${LAMELLUME_SLURM_TARGETS:-${tables[*]} results/shortlist.csv results/manifest.json}"
 
 log() { printf '[slurm-check %(%H:%M:%S)T] %s\n' -1 "$*"; }
 die() { log "ERROR: $*"; exit 1; }
 
 [ "$(id -u)" -eq 0 ] || die "must run as root (it installs packages and starts daemons)"
-[ -x "$venv/bin/python" ] || die "no virtual environment at $venv (set FLAKELIGHT_VENV)"
+[ -x "$venv/bin/python" ] || die "no virtual environment at $venv (set LAMELLUME_VENV)"
 # Snakemake submits jobs that run `$venv/bin/python -m snakemake ...`; SLURM passes the
 # submitting environment on, so the venv's tools are found inside the jobs as well.
 export PATH="$venv/bin:$PATH"
 
-work="$(mktemp -d /tmp/flakelight-slurm.XXXXXX)"
+work="$(mktemp -d /tmp/lamellume-slurm.XXXXXX)"
 made_policy=""
 started=$SECONDS
 declare -A took
@@ -66,7 +66,7 @@ on_exit() {
     fi
     "$here/stop_cluster.sh" "$work/cluster"
     [ -n "$made_policy" ] && rm -f /usr/sbin/policy-rc.d
-    if [ "$rc" -eq 0 ] && [ "${FLAKELIGHT_SLURM_KEEP:-0}" != 1 ]; then
+    if [ "$rc" -eq 0 ] && [ "${LAMELLUME_SLURM_KEEP:-0}" != 1 ]; then
         rm -rf "$work"
     else
         log "kept $work"
@@ -107,7 +107,7 @@ log "executor plugin $("$venv/bin/python" -m pip show snakemake-executor-plugin-
 phase install
 
 # 2. cluster ----------------------------------------------------------------------
-FLAKELIGHT_SLURM_PARTITION="$partition" FLAKELIGHT_SLURM_ACCOUNT="$account" \
+LAMELLUME_SLURM_PARTITION="$partition" LAMELLUME_SLURM_ACCOUNT="$account" \
     "$here/start_cluster.sh" "$work/cluster"
 # shellcheck disable=SC1091
 source "$work/cluster/env.sh"

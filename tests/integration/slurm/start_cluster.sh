@@ -16,26 +16,26 @@
 # (run_slurm_check.sh installs them).
 #
 # Settings (environment):
-#   FLAKELIGHT_SLURM_PORT_BASE  first of four TCP ports on 127.0.0.1 (default 16810):
+#   LAMELLUME_SLURM_PORT_BASE  first of four TCP ports on 127.0.0.1 (default 16810):
 #                               +0 MariaDB, +1 slurmdbd, +2 slurmctld, +3 slurmd
-#   FLAKELIGHT_SLURM_PARTITION  partition name (default: debug)
-#   FLAKELIGHT_SLURM_ACCOUNT    account added for the calling user (default: flakelight)
-#   FLAKELIGHT_SLURM_CPUS       CPUs of the node (default: 2)
+#   LAMELLUME_SLURM_PARTITION  partition name (default: debug)
+#   LAMELLUME_SLURM_ACCOUNT    account added for the calling user (default: lamellume)
+#   LAMELLUME_SLURM_CPUS       CPUs of the node (default: 2)
 set -euo pipefail
 
 here="$(cd "$(dirname "${BASH_SOURCE[0]}")" && pwd)"
 state="${1:?usage: start_cluster.sh STATE_DIR}"
 state="$(mkdir -p "$state" && cd "$state" && pwd)"
 
-port_base="${FLAKELIGHT_SLURM_PORT_BASE:-16810}"
+port_base="${LAMELLUME_SLURM_PORT_BASE:-16810}"
 db_port=$((port_base + 0))
 dbd_port=$((port_base + 1))
 ctld_port=$((port_base + 2))
 slurmd_port=$((port_base + 3))
-partition="${FLAKELIGHT_SLURM_PARTITION:-debug}"
-account="${FLAKELIGHT_SLURM_ACCOUNT:-flakelight}"
-cpus="${FLAKELIGHT_SLURM_CPUS:-2}"
-cluster="flakelight"
+partition="${LAMELLUME_SLURM_PARTITION:-debug}"
+account="${LAMELLUME_SLURM_ACCOUNT:-lamellume}"
+cpus="${LAMELLUME_SLURM_CPUS:-2}"
+cluster="lamellume"
 db_name="slurm_acct_db"
 db_user="slurm"
 db_pass="$(head -c 12 /dev/urandom | od -An -tx1 | tr -d ' \n')"
@@ -56,7 +56,7 @@ done
 
 for port in "$db_port" "$dbd_port" "$ctld_port" "$slurmd_port"; do
     if (exec 3<>"/dev/tcp/127.0.0.1/$port") 2>/dev/null; then
-        die "port $port is in use (another cluster?); set FLAKELIGHT_SLURM_PORT_BASE"
+        die "port $port is in use (another cluster?); set LAMELLUME_SLURM_PORT_BASE"
     fi
 done
 
@@ -173,8 +173,8 @@ wait_for "node localhost to be idle" 60 slurmd node_idle
 
 # 5. an account for the calling user, so jobs can be charged to it.
 user="$(id -un)"
-sacctmgr -i add account "$account" Description="flakelight integration check" \
-    Organization=flakelight >/dev/null
+sacctmgr -i add account "$account" Description="lamellume integration check" \
+    Organization=lamellume >/dev/null
 sacctmgr -i add user "$user" Account="$account" DefaultAccount="$account" >/dev/null
 
 log "cluster up: SLURM_CONF=$SLURM_CONF partition=$partition account=$account" \

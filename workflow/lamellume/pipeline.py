@@ -1,0 +1,461 @@
+"""Orchestration of the workflow stages: files in, tables out.
+
+This layer sits between the Snakemake adapters (workflow/scripts) and the
+library: it reads files through :mod:`lamellume.io`, keeps the per-record
+result cache, calls the pure modules and writes tables. It holds no physics.
+
+One shard job is :func:`run_shard_job`: read each record and its CIF
+(:mod:`lamellume.io`), check and normalise it (:func:`lamellume.intake.check_and_normalise`),
+screen every compound at once (:func:`lamellume.screen.screen_entries`), then
+propagate the uncertainties (:func:`run_propagation`) from the frames in memory.
+The per-record caches live in :mod:`lamellume.shard_cache`.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+from pathlib import Path
+from typing import Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+
+from lamellume import contract, ingest, intake, io, provenance, screen
+from lamellume.keldysh import KeldyshTable
+from lamellume.shard_cache import (CONTEXT_STAGES, SHARD_TABLES, PropagationCache, ShardCache,  # noqa: F401
+                                    is_in, record_keys)
+
+log = logging.getLogger("lamellume")
+
+#: Reject reasons a shard passes on for the console summary (the rest are in the rejects table).
+REASONS_SHOWN = 3
+
+REJECT_COLUMNS = ["entry_id", "source_file", "field", "reason", "stage",
+                  "input_hash", "physics_hash", "code_version"]
+
+
+def _empty_rejects() -> pd.DataFrame:
+    return pd.DataFrame({c: pd.Series(dtype="string") for c in REJECT_COLUMNS})
+
+
+def _reject_rows(stem: str, source: str, problems: Sequence[contract.Problem], stage: str,
+                 input_hash: str, stamps: Mapping[str, str]) -> list[dict]:
+    stem, source = io.printable_name(stem), io.printable_name(source)
+    return [{"entry_id": stem, "source_file": source, "field": p.field, "reason": p.reason,
+             "stage": stage, "input_hash": input_hash, **stamps} for p in problems]
+
+
+def case_variants(stems: Sequence[str]) -> dict[str, list[str]]:
+    """For every stem that equals another one apart from letter case, the others.
+
+    The rule (see README, "Input records"): identifiers that differ only in case
+    name the same compound on a case-insensitive file system, so all of them are
+    rejected together, each reject naming the others, whatever their content and
+    in any listing order. Stems without such a sibling are not in the result.
+    """
+    groups: dict[str, list[str]] = {}
+    for stem in stems:
+        groups.setdefault(stem.casefold(), []).append(stem)
+    return {stem: sorted(s for s in group if s != stem)
+            for group in groups.values() if len(group) > 1 for stem in group}
+
+
+def _typed(frame: pd.DataFrame) -> pd.DataFrame:
+    """Give object columns a string type so empty tables keep a schema (Arrow would say null)."""
+    obj = [c for c in frame.columns if frame[c].dtype == object]
+    if not obj:
+        return frame
+    out = frame.copy()
+    for c in obj:
+        values = out[c]
+        if len(values) and values.map(lambda v: isinstance(v, bool) or v is None).all() and values.notna().any():
+            out[c] = values.astype("boolean")
+        else:
+            out[c] = values.astype("str")
+    return out
+
+
+def listed_paths(campaign: str, listing: Mapping, kind: str) -> list[str]:
+    """Paths of the files of a campaign listing (``kind``: "entries" or "structures").
+
+    ``listing`` is the JSON the workflow writes per shard (or for the whole
+    campaign): rows of (file name, size, modification time) per folder.
+    """
+    return [os.path.join(campaign, kind, row[0]) for row in listing.get(kind, [])]
+
+
+def _keldysh_table(table: str | KeldyshTable) -> KeldyshTable:
+    """The Rytova-Keldysh table itself, or loaded from its file."""
+    return table if isinstance(table, KeldyshTable) else KeldyshTable.from_arrays(io.load_arrays(table))
+
+
+def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, table: str | KeldyshTable,
+              cache_dir: str, outputs: Mapping[str, str]) -> dict[str, int]:
+    """Validate, normalise and screen the records of one shard; write its tables.
+
+    Returns counts of screened, rejected and reused records (see :func:`screen_shard`).
+    """
+    return screen_shard(entry_paths, campaign, settings, table, cache_dir, outputs)[0]
+
+
+def screen_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, table: str | KeldyshTable,
+                 cache_dir: str, outputs: Mapping[str, str], survival: Mapping | None = None,
+                 ) -> tuple[dict[str, int], dict[str, pd.DataFrame]]:
+    """Validate, normalise and screen the records of one shard; write its tables.
+
+    Parameters
+    ----------
+    entry_paths : record files of this shard.
+    campaign : campaign folder (its structures/ holds the CIFs).
+    settings : the physics config sections (see workflow/rules/common.smk).
+    table : Keldysh table, or its file (.npz) built by the keldysh_table rule.
+    cache_dir : folder of this shard's per-record cache (:class:`lamellume.shard_cache.ShardCache`).
+    outputs : paths for 'entries', 'valleys', 'rejects', 'long', 'wide'.
+    survival : settings with the ``survival`` section; when given, the long table gets
+        the temperature-dependent columns (:func:`lamellume.ranking.add_survival`).
+
+    Returns
+    -------
+    counts : screened, rejected, reused and computed records.
+    tables : the five tables as written (for the propagation, without a re-read).
+    """
+    stamps = {"physics_hash": io.canonical_json_hash(dict(settings))[:16],
+              "code_version": stage_code_version()}
+    max_layers = settings["layers"]["max_layers"]
+    structures_dir = Path(campaign) / "structures"
+    checker = contract.RecordChecker(io.load_schema("entry.schema.json"))
+    cache = ShardCache(cache_dir, stamps)
+
+    new_entries, new_valleys, reject_rows = [], [], []
+    readable = [p for p in entry_paths if io.skip_reason(os.path.basename(p), "entries") is None]
+    siblings = case_variants([Path(p).stem for p in readable])
+    for path in sorted(entry_paths):
+        stem = Path(path).stem
+        source = os.path.basename(path)
+        skipped = io.skip_reason(source, "entries")
+        if skipped:  # listed so the user sees it, never opened
+            reject_rows += _reject_rows(stem, source, [contract.Problem("(file name)", skipped)], "skipped",
+                                        "", stamps)
+            continue
+        raw = io.read_record(path)
+        cif_bytes, cif_hash, cif_problem = None, "", "file not found"
+        if raw.error is None and isinstance(raw.data, dict) and isinstance(raw.data.get("structure_file"), str):
+            name = raw.data["structure_file"]
+            if "/" not in name and "\\" not in name and not name.startswith("."):
+                cif_bytes, cif_problem = io.read_text_limited(structures_dir / name)
+                if cif_bytes is not None:
+                    cif_hash = io.sha256_bytes(cif_bytes)
+            elif name.startswith("."):
+                cif_problem = io.skip_reason(name, "structures")
+        input_hash = io.sha256_bytes((raw.sha256 + cif_hash).encode())[:32]
+
+        if stem in siblings:
+            others = ", ".join(f"{s}.json" for s in siblings[stem])
+            reject_rows += _reject_rows(stem, source, [contract.Problem(
+                "id", f"duplicate identifier: {source} and {others} differ only in letter case; all of them "
+                      "are rejected until one is renamed or removed")], "duplicate", input_hash, stamps)
+            continue
+        if cache.reuse(stem, input_hash):
+            continue
+        outcome = intake.check_and_normalise(
+            raw, stem=stem, source=source, input_hash=input_hash, cif_bytes=cif_bytes, cif_hash=cif_hash,
+            cif_problem=cif_problem, checker=checker, settings=settings, geometry_of=cache.structure_geometry)
+        if outcome.stage:
+            reject_rows += _reject_rows(stem, source, outcome.problems, outcome.stage, input_hash, stamps)
+            continue
+        new_entries.append({**outcome.entry, **stamps})
+        new_valleys.extend({**v, **stamps} for v in outcome.valleys)
+
+    new_entries, new_valleys, gapless = ingest.without_gapless(
+        new_entries, new_valleys, max_layers=max_layers, fit_exponent=bool(settings["layers"]["fit_exponent"]))
+    for entry, problems in gapless:
+        reject_rows += _reject_rows(entry["entry_id"], entry["source_file"], problems, "normalise",
+                                    entry["input_hash"], stamps)
+    entries_new = ingest.typed_frame(new_entries, ingest.ENTRY_COLUMNS + list(stamps))
+    valleys_new = ingest.typed_frame(new_valleys, ingest.valley_columns(max_layers) + list(stamps))
+    long_new, wide_new = screen.screen_entries(entries_new, valleys_new, settings, _keldysh_table(table))
+    for frame in (long_new, wide_new):
+        frame["physics_hash"] = stamps["physics_hash"]
+        frame["code_version"] = stamps["code_version"]
+
+    rejects_new = pd.DataFrame(reject_rows) if reject_rows else _empty_rejects()
+    fresh = {"entries": entries_new, "valleys": valleys_new, "rejects": rejects_new, "long": long_new,
+             "wide": wide_new}
+    tables = {name: _typed(cache.merged(name, fresh[name])) for name in SHARD_TABLES}
+    if survival is not None:
+        from lamellume import ranking
+
+        tables["long"] = ranking.add_survival(tables["long"], tables["wide"], survival)
+    # The generation ties the five tables together (see ShardCache); it is a
+    # digest of their content keys, so identical runs write identical files.
+    keys = sorted(set(tables["entries"]["input_hash"]) | set(tables["rejects"]["input_hash"]))
+    generation = io.canonical_json_hash([stamps, keys])[:16]
+    for name, frame in tables.items():
+        io.write_parquet(frame, outputs[name], table_metadata={**stamps, "generation": generation})
+    cache.save({name: outputs[name] for name in SHARD_TABLES})
+    rejects = tables["rejects"]
+    counts = {"records": len(entry_paths), "screened": int(len(tables["entries"])),
+              "rejected": int(rejects["entry_id"].nunique()) if len(rejects) else 0,
+              "reused": len(cache.reused), "computed": len(new_entries),
+              "reasons": [f"{r.source_file}: {r.field}: {r.reason}" for r in rejects.head(REASONS_SHOWN).itertuples()]}
+    log.info("shard done: %s", counts)
+    return counts, tables
+
+
+def run_shard_job(entry_paths: Sequence[str], campaign: str, physics: Mapping, propagation: Mapping,
+                  table_path: str, cache_dir: str, outputs: Mapping[str, str]) -> dict[str, int]:
+    """One shard job: screen the records, then propagate their uncertainties.
+
+    The Keldysh table is loaded once, the long table gets the survival columns
+    (their one computation), and the screen's entry and valley frames go to the
+    propagation in memory. ``outputs`` holds the five screen tables
+    and 'uncertainty'.
+    """
+    table = _keldysh_table(table_path)
+    counts, tables = screen_shard(entry_paths, campaign, physics, table, cache_dir,
+                                  {k: v for k, v in outputs.items() if k != "uncertainty"}, survival=propagation)
+    counts.update({f"propagation_{k}": v for k, v in run_propagation(
+        tables["entries"], tables["valleys"], table, propagation, cache_dir, outputs["uncertainty"]).items()})
+    return counts
+
+
+def _concat(paths: Sequence[str]) -> pd.DataFrame:
+    """Shard tables stacked in the given order (as Arrow, then one conversion to pandas)."""
+    import pyarrow as pa
+
+    tables = [io.read_arrow(p) for p in paths]
+    nonempty = [t for t in tables if t.num_rows]
+    if not nonempty:
+        return tables[0].to_pandas() if tables else pd.DataFrame()
+    if len(nonempty) == 1:
+        return nonempty[0].to_pandas()
+    try:
+        return pa.concat_tables(nonempty).to_pandas()
+    except (pa.ArrowInvalid, pa.ArrowTypeError):  # shards typed differently: let pandas promote
+        return pd.concat([t.to_pandas() for t in nonempty], ignore_index=True)
+
+
+def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], settings: Mapping,
+             config_hash: str) -> dict[str, int]:
+    """Combine shard tables, rank, write the final wide table, the rejects and the shortlist.
+
+    The long, entries and valleys tables are joined by
+    :func:`lamellume.assemble.run_join` (rule ``join_tables``); ``inputs["long"]``
+    is read here only for the rows at the target layer count and environment.
+    """
+    from lamellume import ranking
+
+    rejects = _concat(inputs["rejects"])
+    wide = _concat(inputs["wide"]).sort_values("entry_id", kind="stable").reset_index(drop=True)
+    probabilities = _concat(inputs["uncertainty"]) if inputs.get("uncertainty") else None
+    if len(rejects):
+        rejects = rejects.sort_values(["entry_id", "field"], kind="stable").reset_index(drop=True)
+    meta = {"config_hash": config_hash}
+    target_layers = int(settings["ranking"]["target_layers"])
+    environment = settings["ranking"]["environment"]
+    # Only the long rows at the target layer count and environment are ranked (their survival
+    # columns come from the shard job); the whole long table is joined by rule join_tables.
+    import pyarrow.compute as pc
+
+    targets = []
+    for path in inputs["long"]:
+        part = io.read_arrow(path)
+        chosen = pc.and_(pc.equal(part.column("layers"), target_layers),
+                         pc.equal(part.column("environment"), environment))
+        targets.append(part.filter(chosen).to_pandas())
+    target = pd.concat(targets, ignore_index=True) if targets else pd.DataFrame()
+    ranked = ranking.rank(target, wide, settings, probabilities)
+    ranked["config_hash"] = config_hash
+    io.write_parquet(rejects, outputs["rejects"], table_metadata=meta)
+    io.write_csv(rejects, outputs["rejects_csv"])
+    io.write_parquet(ranked, outputs["wide"], table_metadata=meta)
+    io.write_csv(ranking.shortlist(ranked, settings), outputs["shortlist"])
+    counts = {"screened": len(wide), "rejected": int(rejects["entry_id"].nunique()) if len(rejects) else 0,
+              "candidates": int(ranked["meets_all_criteria"].sum()) if len(ranked) else 0}
+    log.info("ranked: %s", counts)
+    return counts
+
+
+def package_versions() -> dict[str, str]:
+    """Versions of the packages the screen depends on."""
+    from importlib import metadata
+
+    out = {}
+    for name in ("snakemake", "numpy", "scipy", "pandas", "pyarrow", "pymatgen", "jsonschema", "PyYAML"):
+        try:
+            out[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            out[name] = "not installed"
+    import platform
+
+    out["python"] = platform.python_version()
+    return out
+
+
+def git_version(workdir: str) -> str:
+    """``git describe`` of the workflow checkout, or 'unknown' outside git."""
+    import subprocess
+
+    try:
+        res = subprocess.run(["git", "-C", workdir, "describe", "--always", "--dirty", "--tags"],
+                             capture_output=True, text=True, timeout=10, check=False)
+    except (OSError, subprocess.SubprocessError):
+        return "unknown"
+    return res.stdout.strip() or "unknown"
+
+
+def write_manifest(entry_paths: Sequence[str], structure_paths: Sequence[str], wide_path: str,
+                   config: Mapping, config_hash: str, workdir: str, output: str) -> None:
+    """Run manifest: input hashes, config and its hash, code version, package versions, counts."""
+    import datetime
+
+    wide = io.read_parquet(wide_path)
+    hashes: dict[str, dict[str, str]] = {"entries": {}, "structures": {}}
+    not_read: dict[str, str] = {}
+    for kind, paths in (("entries", entry_paths), ("structures", structure_paths)):
+        for p in paths:
+            digest, reason = io.campaign_file_digest(p, kind)
+            name = io.printable_name(os.path.basename(p))
+            if digest is None:
+                not_read[f"{kind}/{name}"] = reason
+            else:
+                hashes[kind][name] = digest
+    manifest = {
+        "tool": "lamellume",
+        "written_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
+        "code_version": io.library_digest(),
+        "screen_code_version": stage_code_version(),
+        "git": git_version(workdir),
+        "config_hash": config_hash,
+        "config": dict(config),
+        "packages": package_versions(),
+        "inputs": hashes,
+        # listed files that were skipped (near-miss names) or could not be read, with the reason
+        "not_read": not_read,
+        "counts": {"records": sum(io.skip_reason(os.path.basename(p), "entries") is None for p in entry_paths),
+                   "screened": len(wide),
+                   "candidates": int(wide["meets_all_criteria"].sum()) if len(wide) else 0},
+        "cautions": CAUTIONS,
+    }
+    io.write_json(manifest, output)
+
+
+#: Cautions shown with every output handed to experimental teams.
+CAUTIONS = [
+    "All numbers are model estimates from first-principles inputs, not measurements.",
+    "Binding energies carry the uncertainty of the masses, dielectric constants and screening model; "
+    "treat differences below about 20 % as not significant.",
+    "Follow your local laboratory safety rules when preparing samples, handling chemicals and using lasers; "
+    "these results do not replace a licensed safety assessment.",
+]
+
+
+def stage_code_version() -> str:
+    """Code version of the shard stage (screen and propagation): a digest of every library
+    module this module can import, followed through the import graph
+    (:func:`lamellume.provenance.code_version`), and of the schemas."""
+    return provenance.code_version(__name__.rsplit(".", 1)[-1])
+
+
+def run_propagation(entries: str | pd.DataFrame, valleys: str | pd.DataFrame, table: str | KeldyshTable,
+                    settings: Mapping, cache_dir: str, output: str) -> dict[str, int]:
+    """Monte Carlo propagation for one shard, re-sampling only records that changed.
+
+    ``entries`` and ``valleys`` are the shard's normalised tables (frames, or
+    their Parquet files). Each record's random stream depends only on the
+    campaign seed and its identifier, so a cached row equals a fresh one
+    whenever the record's ``input_hash`` and ``physics_hash``, the settings and
+    the code are the same (:class:`lamellume.shard_cache.PropagationCache`).
+    """
+    from lamellume import uncertainty
+
+    entries = io.read_parquet(entries) if isinstance(entries, (str, os.PathLike)) else entries
+    valleys = io.read_parquet(valleys) if isinstance(valleys, (str, os.PathLike)) else valleys
+    stamps = {"settings_hash": io.canonical_json_hash(dict(settings))[:16],
+              "code_version": stage_code_version()}
+    cache = PropagationCache(cache_dir, stamps)
+    keys = record_keys(entries)
+    reused = cache.reusable(set(keys))
+    todo = entries[~is_in(keys, set(record_keys(reused)) if len(reused) else set())]
+    fresh = uncertainty.propagate_uncertainty(todo, valleys[is_in(valleys["entry_id"], set(todo["entry_id"]))],
+                                              settings, _keldysh_table(table))
+    fresh["physics_hash"] = todo.set_index("entry_id").loc[fresh["entry_id"], "physics_hash"].to_numpy() \
+        if len(fresh) else pd.Series(dtype="string")
+    frame = pd.concat([f for f in (fresh, reused) if len(f)] or [fresh], ignore_index=True)
+    frame = frame.sort_values("entry_id", kind="stable").reset_index(drop=True)
+    io.write_parquet(frame, output, table_metadata=stamps)
+    cache.save(output)
+    counts = {"computed": len(fresh), "reused": len(reused)}
+    log.info("propagation done: %s", counts)
+    return counts
+
+
+def run_attribution(entries_path: str, valleys_path: str, uncertainty_path: str, table_path: str,
+                    settings: Mapping, cache_dir: str, output: str) -> dict[str, int]:
+    """Variance-based attribution of one shard's borderline verdicts, re-computing only changed records.
+
+    A record is attributed when its ``p_meets_all`` (the propagation's table)
+    lies in ``refinement.band``. Each record's design depends only on the
+    campaign seed and its identifier, so a cached row equals a fresh one
+    whenever ``input_hash``, ``physics_hash``, the settings and the code match.
+    """
+    from lamellume import refinement
+
+    entries = io.read_parquet(entries_path)
+    probabilities = io.read_parquet(uncertainty_path, columns=["entry_id", "p_meets_all"])
+    stamps = {"settings_hash": io.canonical_json_hash(dict(settings))[:16],
+              "code_version": stage_code_version()}
+    ref = settings["refinement"]
+    chosen = set(probabilities["entry_id"][refinement.borderline(probabilities["p_meets_all"], ref["band"])]) \
+        if ref["enabled"] else set()
+    entries = entries[is_in(entries["entry_id"], chosen)] if chosen else entries.iloc[:0]
+    entries = entries.assign(p_meets_all=entries["entry_id"].map(
+        probabilities.set_index("entry_id")["p_meets_all"]).to_numpy(dtype=float))
+    cache_path = Path(cache_dir) / "attribution.parquet"
+    keys = record_keys(entries)
+    reused = pd.DataFrame()
+    if len(entries) and cache_path.exists() and \
+            io.parquet_metadata(cache_path) == {**io.parquet_metadata(cache_path), **stamps}:
+        old = io.read_parquet(cache_path)
+        reused = old[is_in(record_keys(old), set(keys))] if len(old) else old
+    done = set(reused["entry_id"]) if len(reused) else set()
+    todo = entries[~is_in(entries["entry_id"], done)] if done else entries
+    if len(todo):
+        valleys = io.read_parquet(valleys_path)
+        valleys = valleys[is_in(valleys["entry_id"], set(todo["entry_id"]))]
+        table = KeldyshTable.from_arrays(io.load_arrays(table_path))
+        fresh = refinement.attribute(todo, valleys, settings, table)
+    else:
+        fresh = refinement.empty_frame()
+    frame = pd.concat([f for f in (fresh, reused) if len(f)] or [fresh], ignore_index=True)
+    frame = frame.sort_values(["entry_id", "output", "input_group"], kind="stable").reset_index(drop=True)
+    io.write_parquet(frame, output, units=refinement.UNITS, descriptions=refinement.DESCRIPTIONS,
+                     table_metadata=stamps)
+    io.copy_file(output, cache_path)
+    counts = {"borderline": len(entries), "computed": int(todo["entry_id"].nunique()) if len(todo) else 0,
+              "reused": len(done)}
+    log.info("attribution done: %s", counts)
+    return counts
+
+
+def run_refinement_list(attribution_paths: Sequence[str], settings: Mapping, outputs: Mapping[str, str],
+                        config_hash: str) -> int:
+    """Join the shards' attribution rows; write them, the ranked refinement list and its CSV."""
+    from lamellume import refinement
+
+    frame = _concat(attribution_paths)
+    if not len(frame):
+        frame = refinement.empty_frame()
+    frame = frame.sort_values(["entry_id", "output", "input_group"], kind="stable").reset_index(drop=True)
+    ref = settings["refinement"]
+    ranked = refinement.refinement_list(frame, effect=ref["effect"], per_entry=int(ref["per_compound"]))
+    meta = {"config_hash": config_hash}
+    io.write_parquet(frame, outputs["attribution"], units=refinement.UNITS, descriptions=refinement.DESCRIPTIONS,
+                     table_metadata=meta)
+    io.write_parquet(ranked, outputs["refinement"], units=refinement.UNITS, descriptions=refinement.DESCRIPTIONS,
+                     table_metadata=meta)
+    io.write_csv(refinement.display_frame(ranked), outputs["csv"])
+    log.info("refinement list: %d rows from %d compounds", len(ranked),
+             ranked["entry_id"].nunique() if len(ranked) else 0)
+    return len(ranked)

@@ -1,0 +1,149 @@
+"""Code versions derived from what the code imports (no hand-kept module lists).
+
+Every cache key and every rule's code input rests on one question: which source
+files can change the result of a stage? The answer is read from the code
+itself. :func:`imported_modules` lists the ``lamellume`` modules (and sibling
+adapter modules) a source file imports anywhere -- at the top, inside
+functions, under ``TYPE_CHECKING`` -- and :func:`module_closure` follows those
+imports transitively. A stage's code version is a digest of every file in its
+closure plus the JSON schemas the library reads.
+
+Why an import graph and not one digest of the whole library: with one digest,
+editing the HTML page (``report``) would throw away every screened row and the
+Keldysh table of a 10,000-record campaign. The graph is at module granularity
+and counts imports inside functions as well, so it errs towards re-running:
+a module that could run in a stage is always part of its key. The test
+``tests/integration/test_code_keys.py`` checks, by running every job, that no
+module a job actually loads is missing from its rule's declared code.
+
+Sources are read through :mod:`lamellume.io` (this module opens no files).
+"""
+
+from __future__ import annotations
+
+import ast
+import functools
+from pathlib import Path
+from typing import Iterable, Mapping
+
+from lamellume import io
+
+PACKAGE = "lamellume"
+
+
+def imported_modules(source: str, local: Iterable[str] = ()) -> set[str]:
+    """Names of the ``lamellume`` modules (and of the ``local`` top-level modules) a source imports.
+
+    Parameters
+    ----------
+    source : Python source text.
+    local : names of top-level modules living beside the source (adapter helpers such as
+        ``adapter_args``); imports of them are reported as ``"local:<name>"``.
+
+    Returns module names without the package prefix (``"io"``, ``"screen"``); importing the
+    package itself is ``"__init__"``. Every import statement counts, wherever it sits.
+    """
+    local = set(local)
+    found: set[str] = set()
+    for node in ast.walk(ast.parse(source)):
+        if isinstance(node, ast.Import):
+            for alias in node.names:
+                parts = alias.name.split(".")
+                if parts[0] == PACKAGE:
+                    found.add("__init__")
+                    if len(parts) > 1:
+                        found.add(parts[1])
+                elif alias.name in local:
+                    found.add(f"local:{alias.name}")
+        elif isinstance(node, ast.ImportFrom):
+            module = node.module or ""
+            parts = module.split(".") if module else []
+            if node.level:  # relative import inside the package
+                found.add("__init__")
+                if parts:
+                    found.add(parts[0])
+                else:
+                    found.update(alias.name for alias in node.names)
+            elif parts and parts[0] == PACKAGE:
+                found.add("__init__")
+                if len(parts) > 1:
+                    found.add(parts[1])
+                else:  # from lamellume import a, b
+                    found.update(alias.name for alias in node.names)
+            elif module in local:
+                found.add(f"local:{module}")
+    return found
+
+
+def declared_data_files(source: str) -> list[str]:
+    """The module-level ``DATA_FILES`` tuple of a source (files the module reads at run time,
+    relative to the library folder, e.g. the page's templates), read without importing it."""
+    for node in ast.parse(source).body:
+        if isinstance(node, ast.Assign) and any(getattr(t, "id", None) == "DATA_FILES" for t in node.targets):
+            return [str(name) for name in ast.literal_eval(node.value)]
+    return []
+
+
+def module_closure(entry: str, sources: Mapping[str, str], local: Iterable[str] = ()) -> frozenset[str]:
+    """Every module reachable from ``entry`` through imports (``entry`` included).
+
+    ``sources`` maps module names (``"io"``, ``"local:adapter_args"``, ...) to their text;
+    an imported name without a source (a name imported from a module, not a module) is
+    dropped.
+    """
+    seen: set[str] = set()
+    todo = [entry]
+    while todo:
+        name = todo.pop()
+        if name in seen or name not in sources:
+            continue
+        seen.add(name)
+        todo.extend(imported_modules(sources[name], local) - seen)
+    return frozenset(seen)
+
+
+@functools.cache
+def _sources(library: Path) -> dict[str, str]:
+    return io.library_sources(library)
+
+
+def library_modules(library: Path = io.LIBRARY_DIR) -> list[str]:
+    """Names of all library modules (``"__init__"``, ``"io"``, ...)."""
+    return sorted(_sources(Path(library)))
+
+
+def stage_modules(entry: str, library: Path = io.LIBRARY_DIR) -> frozenset[str]:
+    """Library modules a stage whose code starts at library module ``entry`` can run
+    (``library``: the package folder, by default this one)."""
+    return module_closure(entry, _sources(Path(library))) | {"__init__"}  # importing any module runs __init__
+
+
+def code_version(entry: str, library: Path = io.LIBRARY_DIR) -> str:
+    """Short digest of a stage's code: the sources of :func:`stage_modules`, the data files
+    they declare and the schemas (the ``schemas`` folder beside ``library``)."""
+    library = Path(library)
+    sources = _sources(library)
+    modules = stage_modules(entry, library)
+    parts = {f"{m}.py": sources[m] for m in modules}
+    for m in sorted(modules):
+        for name in declared_data_files(sources[m]):
+            parts[name] = io.read_source(library / name)
+    parts.update({f"schemas/{name}": text for name, text in io.schema_sources(library.parent / "schemas").items()})
+    return io.canonical_json_hash(parts)[:16]
+
+
+def adapter_files(adapter: str | Path, library: Path = io.LIBRARY_DIR) -> list[str]:
+    """Source files behind an adapter script: itself, the sibling helpers it imports, every
+    library module in their import closure, the data files those modules declare
+    (:func:`declared_data_files`) and the schemas (paths; the adapter first)."""
+    adapter, library = Path(adapter), Path(library)
+    siblings = {p.stem: p for p in adapter.parent.glob("*.py")}
+    sources = {f"local:{n}": io.read_source(p) for n, p in siblings.items()}
+    sources.update(_sources(library))
+    reached = module_closure(f"local:{adapter.stem}", sources, local=siblings) - {f"local:{adapter.stem}"}
+    files = [str(siblings[m.split(":", 1)[1]]) for m in reached if m.startswith("local:")]
+    modules = [m for m in reached if not m.startswith("local:")]
+    files += [str(library / f"{m}.py") for m in modules]
+    files += [str(library / name) for m in modules for name in declared_data_files(sources[m])]
+    files += [str(p) for p in io.schema_files(library.parent / "schemas")]
+    return [str(adapter)] + sorted(files)

@@ -1,0 +1,428 @@
+"""What to recompute next: which uncertain input decides each borderline verdict.
+
+Pure numpy/pandas; no file I/O. For every entry whose Monte Carlo probability
+of meeting every ranking criterion (``p_meets_all`` of
+:func:`lamellume.uncertainty.propagate_uncertainty`) lies in the configured
+band, the variance of the verdict (and of each criterion and two continuous
+quantities) is attributed to the input groups by the Saltelli (2010) /
+Jansen (1999) estimators of :mod:`lamellume.attribution`. The model is the
+propagation's own: the same distributions, the same per-sample evaluation
+(:func:`lamellume.uncertainty.evaluate_draws`); only the draws are arranged
+as a pick-freeze design.
+
+Input groups (``refinement.groups``)
+------------------------------------
+``mass`` and ``band_edges`` give one group per valley (the valley's mass
+factor, the valley's edge shift); ``dielectric`` (the tensor's factor),
+``screening_length`` (the r0 factor) and ``scissor`` (the scissor shift) one
+group per entry. A group whose uncertainty is zero for an entry carries
+nothing and is not evaluated. Inputs left out of ``groups`` keep varying but
+are not attributed.
+
+Expected effects
+----------------
+``share_first`` (S_i) is the expected fraction of the output's variance
+removed if the input were known exactly ("removed"); ``share_halved`` the
+expected fraction removed by a refinement that halves its standard deviation
+(see :mod:`lamellume.attribution`). For a 0/1 verdict the variance is
+p (1 - p), so an absolute effect ``share x p (1 - p)`` ranks the campaign's
+refinements: a coin-flip compound settled by one input ranks above a nearly
+decided one.
+
+Determinism
+-----------
+Entry e draws from ``default_rng(SeedSequence(entropy of
+uncertainty.entry_seed_sequence(seed, e), spawn_key=(1,)))``: a stream of its
+own, independent of the propagation's, of shard layout and of entry order.
+Work proceeds in blocks of at most ``uncertainty.BLOCK_CELLS`` (entry x
+sample) cells where one entry's design fits in a block.
+
+References
+----------
+A. Saltelli et al., Comput. Phys. Commun. 181, 259 (2010); M. J. W. Jansen,
+Comput. Phys. Commun. 117, 35 (1999); A. Saltelli et al., *Global
+Sensitivity Analysis: The Primer* (Wiley, 2008), sec. 1.2.15.
+"""
+
+from __future__ import annotations
+
+from typing import Mapping
+
+import numpy as np
+import pandas as pd
+
+from lamellume import attribution, keldysh, uncertainty
+
+__all__ = ["GROUP_KINDS", "OUTPUTS", "COLUMNS", "LIST_COLUMNS", "UNITS", "DESCRIPTIONS",
+           "attribution_seed_sequence", "borderline", "empty_frame", "display_frame", "attribute", "refinement_list", "plain_words"]
+
+#: Input group kinds, their display name and what a group would recompute.
+GROUP_KINDS: dict[str, tuple[str, str]] = {
+    "mass": ("effective mass", "a denser k-point mesh or band fit around the valley"),
+    "dielectric": ("dielectric tensor", "a better dielectric (linear-response) calculation"),
+    "screening_length": ("screening length r0", "a monolayer polarisability calculation"),
+    "band_edges": ("band edge", "a higher-level (e.g. many-body) band-edge calculation"),
+    "scissor": ("scissor shift", "a many-body gap correction"),
+}
+
+#: Attributed outputs: (name, display name, kind).
+OUTPUTS: dict[str, tuple[str, str]] = {
+    "meets_all": ("meets every criterion", "verdict"),
+    "pass_direct": ("gap direct", "verdict"),
+    "pass_margin": ("direct-gap margin large enough", "verdict"),
+    "pass_binding": ("binding strong enough for the temperature", "verdict"),
+    "pass_window": ("emission inside the target window", "verdict"),
+    "target_binding_ev": ("binding energy at the target layer count", "eV"),
+    "target_optical_gap_ev": ("optical gap at the target layer count", "eV"),
+}
+_CRITERIA = ("pass_direct", "pass_margin", "pass_binding", "pass_window")
+
+#: Columns of the per-entry attribution table: name -> (dtype, unit, description).
+COLUMNS: dict[str, tuple[str, str, str]] = {
+    "entry_id": ("string", "", "compound identifier"),
+    "input_hash": ("string", "", "content hash of the record the row was computed from"),
+    "physics_hash": ("string", "", "hash of the physics settings the record was screened with"),
+    "output": ("string", "", "attributed output: meets_all, pass_direct, pass_margin, pass_binding, "
+                             "pass_window (0/1 verdicts), target_binding_ev, target_optical_gap_ev"),
+    "input_group": ("string", "", "input group: kind, and valley label and band for per-valley groups"),
+    "input_kind": ("string", "", "mass, dielectric, screening_length, band_edges or scissor"),
+    "valley_index": ("int32", "", "the record's valley (its valley_index) of a per-valley group; -1 otherwise"),
+    "p_meets_all": ("float64", "1", "probability that every criterion is met, from the propagation's samples "
+                                    "(the value the shortlist shows)"),
+    "mean": ("float64", "output unit", "mean of the output over the base samples "
+                                        "(for a verdict: its probability)"),
+    "variance": ("float64", "output unit squared", "variance of the output over the base samples"),
+    "share_first": ("float64", "1", "first-order Sobol index (Saltelli 2010): expected fraction of the "
+                                     "variance removed if this input were known exactly"),
+    "share_first_se": ("float64", "1", "standard error of share_first"),
+    "share_total": ("float64", "1", "total Sobol index (Jansen 1999): fraction of the variance this "
+                                     "input takes part in, interactions included"),
+    "share_total_se": ("float64", "1", "standard error of share_total"),
+    "share_halved": ("float64", "1", "expected fraction of the variance removed if this input's standard "
+                                      "uncertainty were halved (NaN when not computed)"),
+    "share_halved_se": ("float64", "1", "standard error of share_halved"),
+    "n_base": ("int32", "1", "base samples N of the pick-freeze design"),
+    "seed": ("int64", "", "campaign seed; each entry's stream also depends on its identifier"),
+}
+
+#: Columns of the campaign refinement list (:func:`refinement_list`).
+LIST_COLUMNS: dict[str, tuple[str, str, str]] = {
+    "rank": ("int32", "1", "rank in the campaign by expected effect (1 = recompute first)"),
+    "entry_id": COLUMNS["entry_id"],
+    "input_group": COLUMNS["input_group"],
+    "input_kind": COLUMNS["input_kind"],
+    "valley_index": COLUMNS["valley_index"],
+    "recompute": ("string", "", "what a recomputation of this input would be"),
+    "p_meets_all": COLUMNS["p_meets_all"],
+    "share_first": COLUMNS["share_first"],
+    "share_total": COLUMNS["share_total"],
+    "share_halved": COLUMNS["share_halved"],
+    "expected_effect": ("float64", "1", "expected drop of the verdict's variance p(1-p) if this input's "
+                                        "uncertainty were halved (or removed, per refinement.effect)"),
+    "mostly_through": ("string", "", "the criterion whose outcome this input moves most"),
+    "advice": ("string", "", "the recommendation in plain words"),
+}
+
+UNITS: dict[str, str] = {k: v[1] for k, v in {**COLUMNS, **LIST_COLUMNS}.items() if v[1]}
+DESCRIPTIONS: dict[str, str] = {k: v[2] for k, v in {**COLUMNS, **LIST_COLUMNS}.items()}
+
+
+def attribution_seed_sequence(seed: int, entry_id: str) -> np.random.SeedSequence:
+    """The entry's attribution stream: the propagation's entropy with spawn key (1,).
+
+    References
+    ----------
+    NumPy ``SeedSequence`` spawn keys (independent child streams); common practice.
+    """
+    return np.random.SeedSequence(uncertainty.entry_seed_sequence(seed, entry_id).entropy, spawn_key=(1,))
+
+
+def borderline(p_meets_all, band) -> np.ndarray:
+    """Mask of probabilities inside the closed band [low, high]."""
+    lo, hi = sorted(float(x) for x in band)
+    p = np.asarray(p_meets_all, dtype=float)
+    return np.isfinite(p) & (p >= lo) & (p <= hi)
+
+
+def empty_frame() -> pd.DataFrame:
+    """An attribution table without rows (columns and dtypes of :data:`COLUMNS`)."""
+    return pd.DataFrame({c: pd.Series(dtype=d if d != "string" else object) for c, (d, _, _) in COLUMNS.items()})
+
+
+def _entry_groups(prep, e: int, kinds, labels, bands, vindex) -> tuple[list, list, list, list]:
+    """Active groups of entry e: column lists, display names, kinds, valley indices (-1: none)."""
+    v0, v1 = int(prep.vstart[e]), int(prep.vstart[e + 1])
+    k = v1 - v0
+    cols, names, kind_of, valley = [], [], [], []
+    single = {"dielectric": (0, prep.sig_eps[e]), "screening_length": (1, prep.sig_r0[e]),
+              "scissor": (2, prep.sig_scissor[e])}
+    for kind in kinds:
+        if kind in single:
+            col, sig = single[kind]
+            if sig > 0:
+                cols.append([col]), names.append(GROUP_KINDS[kind][0]), kind_of.append(kind), valley.append(-1)
+            continue
+        sig = prep.sig_mass if kind == "mass" else prep.sig_edge
+        base = 3 if kind == "mass" else 3 + k
+        for j in range(k):
+            if sig[v0 + j] > 0:
+                cols.append([base + j])
+                names.append(f"{GROUP_KINDS[kind][0]}, valley {labels[v0 + j]} ({bands[v0 + j]})")
+                kind_of.append(kind)
+                valley.append(int(vindex[v0 + j]))
+    return cols, names, kind_of, valley
+
+
+def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, table: keldysh.KeldyshTable,
+              block_cells: int = uncertainty.BLOCK_CELLS) -> pd.DataFrame:
+    """Sobol indices of every output of the given entries on their input groups.
+
+    Parameters
+    ----------
+    entries, valleys : pandas.DataFrame
+        Normalised shard tables of the entries to attribute (the caller picks
+        the borderline ones with :func:`borderline`); an optional
+        ``p_meets_all`` column of ``entries`` (the propagation's probability)
+        is copied to the rows.
+    settings : mapping
+        The propagation's settings (uncertainty, survival, ranking, layers,
+        monolayer, environments) plus ``refinement`` (samples, effect, groups).
+    table : lamellume.keldysh.KeldyshTable
+    block_cells : int, optional
+        Memory bound in (entry x sample) cells; never changes results.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per (entry, output, input group), columns :data:`COLUMNS`
+        (``physics_hash`` copied from ``entries`` when present), sorted by
+        entry_id, output, input_group.
+
+    References
+    ----------
+    Saltelli et al., Comput. Phys. Commun. 181, 259 (2010); Jansen, Comput.
+    Phys. Commun. 117, 35 (1999).
+    """
+    ref = settings["refinement"]
+    n_base = int(ref["samples"])
+    n_halved = int(ref["per_compound"]) if ref["effect"] == "halved" else 0
+    seed = int(settings["uncertainty"]["seed"])
+    kinds = [k for k in GROUP_KINDS if k in set(ref["groups"])]
+    if len(entries) == 0 or n_base < 2 or not kinds:
+        return empty_frame()
+
+    entries = entries.sort_values("entry_id", kind="stable").reset_index(drop=True)
+    valleys = valleys[valleys["entry_id"].isin(set(entries["entry_id"]))]
+    prep = uncertainty.prepare_inputs(entries, valleys, settings)
+    vt = valleys.assign(_o=pd.Index(prep.ids).get_indexer(valleys["entry_id"]))
+    vt = vt.sort_values(["_o", "valley_index"], kind="stable")
+    labels, bands = vt["label"].astype(str).to_numpy(), vt["band"].astype(str).to_numpy()
+    vindex = vt["valley_index"].to_numpy(dtype=np.int64)
+    groups = [_entry_groups(prep, e, kinds, labels, bands, vindex) for e in range(len(prep.ids))]
+    n_groups = np.array([len(g[0]) for g in groups])
+
+    # entries with the same number of groups evaluate together: reorder so they are contiguous
+    order = np.lexsort((np.arange(len(n_groups)), n_groups))
+    order = order[n_groups[order] > 0]
+    if not len(order):
+        return empty_frame()
+    entries = entries.iloc[order].reset_index(drop=True)
+    prep = uncertainty.prepare_inputs(entries, valleys, settings)
+    groups = [groups[i] for i in order]
+    n_groups = n_groups[order]
+
+    rows: list[pd.DataFrame] = []
+    start = 0
+    while start < len(order):
+        d = int(n_groups[start])
+        step = max(1, block_cells // ((d + 2) * n_base))
+        stop = start
+        while stop < len(order) and n_groups[stop] == d and stop - start < step:
+            stop += 1
+        rows.append(_attribute_block(prep, start, stop, groups[start:stop], n_base, n_halved, seed, table,
+                                     block_cells))
+        start = stop
+    frame = pd.concat(rows, ignore_index=True)
+    frame["input_hash"] = frame["entry_id"].map(entries.set_index("entry_id")["input_hash"])
+    if "physics_hash" in entries:
+        frame["physics_hash"] = frame["entry_id"].map(entries.set_index("entry_id")["physics_hash"])
+    else:
+        frame["physics_hash"] = ""
+    frame["p_meets_all"] = (frame["entry_id"].map(entries.set_index("entry_id")["p_meets_all"])
+                            if "p_meets_all" in entries else np.nan)
+    frame["n_base"] = np.int32(n_base)
+    frame["seed"] = np.int64(seed)
+    frame = frame[list(COLUMNS)]
+    for c, (dtype, _, _) in COLUMNS.items():
+        frame[c] = frame[c].astype(object if dtype == "string" else dtype)
+    return frame.sort_values(["entry_id", "output", "input_group"], kind="stable").reset_index(drop=True)
+
+
+def _evaluate_design(prep, a: int, b: int, zs, table, block_cells: int) -> dict[str, np.ndarray]:
+    """Model outputs (b - a, S) of entries a..b-1 on their draws zs[i] (S, 3 + 2 k_i), in blocks."""
+    n_e = b - a
+    s_tot = zs[0].shape[0]
+    k = np.diff(prep.vstart[a:b + 1])
+    z_ent = np.empty((3, n_e, s_tot))
+    z_mass = np.empty((int(k.sum()), s_tot))
+    z_edge = np.empty_like(z_mass)
+    pos = 0
+    for i, z in enumerate(zs):
+        ke = int(k[i])
+        z_ent[:, i, :] = z[:, :3].T
+        z_mass[pos:pos + ke] = z[:, 3:3 + ke].T
+        z_edge[pos:pos + ke] = z[:, 3 + ke:].T
+        pos += ke
+    step = s_tot if n_e * s_tot <= block_cells else max(1, block_cells // n_e)
+    parts = [uncertainty.evaluate_draws(prep, a, b, z_ent[:, :, s0:s0 + step], z_mass[:, s0:s0 + step],
+                                        z_edge[:, s0:s0 + step], table) for s0 in range(0, s_tot, step)]
+    if len(parts) == 1:
+        return parts[0]
+    return {key: np.concatenate([p[key] for p in parts], axis=1) for key in parts[0]}
+
+
+def _attribute_block(prep, a: int, b: int, groups, n_base: int, n_halved: int, seed: int, table,
+                     block_cells: int) -> pd.DataFrame:
+    """Indices of entries a..b-1, which share the number of groups d.
+
+    Stage 1 evaluates A, B and every A_B^(i); with ``n_halved`` > 0, stage 2
+    evaluates the halved-uncertainty matrices of the n_halved groups with the
+    largest first-order share of the verdict (the halved effect never exceeds
+    the first-order one; see :mod:`lamellume.attribution`).
+    """
+    n_e = b - a
+    d = len(groups[0][0])
+    r = min(n_halved, d)
+    k = np.diff(prep.vstart[a:b + 1])
+    designs = []
+    for i in range(n_e):
+        rng = np.random.default_rng(attribution_seed_sequence(seed, prep.ids[a + i]))
+        draws = rng.standard_normal((4 if r else 2, n_base, 3 + 2 * int(k[i])))
+        designs.append(attribution.sobol_design(draws, groups[i][0], residual=0.5 if r else None))
+    stage1 = [np.concatenate([g.a[None], g.b[None], g.ab], axis=0).reshape((d + 2) * n_base, -1) for g in designs]
+    y1 = {name: np.asarray(v, dtype=float).reshape(n_e, d + 2, n_base)
+          for name, v in _evaluate_design(prep, a, b, stage1, table, block_cells).items() if name in OUTPUTS}
+    idx = {name: attribution.sobol_indices(y[:, 0], y[:, 1], y[:, 2:]) for name, y in y1.items()}
+    halved = {name: (np.full((n_e, d), np.nan), np.full((n_e, d), np.nan)) for name in OUTPUTS}
+    if r:
+        first = np.nan_to_num(idx["meets_all"].first, nan=-np.inf)
+        top = np.argsort(-first, axis=1, kind="stable")[:, :r]
+        stage2 = [g.ab_reduced[top[i]].reshape(r * n_base, -1) for i, g in enumerate(designs)]
+        res2 = _evaluate_design(prep, a, b, stage2, table, block_cells)
+        rows = np.arange(n_e)[:, None]
+        for name, y in y1.items():
+            y2 = np.asarray(res2[name], dtype=float).reshape(n_e, r, n_base)
+            red = attribution.sobol_indices(y[:, 0], y[:, 1], y[:, 2:][rows, top], y2)
+            halved[name][0][rows, top] = red.reduced
+            halved[name][1][rows, top] = red.reduced_se
+    out = []
+    for name in OUTPUTS:
+        res = idx[name]
+        out.append(pd.DataFrame({
+            "entry_id": np.repeat(prep.ids[a:b], d),
+            "output": name,
+            "input_group": [g for grp in groups for g in grp[1]],
+            "input_kind": [g for grp in groups for g in grp[2]],
+            "valley_index": [g for grp in groups for g in grp[3]],
+            "mean": np.repeat(res.mean, d),
+            "variance": np.repeat(res.variance, d),
+            "share_first": res.first.reshape(-1), "share_first_se": res.first_se.reshape(-1),
+            "share_total": res.total.reshape(-1), "share_total_se": res.total_se.reshape(-1),
+            "share_halved": halved[name][0].reshape(-1), "share_halved_se": halved[name][1].reshape(-1),
+        }))
+    return pd.concat(out, ignore_index=True)
+
+
+def refinement_list(frame: pd.DataFrame, effect: str = "halved", per_entry: int = 3) -> pd.DataFrame:
+    """The campaign's ranked (compound, input, expected effect) list from :func:`attribute` rows.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        Attribution rows of the whole campaign (:data:`COLUMNS`).
+    effect : {"halved", "removed"}
+        Which expected effect ranks the list.
+    per_entry : int, optional
+        At most this many inputs per compound (the largest effects).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns :data:`LIST_COLUMNS`, ranked by ``expected_effect`` (ties by
+        entry_id, then input_group); inputs with a non-positive effect are left out.
+    """
+    verdict = frame[frame["output"] == "meets_all"].copy()
+    if not len(verdict):
+        return pd.DataFrame({c: pd.Series(dtype=d if d != "string" else object)
+                             for c, (d, _, _) in LIST_COLUMNS.items()})
+    share = verdict["share_halved"] if effect == "halved" else verdict["share_first"]
+    verdict["expected_effect"] = (share * verdict["variance"]).to_numpy(dtype=float)
+    verdict = verdict[np.isfinite(verdict["expected_effect"]) & (verdict["expected_effect"] > 0)]
+    verdict = verdict.sort_values(["expected_effect", "entry_id", "input_group"], ascending=[False, True, True],
+                                  kind="stable")
+    verdict = verdict.groupby("entry_id", sort=False).head(per_entry)
+
+    crit = frame[frame["output"].isin(_CRITERIA)].assign(
+        _w=lambda f: (f["share_first"] * f["variance"]).fillna(0.0))
+    crit = crit.sort_values(["_w", "output"], ascending=[False, True], kind="stable")
+    best = crit[crit["_w"] > 0].drop_duplicates(["entry_id", "input_group"])
+    through = best.set_index(["entry_id", "input_group"])["output"].map(lambda o: OUTPUTS[o][0])
+    key = pd.MultiIndex.from_frame(verdict[["entry_id", "input_group"]])
+    out = pd.DataFrame({
+        "rank": np.arange(1, len(verdict) + 1, dtype=np.int32),
+        "entry_id": verdict["entry_id"].to_numpy(dtype=object),
+        "input_group": verdict["input_group"].to_numpy(dtype=object),
+        "input_kind": verdict["input_kind"].to_numpy(dtype=object),
+        "valley_index": verdict["valley_index"].to_numpy(dtype=np.int32),
+        "recompute": verdict["input_kind"].map(lambda k: GROUP_KINDS[k][1]).to_numpy(dtype=object),
+        "p_meets_all": verdict["p_meets_all"].to_numpy(dtype=float),
+        "share_first": verdict["share_first"].to_numpy(dtype=float),
+        "share_total": verdict["share_total"].to_numpy(dtype=float),
+        "share_halved": verdict["share_halved"].to_numpy(dtype=float),
+        "expected_effect": verdict["expected_effect"].to_numpy(dtype=float),
+        "mostly_through": through.reindex(key).fillna("").to_numpy(dtype=object),
+    })
+    out["advice"] = [plain_words(r) for r in out.itertuples(index=False)]
+    return out
+
+
+def _percent(x: float) -> str:
+    return "under 1 %" if not np.isfinite(x) or x < 0.005 else f"{100 * x:.0f} %"
+
+
+def plain_words(row) -> str:
+    """One recommendation, e.g. 'Recompute the dielectric tensor of X: it decides 70 % of ...'."""
+    text = (f"Recompute the {row.input_group} of {row.entry_id} ({row.recompute}): it decides "
+            f"{_percent(row.share_first)} of whether {row.entry_id} meets every criterion "
+            f"(now {100 * row.p_meets_all:.0f} % likely)")
+    if row.mostly_through:
+        text += f", mostly through '{row.mostly_through}'"
+    if np.isfinite(row.share_halved):
+        text += f"; halving its uncertainty is expected to remove {_percent(row.share_halved)} of the doubt"
+    return text + "."
+
+
+#: Header of each refinement-list column in the CSV handed to groups (units in brackets).
+DISPLAY: dict[str, str] = {
+    "rank": "Rank",
+    "entry_id": "Compound",
+    "input_group": "Input to recompute",
+    "recompute": "Suggested recomputation",
+    "p_meets_all": "Chance of meeting every criterion now (%)",
+    "share_first": "Share of the verdict's doubt this input decides (%)",
+    "share_total": "Share including interactions with other inputs (%)",
+    "share_halved": "Expected share removed by halving its uncertainty (%)",
+    "expected_effect": "Expected drop of the verdict variance p(1-p) (1)",
+    "mostly_through": "Mostly through the criterion",
+    "advice": "Advice (model estimate, not a measurement)",
+}
+_PERCENT = ("p_meets_all", "share_first", "share_total", "share_halved")
+
+
+def display_frame(ranked: pd.DataFrame) -> pd.DataFrame:
+    """The refinement list with display headers, fractions as percentages (one decimal)."""
+    out = ranked[list(DISPLAY)].copy()
+    for c in _PERCENT:
+        out[c] = (100.0 * out[c].astype(float)).round(1)
+    out["expected_effect"] = out["expected_effect"].astype(float).round(4)
+    return out.rename(columns=DISPLAY)

@@ -1,0 +1,438 @@
+"""Every column of every output table, declared once: dtype, unit, description.
+
+The writers of :mod:`lamellume.io` take each field's unit and description
+(Arrow field metadata) from here, :func:`pandas_dtype` gives the typed empty
+and normalised frames their dtypes, and ``docs/columns.md`` is generated from
+this module (``python -m lamellume.tables > docs/columns.md``; a test checks
+it is current). A column name means the same thing in every table it appears
+in. Families of columns (one per layer count, per surroundings, per
+percentile) are declared once as a pattern (:data:`PATTERNS`).
+
+Units: ``eV``, ``nm``, ``Angstrom``, ``m_e``, ``K``, ``deg``, ``cm^-2``, ``1``
+(a dimensionless number) and ``-`` (text, identifier or flag: not a quantity).
+Arrow types: ``string`` (stored as large_string), ``float64``, ``int16``,
+``int32``, ``int64``, ``bool``.
+
+Pure declarations: no I/O, no physics.
+"""
+
+from __future__ import annotations
+
+import re
+from typing import NamedTuple
+
+#: Unit of a column that holds text, an identifier or a flag.
+NO_UNIT = "-"
+
+
+class Column(NamedTuple):
+    """One declared column."""
+
+    name: str
+    dtype: str
+    unit: str
+    description: str
+
+
+def _declare(rows) -> dict[str, Column]:
+    out: dict[str, Column] = {}
+    for name, dtype, unit, description in rows:
+        if name in out:
+            raise ValueError(f"column {name!r} declared twice")
+        out[name] = Column(name, dtype, unit, description)
+    return out
+
+
+S, F, B = "string", "float64", "bool"
+
+_TENSOR = ("xx", "yy", "zz", "xy", "xz", "yz")
+
+#: Stamps every row carries (traceability).
+_STAMPS = [
+    ("input_hash", S, NO_UNIT, "content hash of the record file and its CIF (the row's input)"),
+    ("physics_hash", S, NO_UNIT, "hash of the physics settings the row was computed with"),
+    ("code_version", S, NO_UNIT, "content hash of the library modules the row was computed with"),
+    ("config_hash", S, NO_UNIT, "hash of the whole config of the run that wrote the table"),
+    ("settings_hash", S, NO_UNIT, "hash of the settings of the Monte Carlo propagation"),
+]
+
+_ENTRY = [
+    ("entry_id", S, NO_UNIT, "compound identifier (the record's id, equal to its file name stem)"),
+    ("source_file", S, NO_UNIT, "record file name in the campaign's entries/ folder"),
+    ("formula", S, NO_UNIT, "chemical formula as given by the record"),
+    ("provenance", S, NO_UNIT, "where the record's numbers come from, as given"),
+    ("energy_reference", S, NO_UNIT, "energy zero of the record's band edges, as given"),
+    ("structure_file", S, NO_UNIT, "CIF file name in the campaign's structures/ folder ('' if none)"),
+    ("structure_hash", S, NO_UNIT, "SHA-256 of the CIF bytes ('' if none)"),
+    ("source_hashes", S, NO_UNIT, "for an imported record: 'file=sha256' of each calculation file it was made from"),
+    ("dielectric_frame", S, NO_UNIT, "frame of the given dielectric tensors: 'layer' or 'crystal'"),
+    ("normal_x", F, "1", "layer normal, Cartesian x component (crystal frame)"),
+    ("normal_y", F, "1", "layer normal, Cartesian y component (crystal frame)"),
+    ("normal_z", F, "1", "layer normal, Cartesian z component (crystal frame)"),
+    ("normal_source", S, NO_UNIT, "where the layer normal comes from: layer frame, record, structure, assumed z"),
+    *[(f"eps_inf_{c}", F, "1", f"electronic (high-frequency) dielectric tensor, layer frame, {c} component")
+      for c in _TENSOR],
+    *[(f"eps_static_{c}", F, "1", f"static dielectric tensor, layer frame, {c} component (NaN if not given)")
+      for c in _TENSOR],
+    ("eps_rel_unc", F, "1", "relative standard uncertainty of the dielectric tensor (NaN: config default)"),
+    ("spacing_source", S, NO_UNIT, "where the interlayer spacing comes from: record or structure"),
+    ("lattice_source", S, NO_UNIT, "where the in-plane lattice constant comes from: record or structure"),
+    ("is_layered_structure", B, NO_UNIT, "the CIF shows 2D-bonded layers (null without a CIF)"),
+    ("vdw_gap_angstrom", F, "Angstrom", "van der Waals gap between layers found in the CIF (NaN without)"),
+    ("r0_given_angstrom", F, "Angstrom", "monolayer screening length given by the record (NaN: bulk estimate)"),
+    ("r0_source", S, NO_UNIT, "source of the monolayer screening length: record r0, record alpha_2D, bulk estimate"),
+    ("r0_rel_unc", F, "1", "relative standard uncertainty of r0 (NaN: config default)"),
+    ("scissor_ev", F, "eV", "scissor shift added to every conduction edge"),
+    ("scissor_unc_ev", F, "eV", "standard uncertainty of the scissor shift (NaN: config default)"),
+    ("edge_eps_top", F, "1", "dielectric constant above the slab the band edges were computed in (1: vacuum)"),
+    ("edge_eps_bottom", F, "1", "dielectric constant below the slab the band edges were computed in (1: vacuum)"),
+    ("edge_method", S, NO_UNIT, "method of the band-edge calculation, as given ('not stated' if not)"),
+    ("gap_t_form", S, NO_UNIT, "form of the gap's temperature dependence: varshni, bose-einstein or '' (none given)"),
+    ("gap_t_alpha_ev_per_k", F, "eV/K", "Varshni alpha of E(T) = E(0) - alpha T^2/(T + beta)"),
+    ("gap_t_beta_k", F, "K", "Varshni beta"),
+    ("gap_t_coupling", F, "1", "electron-phonon coupling S of the Bose-Einstein form"),
+    ("gap_t_phonon_ev", F, "eV", "mean phonon energy of the Bose-Einstein form"),
+    ("gap_t_reference_k", F, "K", "temperature the band edges were computed at (NaN without a temperature form)"),
+    ("warnings", S, NO_UNIT, "warnings raised while reading the record, joined by ' | '"),
+]
+
+_VALLEY = [
+    ("valley_index", "int64", "1", "position of the valley in the record's valley list (-1: not a valley's row)"),
+    ("label", S, NO_UNIT, "Brillouin-zone label of the valley, as given"),
+    ("band", S, NO_UNIT, "'valence' or 'conduction'"),
+    ("inv_mass_xx", F, "1/m_e", "in-plane inverse-mass tensor, xx component (carrier sign)"),
+    ("inv_mass_xy", F, "1/m_e", "in-plane inverse-mass tensor, xy component"),
+    ("inv_mass_yy", F, "1/m_e", "in-plane inverse-mass tensor, yy component"),
+    ("mass_perp_me", F, "m_e", "out-of-plane effective mass (NaN if not given)"),
+    ("mass_source", S, NO_UNIT, "'given' or 'fitted' (from band samples)"),
+    ("mass_fit_rms_ev", F, "eV", "rms residual of the band-sample mass fit (NaN if given)"),
+    ("mass_nonparabolic", B, NO_UNIT, "the band samples show a notable quartic term"),
+    ("mass_rel_unc", F, "1", "relative standard uncertainty of the masses (NaN: config default)"),
+    ("edge_unc_ev", F, "eV", "standard uncertainty of the band edges (NaN: config default)"),
+    ("degeneracy", F, "1", "valley degeneracy (equivalent valleys in the Brillouin zone; 1 if not given)"),
+    ("spin_split_ev", F, "eV", "spin splitting of the valley's band (NaN if not given)"),
+    ("edge_spin", "int64", "1", "spin sub-band of the given edge: 1 up, -1 down, 0 not stated"),
+]
+
+_REJECT = [
+    ("field", S, NO_UNIT, "record field the problem concerns ('(file)' for the file as a whole)"),
+    ("reason", S, NO_UNIT, "what is wrong, in words"),
+    ("stage", S, NO_UNIT, "step that rejected the record: read, duplicate, contract, structure, normalise"),
+]
+
+_LONG = [
+    ("layers", "int16", "1", "layer count; 0 = bulk crystal"),
+    ("environment", S, NO_UNIT, "surroundings (config environments) or 'bulk crystal'"),
+    ("gap_character", S, NO_UNIT, "'direct', 'indirect' or 'unknown' at this layer count"),
+    ("vbm_ev", F, "eV", "valence-band maximum on the record's energy reference"),
+    ("cbm_ev", F, "eV", "conduction-band minimum including the scissor shift"),
+    ("fundamental_gap_ev", F, "eV", "CBM - VBM"),
+    ("direct_gap_ev", F, "eV", "lowest same-label (vertical) transition"),
+    ("indirect_gap_ev", F, "eV", "lowest transition between different labels"),
+    ("direct_margin_ev", F, "eV", "indirect - direct gap: > 0 bright, < 0 dark"),
+    ("vbm_label", S, NO_UNIT, "label of the valence-band maximum"),
+    ("cbm_label", S, NO_UNIT, "label of the conduction-band minimum"),
+    ("direct_label", S, NO_UNIT, "label of the lowest direct (bright) pair"),
+    ("mu_inplane_me", F, "m_e", "in-plane reduced mass of the bright pair (geometric mean of principal values)"),
+    ("mu_small_me", F, "m_e", "smaller principal in-plane reduced mass of the bright pair"),
+    ("mu_large_me", F, "m_e", "larger principal in-plane reduced mass of the bright pair"),
+    ("mu_angle_deg", F, "deg", "angle of the light principal reduced-mass axis from the layer-frame x axis"),
+    ("mu_dark_me", F, "m_e", "in-plane reduced mass of the fundamental (VBM, CBM) pair"),
+    ("r0_angstrom", F, "Angstrom", "Rytova-Keldysh screening length of the N-layer stack"),
+    ("kappa", F, "1", "mean dielectric constant of the surroundings (bulk rows: the crystal's sqrt(eps_par eps_perp))"),
+    ("binding_model", S, NO_UNIT, "model of binding_ev: rytova-keldysh, 3d-anisotropic or 3d-hydrogenic"),
+    ("binding_ev", F, "eV", "bright-exciton binding energy of the row's model (binding_model)"),
+    ("binding_2s_ev", F, "eV", "2s binding energy (Rytova-Keldysh; 3D hydrogenic n=2 for bulk)"),
+    ("binding_3s_ev", F, "eV", "3s binding energy (Rytova-Keldysh; 3D hydrogenic n=3 for bulk)"),
+    ("radius_angstrom", F, "Angstrom",
+     "exciton radius of the row's model (rms for Rytova-Keldysh, Bohr radius for bulk)"),
+    ("binding_2d_hydrogenic_ev", F, "eV", "2D hydrogenic binding with the configured constant"),
+    ("binding_olsen_ev", F, "eV", "quick estimate of Olsen et al. (2016)"),
+    ("binding_fractional_ev", F, "eV", "fractional-dimension interpolation (He 1991)"),
+    ("dark_binding_ev", F, "eV", "binding of the fundamental-pair (momentum-dark) exciton"),
+    ("dark_exciton_ev", F, "eV",
+     "lowest dark exciton energy over every valley pair (momentum- or spin-dark): pair gap - its own binding; "
+     "NaN if no dark pair is given"),
+    ("bright_exciton_ev", F, "eV",
+     "lowest bright exciton energy over every same-label, spin-allowed valley pair: pair gap - its own binding"),
+    ("exciton_margin_ev", F, "eV", "dark - bright exciton energy: > 0 the lowest exciton is bright"),
+    ("brightness", S, NO_UNIT,
+     "exciton-level verdict: 'bright' (lowest exciton bright), 'dark', or 'unknown' (no dark competitor given)"),
+    ("bright_pair", S, NO_UNIT, "valley pair of the lowest bright exciton, valence->conduction (spin if given)"),
+    ("dark_pair", S, NO_UNIT, "valley pair of the lowest dark exciton, valence->conduction (spin if given)"),
+    ("bright_weight", F, "1", "Boltzmann weight g M^(d/2) of the lowest bright exciton (valley degeneracy, "
+     "centre-of-mass mass in m_e; d = 2 layers, 3 bulk)"),
+    ("dark_weight", F, "1", "Boltzmann weight g M^(d/2) of the lowest dark exciton"),
+    ("bright_fraction", F, "1", "thermal bright fraction at the operating temperature: Boltzmann occupation of "
+     "the lowest bright vs the lowest dark exciton (NaN: no dark competitor, unknown)"),
+    ("binding_beyond_validity", B, NO_UNIT,
+     "binding above excitons.max_binding_fraction of the direct gap: outside the effective-mass model's validity"),
+    ("spin_given", B, NO_UNIT, "the record gives spin sub-bands (without them every same-label pair counts as bright)"),
+    ("optical_gap_ev", F, "eV", "lowest bright exciton energy (equals bright_exciton_ev; direct gap - binding_ev "
+     "unless spin sub-bands or another same-label pair decide)"),
+    ("emission_nm", F, "nm", "vacuum wavelength of the lowest bright exciton (band edges as given: no gap shift)"),
+    ("optical_gap_compensated_ev", F, "eV",
+     "other end of the optical-gap bracket: lowest bright exciton if the quasiparticle gap shrank with the "
+     "surroundings' screening exactly as the binding falls (full compensation; the optical gap of the record's "
+     "band_edge_origin surroundings)"),
+    ("emission_compensated_nm", F, "nm", "vacuum wavelength at optical_gap_compensated_ev"),
+    ("emission_band", S, NO_UNIT, "named spectral band of the emission (config emission_bands)"),
+    ("mott_density_per_cm2", F, "cm^-2", "2D Mott density estimate 1/(pi r^2)"),
+    ("temperature_k", F, "K", "operating temperature (config survival)"),
+    ("binding_over_kt", F, "1", "binding energy over kT at the operating temperature"),
+    ("survives_kt", B, NO_UNIT, "binding energy above kT"),
+    ("bound_fraction", F, "1", "layer rows: bound-exciton fraction of the 2D Saha equation at the areal pair density survival.pair_density_per_cm2 (empty on bulk rows)"),
+    ("bound_fraction_3d", F, "1", "bulk rows: bound-exciton fraction of the 3D Saha equation at the volume pair density survival.pair_density_per_cm3 (empty on layer rows)"),
+    ("wannier_ok", B, NO_UNIT, "exciton radius above wannier_ratio lattice constants (effective-mass picture holds)"),
+]
+
+_WIDE = [
+    ("eps_parallel", F, "1", "in-plane electronic dielectric constant (mean of in-plane eigenvalues)"),
+    ("eps_perpendicular", F, "1", "out-of-plane electronic dielectric constant"),
+    ("eps_inplane_anisotropy", F, "1", "(max - min)/mean of in-plane eigenvalues"),
+    ("eps_bulk", F, "1", "sqrt(eps_parallel eps_perpendicular)"),
+    ("eps_static_parallel", F, "1", "in-plane static dielectric constant (if given)"),
+    ("eps_static_perpendicular", F, "1", "out-of-plane static dielectric constant (if given)"),
+    ("spacing_angstrom", F, "Angstrom", "interlayer repeat distance"),
+    ("lattice_angstrom", F, "Angstrom", "in-plane lattice constant"),
+    ("r0_monolayer_angstrom", F, "Angstrom", "monolayer screening length"),
+    ("gap_character_1l", S, NO_UNIT, "gap character of the monolayer"),
+    ("bright_valley_1l", S, NO_UNIT, "label of the monolayer's lowest direct pair"),
+    ("gap_1l_ev", F, "eV", "monolayer fundamental gap"),
+    ("direct_gap_1l_ev", F, "eV", "monolayer lowest direct gap"),
+    ("margin_1l_ev", F, "eV", "monolayer indirect - direct gap"),
+    ("gap_character_bulk", S, NO_UNIT, "gap character of the bulk crystal"),
+    ("gap_bulk_ev", F, "eV", "bulk fundamental gap"),
+    ("direct_gap_bulk_ev", F, "eV", "bulk lowest direct gap"),
+    ("direct_through_layers", "int16", "1",
+     "largest N with every count 1..N direct (0: indirect monolayer; -2: undetermined)"),
+    ("character_switch_layers", "int16", "1",
+     "first layer count whose character differs from the monolayer's (0: bulk only; -1: none; -2: undetermined)"),
+    ("thinning_verdict", S, NO_UNIT, "how the gap character changes with thinning, in words"),
+    ("mu_1l_me", F, "m_e", "monolayer bright-pair in-plane reduced mass"),
+    ("mu_bulk_me", F, "m_e", "bulk bright-pair in-plane reduced mass"),
+    ("mu_bulk_perp_me", F, "m_e", "bulk bright-pair out-of-plane reduced mass"),
+    ("bulk_binding_ev", F, "eV", "3D hydrogenic binding, geometric-mean constant"),
+    ("bulk_radius_angstrom", F, "Angstrom", "3D Bohr radius, geometric-mean constant"),
+    ("bulk_binding_aniso_ev", F, "eV", "anisotropic 3D variational binding"),
+    ("quasi2d_binding_ev", F, "eV", "2D hydrogenic binding with the bulk constant (4x bulk)"),
+    ("quasi2d_radius_angstrom", F, "Angstrom", "2D Bohr radius (1s decay length) with the bulk constant"),
+    ("bulk_optical_gap_ev", F, "eV", "bulk direct gap - bulk binding"),
+    ("edge_fit_rms_ev", F, "eV", "largest rms residual of the layer-count confinement fit over the compound's valleys"),
+    ("rank_environment", S, NO_UNIT, "surroundings the ranking uses (config ranking.environment)"),
+    ("rank_layers", "int64", "1", "layer count the ranking uses (config ranking.target_layers)"),
+    ("target_gap_character", S, NO_UNIT, "gap character at the target layer count"),
+    ("target_optical_gap_ev", F, "eV", "bright exciton energy at the target layer count in the ranking environment"),
+    ("target_emission_nm", F, "nm", "emission wavelength at the target layer count in the ranking environment"),
+    ("target_emission_band", S, NO_UNIT, "spectral band of the target emission"),
+    ("target_binding_ev", F, "eV", "Rytova-Keldysh binding at the target layer count in the ranking environment"),
+    ("target_binding_over_kt", F, "1", "target binding over kT at the operating temperature"),
+    ("target_direct_margin_ev", F, "eV", "indirect - direct gap at the target layer count"),
+    ("target_bound_fraction", F, "1", "2D Saha bound fraction at the target layer count"),
+    ("target_wannier_ok", B, NO_UNIT, "effective-mass picture holds at the target layer count"),
+    ("target_radius_angstrom", F, "Angstrom", "exciton rms radius at the target layer count"),
+    ("target_brightness", S, NO_UNIT, "exciton-level verdict at the target layer count in the ranking environment"),
+    ("target_bright_exciton_ev", F, "eV", "lowest bright exciton energy at the target"),
+    ("target_dark_exciton_ev", F, "eV", "lowest dark exciton energy at the target"),
+    ("target_exciton_margin_ev", F, "eV", "dark - bright exciton energy at the target"),
+    ("target_bright_pair", S, NO_UNIT, "valley pair of the lowest bright exciton at the target"),
+    ("target_dark_pair", S, NO_UNIT, "valley pair of the lowest dark exciton at the target"),
+    ("target_bright_fraction", F, "1", "thermal bright fraction at the target"),
+    ("target_binding_beyond_validity", B, NO_UNIT, "target binding outside the effective-mass model's validity"),
+    ("target_spin_given", B, NO_UNIT, "the record gives spin sub-bands"),
+    ("target_optical_gap_compensated_ev", F, "eV", "full-compensation end of the optical-gap bracket at the target"),
+    ("target_emission_compensated_nm", F, "nm", "full-compensation end of the emission bracket at the target"),
+    ("pass_direct", B, NO_UNIT, "criterion: the lowest exciton at the target is bright (exciton level; 'unknown' "
+     "fails), or its verdict is known if require_direct is false"),
+    ("pass_margin", B, NO_UNIT, "criterion: dark - bright exciton energy at least min_direct_margin_ev"),
+    ("pass_bright_fraction", B, NO_UNIT, "criterion: thermal bright fraction at least min_bright_fraction "
+     "(always true when it is 0)"),
+    ("pass_binding", B, NO_UNIT, "criterion: binding at least min_binding_over_kt times kT"),
+    ("pass_window", B, NO_UNIT, "criterion: both ends of the emission bracket (no gap shift, full compensation) "
+     "inside the target window"),
+    ("meets_all_criteria", B, NO_UNIT, "every ranking criterion holds (a candidate)"),
+    ("score_binding", F, "1", "binding component of the score, in [0, 1]"),
+    ("score_margin", F, "1", "margin component of the score, in [0, 1]"),
+    ("score_window", F, "1", "emission-window component of the score, in [0, 1]"),
+    ("score", F, "1", "weighted mean of the score components, in [0, 1]"),
+    ("rank", "int32", "1", "position in the ranked list (candidates first)"),
+]
+
+_UNCERTAINTY = [
+    ("p_direct_target", F, "1", "probability that the gap is direct at the target layer count"),
+    ("p_meets_all", F, "1", "probability that every ranking criterion is met"),
+    ("p_pass_margin", F, "1", "probability that the exciton-level (dark - bright) margin criterion is met"),
+    ("p_pass_binding", F, "1", "probability that the binding/kT criterion is met"),
+    ("p_pass_window", F, "1", "probability that the emission lies in the target window"),
+    ("n_samples", "int32", "1", "Monte Carlo samples per entry (0 = propagation disabled)"),
+    ("seed", "int64", "1", "campaign seed; each entry's stream also depends on its identifier"),
+]
+
+_CHANGES = [
+    ("change", S, NO_UNIT, "most important change of the compound since the previous run"),
+    ("detail", S, NO_UNIT, "every change of the compound in plain words"),
+    ("old_rank", "int32", "1", "rank in the previous run (null if absent)"),
+    ("new_rank", "int32", "1", "rank in this run (null if absent)"),
+    ("rank_change", "int32", "1", "old rank - new rank: > 0 moved up the list"),
+    ("old_score", F, "1", "score in the previous run"),
+    ("new_score", F, "1", "score in this run"),
+    ("was_candidate", B, NO_UNIT, "met every criterion in the previous run"),
+    ("is_candidate", B, NO_UNIT, "meets every criterion in this run"),
+    ("input_revised", B, NO_UNIT, "the record or its CIF changed (input_hash differs)"),
+    ("old_input_hash", S, NO_UNIT, "input hash in the previous run"),
+    ("new_input_hash", S, NO_UNIT, "input hash in this run"),
+]
+
+_REFINEMENT = [
+    ("output", S, NO_UNIT, "attributed output: meets_all, pass_direct, pass_margin, pass_binding, "
+                           "pass_window (0/1 verdicts), target_binding_ev, target_optical_gap_ev"),
+    ("input_group", S, NO_UNIT, "input group: kind, and valley label and band for per-valley groups"),
+    ("input_kind", S, NO_UNIT, "mass, dielectric, screening_length, band_edges or scissor"),
+    ("mean", F, "output unit", "mean of the output over the base samples (for a verdict: its probability)"),
+    ("variance", F, "output unit squared", "variance of the output over the base samples"),
+    ("share_first", F, "1", "first-order Sobol index (Saltelli 2010): expected fraction of the variance "
+                            "removed if this input were known exactly"),
+    ("share_first_se", F, "1", "standard error of share_first"),
+    ("share_total", F, "1", "total Sobol index (Jansen 1999): fraction of the variance this input takes "
+                            "part in, interactions included"),
+    ("share_total_se", F, "1", "standard error of share_total"),
+    ("share_halved", F, "1", "expected fraction of the variance removed if this input's standard uncertainty "
+                             "were halved (NaN when not computed)"),
+    ("share_halved_se", F, "1", "standard error of share_halved"),
+    ("n_base", "int32", "1", "base samples N of the pick-freeze design"),
+    ("recompute", S, NO_UNIT, "what a recomputation of this input would be"),
+    ("expected_effect", F, "1", "expected drop of the verdict's variance p(1-p) if this input's uncertainty "
+                                "were halved (or removed, per refinement.effect)"),
+    ("mostly_through", S, NO_UNIT, "the criterion whose outcome this input moves most"),
+    ("advice", S, NO_UNIT, "the recommendation in plain words"),
+]
+
+#: Every column with a fixed name.
+COLUMNS: dict[str, Column] = _declare(_STAMPS + _ENTRY + _VALLEY + _REJECT + _LONG + _WIDE + _UNCERTAINTY
+                                      + _CHANGES + _REFINEMENT)
+
+#: Percentiles and quantities of the Monte Carlo summary columns ``<quantity>_p<NN>``.
+PERCENTILES = (16, 50, 84)
+MC_QUANTITIES = {
+    "target_binding_ev": "Rytova-Keldysh binding at the target layer count in the ranking environment",
+    "target_optical_gap_ev": "optical gap (direct gap - binding) at the target layer count",
+    "target_emission_nm": "emission wavelength at the target layer count",
+    "bulk_binding_ev": "bulk 3D hydrogenic binding (geometric-mean dielectric constant)",
+}
+
+#: Families of columns: regular expression -> (dtype, unit, description with {groups}).
+PATTERNS: dict[str, tuple[str, str, str]] = {
+    r"edge_(?P<n>\d+)l_ev": (F, "eV", "band edge of the valley at {n} layer(s) (NaN if not given)"),
+    r"edge_bulk_ev": (F, "eV", "band edge of the valley in the bulk crystal"),
+    r"binding_1l_ev__(?P<env>.+)": (F, "eV", "monolayer Rytova-Keldysh binding in environment {env}"),
+    r"optical_gap_1l_ev__(?P<env>.+)": (F, "eV", "monolayer bright exciton energy in environment {env}"),
+    r"emission_1l_nm__(?P<env>.+)": (F, "nm", "monolayer emission wavelength in environment {env}"),
+    r"(?P<q>target_binding_ev|target_optical_gap_ev|target_emission_nm|bulk_binding_ev)_p(?P<p>\d+)": (
+        F, "{unit}", "{p}th percentile (Monte Carlo) of the {text}"),
+}
+
+
+def lookup(name: str) -> Column | None:
+    """The declaration of a column (fixed name or family member), or None if undeclared."""
+    if name in COLUMNS:
+        return COLUMNS[name]
+    for pattern, (dtype, unit, text) in PATTERNS.items():
+        m = re.fullmatch(pattern, name)
+        if m:
+            groups = m.groupdict()
+            if "q" in groups:
+                q = groups["q"]
+                groups.update(unit=COLUMNS[q].unit if q in COLUMNS else "eV" if q.endswith("_ev") else "nm",
+                              text=MC_QUANTITIES[q])
+            return Column(name, dtype, unit.format(**groups), text.format(**groups))
+    return None
+
+
+def units_for(columns) -> dict[str, str]:
+    """Unit of every declared column among ``columns``."""
+    return {c: col.unit for c in columns if (col := lookup(c)) is not None}
+
+
+def descriptions_for(columns) -> dict[str, str]:
+    """Description of every declared column among ``columns``."""
+    return {c: col.description for c in columns if (col := lookup(c)) is not None}
+
+
+_PANDAS = {"string": "str", "float64": "float64", "int16": "int16", "int32": "int32", "int64": "int64",
+           "bool": "boolean"}
+
+
+def pandas_dtype(name: str) -> str:
+    """pandas dtype of a declared column for typed frames (flags nullable: 'boolean')."""
+    col = lookup(name)
+    if col is None:
+        raise KeyError(f"column {name!r} is not declared in lamellume.tables")
+    return _PANDAS[col.dtype]
+
+
+#: The output tables and their columns in order (families as patterns), for the documentation.
+TABLES: dict[str, tuple[str, list[str]]] = {
+    "results/tables/entries.parquet": (
+        "one row per screened compound: the normalised record",
+        ["entry_id", "source_file", "input_hash", "formula", "provenance", "energy_reference", "structure_file",
+         "structure_hash", "source_hashes", "dielectric_frame", "normal_x", "normal_y", "normal_z", "normal_source",
+         *[f"eps_inf_{c}" for c in _TENSOR], *[f"eps_static_{c}" for c in _TENSOR], "eps_rel_unc",
+         "spacing_angstrom", "spacing_source", "lattice_angstrom", "lattice_source", "is_layered_structure",
+         "vdw_gap_angstrom", "r0_given_angstrom", "r0_source", "r0_rel_unc", "scissor_ev", "scissor_unc_ev",
+         "edge_eps_top", "edge_eps_bottom", "edge_method", "gap_t_form", "gap_t_alpha_ev_per_k", "gap_t_beta_k",
+         "gap_t_coupling", "gap_t_phonon_ev", "gap_t_reference_k",
+         "warnings", "physics_hash", "code_version", "config_hash"]),
+    "results/tables/valleys.parquet": (
+        "one row per valley of a screened compound",
+        ["entry_id", "valley_index", "input_hash", "label", "band", "edge_1l_ev", "edge_bulk_ev",
+         "inv_mass_xx", "inv_mass_xy", "inv_mass_yy", "mass_perp_me", "mass_source", "mass_fit_rms_ev",
+         "mass_nonparabolic", "mass_rel_unc", "edge_unc_ev", "degeneracy", "spin_split_ev", "edge_spin",
+         "physics_hash", "code_version", "config_hash"]),
+    "results/tables/rejects.parquet": (
+        "one row per problem of a rejected record (also rejects.csv)",
+        ["entry_id", "source_file", "field", "reason", "stage", "input_hash", "physics_hash", "code_version"]),
+    "results/tables/screen_long.parquet": (
+        "one row per compound, layer count and surroundings (bulk: one row)",
+        ["entry_id", *[c[0] for c in _LONG], "input_hash", "physics_hash",
+                                     "code_version", "config_hash"]),
+    "results/tables/screen_wide.parquet": (
+        "one row per compound, ranked; the Monte Carlo summary joined",
+        ["entry_id", "formula", "input_hash", *[c[0] for c in _WIDE[:30]], "warnings",
+         "binding_1l_ev__<env>", "optical_gap_1l_ev__<env>", "emission_1l_nm__<env>",
+         *[c[0] for c in _WIDE[30:-1]],
+         *[f"{q}_p{p}" for q in MC_QUANTITIES for p in PERCENTILES], *[c[0] for c in _UNCERTAINTY],
+         "rank", "physics_hash", "code_version", "config_hash"]),
+    "results/tables/attribution.parquet": (
+        "one row per borderline compound, attributed output and input group (variance-based attribution)",
+        ["entry_id", "input_hash", "physics_hash", "output", "input_group", "input_kind", "valley_index",
+         "p_meets_all", "mean", "variance", "share_first", "share_first_se", "share_total", "share_total_se",
+         "share_halved", "share_halved_se", "n_base", "seed"]),
+    "results/tables/refinement.parquet": (
+        "the campaign's refinement list: which input to recompute first (also results/refinement.csv)",
+        ["rank", "entry_id", "input_group", "input_kind", "valley_index", "recompute", "p_meets_all",
+         "share_first", "share_total", "share_halved", "expected_effect", "mostly_through", "advice"]),
+    "results/tables/changes.parquet": (
+        "one row per compound that changed since the previous run",
+        ["entry_id", *[c[0] for c in _CHANGES]]),
+}
+
+
+def column_docs() -> str:
+    """Markdown documentation of every output table's columns (docs/columns.md)."""
+    lines = ["# Output columns", "",
+             "Generated from `workflow/lamellume/tables.py` by `python -m lamellume.tables`; do not edit.",
+             "Units: `1` dimensionless, `-` text, identifier or flag. `<env>`: one column per configured",
+             "surroundings; `edge_<N>l_ev`: one column per layer count 1..max_layers.", ""]
+    for table, (what, columns) in TABLES.items():
+        lines += [f"## `{table}`", "", what + ".", "", "| column | type | unit | description |",
+                  "|---|---|---|---|"]
+        for name in columns:
+            col = lookup(name.replace("<env>", "ENV").replace("edge_1l_ev", "edge_1l_ev"))
+            shown = name if name != "edge_1l_ev" else "edge_<N>l_ev"
+            lines.append(f"| `{shown}` | {col.dtype} | {col.unit} | {col.description.replace('ENV', '<env>')} |")
+        lines.append("")
+    return "\n".join(lines)
+
+
+if __name__ == "__main__":
+    print(column_docs(), end="")
