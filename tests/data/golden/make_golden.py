@@ -68,6 +68,26 @@ def unpack_inputs(name: str, target: Path) -> Path:
     return folder
 
 
+#: The project's former name in record format lines (the golden inputs predate the rename).
+FORMER_FORMATS = {b'"flakelight-record/1"': b'"lamellume-record/1"'}
+
+
+def migrate_records(folder: Path) -> int:
+    """Rewrite records in the project's former format to the current one, as README's
+    migration note says (a byte replacement of the format line); return the files changed."""
+    changed = 0
+    for path in sorted((folder / "entries").glob("*.json")):
+        if not path.is_file() or path.is_symlink():
+            continue
+        data = new = path.read_bytes()
+        for old, current in FORMER_FORMATS.items():
+            new = new.replace(old, current)
+        if new != data:
+            path.write_bytes(new)
+            changed += 1
+    return changed
+
+
 def run_workflow(repo: Path, campaign: Path, work: Path, targets: tuple[str, ...] = ()) -> Path:
     """Run ``repo``'s workflow on ``campaign`` in ``work``; return its results/ folder."""
     work.mkdir(parents=True, exist_ok=True)
