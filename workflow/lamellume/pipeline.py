@@ -244,7 +244,7 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     :func:`lamellume.assemble.run_join` (rule ``join_tables``); ``inputs["long"]``
     is read here only for the rows at the target layer count and environment.
     """
-    from lamellume import ranking
+    from lamellume import ranking, shortlist
 
     rejects = _concat(inputs["rejects"])
     wide = _concat(inputs["wide"]).sort_values("entry_id", kind="stable").reset_index(drop=True)
@@ -270,7 +270,7 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     io.write_parquet(rejects, outputs["rejects"], table_metadata=meta)
     io.write_csv(rejects, outputs["rejects_csv"])
     io.write_parquet(ranked, outputs["wide"], table_metadata=meta)
-    io.write_csv(ranking.shortlist(ranked, settings), outputs["shortlist"])
+    io.write_csv(shortlist.shortlist_table(ranked, settings), outputs["shortlist"])
     counts = {"screened": len(wide), "rejected": int(rejects["entry_id"].nunique()) if len(rejects) else 0,
               "candidates": int(ranked["meets_all_criteria"].sum()) if len(ranked) else 0}
     log.info("ranked: %s", counts)
@@ -306,9 +306,16 @@ def git_version(workdir: str) -> str:
 
 
 def write_manifest(entry_paths: Sequence[str], structure_paths: Sequence[str], wide_path: str,
-                   config: Mapping, config_hash: str, workdir: str, output: str) -> None:
-    """Run manifest: input hashes, config and its hash, code version, package versions, counts."""
+                   config: Mapping, config_hash: str, workdir: str, output: str,
+                   settings_output: str | None = None, campaign: str = "") -> None:
+    """Run manifest: input hashes, config and its hash, code version, package versions, counts.
+
+    With ``settings_output``, also the shortlist's settings sheet
+    (:func:`lamellume.shortlist.settings_table`), stamped like the manifest.
+    """
     import datetime
+
+    from lamellume import shortlist
 
     wide = io.read_parquet(wide_path)
     hashes: dict[str, dict[str, str]] = {"entries": {}, "structures": {}}
@@ -339,6 +346,10 @@ def write_manifest(entry_paths: Sequence[str], structure_paths: Sequence[str], w
         "cautions": CAUTIONS,
     }
     io.write_json(manifest, output)
+    if settings_output:
+        stamps = {"campaign": campaign, "written_utc": manifest["written_utc"], "config_hash": config_hash,
+                  "code_version": manifest["code_version"], "git": manifest["git"], **manifest["counts"]}
+        io.write_csv(shortlist.settings_table(config, stamps), settings_output)
 
 
 #: Cautions shown with every output handed to experimental teams.

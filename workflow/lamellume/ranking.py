@@ -28,10 +28,22 @@ from typing import Mapping
 import numpy as np
 import pandas as pd
 
-from lamellume import excitons, survival
+from lamellume import excitons, survival, units
 
 #: Direct-indirect margin (eV) that earns the full margin component.
 MARGIN_FULL_EV = 0.2
+
+
+def score_definition(settings: Mapping) -> str:
+    """The score of :func:`rank` in one line of plain words, with the run's weights and thresholds."""
+    r = settings["ranking"]
+    w = r["weights"]
+    lo, hi = sorted(float(x) for x in r["window_nm"])
+    return (f"weighted mean ({float(w['binding']):g} binding, {float(w['margin']):g} margin, "
+            f"{float(w['window']):g} window) of three parts in [0, 1]: binding = (binding/kT) / "
+            f"{2 * float(r['min_binding_over_kt']):g} capped at 1; margin = (dark - bright exciton) / "
+            f"{MARGIN_FULL_EV * units.MEV_PER_EV:g} meV capped at 1 (0 without a dark competitor); window = "
+            f"1 - |emission - {0.5 * (lo + hi):g} nm| / {hi - lo:g} nm inside {lo:g}-{hi:g} nm, 0 outside")
 
 #: Every long-table column that follows the operating temperature: written by
 #: :func:`add_survival` only, replaced when the temperature changes.
@@ -173,33 +185,3 @@ def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
                               na_position="last")
     frame["rank"] = np.arange(1, len(frame) + 1, dtype="int32")
     return frame.drop(columns="_id").reset_index(drop=True)
-
-
-def shortlist(ranked: pd.DataFrame, settings: Mapping) -> pd.DataFrame:
-    """The shortlist for experimental teams: candidates only, plain headers with units."""
-    r = settings["ranking"]
-    top = ranked[ranked["meets_all_criteria"]].head(int(r["shortlist_size"]))
-    n = int(r["target_layers"])
-    table = pd.DataFrame({
-        "Rank": top["rank"].to_numpy(),
-        "Compound": top["entry_id"].to_numpy(),
-        "Formula": top["formula"].to_numpy(),
-        f"Gap character at {n} layer(s)": top["target_gap_character"].to_numpy(),
-        "Thinning behaviour": top["thinning_verdict"].to_numpy(),
-        f"Exciton energy in {r['environment']} (eV)": top["target_optical_gap_ev"].round(3).to_numpy(),
-        "Emission wavelength (nm)": top["target_emission_nm"].round(1).to_numpy(),
-        "Emission if the gap compensates (nm)": top["target_emission_compensated_nm"].round(1).to_numpy(),
-        "Spectral band": top["target_emission_band"].to_numpy(),
-        "Binding energy (meV)": (1000 * top["target_binding_ev"]).round(1).to_numpy(),
-        f"Binding / kT at {settings['survival']['temperature_k']:g} K": top["target_binding_over_kt"].round(2).to_numpy(),
-        "Lowest exciton": top["target_brightness"].to_numpy(),
-        "Dark - bright exciton (meV)": (1000 * top["target_exciton_margin_ev"]).round(1).to_numpy(),
-        f"Bright fraction at {settings['survival']['temperature_k']:g} K":
-            top["target_bright_fraction"].round(2).to_numpy(),
-        "Direct-indirect band-gap margin (meV)": (1000 * top["target_direct_margin_ev"]).round(1).to_numpy(),
-        "Score (0-1)": top["score"].round(3).to_numpy(),
-    })
-    if "p_meets_all" in top.columns:
-        table["Probability all criteria met"] = top["p_meets_all"].round(2).to_numpy()
-    table["Status"] = "model estimate, not a measurement"
-    return table

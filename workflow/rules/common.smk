@@ -95,7 +95,8 @@ def run_summary():
     if counts["rejected"]:
         lines.append("  rejects: results/tables/rejects.csv; first reasons:")
         lines += [f"    {reason}" for reason in counts["reasons"]]
-    lines.append("  summary page: results/summary.html; shortlist: results/shortlist.csv")
+    lines.append("  summary page: results/summary.html; shortlist: results/shortlist.csv "
+                 "(its settings: results/shortlist_settings.csv)")
     return "\n".join(lines)
 
 
@@ -195,6 +196,7 @@ def final_outputs():
         "results/tables/entries.parquet",
         "results/tables/rejects.parquet",
         "results/shortlist.csv",
+        "results/shortlist_settings.csv",
         "results/tables/refinement.parquet",
         "results/refinement.csv",
         "results/manifest.json",
