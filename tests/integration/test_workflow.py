@@ -109,3 +109,36 @@ def test_page_templates_are_code_inputs_of_the_summary(small_run):
     library = REPO / "workflow" / "lamellume"
     for name in report.DATA_FILES:
         assert str(library / name) in declared, name
+
+
+def test_shortlist_settings_sheet_matches_the_manifest(small_run):
+    import csv
+
+    work, _ = small_run
+    manifest = json.loads((work / "results" / "manifest.json").read_text())
+    with open(work / "results" / "shortlist_settings.csv", newline="") as fh:
+        sheet = {row["Setting"]: row["Value"] for row in csv.DictReader(fh)}
+    assert sheet["config hash"] == manifest["config_hash"]
+    assert sheet["code version"] == manifest["code_version"]
+    assert sheet["written"] == manifest["written_utc"]
+    assert sheet["campaign"] == str(work / "campaign")
+    assert sheet["temperature"] == "300" and sheet["surroundings"] == "encapsulated"
+
+
+def test_change_report_compares_a_campaign_only_with_its_own_runs(small_run):
+    """Switching to another campaign and back never mixes their results in the change report."""
+    work, _ = small_run
+    subprocess.run([sys.executable, str(REPO / "inputs" / "make_campaign.py"), "--out", str(work / "other"),
+                    "--count", "5", "--seed", "9"], check=True)
+    config = yaml.safe_load((work / "config.yaml").read_text())
+    config["campaign"] = str(work / "other")
+    (work / "other.yaml").write_text(yaml.safe_dump(config))
+    changes = work / "results" / "tables" / "changes.parquet"
+
+    snakemake(work, "--configfile", str(work / "other.yaml"))
+    assert len(pd.read_parquet(changes)) == 0  # the other campaign's first run: nothing to compare with
+    assert "First recorded run" in (work / "results" / "summary.html").read_text()
+
+    snakemake(work)  # back to the first campaign, unchanged: compared with its own last run
+    assert len(pd.read_parquet(changes)) == 0
+    assert len(list((work / "results" / "history").iterdir())) == 2

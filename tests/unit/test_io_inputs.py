@@ -8,6 +8,7 @@ import os
 import signal
 import socket
 from contextlib import contextmanager
+from pathlib import Path
 
 import pandas as pd
 import pytest
@@ -278,3 +279,16 @@ def test_calculation_files_are_read_by_the_same_rules(tmp_path, kind, words):
         with no_hang(), pytest.raises(ImportProblem) as err:
             read()
         assert words in str(err.value.reason)
+
+
+def test_campaign_history_dir_is_one_per_campaign(tmp_path, monkeypatch):
+    (tmp_path / "a" / "demo").mkdir(parents=True)
+    (tmp_path / "b" / "demo").mkdir(parents=True)
+    (tmp_path / "link").symlink_to(tmp_path / "a" / "demo")
+    monkeypatch.chdir(tmp_path)
+    one = io.campaign_history_dir("results/history", "a/demo")
+    assert one == io.campaign_history_dir("results/history", tmp_path / "a" / "demo")  # any spelling
+    assert one == io.campaign_history_dir("results/history", "link")
+    assert one != io.campaign_history_dir("results/history", "b/demo")  # equal names, other campaign
+    assert one.parent == Path("results/history") and one.name.startswith("demo-")
+    assert io.campaign_history_dir("h", tmp_path / "my campaign!").name.startswith("my_campaign_-")

@@ -244,8 +244,10 @@ def manifest_settings(wildcards):
 
 
 def summary_settings(wildcards):
-    """Settings of the write_summary job: the whole config and the history folder."""
-    return snapshot("summary", {"settings": config, "history": "results/history"})
+    """Settings of the write_summary job: the whole config and the campaign's own history folder
+    (results/history/<campaign folder name>-<digest of its path>: campaigns never mix)."""
+    return snapshot("summary", {"settings": config,
+                                "history": str(io.campaign_history_dir("results/history", campaign_dir()))})
 
 
 # ---------------------------------------------------------------- import of calculations
