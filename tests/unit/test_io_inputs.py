@@ -283,12 +283,14 @@ def test_calculation_files_are_read_by_the_same_rules(tmp_path, kind, words):
 
 def test_campaign_history_dir_is_one_per_campaign(tmp_path, monkeypatch):
     (tmp_path / "a" / "demo").mkdir(parents=True)
-    (tmp_path / "b" / "demo").mkdir(parents=True)
+    (tmp_path / "a" / "mine").mkdir(parents=True)
     (tmp_path / "link").symlink_to(tmp_path / "a" / "demo")
     monkeypatch.chdir(tmp_path)
     one = io.campaign_history_dir("results/history", "a/demo")
+    assert one == Path("results/history/demo")
     assert one == io.campaign_history_dir("results/history", tmp_path / "a" / "demo")  # any spelling
     assert one == io.campaign_history_dir("results/history", "link")
-    assert one != io.campaign_history_dir("results/history", "b/demo")  # equal names, other campaign
-    assert one.parent == Path("results/history") and one.name.startswith("demo-")
-    assert io.campaign_history_dir("h", tmp_path / "my campaign!").name.startswith("my_campaign_-")
+    assert one == io.campaign_history_dir("results/history", "a/demo/")
+    assert one != io.campaign_history_dir("results/history", "a/mine")
+    assert io.campaign_history_dir("h", tmp_path / "my campaign!") == Path("h/my_campaign_")
+    assert io.campaign_history_dir("h", tmp_path / "..hidden") == Path("h/hidden")  # never a hidden folder

@@ -65,17 +65,16 @@ def sha256_bytes(data: bytes) -> str:
 def campaign_history_dir(root: str | os.PathLike, campaign: str | os.PathLike) -> Path:
     """Folder of one campaign's run history under ``root`` (``results/history``).
 
-    Named ``<folder name>-<digest>``: the campaign folder's own name (letters, digits,
-    ``.``, ``-``, ``_`` kept, anything else ``_``) and the first 8 hex digits of the
-    SHA-256 of its absolute, resolved path. The same campaign reached by any spelling
-    of its path (relative, absolute, through a link) gets the same folder; two
-    campaigns never share one, even with equal folder names, so the change report
-    compares a campaign only with its own previous run.
+    Named after the campaign folder (its resolved path's last part; letters, digits,
+    ``.``, ``-``, ``_`` kept, anything else ``_``): the same campaign reached by any
+    spelling of its path (relative, absolute, through a link) keeps one history, and
+    the change report compares a campaign only with its own previous run. The name
+    alone decides, so a campaign copied or moved to another place keeps its history;
+    two campaigns need folders of different names.
     """
     folder = Path(campaign).resolve()
-    name = "".join(c if c.isascii() and (c.isalnum() or c in "._-") else "_" for c in folder.name) or "campaign"
-    digest = hashlib.sha256(str(folder).encode("utf-8", "surrogateescape")).hexdigest()[:8]
-    return Path(root) / f"{name}-{digest}"
+    name = "".join(c if c.isascii() and (c.isalnum() or c in "._-") else "_" for c in folder.name)
+    return Path(root) / (name.lstrip(".") or "campaign")
 
 
 def canonical_json_hash(obj: Any) -> str:
