@@ -184,6 +184,18 @@ _BULK_3D = ("issue 17 item 3: bulk rows get the 3D Saha bound fraction at a volu
             "own; the 2D bound fraction is for layer rows only")
 EXPECTED_CHANGES[("tables/screen_long.parquet", "bound_fraction", "*")] = _BULK_3D
 EXPECTED_CHANGES[("tables/screen_long.parquet", "bound_fraction_3d", "*")] = _BULK_3D
+_RADIUS = ("issue 17 item 4: the bulk row's binding, 2s/3s and radius come from one model (hydrogenic.bulk_exciton); "
+           "every radius column is the in-plane rms radius of its row's model")
+for _col in ("binding_2s_ev", "binding_3s_ev", "radius_angstrom", "wannier_ok"):
+    EXPECTED_CHANGES[("tables/screen_long.parquet", _col, "*")] = _RADIUS
+EXPECTED_CHANGES[("tables/screen_wide.parquet", "bulk_radius_angstrom", "*")] = _RADIUS
+EXPECTED_CHANGES[("tables/screen_long.parquet", "mott_density_per_cm2", "*")] = (
+    "issue 17 item 3: the areal Mott density is for layer rows only (bulk rows: mott_density_3d_per_cm3)")
+EXPECTED_CHANGES[("tables/screen_long.parquet", "mott_density_3d_per_cm3", "*")] = (
+    "added (issue 17 item 3): bulk Mott density in cm^-3 from the bulk model's decay lengths")
+EXPECTED_CHANGES[("tables/screen_long.parquet", "binding_fractional_ev", "*")] = (
+    "removed (issue 17 item 5): the fractional-dimension estimate did not reach the strict-2D limit and ignored "
+    "the surroundings; README 'Methods' says why")
 
 _RENAME = ("project renamed (issue 14): the golden records' format line is rewritten to the new name, "
            "so each record's bytes and input hash change; nothing else does")

@@ -237,7 +237,7 @@ def test_page_has_every_section_and_the_caution_near_the_top(settings):
     assert "not measurements" in page[top:top + 400]
     assert "licensed safety practice" in page
     for ref in ("Keldysh, JETP Lett. 29, 658 (1979)", "Phys. Rev. B 84, 085406 (2011)", "Phys. Rev. A 43, 1186",
-                "Phys. Rev. B 43, 2063", "Phys. Rev. Lett. 116, 056401", "Phys. Rev. 98, 915",
+                "Phys. Rev. B 17, 2575", "Phys. Rev. Lett. 116, 056401", "Phys. Rev. 98, 915",
                 "Phys. Rev. Materials 3, 034003", "Rytova", "Ong et al."):
         assert ref in page, ref
     for plot in ("plot-binding-gap", "plot-gap-layers", "plot-emission", "plot-environment"):

@@ -64,21 +64,24 @@ _EXCITON_TRIGGERS = frozenset(EXCITON_QUANTITIES) | {"optical_gap_ev", "emission
 #: Per (compound, few-layer count, surroundings) quantities :func:`evaluate` can return.
 STACK_QUANTITIES = frozenset({
     "r0_angstrom", "kappa", "binding_ev", "binding_2s_ev", "binding_3s_ev", "radius_angstrom",
-    "binding_2d_hydrogenic_ev", "binding_olsen_ev", "binding_fractional_ev", "dark_binding_ev",
+    "binding_2d_hydrogenic_ev", "binding_olsen_ev", "dark_binding_ev",
     "optical_gap_ev", "emission_nm", *EXCITON_QUANTITIES,
 })
 #: Per compound bulk quantities :func:`evaluate` can return (long-table names for the bulk
 #: row, wide-table names for the bulk model columns).
 BULK_QUANTITIES = frozenset({
-    "binding_ev", "binding_model", "binding_2s_ev", "binding_3s_ev", "radius_angstrom",
+    "binding_ev", "binding_model", "binding_2s_ev", "binding_3s_ev", "radius_angstrom", "mott_radius_angstrom",
     "dark_binding_ev", "optical_gap_ev", "emission_nm",
-    "bulk_binding_ev", "bulk_binding_aniso_ev", "quasi2d_binding_ev", "quasi2d_radius_angstrom",
+    "bulk_binding_ev", "bulk_binding_aniso_ev", "bulk_radius_angstrom", "quasi2d_binding_ev",
+    "quasi2d_radius_angstrom",
     *EXCITON_QUANTITIES,
 })
 
-#: Bulk quantities that need the anisotropic 3D binding (and so the out-of-plane masses).
-_NEEDS_ANISOTROPIC = frozenset({"binding_ev", "binding_model", "bulk_binding_aniso_ev", "optical_gap_ev",
-                                "emission_nm"})
+#: Bulk quantities of the bulk model (:func:`lamellume.hydrogenic.bulk_exciton`), which needs the
+#: out-of-plane masses.
+_NEEDS_BULK_MODEL = frozenset({"binding_ev", "binding_model", "binding_2s_ev", "binding_3s_ev", "radius_angstrom",
+                               "mott_radius_angstrom", "bulk_binding_aniso_ev", "bulk_radius_angstrom",
+                               "optical_gap_ev", "emission_nm"})
 
 
 @dataclass(frozen=True)
@@ -312,7 +315,7 @@ def evaluate(inputs: ModelInputs, settings: ModelSettings, table: keldysh.Keldys
     vt = valley_table(inputs)
     want_dark = "dark_binding_ev" in settings.stack or "dark_binding_ev" in settings.bulk
     pairs = {"bright": pair_masses(vt, gap.direct_label, gap.direct_label, principal=settings.principal_masses,
-                                   perpendicular=bool(settings.bulk & _NEEDS_ANISOTROPIC))}
+                                   perpendicular=bool(settings.bulk & _NEEDS_BULK_MODEL))}
     if want_dark:
         pairs["dark"] = pair_masses(vt, gap.vbm_label, gap.cbm_label)
     r0_given = np.asarray(inputs.r0_given_angstrom, dtype=float)
@@ -321,7 +324,7 @@ def evaluate(inputs: ModelInputs, settings: ModelSettings, table: keldysh.Keldys
         * inputs.r0_factor
     result = ModelResult(gap, pairs, r0_1)
     result.bulk = _bulk(inputs, settings, gap, pairs)
-    result.stack = _stack(inputs, settings, table, gap, pairs, r0_1, result.bulk)
+    result.stack = _stack(inputs, settings, table, gap, pairs, r0_1)
     if (settings.stack | settings.bulk) & _EXCITON_TRIGGERS:
         result.valley_pairs = _exciton_level(inputs, settings, table, r0_1, result)
     return result
@@ -425,31 +428,31 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
 
 
 def _bulk(inputs: ModelInputs, settings: ModelSettings, gap, pairs) -> dict[str, np.ndarray]:
-    """Bulk-crystal quantities per compound (the last layer column)."""
+    """Bulk-crystal quantities per compound (the last layer column).
+
+    The bulk row's binding, 2s/3s levels and radii come from one model,
+    :func:`lamellume.hydrogenic.bulk_exciton` (uniaxial variational where the
+    out-of-plane reduced mass is given, isotropic hydrogenic otherwise);
+    ``radius_angstrom`` is its in-plane rms radius (the convention of the
+    layers' Rytova-Keldysh radius) and ``mott_radius_angstrom`` the geometric
+    mean of its decay lengths (the radius of the 3D Mott criterion).
+    """
     want = settings.bulk.__contains__
     eps_bulk = np.asarray(inputs.eps_bulk, dtype=float)
     mu = pairs["bright"].mu_me[:, -1]
-    out: dict[str, np.ndarray] = {
-        "bulk_binding_ev": hydrogenic.binding_3d_ev(mu, eps_bulk),
-        "bulk_radius_angstrom": hydrogenic.bohr_radius_3d_angstrom(mu, eps_bulk),
-    }
-    if settings.bulk & _NEEDS_ANISOTROPIC:
-        mperp = pairs["bright"].mu_perp_me[:, -1]
-        aniso = np.full(mu.shape, np.nan)
-        has = np.isfinite(mperp) & np.isfinite(mu)
-        if has.any():
-            aniso[has] = hydrogenic.binding_3d_anisotropic(
-                mu[has], mperp[has], np.asarray(inputs.eps_parallel, dtype=float)[has],
-                np.asarray(inputs.eps_perpendicular, dtype=float)[has]).binding_ev
-        out["bulk_binding_aniso_ev"] = aniso
-        out["binding_ev"] = np.where(np.isfinite(aniso), aniso, out["bulk_binding_ev"]) * inputs.binding_factor_bulk
-        out["binding_model"] = np.where(np.isfinite(aniso), "3d-anisotropic", "3d-hydrogenic")
-    if want("binding_2s_ev"):
-        out["binding_2s_ev"] = hydrogenic.binding_3d_ev(mu, eps_bulk, n=2)
-    if want("binding_3s_ev"):
-        out["binding_3s_ev"] = hydrogenic.binding_3d_ev(mu, eps_bulk, n=3)
-    if want("radius_angstrom"):
-        out["radius_angstrom"] = out["bulk_radius_angstrom"]
+    out: dict[str, np.ndarray] = {"bulk_binding_ev": hydrogenic.binding_3d_ev(mu, eps_bulk)}
+    if settings.bulk & _NEEDS_BULK_MODEL:
+        mperp = pairs["bright"].mu_perp_me
+        mperp = np.full(mu.shape, np.nan) if mperp is None else mperp[:, -1]
+        bx = hydrogenic.bulk_exciton(mu, mperp, np.asarray(inputs.eps_parallel, dtype=float),
+                                     np.asarray(inputs.eps_perpendicular, dtype=float))
+        aniso = bx.model == "3d-anisotropic"
+        out["bulk_binding_aniso_ev"] = np.where(aniso, bx.binding_1s_ev, np.nan)
+        out["binding_ev"] = bx.binding_1s_ev * inputs.binding_factor_bulk
+        out["binding_model"] = bx.model
+        out["binding_2s_ev"], out["binding_3s_ev"] = bx.binding_2s_ev, bx.binding_3s_ev
+        out["radius_angstrom"] = out["bulk_radius_angstrom"] = bx.rms_radius_inplane_angstrom
+        out["mott_radius_angstrom"] = bx.mott_radius_angstrom
     if want("quasi2d_binding_ev"):
         out["quasi2d_binding_ev"] = hydrogenic.binding_2d_ev(mu, eps_bulk)
     if want("quasi2d_radius_angstrom"):
@@ -464,8 +467,7 @@ def _bulk(inputs: ModelInputs, settings: ModelSettings, gap, pairs) -> dict[str,
     return out
 
 
-def _stack(inputs: ModelInputs, settings: ModelSettings, table, gap, pairs, r0_1,
-           bulk: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+def _stack(inputs: ModelInputs, settings: ModelSettings, table, gap, pairs, r0_1) -> dict[str, np.ndarray]:
     """Few-layer quantities per (compound, layer count, surroundings)."""
     want = settings.stack.__contains__
     lay = np.asarray(inputs.layers)
@@ -495,13 +497,6 @@ def _stack(inputs: ModelInputs, settings: ModelSettings, table, gap, pairs, r0_1
             mu, np.asarray(inputs.eps_bulk, dtype=float)[:, None, None] if h_eps <= 0 else h_eps)
     if want("binding_olsen_ev"):
         out["binding_olsen_ev"] = keldysh.olsen_binding_ev(mu, r0, kap)
-    if want("binding_fractional_ev"):
-        spacing = np.asarray(inputs.spacing_angstrom, dtype=float)
-        alpha = hydrogenic.fractional_dimension_from_thickness(nl[None, :] * spacing[:, None],
-                                                              bulk["bulk_radius_angstrom"][:, None])
-        frac = hydrogenic.binding_fractional_ev(pairs["bright"].mu_me[:, :-1],
-                                                np.asarray(inputs.eps_bulk, dtype=float)[:, None], alpha)
-        out["binding_fractional_ev"] = np.broadcast_to(frac[:, :, None], shape)
     if want("dark_binding_ev"):
         mu_dark = np.broadcast_to(pairs["dark"].mu_me[:, :-1, None], shape)
         eb_dark = keldysh.keldysh_binding_ev(mu_dark, r0, kap, table, state="1s")

@@ -739,9 +739,9 @@ REFERENCES = (
     "E. O. Kane, J. Phys. Chem. Solids 1, 249 (1957) (two-band k\u00b7p).",
     "P. Cudazzo, I. V. Tokatly, A. Rubio, Phys. Rev. B 84, 085406 (2011).",
     "X. L. Yang, S. H. Guo, F. T. Chan, K. W. Wong, W. Y. Ching, Phys. Rev. A 43, 1186 (1991).",
-    "X.-F. He, Phys. Rev. B 43, 2063 (1991).",
     "T. Olsen, S. Latini, F. Rasmussen, K. S. Thygesen, Phys. Rev. Lett. 116, 056401 (2016).",
     "W. Kohn, J. M. Luttinger, Phys. Rev. 98, 915 (1955).",
+    "P. P. Edwards, M. J. Sienko, Phys. Rev. B 17, 2575 (1978) (Mott criterion n^(1/3) a = 0.26).",
     "T. C. Berkelbach, M. S. Hybertsen, D. R. Reichman, Phys. Rev. B 88, 045318 (2013) (Rytova-Keldysh "
     "against many-body calculations: the default model error).",
     "S. P. Ong et al., Comput. Mater. Sci. 68, 314 (2013) (pymatgen, used to read structure files).",
