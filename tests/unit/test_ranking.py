@@ -145,16 +145,6 @@ def test_order_by_probability():
     assert list(ranking.rank(long, wide, SETTINGS, probs)["entry_id"]) == ["a", "b"]
 
 
-def test_shortlist_has_plain_headers_with_units():
-    rows = [("a", "direct", 0.3, 0.3, 750.0), ("b", "direct", 0.3, 0.1, 750.0), ("c", "direct", 0.3, 0.2, 700.0)]
-    long, wide = tables(rows)
-    short = ranking.shortlist(ranking.rank(long, wide, SETTINGS), SETTINGS)
-    assert len(short) == 2
-    assert "Emission wavelength (nm)" in short.columns and "Binding energy (meV)" in short.columns
-    assert (short["Status"] == "model estimate, not a measurement").all()
-    np.testing.assert_allclose(short["Binding energy (meV)"], [300.0, 300.0])
-
-
 def test_unknown_brightness_never_passes_and_scores_no_margin():
     # a record without a dark competitor: verdict 'unknown', margin NaN (not +inf)
     long, wide = tables([("u", "unknown", 0.2, np.nan, 750.0)])

@@ -39,7 +39,7 @@ from typing import Mapping
 import numpy as np
 import pandas as pd
 
-from lamellume import brightness, excitons, survival
+from lamellume import brightness, excitons, survival, units
 
 #: Exciton-level margin (eV) that earns the full margin part (about 8 kT at 300 K).
 MARGIN_FULL_EV = 0.2
@@ -49,6 +49,22 @@ BOUND_DECADES = 2.0
 BRIGHTNESS_FLOOR_PER_S = 1.0e8
 #: Decades above the floor that earn the full brightness part (full at 0.1 ns).
 BRIGHTNESS_DECADES = 2.0
+
+
+def score_definition(settings: Mapping) -> str:
+    """The score of :func:`rank` in one line of plain words, with the run's weights and thresholds."""
+    r = settings["ranking"]
+    w = r["weights"]
+    lo, hi = sorted(float(x) for x in r["window_nm"])
+    return (f"weighted mean ({float(w.get('binding', 0)):g} bound, {float(w.get('margin', 0)):g} margin, "
+            f"{float(w.get('window', 0)):g} window, {float(w.get('brightness', 0)):g} brightness) of four parts in "
+            f"[0, 1]: bound = log10((1 - {float(r.get('min_bound_fraction', 0)):g}) / (1 - bound fraction at the "
+            f"planned pair density)) / {BOUND_DECADES:g} capped at 1; margin = (dark - bright exciton) / "
+            f"{MARGIN_FULL_EV * units.MEV_PER_EV:g} meV capped at 1 (0 without a dark competitor); window = "
+            f"Monte Carlo probability that the emission lies inside {lo:g}-{hi:g} nm given the input uncertainties "
+            f"(1 inside, 0 outside without it); brightness = log10(radiative-rate proxy / "
+            f"{BRIGHTNESS_FLOOR_PER_S:.0e} s^-1) / {BRIGHTNESS_DECADES:g} capped at 1 (a tie-breaker)")
+
 
 #: Every long-table column that follows the operating temperature: written by
 #: :func:`add_survival` only, replaced when the temperature changes.
@@ -255,33 +271,3 @@ def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
                               na_position="last")
     frame["rank"] = np.arange(1, len(frame) + 1, dtype="int32")
     return frame.drop(columns="_id").reset_index(drop=True)
-
-
-def shortlist(ranked: pd.DataFrame, settings: Mapping) -> pd.DataFrame:
-    """The shortlist for experimental teams: candidates only, plain headers with units."""
-    r = settings["ranking"]
-    top = ranked[ranked["meets_all_criteria"]].head(int(r["shortlist_size"]))
-    n = int(r["target_layers"])
-    table = pd.DataFrame({
-        "Rank": top["rank"].to_numpy(),
-        "Compound": top["entry_id"].to_numpy(),
-        "Formula": top["formula"].to_numpy(),
-        f"Gap character at {n} layer(s)": top["target_gap_character"].to_numpy(),
-        "Thinning behaviour": top["thinning_verdict"].to_numpy(),
-        f"Exciton energy in {r['environment']} (eV)": top["target_optical_gap_ev"].round(3).to_numpy(),
-        "Emission wavelength (nm)": top["target_emission_nm"].round(1).to_numpy(),
-        "Emission if the gap compensates (nm)": top["target_emission_compensated_nm"].round(1).to_numpy(),
-        "Spectral band": top["target_emission_band"].to_numpy(),
-        "Binding energy (meV)": (1000 * top["target_binding_ev"]).round(1).to_numpy(),
-        f"Binding / kT at {settings['survival']['temperature_k']:g} K": top["target_binding_over_kt"].round(2).to_numpy(),
-        "Lowest exciton": top["target_brightness"].to_numpy(),
-        "Dark - bright exciton (meV)": (1000 * top["target_exciton_margin_ev"]).round(1).to_numpy(),
-        f"Bright fraction at {settings['survival']['temperature_k']:g} K":
-            top["target_bright_fraction"].round(2).to_numpy(),
-        "Direct-indirect band-gap margin (meV)": (1000 * top["target_direct_margin_ev"]).round(1).to_numpy(),
-        "Score (0-1)": top["score"].round(3).to_numpy(),
-    })
-    if "p_meets_all" in top.columns:
-        table["Probability all criteria met"] = top["p_meets_all"].round(2).to_numpy()
-    table["Status"] = "model estimate, not a measurement"
-    return table

@@ -8,7 +8,7 @@ it is current). A column name means the same thing in every table it appears
 in. Families of columns (one per layer count, per surroundings, per
 percentile) are declared once as a pattern (:data:`PATTERNS`).
 
-Units: ``eV``, ``nm``, ``Angstrom``, ``m_e``, ``K``, ``deg``, ``cm^-2``, ``1``
+Units: ``eV``, ``meV``, ``nm``, ``Angstrom``, ``m_e``, ``K``, ``deg``, ``cm^-2``, ``1``
 (a dimensionless number) and ``-`` (text, identifier or flag: not a quantity).
 Arrow types: ``string`` (stored as large_string), ``float64``, ``int16``,
 ``int32``, ``int64``, ``bool``.
@@ -334,9 +334,57 @@ _REFINEMENT = [
     ("advice", S, NO_UNIT, "the recommendation in plain words"),
 ]
 
+#: results/shortlist.csv: plain headers for people, fixed whatever the settings (the layer count,
+#: surroundings and temperature the values are for are columns, not parts of headers).
+_SHORTLIST = [
+    ("Rank", "int32", "1", "position in the ranked list (candidates first)"),
+    ("Compound", S, NO_UNIT, "compound identifier (the record's id)"),
+    ("Formula", S, NO_UNIT, "chemical formula as given by the record"),
+    ("Candidate", S, NO_UNIT, "'yes' when the compound meets every ranking criterion, else 'no'"),
+    ("Criteria missed", S, NO_UNIT, "the ranking criteria the compound misses, in words ('' for a candidate)"),
+    ("Layers", "int16", "1", "layer count every value of the row is for (config ranking.target_layers)"),
+    ("Surroundings", S, NO_UNIT, "surroundings every value of the row is for (config ranking.environment)"),
+    ("Dielectric constant above", F, "1", "relative permittivity above the flake in those surroundings"),
+    ("Dielectric constant below", F, "1", "relative permittivity below the flake in those surroundings"),
+    ("Temperature (K)", F, "K", "operating temperature of Binding / kT and Bright fraction"),
+    ("Gap character", S, NO_UNIT, "'direct', 'indirect' or 'unknown' band gap at that layer count"),
+    ("Thinning behaviour", S, NO_UNIT, "how the gap character changes with thinning, in words"),
+    ("Exciton energy (eV)", F, "eV", "lowest bright exciton energy (optical gap)"),
+    ("Exciton energy 16 % (eV)", F, "eV", "16th percentile of the exciton energy (Monte Carlo; empty without)"),
+    ("Exciton energy 84 % (eV)", F, "eV", "84th percentile of the exciton energy (Monte Carlo; empty without)"),
+    ("Emission wavelength (nm)", F, "nm", "vacuum wavelength of the lowest bright exciton (no gap shift)"),
+    ("Emission wavelength 16 % (nm)", F, "nm", "16th percentile of the emission wavelength (Monte Carlo)"),
+    ("Emission wavelength 84 % (nm)", F, "nm", "84th percentile of the emission wavelength (Monte Carlo)"),
+    ("Emission if the gap compensates (nm)", F, "nm",
+     "other end of the emission bracket: the quasiparticle gap shrinks with the screening as the binding falls"),
+    ("Spectral band", S, NO_UNIT, "named spectral band of the emission (config emission_bands)"),
+    ("Binding energy (meV)", F, "meV", "exciton binding energy (Rytova-Keldysh)"),
+    ("Binding energy 16 % (meV)", F, "meV", "16th percentile of the binding energy (Monte Carlo)"),
+    ("Binding energy 84 % (meV)", F, "meV", "84th percentile of the binding energy (Monte Carlo)"),
+    ("Binding / kT", F, "1", "binding energy over kT at the temperature of the row"),
+    ("Lowest exciton", S, NO_UNIT, "'bright', 'dark' or 'unknown' (no competing valley given)"),
+    ("Dark - bright exciton (meV)", F, "meV", "lowest dark minus lowest bright exciton energy: > 0 bright"),
+    ("Bright fraction", F, "1", "thermal share of excitons in the bright state at the temperature of the row"),
+    ("Direct-indirect band-gap margin (meV)", F, "meV", "indirect minus direct band gap: > 0 direct"),
+    ("Score (0-1)", F, "1", "the ranking score; its definition is the 'score definition' row of the settings sheet"),
+    ("Probability all criteria met", F, "1", "share of Monte Carlo samples meeting every criterion (empty without)"),
+]
+
+#: results/shortlist_settings.csv: the settings and stamps of the run, one row each.
+_SHORTLIST_SETTINGS = [
+    ("Setting", S, NO_UNIT, "name of the setting or stamp"),
+    ("Value", S, NO_UNIT, "its value in this run"),
+    ("Unit", S, NO_UNIT, "unit of the value ('1' a plain number, empty for text)"),
+    ("Meaning", S, NO_UNIT, "what the setting does, in words"),
+]
+
+#: Columns of the shortlist and its settings sheet, in order.
+SHORTLIST_COLUMNS = tuple(c[0] for c in _SHORTLIST)
+SHORTLIST_SETTINGS_COLUMNS = tuple(c[0] for c in _SHORTLIST_SETTINGS)
+
 #: Every column with a fixed name.
 COLUMNS: dict[str, Column] = _declare(_STAMPS + _ENTRY + _VALLEY + _REJECT + _LONG + _WIDE + _UNCERTAINTY
-                                      + _CHANGES + _REFINEMENT)
+                                      + _CHANGES + _REFINEMENT + _SHORTLIST + _SHORTLIST_SETTINGS)
 
 #: Percentiles and quantities of the Monte Carlo summary columns ``<quantity>_p<NN>``.
 PERCENTILES = (16, 50, 84)
@@ -444,6 +492,15 @@ TABLES: dict[str, tuple[str, list[str]]] = {
     "results/tables/changes.parquet": (
         "one row per compound that changed since the previous run",
         ["entry_id", *[c[0] for c in _CHANGES]]),
+    "results/shortlist.csv": (
+        "the shortlist for experimental teams: the ranked list's first ranking.shortlist_size compounds "
+        "(candidates first); column names never change with the settings",
+        list(SHORTLIST_COLUMNS)),
+    "results/shortlist_settings.csv": (
+        "the settings and stamps of the run that wrote the shortlist, one row each (written beside the "
+        "manifest): caution, campaign, date, layer count, surroundings, temperature, criteria, score "
+        "definition, config hash, code version",
+        list(SHORTLIST_SETTINGS_COLUMNS)),
 }
 
 
