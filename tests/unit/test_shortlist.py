@@ -71,19 +71,20 @@ def test_percentile_ranges_and_empty_without_monte_carlo():
 
 
 def test_score_definition_states_the_score_the_ranking_computes():
-    text = ranking.score_definition(SETTINGS)
-    # the run's numbers: weights 0.4/0.3/0.3, full binding at 2 x 3 kT, margin full at 200 meV,
-    # window 600-900 nm: centre 750 nm, width 300 nm
-    for part in ("0.4 binding", "0.3 margin", "0.3 window", "/ 6 capped", "/ 200 meV", "750 nm| / 300 nm",
-                 "inside 600-900 nm"):
+    settings = {**SETTINGS, "ranking": {**SETTINGS["ranking"], "min_bound_fraction": 0.5,
+                                        "weights": {"binding": 0.3, "margin": 0.3, "window": 0.3, "brightness": 0.1}}}
+    text = ranking.score_definition(settings)
+    # the run's numbers: weights 0.3/0.3/0.3/0.1, bound headroom over 2 decades from 0.5, margin full at 200 meV,
+    # window 600-900 nm, brightness floor 1e8 s^-1 over 2 decades
+    for part in ("0.3 bound", "0.3 margin", "0.3 window", "0.1 brightness", "log10((1 - 0.5)", ") / 2 capped",
+                 "/ 200 meV", "inside 600-900 nm", "1e+08 s^-1"):
         assert part in text, part
-    # the definition applied by hand to compound e (binding 0.2 eV, margin 0.1 eV, 1000 nm)
-    kt = sc.k * 300.0 / sc.e
-    by_hand = 0.4 * min((0.2 / kt) / 6.0, 1.0) + 0.3 * min(100.0 / 200.0, 1.0) + 0.3 * 0.0
-    ranked = _ranked(ROWS).set_index("entry_id")
-    assert ranked.loc["e", "score"] == pytest.approx(by_hand, rel=1e-12)
-    # and to compound a (0.3 eV binding caps at 1, margin 300 meV caps at 1, 750 nm at the centre)
-    assert ranked.loc["a", "score"] == pytest.approx(0.4 + 0.3 + 0.3, rel=1e-12)
+    # the definition applied by hand to compound e (margin 0.1 eV, 1000 nm: outside, no Monte Carlo)
+    ranked = _ranked(ROWS, settings).set_index("entry_id")
+    e = ranked.loc["e"]
+    by_hand = (0.3 * min(np.log10(0.5 / (1 - e["target_bound_fraction"])) / 2, 1.0) + 0.3 * min(100.0 / 200.0, 1.0)
+               + 0.3 * 0.0 + 0.1 * min(np.log10(e["target_brightness_proxy_per_s"] / 1e8) / 2, 1.0))
+    assert e["score"] == pytest.approx(by_hand, rel=1e-12)
 
 
 def test_written_files_open_cleanly(tmp_path):

@@ -41,7 +41,12 @@ def missed_words(settings: Mapping) -> dict[str, str]:
                         if r["require_direct"] else "brightness of the lowest exciton unknown"),
         "pass_margin": (f"dark exciton less than {float(r['min_direct_margin_ev']) * MEV_PER_EV:g} meV above "
                         "the bright one"),
-        "pass_binding": f"binding below {float(r['min_binding_over_kt']):g} kT at {t_k:g} K",
+        "pass_binding": " or ".join(
+            ([f"fewer than {float(r['min_bound_fraction']) * 100:g} % of pairs bound at "
+              f"{float(settings['survival']['pair_density_per_cm2']):.2g} cm^-2 and {t_k:g} K"]
+             if float(r.get("min_bound_fraction", 0.0)) > 0 else [])
+            + ([f"binding below {float(r['min_binding_over_kt']):g} kT at {t_k:g} K"]
+               if float(r.get("min_binding_over_kt", 0.0)) > 0 else [])) or "not bound",
         "pass_window": f"emission not wholly inside {lo:g}-{hi:g} nm",
         "pass_bright_fraction": (f"bright fraction below {float(r.get('min_bright_fraction', 0.0)):g} "
                                  f"at {t_k:g} K"),
@@ -163,8 +168,12 @@ def settings_table(settings: Mapping, stamps: Mapping[str, str]) -> pd.DataFrame
          "criterion: the lowest exciton must be bright (else its brightness must only be known)"),
         ("minimum dark - bright exciton", _number(float(r["min_direct_margin_ev"]) * MEV_PER_EV), "meV",
          "criterion: the lowest dark exciton lies at least this far above the lowest bright one"),
-        ("minimum binding / kT", _number(r["min_binding_over_kt"]), "1",
-         "criterion: binding energy at least this many kT at the temperature"),
+        ("planned pair density", _number(s["pair_density_per_cm2"]), "cm^-2",
+         "photo-excited pair density the bound fraction and the bound criterion are evaluated at"),
+        ("minimum bound fraction", _number(r.get("min_bound_fraction", 0.0)), "1",
+         "criterion: 2D Saha bound fraction at the planned pair density at least this (0: not applied)"),
+        ("minimum binding / kT", _number(r.get("min_binding_over_kt", 0.0)), "1",
+         "criterion: binding energy at least this many kT at the temperature (0: not applied)"),
         ("minimum bright fraction", _number(r.get("min_bright_fraction", 0.0)), "1",
          "criterion: thermal bright fraction at least this (0: not applied)"),
         ("score definition", ranking.score_definition(settings), "1", "how the Score (0-1) column is computed"),

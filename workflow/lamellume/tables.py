@@ -165,6 +165,18 @@ _LONG = [
     ("dark_weight", F, "1", "Boltzmann weight g M^(d/2) of the lowest dark exciton"),
     ("bright_fraction", F, "1", "thermal bright fraction at the operating temperature: Boltzmann occupation of "
      "the lowest bright vs the lowest dark exciton (NaN: no dark competitor, unknown)"),
+    ("bright_mass_me", F, "m_e", "centre-of-mass (translational) mass of the lowest bright exciton, "
+     "sqrt(det(M_e + M_h)) in the plane"),
+    ("radiative_rate_0_per_s", F, "1/s",
+     "layer rows: intrinsic radiative rate of the lowest bright exciton at zero in-plane momentum (Andreani 1991; "
+     "Kane energy from two-band k.p, |phi(0)|^2 from the Rytova-Keldysh rms radius, index sqrt(kappa)); "
+     "a model estimate, NaN on bulk rows"),
+    ("radiative_rate_thermal_per_s", F, "1/s",
+     "layer rows: thermal average of radiative_rate_0_per_s over a Boltzmann gas of bright excitons at the "
+     "operating temperature, (4/3) Gamma_0 E_c / kT (model estimate)"),
+    ("brightness_proxy_per_s", F, "1/s",
+     "layer rows: radiative_rate_thermal_per_s x bright_fraction, the brightness proxy of the score's "
+     "tie-breaker (model estimate; NaN when the brightness is unknown)"),
     ("binding_beyond_validity", B, NO_UNIT,
      "binding above excitons.max_binding_fraction of the direct gap: outside the effective-mass model's validity"),
     ("spin_given", B, NO_UNIT, "the record gives spin sub-bands (without them every same-label pair counts as bright)"),
@@ -244,6 +256,10 @@ _WIDE = [
     ("target_bright_pair", S, NO_UNIT, "valley pair of the lowest bright exciton at the target"),
     ("target_dark_pair", S, NO_UNIT, "valley pair of the lowest dark exciton at the target"),
     ("target_bright_fraction", F, "1", "thermal bright fraction at the target"),
+    ("target_radiative_rate_0_per_s", F, "1/s", "intrinsic radiative rate of the lowest bright exciton at the target"),
+    ("target_radiative_rate_thermal_per_s", F, "1/s", "thermally averaged radiative rate at the target"),
+    ("target_brightness_proxy_per_s", F, "1/s", "brightness proxy (thermal rate x bright fraction) at the target"),
+    ("target_mott_density_per_cm2", F, "cm^-2", "2D Mott density estimate at the target (pump below it)"),
     ("target_binding_beyond_validity", B, NO_UNIT, "target binding outside the effective-mass model's validity"),
     ("target_spin_given", B, NO_UNIT, "the record gives spin sub-bands"),
     ("target_optical_gap_compensated_ev", F, "eV", "full-compensation end of the optical-gap bracket at the target"),
@@ -253,13 +269,19 @@ _WIDE = [
     ("pass_margin", B, NO_UNIT, "criterion: dark - bright exciton energy at least min_direct_margin_ev"),
     ("pass_bright_fraction", B, NO_UNIT, "criterion: thermal bright fraction at least min_bright_fraction "
      "(always true when it is 0)"),
-    ("pass_binding", B, NO_UNIT, "criterion: binding at least min_binding_over_kt times kT"),
+    ("pass_binding", B, NO_UNIT, "criterion: 2D Saha bound fraction at the planned pair density "
+     "(survival.pair_density_per_cm2) at least min_bound_fraction, and binding at least min_binding_over_kt "
+     "times kT (0 = off)"),
     ("pass_window", B, NO_UNIT, "criterion: both ends of the emission bracket (no gap shift, full compensation) "
      "inside the target window"),
     ("meets_all_criteria", B, NO_UNIT, "every ranking criterion holds (a candidate)"),
-    ("score_binding", F, "1", "binding component of the score, in [0, 1]"),
-    ("score_margin", F, "1", "margin component of the score, in [0, 1]"),
-    ("score_window", F, "1", "emission-window component of the score, in [0, 1]"),
+    ("score_binding", F, "1", "bound part of the score in [0, 1]: decades by which the unbound share at the "
+     "planned pair density lies below the one min_bound_fraction allows, over 2"),
+    ("score_margin", F, "1", "margin part of the score in [0, 1]: dark - bright exciton energy over 0.2 eV"),
+    ("score_window", F, "1", "window part of the score in [0, 1]: Monte Carlo probability that the emission "
+     "bracket lies in the target window (pass/fail without the Monte Carlo)"),
+    ("score_brightness", F, "1", "brightness part of the score in [0, 1] (tie-breaker): "
+     "log10(brightness proxy / 1e8 s^-1) / 2"),
     ("score", F, "1", "weighted mean of the score components, in [0, 1]"),
     ("rank", "int32", "1", "position in the ranked list (candidates first)"),
 ]
@@ -268,7 +290,7 @@ _UNCERTAINTY = [
     ("p_direct_target", F, "1", "probability that the gap is direct at the target layer count"),
     ("p_meets_all", F, "1", "probability that every ranking criterion is met"),
     ("p_pass_margin", F, "1", "probability that the exciton-level (dark - bright) margin criterion is met"),
-    ("p_pass_binding", F, "1", "probability that the binding/kT criterion is met"),
+    ("p_pass_binding", F, "1", "probability that the bound criterion (bound fraction, binding/kT) is met"),
     ("p_pass_window", F, "1", "probability that the emission lies in the target window"),
     ("n_samples", "int32", "1", "Monte Carlo samples per entry (0 = propagation disabled)"),
     ("seed", "int64", "1", "campaign seed; each entry's stream also depends on its identifier"),
@@ -381,6 +403,9 @@ PATTERNS: dict[str, tuple[str, str, str]] = {
     r"binding_1l_ev__(?P<env>.+)": (F, "eV", "monolayer Rytova-Keldysh binding in environment {env}"),
     r"optical_gap_1l_ev__(?P<env>.+)": (F, "eV", "monolayer bright exciton energy in environment {env}"),
     r"emission_1l_nm__(?P<env>.+)": (F, "nm", "monolayer emission wavelength in environment {env}"),
+    r"emission_nm_p(?P<p>\d+)__(?P<env>.+)": (
+        F, "nm", "{p}th percentile (Monte Carlo) of the emission wavelength at the target layer count in "
+                 "surroundings {env}"),
     r"(?P<q>target_binding_ev|target_optical_gap_ev|target_emission_nm|bulk_binding_ev)_p(?P<p>\d+)": (
         F, "{unit}", "{p}th percentile (Monte Carlo) of the {text}"),
 }
@@ -455,7 +480,7 @@ TABLES: dict[str, tuple[str, list[str]]] = {
          "binding_1l_ev__<env>", "optical_gap_1l_ev__<env>", "emission_1l_nm__<env>",
          *[c[0] for c in _WIDE[30:-1]],
          *[f"{q}_p{p}" for q in MC_QUANTITIES for p in PERCENTILES], *[c[0] for c in _UNCERTAINTY],
-         "rank", "physics_hash", "code_version", "config_hash"]),
+         "emission_nm_p16__<env>", "emission_nm_p84__<env>", "rank", "physics_hash", "code_version", "config_hash"]),
     "results/tables/attribution.parquet": (
         "one row per borderline compound, attributed output and input group (variance-based attribution)",
         ["entry_id", "input_hash", "physics_hash", "output", "input_group", "input_kind", "valley_index",
