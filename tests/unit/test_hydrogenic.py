@@ -15,7 +15,6 @@ from lamellume.hydrogenic import (
     bohr_radius_3d_angstrom,
     bohr_radius_fractional_angstrom,
     bulk_exciton,
-    fractional_dimension_from_thickness,
 )
 from lamellume.units import BOHR_RADIUS_ANGSTROM, HARTREE_EV, RYDBERG_EV
 
@@ -203,18 +202,6 @@ def test_fractional_dimension_endpoints():
     np.testing.assert_allclose(bohr_radius_fractional_angstrom(mu, eps, 2.0), bohr_radius_2d_angstrom(mu, eps))
     alphas = np.linspace(2.0, 3.0, 11)
     assert np.all(np.diff(binding_fractional_ev(mu, eps, alphas)) < 0)
-
-
-def test_thickness_to_dimension_mapping():
-    # Mathieu, Lefebvre & Christol 1992 (approximation): alpha(0) = 2, alpha -> 3, monotone,
-    # and alpha = 3 - e^{-1} at L = 2 a_3D.
-    a3 = 20.0
-    L = np.array([0.0, 5.0, 40.0, 400.0, 1e5])
-    alpha = fractional_dimension_from_thickness(L, a3)
-    assert alpha[0] == 2.0
-    assert np.all(np.diff(alpha) > 0)
-    np.testing.assert_allclose(alpha[2], 3.0 - np.exp(-1.0))
-    np.testing.assert_allclose(alpha[-1], 3.0)
 
 
 # --------------------------------------------------------------------------- bulk exciton (one model)

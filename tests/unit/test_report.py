@@ -237,7 +237,7 @@ def test_page_has_every_section_and_the_caution_near_the_top(settings):
     assert "not measurements" in page[top:top + 400]
     assert "licensed safety practice" in page
     for ref in ("Keldysh, JETP Lett. 29, 658 (1979)", "Phys. Rev. B 84, 085406 (2011)", "Phys. Rev. A 43, 1186",
-                "Phys. Rev. B 43, 2063", "Phys. Rev. Lett. 116, 056401", "Phys. Rev. 98, 915",
+                "Phys. Rev. B 17, 2575", "Phys. Rev. Lett. 116, 056401", "Phys. Rev. 98, 915",
                 "Phys. Rev. Materials 3, 034003", "Rytova", "Ong et al."):
         assert ref in page, ref
     for plot in ("plot-binding-gap", "plot-gap-layers", "plot-emission", "plot-environment"):
@@ -362,6 +362,12 @@ INTENDED_CHANGES = (
     # bulk rows use a volume pair density (issue 17, 3D Saha bound fraction)
     ("1e+12 cm\u207b\u00b2 Surroundings", "1e+12 cm\u207b\u00b2 (layers), 1e+17 cm\u207b\u00b3 (bulk) Surroundings"),
     (" Overview All compounds", " Overview Recompute next All compounds"),  # link to the added section
+    # issue 18: the bound criterion is the Saha fraction at the planned density; the kT line is an optional floor
+    ("the dashed line is the binding needed to survive the operating temperature.",
+     "a dashed line, when drawn, is the configured binding floor (ranking.min_binding_over_kt). The bound "
+     "criterion itself is the Saha bound fraction at the planned pair density, which depends on the reduced "
+     "mass too, so it is no single line here."),
+    ("needed: 4 kT = 103 meV at 300 K", "floor: 4 kT = 103 meV at 300 K"),
 )
 #: Rewritten on purpose for the exciton-level verdict, the emission bracket and the model error
 #: (issue 17); their new wording is checked by test_brightness_words_* and test_methods_*.

@@ -36,10 +36,17 @@ def test_undeclared_column_is_unknown():
         tables.pandas_dtype("no_such_column")
 
 
+#: Columns of the reference run that the outputs no longer have (named in test_golden's EXPECTED_CHANGES too).
+REMOVED_SINCE_REFERENCE = {"binding_fractional_ev"}
+
+
 @pytest.mark.parametrize("path", sorted((GOLDEN / "demo").glob("tables__*.parquet")), ids=lambda p: p.name)
 def test_every_output_column_is_declared_with_its_type(path):
     # The tables written by the reference run (tests/data/golden) hold every column of the outputs.
     for field in pq.read_schema(path):
+        if field.name in REMOVED_SINCE_REFERENCE:
+            assert tables.lookup(field.name) is None, field.name
+            continue
         col = tables.lookup(field.name)
         assert col is not None, f"{path.name}: {field.name} not declared in lamellume.tables"
         expected = "string" if str(field.type) == "large_string" else "bool" if str(field.type) == "bool" \

@@ -33,7 +33,6 @@ __all__ = [
     "binding_2d_anisotropic",
     "binding_fractional_ev",
     "bohr_radius_fractional_angstrom",
-    "fractional_dimension_from_thickness",
     "BulkExciton",
     "bulk_exciton",
 ]
@@ -464,37 +463,6 @@ def bohr_radius_fractional_angstrom(mu_me, eps, alpha):
     X.-F. He, Phys. Rev. B 43, 2063 (1991).
     """
     return bohr_radius_3d_angstrom(mu_me, eps) * 0.5 * (np.asarray(alpha, dtype=float) - 1.0)
-
-
-def fractional_dimension_from_thickness(thickness_angstrom, radius_3d_angstrom):
-    """Approximate effective dimension of a slab, alpha = 3 - exp(-L / (2 a_3D)).
-
-    L is the slab thickness (for an N-layer flake, N times the interlayer
-    spacing) and a_3D the bulk exciton Bohr radius. alpha -> 2 as L -> 0 and
-    -> 3 for L >> a_3D. This empirical interpolation was proposed for quantum
-    wells (L = well width); it is an approximation that ignores the
-    dielectric contrast with the surroundings (quoted from memory; use
-    Rytova-Keldysh for monolayers in real surroundings).
-
-    Parameters
-    ----------
-    thickness_angstrom : array_like
-        Slab thickness in Angstrom (>= 0).
-    radius_3d_angstrom : array_like
-        Bulk exciton Bohr radius in Angstrom (:func:`bohr_radius_3d_angstrom`).
-
-    Returns
-    -------
-    numpy.ndarray
-        alpha in [2, 3).
-
-    References
-    ----------
-    H. Mathieu, P. Lefebvre and P. Christol, Phys. Rev. B 46, 4092 (1992).
-    """
-    L = np.asarray(thickness_angstrom, dtype=float)
-    a = np.asarray(radius_3d_angstrom, dtype=float)
-    return 3.0 - np.exp(-L / (2.0 * a))
 
 
 class BulkExciton(NamedTuple):

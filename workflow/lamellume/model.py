@@ -49,35 +49,39 @@ from typing import NamedTuple
 
 import numpy as np
 
-from lamellume import excitons, hydrogenic, keldysh, layers as layer_model, masses
+from lamellume import brightness, excitons, hydrogenic, keldysh, layers as layer_model, masses
 
 BULK = layer_model.BULK
 
 #: Exciton-level quantities (:func:`_exciton_level`), in ``stack`` and ``bulk`` alike.
 EXCITON_QUANTITIES = ("bright_exciton_ev", "dark_exciton_ev", "exciton_margin_ev", "brightness",
                       "bright_pair_index", "dark_pair_index", "bright_weight", "dark_weight",
-                      "optical_gap_compensated_ev", "emission_compensated_nm")
+                      "optical_gap_compensated_ev", "emission_compensated_nm", "radiative_rate_0_per_s",
+                      "bright_mass_me")
 #: Requests that need the exciton level (the optical gap is the lowest bright exciton).
 _EXCITON_TRIGGERS = frozenset(EXCITON_QUANTITIES) | {"optical_gap_ev", "emission_nm"}
 
 #: Per (compound, few-layer count, surroundings) quantities :func:`evaluate` can return.
 STACK_QUANTITIES = frozenset({
     "r0_angstrom", "kappa", "binding_ev", "binding_2s_ev", "binding_3s_ev", "radius_angstrom",
-    "binding_2d_hydrogenic_ev", "binding_olsen_ev", "binding_fractional_ev", "dark_binding_ev",
+    "binding_2d_hydrogenic_ev", "binding_olsen_ev", "dark_binding_ev",
     "optical_gap_ev", "emission_nm", *EXCITON_QUANTITIES,
 })
 #: Per compound bulk quantities :func:`evaluate` can return (long-table names for the bulk
 #: row, wide-table names for the bulk model columns).
 BULK_QUANTITIES = frozenset({
-    "binding_ev", "binding_model", "binding_2s_ev", "binding_3s_ev", "radius_angstrom",
+    "binding_ev", "binding_model", "binding_2s_ev", "binding_3s_ev", "radius_angstrom", "mott_radius_angstrom",
     "dark_binding_ev", "optical_gap_ev", "emission_nm",
-    "bulk_binding_ev", "bulk_binding_aniso_ev", "quasi2d_binding_ev", "quasi2d_radius_angstrom",
+    "bulk_binding_ev", "bulk_binding_aniso_ev", "bulk_radius_angstrom", "quasi2d_binding_ev",
+    "quasi2d_radius_angstrom",
     *EXCITON_QUANTITIES,
 })
 
-#: Bulk quantities that need the anisotropic 3D binding (and so the out-of-plane masses).
-_NEEDS_ANISOTROPIC = frozenset({"binding_ev", "binding_model", "bulk_binding_aniso_ev", "optical_gap_ev",
-                                "emission_nm"})
+#: Bulk quantities of the bulk model (:func:`lamellume.hydrogenic.bulk_exciton`), which needs the
+#: out-of-plane masses.
+_NEEDS_BULK_MODEL = frozenset({"binding_ev", "binding_model", "binding_2s_ev", "binding_3s_ev", "radius_angstrom",
+                               "mott_radius_angstrom", "bulk_binding_aniso_ev", "bulk_radius_angstrom",
+                               "optical_gap_ev", "emission_nm"})
 
 
 @dataclass(frozen=True)
@@ -311,7 +315,7 @@ def evaluate(inputs: ModelInputs, settings: ModelSettings, table: keldysh.Keldys
     vt = valley_table(inputs)
     want_dark = "dark_binding_ev" in settings.stack or "dark_binding_ev" in settings.bulk
     pairs = {"bright": pair_masses(vt, gap.direct_label, gap.direct_label, principal=settings.principal_masses,
-                                   perpendicular=bool(settings.bulk & _NEEDS_ANISOTROPIC))}
+                                   perpendicular=bool(settings.bulk & _NEEDS_BULK_MODEL))}
     if want_dark:
         pairs["dark"] = pair_masses(vt, gap.vbm_label, gap.cbm_label)
     r0_given = np.asarray(inputs.r0_given_angstrom, dtype=float)
@@ -320,7 +324,7 @@ def evaluate(inputs: ModelInputs, settings: ModelSettings, table: keldysh.Keldys
         * inputs.r0_factor
     result = ModelResult(gap, pairs, r0_1)
     result.bulk = _bulk(inputs, settings, gap, pairs)
-    result.stack = _stack(inputs, settings, table, gap, pairs, r0_1, result.bulk)
+    result.stack = _stack(inputs, settings, table, gap, pairs, r0_1)
     if (settings.stack | settings.bulk) & _EXCITON_TRIGGERS:
         result.valley_pairs = _exciton_level(inputs, settings, table, r0_1, result)
     return result
@@ -351,8 +355,17 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     f_lay = np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (n,))
     f_bulk = np.broadcast_to(np.asarray(inputs.binding_factor_bulk, dtype=float), (n,))
 
-    def fill(out: dict, energy, dimension, compensated=None):
+    def fill(out: dict, energy, dimension, compensated=None, rate=None):
         lev = excitons.lowest_excitons(c, energy, pr.bright, n)
+        pick = np.maximum(lev.bright_pair, 0)
+        found = lev.bright_pair >= 0
+        out["bright_mass_me"] = np.where(found, total[pick] if len(total) else np.nan, np.nan)
+        if rate is None:
+            out["radiative_rate_0_per_s"] = np.full(lev.bright_ev.shape, np.nan)
+        else:   # (P, F, E) per pair -> the lowest bright pair's
+            sel = rate[pick, np.arange(pick.shape[1])[None, :, None], np.arange(pick.shape[2])[None, None, :]] \
+                if len(rate) else np.full(pick.shape, np.nan)
+            out["radiative_rate_0_per_s"] = np.where(found, sel, np.nan)
         if compensated is None:
             out["optical_gap_compensated_ev"] = lev.bright_ev
         else:
@@ -387,8 +400,19 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     eb_ref = keldysh.keldysh_binding_ev(np.broadcast_to(mu[:, None], shape[:2]), r0[:, :, 0],
                                         np.broadcast_to(kap_ref[:, None], shape[:2]), table, state="1s") \
         * f_lay[c][:, None]
+    rate = None
+    if settings.stack & {"radiative_rate_0_per_s"}:
+        # Radiative-rate proxy of every pair's exciton (lamellume.brightness): Kane energy of the
+        # pair's gap and reduced mass, |phi(0)|^2 from the Rytova-Keldysh rms radius, index sqrt(kappa).
+        radius = keldysh.keldysh_radius_angstrom(np.broadcast_to(mu[:, None, None], shape), r0,
+                                                 np.broadcast_to(kappa[None, None, :], shape), table, state="1s")
+        with np.errstate(invalid="ignore", divide="ignore"):
+            rate = brightness.intrinsic_rate_per_s(
+                brightness.kane_energy_ev(gaps[:, :-1, None], mu[:, None, None]), gaps[:, :-1, None] - eb,
+                brightness.origin_density_2d_per_angstrom2(brightness.decay_length_from_rms_angstrom(radius)),
+                np.sqrt(kappa)[None, None, :])
     if settings.stack & _EXCITON_TRIGGERS:
-        fill(result.stack, gaps[:, :-1, None] - eb, 2, gaps[:, :-1] - eb_ref)
+        fill(result.stack, gaps[:, :-1, None] - eb, 2, gaps[:, :-1] - eb_ref, rate)
     if settings.bulk & _EXCITON_TRIGGERS:
         eps_bulk = np.asarray(inputs.eps_bulk, dtype=float)[c]
         eb_b = hydrogenic.binding_3d_ev(mu, eps_bulk)
@@ -404,31 +428,31 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
 
 
 def _bulk(inputs: ModelInputs, settings: ModelSettings, gap, pairs) -> dict[str, np.ndarray]:
-    """Bulk-crystal quantities per compound (the last layer column)."""
+    """Bulk-crystal quantities per compound (the last layer column).
+
+    The bulk row's binding, 2s/3s levels and radii come from one model,
+    :func:`lamellume.hydrogenic.bulk_exciton` (uniaxial variational where the
+    out-of-plane reduced mass is given, isotropic hydrogenic otherwise);
+    ``radius_angstrom`` is its in-plane rms radius (the convention of the
+    layers' Rytova-Keldysh radius) and ``mott_radius_angstrom`` the geometric
+    mean of its decay lengths (the radius of the 3D Mott criterion).
+    """
     want = settings.bulk.__contains__
     eps_bulk = np.asarray(inputs.eps_bulk, dtype=float)
     mu = pairs["bright"].mu_me[:, -1]
-    out: dict[str, np.ndarray] = {
-        "bulk_binding_ev": hydrogenic.binding_3d_ev(mu, eps_bulk),
-        "bulk_radius_angstrom": hydrogenic.bohr_radius_3d_angstrom(mu, eps_bulk),
-    }
-    if settings.bulk & _NEEDS_ANISOTROPIC:
-        mperp = pairs["bright"].mu_perp_me[:, -1]
-        aniso = np.full(mu.shape, np.nan)
-        has = np.isfinite(mperp) & np.isfinite(mu)
-        if has.any():
-            aniso[has] = hydrogenic.binding_3d_anisotropic(
-                mu[has], mperp[has], np.asarray(inputs.eps_parallel, dtype=float)[has],
-                np.asarray(inputs.eps_perpendicular, dtype=float)[has]).binding_ev
-        out["bulk_binding_aniso_ev"] = aniso
-        out["binding_ev"] = np.where(np.isfinite(aniso), aniso, out["bulk_binding_ev"]) * inputs.binding_factor_bulk
-        out["binding_model"] = np.where(np.isfinite(aniso), "3d-anisotropic", "3d-hydrogenic")
-    if want("binding_2s_ev"):
-        out["binding_2s_ev"] = hydrogenic.binding_3d_ev(mu, eps_bulk, n=2)
-    if want("binding_3s_ev"):
-        out["binding_3s_ev"] = hydrogenic.binding_3d_ev(mu, eps_bulk, n=3)
-    if want("radius_angstrom"):
-        out["radius_angstrom"] = out["bulk_radius_angstrom"]
+    out: dict[str, np.ndarray] = {"bulk_binding_ev": hydrogenic.binding_3d_ev(mu, eps_bulk)}
+    if settings.bulk & _NEEDS_BULK_MODEL:
+        mperp = pairs["bright"].mu_perp_me
+        mperp = np.full(mu.shape, np.nan) if mperp is None else mperp[:, -1]
+        bx = hydrogenic.bulk_exciton(mu, mperp, np.asarray(inputs.eps_parallel, dtype=float),
+                                     np.asarray(inputs.eps_perpendicular, dtype=float))
+        aniso = bx.model == "3d-anisotropic"
+        out["bulk_binding_aniso_ev"] = np.where(aniso, bx.binding_1s_ev, np.nan)
+        out["binding_ev"] = bx.binding_1s_ev * inputs.binding_factor_bulk
+        out["binding_model"] = bx.model
+        out["binding_2s_ev"], out["binding_3s_ev"] = bx.binding_2s_ev, bx.binding_3s_ev
+        out["radius_angstrom"] = out["bulk_radius_angstrom"] = bx.rms_radius_inplane_angstrom
+        out["mott_radius_angstrom"] = bx.mott_radius_angstrom
     if want("quasi2d_binding_ev"):
         out["quasi2d_binding_ev"] = hydrogenic.binding_2d_ev(mu, eps_bulk)
     if want("quasi2d_radius_angstrom"):
@@ -443,8 +467,7 @@ def _bulk(inputs: ModelInputs, settings: ModelSettings, gap, pairs) -> dict[str,
     return out
 
 
-def _stack(inputs: ModelInputs, settings: ModelSettings, table, gap, pairs, r0_1,
-           bulk: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+def _stack(inputs: ModelInputs, settings: ModelSettings, table, gap, pairs, r0_1) -> dict[str, np.ndarray]:
     """Few-layer quantities per (compound, layer count, surroundings)."""
     want = settings.stack.__contains__
     lay = np.asarray(inputs.layers)
@@ -474,13 +497,6 @@ def _stack(inputs: ModelInputs, settings: ModelSettings, table, gap, pairs, r0_1
             mu, np.asarray(inputs.eps_bulk, dtype=float)[:, None, None] if h_eps <= 0 else h_eps)
     if want("binding_olsen_ev"):
         out["binding_olsen_ev"] = keldysh.olsen_binding_ev(mu, r0, kap)
-    if want("binding_fractional_ev"):
-        spacing = np.asarray(inputs.spacing_angstrom, dtype=float)
-        alpha = hydrogenic.fractional_dimension_from_thickness(nl[None, :] * spacing[:, None],
-                                                              bulk["bulk_radius_angstrom"][:, None])
-        frac = hydrogenic.binding_fractional_ev(pairs["bright"].mu_me[:, :-1],
-                                                np.asarray(inputs.eps_bulk, dtype=float)[:, None], alpha)
-        out["binding_fractional_ev"] = np.broadcast_to(frac[:, :, None], shape)
     if want("dark_binding_ev"):
         mu_dark = np.broadcast_to(pairs["dark"].mu_me[:, :-1, None], shape)
         eb_dark = keldysh.keldysh_binding_ev(mu_dark, r0, kap, table, state="1s")

@@ -14,10 +14,16 @@ Model choices (see README, "Methods"):
   principal reduced masses (:func:`lamellume.masses.inplane_average_mass_me`);
 * bulk: isotropic 3D hydrogenic with sqrt(eps_par eps_perp) and the in-plane
   average mass; anisotropic variational when an out-of-plane mass is given;
+  the bulk row's 2s/3s levels and radii come from the same model
+  (:func:`lamellume.hydrogenic.bulk_exciton`);
+* radius convention: ``radius_angstrom`` is the in-plane rms radius on every
+  row (Rytova-Keldysh for layers, the bulk model for bulk); the 2D Mott density
+  (layer rows, cm^-2) uses it, the 3D Mott density (bulk rows, cm^-3) the
+  geometric mean of the bulk model's decay lengths;
 * quasi-2D: 2D hydrogenic with the bulk constant (four times the 3D binding);
 * N layers (N >= 1) in an environment: Rytova-Keldysh with r0(N) = N r0(1)
   and kappa = (eps_top + eps_bottom)/2; 2D hydrogenic and the Olsen et al.
-  estimate as cross-checks; the fractional-dimension interpolation.
+  estimate as cross-checks.
 """
 
 from __future__ import annotations
@@ -155,8 +161,7 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
         "kappa": res.stack["kappa"], "r0_angstrom": res.stack["r0_angstrom"],
         "binding_model": np.full(shape, "rytova-keldysh", dtype=object),
         **{k: res.stack[k] for k in ("binding_ev", "binding_2s_ev", "binding_3s_ev", "radius_angstrom",
-                                     "binding_2d_hydrogenic_ev", "binding_olsen_ev", "binding_fractional_ev",
-                                     "dark_binding_ev")},
+                                     "binding_2d_hydrogenic_ev", "binding_olsen_ev", "dark_binding_ev")},
         "mu_inplane_me": gc_field(bright.mu_me), "mu_small_me": gc_field(bright.mu_small_me),
         "mu_large_me": gc_field(bright.mu_large_me), "mu_angle_deg": gc_field(bright.mu_angle_deg),
         "mu_dark_me": gc_field(dark.mu_me), "optical_gap_ev": res.stack["optical_gap_ev"],
@@ -167,7 +172,7 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
         **{k: res.bulk[k] for k in ("binding_model", "binding_ev", "binding_2s_ev", "binding_3s_ev",
                                     "radius_angstrom")},
         "binding_2d_hydrogenic_ev": res.bulk["quasi2d_binding_ev"], "binding_olsen_ev": np.full(n, np.nan),
-        "binding_fractional_ev": np.full(n, np.nan), "dark_binding_ev": res.bulk["dark_binding_ev"],
+        "dark_binding_ev": res.bulk["dark_binding_ev"],
         "mu_inplane_me": bright.mu_me[:, jb], "mu_small_me": bright.mu_small_me[:, jb],
         "mu_large_me": bright.mu_large_me[:, jb], "mu_angle_deg": bright.mu_angle_deg[:, jb],
         "mu_dark_me": dark.mu_me[:, jb], "optical_gap_ev": res.bulk["optical_gap_ev"],
@@ -198,10 +203,15 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
     long["emission_nm"] = np.concatenate([res.stack["emission_nm"].reshape(-1), res.bulk["emission_nm"]])
     long["emission_band"] = layer_model.spectral_band(long["emission_nm"].to_numpy(dtype=float), bands) \
         if len(long) else np.zeros(0, dtype=object)
-    long["mott_density_per_cm2"] = _mott(long)
+    is_bulk = long["layers"].to_numpy() == BULK
+    long["mott_density_per_cm2"] = np.where(is_bulk, np.nan, survival.mott_density_2d_per_cm2(
+        long["radius_angstrom"].to_numpy(dtype=float)))
+    long["mott_density_3d_per_cm3"] = np.concatenate([
+        np.full(int(np.prod(shape)), np.nan), survival.mott_density_3d_per_cm3(res.bulk["mott_radius_angstrom"])])
     pair_names = pair_labels(res.valley_pairs, valleys)
     for key in ("bright_exciton_ev", "dark_exciton_ev", "exciton_margin_ev", "brightness", "bright_weight",
-                "dark_weight", "optical_gap_compensated_ev", "emission_compensated_nm"):
+                "dark_weight", "optical_gap_compensated_ev", "emission_compensated_nm", "radiative_rate_0_per_s",
+                "bright_mass_me"):
         long[key] = np.concatenate([np.asarray(res.stack[key]).reshape(-1), np.asarray(res.bulk[key])])
     for key in ("bright", "dark"):
         idx = np.concatenate([res.stack[f"{key}_pair_index"].reshape(-1), res.bulk[f"{key}_pair_index"]])
@@ -275,10 +285,6 @@ def _per_compound_max(values: np.ndarray, owner: np.ndarray, n: int) -> np.ndarr
     out = np.full(n, -np.inf)
     np.maximum.at(out, owner, np.where(np.isfinite(values), values, -np.inf))
     return np.where(np.isfinite(out), out, np.nan)
-
-
-def _mott(long: pd.DataFrame) -> np.ndarray:
-    return survival.mott_density_2d_per_cm2(long["radius_angstrom"].to_numpy(dtype=float))
 
 
 def thinning_verdict(cross: layer_model.Crossover, max_layers: int) -> np.ndarray:

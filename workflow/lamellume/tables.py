@@ -8,7 +8,7 @@ it is current). A column name means the same thing in every table it appears
 in. Families of columns (one per layer count, per surroundings, per
 percentile) are declared once as a pattern (:data:`PATTERNS`).
 
-Units: ``eV``, ``nm``, ``Angstrom``, ``m_e``, ``K``, ``deg``, ``cm^-2``, ``1``
+Units: ``eV``, ``meV``, ``nm``, ``Angstrom``, ``m_e``, ``K``, ``deg``, ``cm^-2``, ``1``
 (a dimensionless number) and ``-`` (text, identifier or flag: not a quantity).
 Arrow types: ``string`` (stored as large_string), ``float64``, ``int16``,
 ``int32``, ``int64``, ``bool``.
@@ -136,19 +136,19 @@ _LONG = [
     ("mu_inplane_me", F, "m_e", "in-plane reduced mass of the bright pair (geometric mean of principal values)"),
     ("mu_small_me", F, "m_e", "smaller principal in-plane reduced mass of the bright pair"),
     ("mu_large_me", F, "m_e", "larger principal in-plane reduced mass of the bright pair"),
-    ("mu_angle_deg", F, "deg", "angle of the light principal reduced-mass axis from the layer-frame x axis"),
+    ("mu_angle_deg", F, "deg", "angle of the axis of mu_small_me (the lighter principal reduced mass of the bright pair) from the "
+     "layer-frame x axis, counter-clockwise seen from +z"),
     ("mu_dark_me", F, "m_e", "in-plane reduced mass of the fundamental (VBM, CBM) pair"),
     ("r0_angstrom", F, "Angstrom", "Rytova-Keldysh screening length of the N-layer stack"),
     ("kappa", F, "1", "mean dielectric constant of the surroundings (bulk rows: the crystal's sqrt(eps_par eps_perp))"),
     ("binding_model", S, NO_UNIT, "model of binding_ev: rytova-keldysh, 3d-anisotropic or 3d-hydrogenic"),
     ("binding_ev", F, "eV", "bright-exciton binding energy of the row's model (binding_model)"),
-    ("binding_2s_ev", F, "eV", "2s binding energy (Rytova-Keldysh; 3D hydrogenic n=2 for bulk)"),
-    ("binding_3s_ev", F, "eV", "3s binding energy (Rytova-Keldysh; 3D hydrogenic n=3 for bulk)"),
+    ("binding_2s_ev", F, "eV", "2s binding energy (Rytova-Keldysh; bulk rows: the bulk model's 1s binding / 4)"),
+    ("binding_3s_ev", F, "eV", "3s binding energy (Rytova-Keldysh; bulk rows: the bulk model's 1s binding / 9)"),
     ("radius_angstrom", F, "Angstrom",
-     "exciton radius of the row's model (rms for Rytova-Keldysh, Bohr radius for bulk)"),
+     "in-plane rms radius sqrt(<x^2 + y^2>) of the 1s exciton of the row's model (binding_model) on every row"),
     ("binding_2d_hydrogenic_ev", F, "eV", "2D hydrogenic binding with the configured constant"),
     ("binding_olsen_ev", F, "eV", "quick estimate of Olsen et al. (2016)"),
-    ("binding_fractional_ev", F, "eV", "fractional-dimension interpolation (He 1991)"),
     ("dark_binding_ev", F, "eV", "binding of the fundamental-pair (momentum-dark) exciton"),
     ("dark_exciton_ev", F, "eV",
      "lowest dark exciton energy over every valley pair (momentum- or spin-dark): pair gap - its own binding; "
@@ -165,6 +165,18 @@ _LONG = [
     ("dark_weight", F, "1", "Boltzmann weight g M^(d/2) of the lowest dark exciton"),
     ("bright_fraction", F, "1", "thermal bright fraction at the operating temperature: Boltzmann occupation of "
      "the lowest bright vs the lowest dark exciton (NaN: no dark competitor, unknown)"),
+    ("bright_mass_me", F, "m_e", "centre-of-mass (translational) mass of the lowest bright exciton, "
+     "sqrt(det(M_e + M_h)) in the plane"),
+    ("radiative_rate_0_per_s", F, "1/s",
+     "layer rows: intrinsic radiative rate of the lowest bright exciton at zero in-plane momentum (Andreani 1991; "
+     "Kane energy from two-band k.p, |phi(0)|^2 from the Rytova-Keldysh rms radius, index sqrt(kappa)); "
+     "a model estimate, NaN on bulk rows"),
+    ("radiative_rate_thermal_per_s", F, "1/s",
+     "layer rows: thermal average of radiative_rate_0_per_s over a Boltzmann gas of bright excitons at the "
+     "operating temperature, (4/3) Gamma_0 E_c / kT (model estimate)"),
+    ("brightness_proxy_per_s", F, "1/s",
+     "layer rows: radiative_rate_thermal_per_s x bright_fraction, the brightness proxy of the score's "
+     "tie-breaker (model estimate; NaN when the brightness is unknown)"),
     ("binding_beyond_validity", B, NO_UNIT,
      "binding above excitons.max_binding_fraction of the direct gap: outside the effective-mass model's validity"),
     ("spin_given", B, NO_UNIT, "the record gives spin sub-bands (without them every same-label pair counts as bright)"),
@@ -177,13 +189,18 @@ _LONG = [
      "band_edge_origin surroundings)"),
     ("emission_compensated_nm", F, "nm", "vacuum wavelength at optical_gap_compensated_ev"),
     ("emission_band", S, NO_UNIT, "named spectral band of the emission (config emission_bands)"),
-    ("mott_density_per_cm2", F, "cm^-2", "2D Mott density estimate 1/(pi r^2)"),
+    ("mott_density_per_cm2", F, "cm^-2",
+     "layer rows: 2D Mott density estimate 1/(pi r^2) with r = radius_angstrom (empty on bulk rows)"),
+    ("mott_density_3d_per_cm3", F, "cm^-3",
+     "bulk rows: 3D Mott density (0.26/a)^3 with a the geometric mean (a_par^2 a_perp)^(1/3) of the bulk "
+     "model's 1s decay lengths (Edwards-Sienko criterion; empty on layer rows)"),
     ("temperature_k", F, "K", "operating temperature (config survival)"),
     ("binding_over_kt", F, "1", "binding energy over kT at the operating temperature"),
     ("survives_kt", B, NO_UNIT, "binding energy above kT"),
     ("bound_fraction", F, "1", "layer rows: bound-exciton fraction of the 2D Saha equation at the areal pair density survival.pair_density_per_cm2 (empty on bulk rows)"),
     ("bound_fraction_3d", F, "1", "bulk rows: bound-exciton fraction of the 3D Saha equation at the volume pair density survival.pair_density_per_cm3 (empty on layer rows)"),
-    ("wannier_ok", B, NO_UNIT, "exciton radius above wannier_ratio lattice constants (effective-mass picture holds)"),
+    ("wannier_ok", B, NO_UNIT,
+     "in-plane rms radius radius_angstrom above wannier_ratio lattice constants (effective-mass picture holds)"),
 ]
 
 _WIDE = [
@@ -213,7 +230,8 @@ _WIDE = [
     ("mu_bulk_me", F, "m_e", "bulk bright-pair in-plane reduced mass"),
     ("mu_bulk_perp_me", F, "m_e", "bulk bright-pair out-of-plane reduced mass"),
     ("bulk_binding_ev", F, "eV", "3D hydrogenic binding, geometric-mean constant"),
-    ("bulk_radius_angstrom", F, "Angstrom", "3D Bohr radius, geometric-mean constant"),
+    ("bulk_radius_angstrom", F, "Angstrom",
+     "in-plane rms radius of the bulk 1s exciton, of the model of the bulk row's binding (as radius_angstrom)"),
     ("bulk_binding_aniso_ev", F, "eV", "anisotropic 3D variational binding"),
     ("quasi2d_binding_ev", F, "eV", "2D hydrogenic binding with the bulk constant (4x bulk)"),
     ("quasi2d_radius_angstrom", F, "Angstrom", "2D Bohr radius (1s decay length) with the bulk constant"),
@@ -238,6 +256,10 @@ _WIDE = [
     ("target_bright_pair", S, NO_UNIT, "valley pair of the lowest bright exciton at the target"),
     ("target_dark_pair", S, NO_UNIT, "valley pair of the lowest dark exciton at the target"),
     ("target_bright_fraction", F, "1", "thermal bright fraction at the target"),
+    ("target_radiative_rate_0_per_s", F, "1/s", "intrinsic radiative rate of the lowest bright exciton at the target"),
+    ("target_radiative_rate_thermal_per_s", F, "1/s", "thermally averaged radiative rate at the target"),
+    ("target_brightness_proxy_per_s", F, "1/s", "brightness proxy (thermal rate x bright fraction) at the target"),
+    ("target_mott_density_per_cm2", F, "cm^-2", "2D Mott density estimate at the target (pump below it)"),
     ("target_binding_beyond_validity", B, NO_UNIT, "target binding outside the effective-mass model's validity"),
     ("target_spin_given", B, NO_UNIT, "the record gives spin sub-bands"),
     ("target_optical_gap_compensated_ev", F, "eV", "full-compensation end of the optical-gap bracket at the target"),
@@ -247,13 +269,19 @@ _WIDE = [
     ("pass_margin", B, NO_UNIT, "criterion: dark - bright exciton energy at least min_direct_margin_ev"),
     ("pass_bright_fraction", B, NO_UNIT, "criterion: thermal bright fraction at least min_bright_fraction "
      "(always true when it is 0)"),
-    ("pass_binding", B, NO_UNIT, "criterion: binding at least min_binding_over_kt times kT"),
+    ("pass_binding", B, NO_UNIT, "criterion: 2D Saha bound fraction at the planned pair density "
+     "(survival.pair_density_per_cm2) at least min_bound_fraction, and binding at least min_binding_over_kt "
+     "times kT (0 = off)"),
     ("pass_window", B, NO_UNIT, "criterion: both ends of the emission bracket (no gap shift, full compensation) "
      "inside the target window"),
     ("meets_all_criteria", B, NO_UNIT, "every ranking criterion holds (a candidate)"),
-    ("score_binding", F, "1", "binding component of the score, in [0, 1]"),
-    ("score_margin", F, "1", "margin component of the score, in [0, 1]"),
-    ("score_window", F, "1", "emission-window component of the score, in [0, 1]"),
+    ("score_binding", F, "1", "bound part of the score in [0, 1]: decades by which the unbound share at the "
+     "planned pair density lies below the one min_bound_fraction allows, over 2"),
+    ("score_margin", F, "1", "margin part of the score in [0, 1]: dark - bright exciton energy over 0.2 eV"),
+    ("score_window", F, "1", "window part of the score in [0, 1]: Monte Carlo probability that the emission "
+     "bracket lies in the target window (pass/fail without the Monte Carlo)"),
+    ("score_brightness", F, "1", "brightness part of the score in [0, 1] (tie-breaker): "
+     "log10(brightness proxy / 1e8 s^-1) / 2"),
     ("score", F, "1", "weighted mean of the score components, in [0, 1]"),
     ("rank", "int32", "1", "position in the ranked list (candidates first)"),
 ]
@@ -262,7 +290,7 @@ _UNCERTAINTY = [
     ("p_direct_target", F, "1", "probability that the gap is direct at the target layer count"),
     ("p_meets_all", F, "1", "probability that every ranking criterion is met"),
     ("p_pass_margin", F, "1", "probability that the exciton-level (dark - bright) margin criterion is met"),
-    ("p_pass_binding", F, "1", "probability that the binding/kT criterion is met"),
+    ("p_pass_binding", F, "1", "probability that the bound criterion (bound fraction, binding/kT) is met"),
     ("p_pass_window", F, "1", "probability that the emission lies in the target window"),
     ("n_samples", "int32", "1", "Monte Carlo samples per entry (0 = propagation disabled)"),
     ("seed", "int64", "1", "campaign seed; each entry's stream also depends on its identifier"),
@@ -307,9 +335,57 @@ _REFINEMENT = [
     ("advice", S, NO_UNIT, "the recommendation in plain words"),
 ]
 
+#: results/shortlist.csv: plain headers for people, fixed whatever the settings (the layer count,
+#: surroundings and temperature the values are for are columns, not parts of headers).
+_SHORTLIST = [
+    ("Rank", "int32", "1", "position in the ranked list (candidates first)"),
+    ("Compound", S, NO_UNIT, "compound identifier (the record's id)"),
+    ("Formula", S, NO_UNIT, "chemical formula as given by the record"),
+    ("Candidate", S, NO_UNIT, "'yes' when the compound meets every ranking criterion, else 'no'"),
+    ("Criteria missed", S, NO_UNIT, "the ranking criteria the compound misses, in words ('' for a candidate)"),
+    ("Layers", "int16", "1", "layer count every value of the row is for (config ranking.target_layers)"),
+    ("Surroundings", S, NO_UNIT, "surroundings every value of the row is for (config ranking.environment)"),
+    ("Dielectric constant above", F, "1", "relative permittivity above the flake in those surroundings"),
+    ("Dielectric constant below", F, "1", "relative permittivity below the flake in those surroundings"),
+    ("Temperature (K)", F, "K", "operating temperature of Binding / kT and Bright fraction"),
+    ("Gap character", S, NO_UNIT, "'direct', 'indirect' or 'unknown' band gap at that layer count"),
+    ("Thinning behaviour", S, NO_UNIT, "how the gap character changes with thinning, in words"),
+    ("Exciton energy (eV)", F, "eV", "lowest bright exciton energy (optical gap)"),
+    ("Exciton energy 16 % (eV)", F, "eV", "16th percentile of the exciton energy (Monte Carlo; empty without)"),
+    ("Exciton energy 84 % (eV)", F, "eV", "84th percentile of the exciton energy (Monte Carlo; empty without)"),
+    ("Emission wavelength (nm)", F, "nm", "vacuum wavelength of the lowest bright exciton (no gap shift)"),
+    ("Emission wavelength 16 % (nm)", F, "nm", "16th percentile of the emission wavelength (Monte Carlo)"),
+    ("Emission wavelength 84 % (nm)", F, "nm", "84th percentile of the emission wavelength (Monte Carlo)"),
+    ("Emission if the gap compensates (nm)", F, "nm",
+     "other end of the emission bracket: the quasiparticle gap shrinks with the screening as the binding falls"),
+    ("Spectral band", S, NO_UNIT, "named spectral band of the emission (config emission_bands)"),
+    ("Binding energy (meV)", F, "meV", "exciton binding energy (Rytova-Keldysh)"),
+    ("Binding energy 16 % (meV)", F, "meV", "16th percentile of the binding energy (Monte Carlo)"),
+    ("Binding energy 84 % (meV)", F, "meV", "84th percentile of the binding energy (Monte Carlo)"),
+    ("Binding / kT", F, "1", "binding energy over kT at the temperature of the row"),
+    ("Lowest exciton", S, NO_UNIT, "'bright', 'dark' or 'unknown' (no competing valley given)"),
+    ("Dark - bright exciton (meV)", F, "meV", "lowest dark minus lowest bright exciton energy: > 0 bright"),
+    ("Bright fraction", F, "1", "thermal share of excitons in the bright state at the temperature of the row"),
+    ("Direct-indirect band-gap margin (meV)", F, "meV", "indirect minus direct band gap: > 0 direct"),
+    ("Score (0-1)", F, "1", "the ranking score; its definition is the 'score definition' row of the settings sheet"),
+    ("Probability all criteria met", F, "1", "share of Monte Carlo samples meeting every criterion (empty without)"),
+]
+
+#: results/shortlist_settings.csv: the settings and stamps of the run, one row each.
+_SHORTLIST_SETTINGS = [
+    ("Setting", S, NO_UNIT, "name of the setting or stamp"),
+    ("Value", S, NO_UNIT, "its value in this run"),
+    ("Unit", S, NO_UNIT, "unit of the value ('1' a plain number, empty for text)"),
+    ("Meaning", S, NO_UNIT, "what the setting does, in words"),
+]
+
+#: Columns of the shortlist and its settings sheet, in order.
+SHORTLIST_COLUMNS = tuple(c[0] for c in _SHORTLIST)
+SHORTLIST_SETTINGS_COLUMNS = tuple(c[0] for c in _SHORTLIST_SETTINGS)
+
 #: Every column with a fixed name.
 COLUMNS: dict[str, Column] = _declare(_STAMPS + _ENTRY + _VALLEY + _REJECT + _LONG + _WIDE + _UNCERTAINTY
-                                      + _CHANGES + _REFINEMENT)
+                                      + _CHANGES + _REFINEMENT + _SHORTLIST + _SHORTLIST_SETTINGS)
 
 #: Percentiles and quantities of the Monte Carlo summary columns ``<quantity>_p<NN>``.
 PERCENTILES = (16, 50, 84)
@@ -327,6 +403,9 @@ PATTERNS: dict[str, tuple[str, str, str]] = {
     r"binding_1l_ev__(?P<env>.+)": (F, "eV", "monolayer Rytova-Keldysh binding in environment {env}"),
     r"optical_gap_1l_ev__(?P<env>.+)": (F, "eV", "monolayer bright exciton energy in environment {env}"),
     r"emission_1l_nm__(?P<env>.+)": (F, "nm", "monolayer emission wavelength in environment {env}"),
+    r"emission_nm_p(?P<p>\d+)__(?P<env>.+)": (
+        F, "nm", "{p}th percentile (Monte Carlo) of the emission wavelength at the target layer count in "
+                 "surroundings {env}"),
     r"(?P<q>target_binding_ev|target_optical_gap_ev|target_emission_nm|bulk_binding_ev)_p(?P<p>\d+)": (
         F, "{unit}", "{p}th percentile (Monte Carlo) of the {text}"),
 }
@@ -401,7 +480,7 @@ TABLES: dict[str, tuple[str, list[str]]] = {
          "binding_1l_ev__<env>", "optical_gap_1l_ev__<env>", "emission_1l_nm__<env>",
          *[c[0] for c in _WIDE[30:-1]],
          *[f"{q}_p{p}" for q in MC_QUANTITIES for p in PERCENTILES], *[c[0] for c in _UNCERTAINTY],
-         "rank", "physics_hash", "code_version", "config_hash"]),
+         "emission_nm_p16__<env>", "emission_nm_p84__<env>", "rank", "physics_hash", "code_version", "config_hash"]),
     "results/tables/attribution.parquet": (
         "one row per borderline compound, attributed output and input group (variance-based attribution)",
         ["entry_id", "input_hash", "physics_hash", "output", "input_group", "input_kind", "valley_index",
@@ -414,6 +493,15 @@ TABLES: dict[str, tuple[str, list[str]]] = {
     "results/tables/changes.parquet": (
         "one row per compound that changed since the previous run",
         ["entry_id", *[c[0] for c in _CHANGES]]),
+    "results/shortlist.csv": (
+        "the shortlist for experimental teams: the ranked list's first ranking.shortlist_size compounds "
+        "(candidates first); column names never change with the settings",
+        list(SHORTLIST_COLUMNS)),
+    "results/shortlist_settings.csv": (
+        "the settings and stamps of the run that wrote the shortlist, one row each (written beside the "
+        "manifest): caution, campaign, date, layer count, surroundings, temperature, criteria, score "
+        "definition, config hash, code version",
+        list(SHORTLIST_SETTINGS_COLUMNS)),
 }
 
 
