@@ -5,19 +5,25 @@ Run from the repository root (a script, never a test; nothing here asserts):
     .venv/bin/python benchmarks/bench_versus.py                         # 10k records vs ba2d14c
     .venv/bin/python benchmarks/bench_versus.py --size 1000 --runs 5 --baseline <rev>
 
-The baseline is exported with ``git archive`` into the output folder. One synthetic
-campaign (inputs/make_campaign.py --no-broken --cif-fraction 0) is screened by both
-checkouts in turn (baseline, current, baseline, current, ...), each run a full screen
-through the Snakemake CLI (``--cores 2``, targets of benchmarks/bench_screen.py) in a
-fresh working directory, Keldysh table included. Alternating runs keep the comparison
-fair on a shared machine whose speed drifts: quote the median ratio. Results are
-printed as a Markdown table and written to ``<out>/bench_versus.json``.
+The baseline is exported with ``git archive`` into the output folder. Each checkout
+screens the synthetic campaign its own generator writes (inputs/make_campaign.py
+--no-broken --cif-fraction 0, same count and seed): the record layout moved since
+ba2d14c (format line, per-valley degeneracy), and a campaign of today's records is
+rejected whole by the baseline, which then computes nothing. A run whose rejects table
+is not empty stops the benchmark. The two checkouts run in turn (baseline, current,
+baseline, current, ...), each run a full screen through the Snakemake CLI
+(``--cores 2``, targets of benchmarks/bench_screen.py) in a fresh working directory,
+Keldysh table included; wall seconds and CPU seconds (user + system of the whole
+process tree) are recorded. Alternating runs keep the comparison fair on a shared
+machine whose speed drifts: quote the median ratio. Results are printed as a Markdown
+table and written to ``<out>/bench_versus.json``.
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import resource
 import shutil
 import statistics
 import subprocess
@@ -25,6 +31,7 @@ import sys
 import time
 from pathlib import Path
 
+import pyarrow.parquet as pq
 import yaml
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -41,8 +48,18 @@ def export(rev: str, target: Path) -> Path:
     return target
 
 
-def full_screen(code: Path, campaign: Path, work: Path, shards: int) -> float:
-    """Wall seconds of one full screen of ``campaign`` by the workflow in ``code``."""
+def campaign_of(code: Path, out: Path, size: int, label: str) -> Path:
+    """The campaign of ``size`` records written by the generator of checkout ``code``."""
+    campaign = out / f"campaign-{label}-{size}"
+    if not campaign.exists():
+        subprocess.run([sys.executable, str(code / "inputs" / "make_campaign.py"), "--out", str(campaign),
+                        "--count", str(size), "--no-broken", "--cif-fraction", "0"], check=True,
+                       capture_output=True)
+    return campaign
+
+
+def full_screen(code: Path, campaign: Path, work: Path, shards: int) -> tuple[float, float]:
+    """Wall and CPU seconds of one full screen of ``campaign`` by the workflow in ``code``."""
     shutil.rmtree(work, ignore_errors=True)
     work.mkdir(parents=True)
     config = yaml.safe_load((code / "config" / "config.yaml").read_text())
@@ -51,12 +68,18 @@ def full_screen(code: Path, campaign: Path, work: Path, shards: int) -> float:
     (work / "config.yaml").write_text(yaml.safe_dump(config))
     cmd = [sys.executable, "-m", "snakemake", "-s", str(code / "Snakefile"), "--directory", str(work),
            "--configfile", str(work / "config.yaml"), "--cores", "2", *TARGETS]
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
     start = time.perf_counter()
     res = subprocess.run(cmd, cwd=work, capture_output=True, text=True)
     wall = time.perf_counter() - start
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
     if res.returncode != 0:
         raise RuntimeError(f"{code}: snakemake failed\n{res.stderr[-3000:]}")
-    return wall
+    rejected = pq.read_metadata(work / "results" / "tables" / "rejects.parquet").num_rows
+    if rejected:
+        raise RuntimeError(f"{code}: {rejected} rejects in a campaign of valid records; not a like-for-like run")
+    cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+    return wall, cpu
 
 
 def main() -> None:
@@ -70,25 +93,30 @@ def main() -> None:
     out = args.out.resolve()
     out.mkdir(parents=True, exist_ok=True)
     base = export(args.baseline, out / "baseline")
-    campaign = out / f"campaign-{args.size}"
-    if not campaign.exists():
-        subprocess.run([sys.executable, str(ROOT / "inputs" / "make_campaign.py"), "--out", str(campaign),
-                        "--count", str(args.size), "--no-broken", "--cif-fraction", "0"], check=True,
-                       capture_output=True)
+    campaigns = {"baseline": campaign_of(base, out, args.size, "baseline"),
+                 "current": campaign_of(ROOT, out, args.size, "current")}
     walls: dict[str, list[float]] = {"baseline": [], "current": []}
+    cpus: dict[str, list[float]] = {"baseline": [], "current": []}
     for run in range(args.runs):
         for label, code in (("baseline", base), ("current", ROOT)):
-            walls[label].append(full_screen(code, campaign, out / f"work-{label}", args.shards))
-            print(f"run {run + 1}: {label} {walls[label][-1]:.2f} s", flush=True)
+            wall, cpu = full_screen(code, campaigns[label], out / f"work-{label}", args.shards)
+            walls[label].append(wall)
+            cpus[label].append(cpu)
+            print(f"run {run + 1}: {label} {wall:.2f} s wall, {cpu:.2f} s CPU", flush=True)
     ratios = [b / c for b, c in zip(walls["baseline"], walls["current"])]
+    cpu_ratios = [b / c for b, c in zip(cpus["baseline"], cpus["current"])]
     result = {"machine": machine(), "baseline": args.baseline, "size": args.size, "shards": args.shards,
               "walls_s": walls, "median_s": {k: statistics.median(v) for k, v in walls.items()},
-              "speedup_pairwise": ratios, "median_speedup": statistics.median(ratios)}
+              "cpu_s": cpus, "median_cpu_s": {k: statistics.median(v) for k, v in cpus.items()},
+              "speedup_pairwise": ratios, "median_speedup": statistics.median(ratios),
+              "cpu_speedup_pairwise": cpu_ratios, "median_cpu_speedup": statistics.median(cpu_ratios)}
     (out / "bench_versus.json").write_text(json.dumps(result, indent=2))
-    print(f"\n| records | {args.baseline} full (s) | current full (s) | speed-up (median of pairs) |")
+    print(f"\n| records | {args.baseline} wall / CPU (s) | current wall / CPU (s) | speed-up wall / CPU "
+          "(median of pairs) |")
     print("|---|---|---|---|")
-    print(f"| {args.size} | {result['median_s']['baseline']:.1f} | {result['median_s']['current']:.1f} | "
-          f"{result['median_speedup']:.2f}x |")
+    print(f"| {args.size} | {result['median_s']['baseline']:.1f} / {result['median_cpu_s']['baseline']:.1f} | "
+          f"{result['median_s']['current']:.1f} / {result['median_cpu_s']['current']:.1f} | "
+          f"{result['median_speedup']:.2f}x / {result['median_cpu_speedup']:.2f}x |")
 
 
 if __name__ == "__main__":
