@@ -198,6 +198,10 @@ def shortlist(ranked: pd.DataFrame, settings: Mapping) -> pd.DataFrame:
             top["target_bright_fraction"].round(2).to_numpy(),
         "Direct-indirect band-gap margin (meV)": (1000 * top["target_direct_margin_ev"]).round(1).to_numpy(),
         "Score (0-1)": top["score"].round(3).to_numpy(),
+        "Emission at": np.where(np.isfinite(top["gap_temperature_k"].to_numpy(dtype=float)) if "gap_temperature_k"
+                                in top.columns else np.zeros(len(top), dtype=bool),
+                                f"{settings['survival']['temperature_k']:g} K (thermal gap shift applied)",
+                                "the calculation's temperature (no thermal gap data)"),
     })
     if "p_meets_all" in top.columns:
         table["Probability all criteria met"] = top["p_meets_all"].round(2).to_numpy()

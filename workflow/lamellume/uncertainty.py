@@ -102,7 +102,7 @@ import numpy as np
 import pandas as pd
 from scipy import special
 
-from lamellume import dielectric, excitons, keldysh, layers as layer_model, model, ranking, screen, survival
+from lamellume import dielectric, excitons, gapshift, keldysh, layers as layer_model, model, ranking, screen, survival
 
 __all__ = [
     "BLOCK_CELLS",
@@ -320,6 +320,7 @@ class _Prepared(NamedTuple):
     edge_spin: np.ndarray       # (V,) int
     sig_model_layers: float     # log-normal width of the Rytova-Keldysh model error
     sig_model_bulk: float       # log-normal width of the bulk 3D model error
+    gap_thermal: gapshift.GapThermal  # (n,) arrays: each record's thermal gap form
 
 
 #: What the Monte Carlo asks of the exciton model (lamellume.model.evaluate).
@@ -390,7 +391,8 @@ def _prepare(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping) ->
         **dict(zip(("degeneracy", "spin_split", "edge_spin"), screen.exciton_inputs(vt).values())),
         edge_kappa=((entries["edge_eps_top"] + entries["edge_eps_bottom"]) / 2).fillna(1.0).to_numpy(dtype=float),
         sig_model_layers=float(lognormal_sigma(settings["excitons"]["model_rel_unc_layers"])),
-        sig_model_bulk=float(lognormal_sigma(settings["excitons"]["model_rel_unc_bulk"])))
+        sig_model_bulk=float(lognormal_sigma(settings["excitons"]["model_rel_unc_bulk"])),
+        gap_thermal=screen.gap_thermal(entries))
 
 
 def _truncate_below(z, p_lo):
@@ -462,7 +464,8 @@ def _evaluate_block(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, tabl
         eps_perpendicular=prep.eps_perp[rep] * f_eps, eps_bulk=prep.eps_bulk[rep] * f_eps,
         spacing_angstrom=prep.spacing[rep], r0_given_angstrom=prep.r0_given[rep], kappa=prep.kappa,
         r0_factor=f_r0, edge_kappa=prep.edge_kappa[rep], degeneracy=prep.degeneracy[gp], spin_split_ev=prep.spin_split[gp],
-        edge_spin=prep.edge_spin[gp], binding_factor_layers=f_lay, binding_factor_bulk=f_bulk),
+        edge_spin=prep.edge_spin[gp], binding_factor_layers=f_lay, binding_factor_bulk=f_bulk,
+        gap_thermal=prep.gap_thermal.take(rep), temperature_k=prep.temperature_k),
         prep.model_settings, table)
     gc = res.gap
     eb = res.stack["binding_ev"][:, 0, 0]
