@@ -15,6 +15,7 @@ include: "workflow/rules/screen.smk"
 include: "workflow/rules/collect.smk"
 include: "workflow/rules/refine.smk"
 include: "workflow/rules/report.smk"
+include: "workflow/rules/validate.smk"
 
 
 rule all:

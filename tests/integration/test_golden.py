@@ -141,8 +141,6 @@ EXPECTED_CHANGES: dict[tuple[str, str, str], str] = {
         "issue 17: model error sampled and exciton-level criteria in the Monte Carlo",
     ("tables/screen_wide.parquet", "bulk_binding_ev_p84", "*"):
         "issue 17: model error sampled and exciton-level criteria in the Monte Carlo",
-    ("shortlist.csv", "Bright fraction at 300 K", "*"):
-        "issue 17: the shortlist shows the exciton-level verdict, margin and bright fraction",
     ("shortlist.csv", "Dark - bright exciton (meV)", "*"):
         "issue 17: the shortlist shows the exciton-level verdict, margin and bright fraction",
     ("shortlist.csv", "Direct-indirect band-gap margin (meV)", "*"):
@@ -206,6 +204,44 @@ _RENAME = ("project renamed (issue 14): the golden records' format line is rewri
 for _out in ("tables/entries.parquet", "tables/valleys.parquet", "tables/rejects.parquet",
              "tables/screen_long.parquet", "tables/screen_wide.parquet", "tables/rejects.csv"):
     EXPECTED_CHANGES[(_out, "input_hash", "*")] = _RENAME
+
+_PROXY = "added (issue 18): radiative-rate brightness proxy of the lowest bright exciton (lamellume.brightness)"
+for _col in ("radiative_rate_0_per_s", "bright_mass_me", "radiative_rate_thermal_per_s", "brightness_proxy_per_s"):
+    EXPECTED_CHANGES[("tables/screen_long.parquet", _col, "*")] = _PROXY
+for _col in ("target_radiative_rate_0_per_s", "target_radiative_rate_thermal_per_s", "target_brightness_proxy_per_s",
+             "score_brightness"):
+    EXPECTED_CHANGES[("tables/screen_wide.parquet", _col, "*")] = _PROXY
+EXPECTED_CHANGES[("tables/screen_wide.parquet", "target_mott_density_per_cm2", "*")] = (
+    "added (issue 18): the card's pump-density limit at the target")
+for _env in ("suspended", "on_silica", "encapsulated"):
+    for _p in ("p16", "p84"):
+        EXPECTED_CHANGES[("tables/screen_wide.parquet", f"emission_nm_{_p}__{_env}", "*")] = (
+            "added (issue 18): the cards' expected emission range (16-84 %) in every surroundings (Monte Carlo)")
+_SCORE = ("issue 18: score parts that inform: bound part in decades of the unbound share at the planned density, "
+          "window part the Monte Carlo probability of the window (not the distance from its centre), "
+          "brightness proxy as tie-breaker; default weights 0.3/0.3/0.3/0.1")
+for _col in ("score_binding", "score_window", "score", "rank"):
+    EXPECTED_CHANGES[("tables/screen_wide.parquet", _col, "*")] = _SCORE
+EXPECTED_CHANGES[("shortlist.csv", "Score (0-1)", "*")] = _SCORE
+EXPECTED_CHANGES[("shortlist.csv", "Rank", "*")] = _SCORE
+_BOUND = ("issue 18: the bound criterion is the 2D Saha bound fraction at the planned pair density "
+          "(ranking.min_bound_fraction 0.5); the E_b/kT floor defaults to off")
+for _col in ("pass_binding", "meets_all_criteria", "p_pass_binding", "p_meets_all"):
+    EXPECTED_CHANGES[("tables/screen_wide.parquet", _col, "*")] = _BOUND
+EXPECTED_CHANGES[("shortlist.csv", "Probability all criteria met", "*")] = _BOUND
+_STANDALONE = ("issue 14 item 1: the shortlist stands alone: fixed column names whatever the settings "
+               "(layer count, surroundings, their dielectric constants and the temperature as columns), a "
+               "candidate yes/no column with the criteria missed in words, 16-84 % ranges")
+for _col in ("Gap character at 1 layer(s)", "Exciton energy in encapsulated (eV)", "Binding / kT at 300 K",
+             "Status", "Candidate", "Criteria missed", "Layers", "Surroundings", "Dielectric constant above",
+             "Dielectric constant below", "Temperature (K)", "Gap character", "Exciton energy (eV)",
+             "Exciton energy 16 % (eV)", "Exciton energy 84 % (eV)", "Emission wavelength 16 % (nm)",
+             "Emission wavelength 84 % (nm)", "Binding energy 16 % (meV)", "Binding energy 84 % (meV)",
+             "Binding / kT", "Bright fraction"):
+    EXPECTED_CHANGES[("shortlist.csv", _col, "*")] = _STANDALONE
+EXPECTED_CHANGES[("shortlist.csv", ROWS, "*")] = (
+    "issue 14 item 1: the shortlist holds the ranked list's first shortlist_size compounds (candidates first, "
+    "then the closest misses, each with its criteria missed), no longer candidates only")
 
 #: Stamps that legitimately change with any code or settings edit (never compared by value;
 #: their presence and dtype still are).

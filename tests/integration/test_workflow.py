@@ -109,3 +109,74 @@ def test_page_templates_are_code_inputs_of_the_summary(small_run):
     library = REPO / "workflow" / "lamellume"
     for name in report.DATA_FILES:
         assert str(library / name) in declared, name
+
+
+def test_shortlist_settings_sheet_matches_the_manifest(small_run):
+    import csv
+
+    work, _ = small_run
+    manifest = json.loads((work / "results" / "manifest.json").read_text())
+    with open(work / "results" / "shortlist_settings.csv", newline="") as fh:
+        sheet = {row["Setting"]: row["Value"] for row in csv.DictReader(fh)}
+    assert sheet["config hash"] == manifest["config_hash"]
+    assert sheet["code version"] == manifest["code_version"]
+    assert sheet["written"] == manifest["written_utc"]
+    assert sheet["campaign"] == str(work / "campaign")
+    assert sheet["temperature"] == "300" and sheet["surroundings"] == "encapsulated"
+
+
+def test_change_report_compares_a_campaign_only_with_its_own_runs(small_run):
+    """Switching to another campaign and back never mixes their results in the change report."""
+    work, _ = small_run
+    subprocess.run([sys.executable, str(REPO / "inputs" / "make_campaign.py"), "--out", str(work / "other"),
+                    "--count", "5", "--seed", "9"], check=True)
+    config = yaml.safe_load((work / "config.yaml").read_text())
+    config["campaign"] = str(work / "other")
+    (work / "other.yaml").write_text(yaml.safe_dump(config))
+    changes = work / "results" / "tables" / "changes.parquet"
+
+    snakemake(work, "--configfile", str(work / "other.yaml"))
+    assert len(pd.read_parquet(changes)) == 0  # the other campaign's first run: nothing to compare with
+    assert "First recorded run" in (work / "results" / "summary.html").read_text()
+
+    snakemake(work)  # back to the first campaign, unchanged: compared with its own last run
+    assert len(pd.read_parquet(changes)) == 0
+    assert len(list((work / "results" / "history").iterdir())) == 2
+
+
+def test_an_overlay_file_changes_one_nested_setting_for_one_run(small_run):
+    """README / config/README.md: --configfile config.yaml my-overlay.yaml changes only the overlay's keys."""
+    work, _ = small_run
+    before = json.loads((work / "results" / "manifest.json").read_text())["config"]
+    (work / "overlay.yaml").write_text("survival:\n  temperature_k: 77\n")
+    snakemake(work, "--configfile", str(work / "config.yaml"), str(work / "overlay.yaml"))
+    after = json.loads((work / "results" / "manifest.json").read_text())["config"]
+    assert after["survival"]["temperature_k"] == 77
+    after["survival"]["temperature_k"] = before["survival"]["temperature_k"]
+    assert after == before  # every other setting, nested ones included, as in config.yaml
+    long = pd.read_parquet(work / "results" / "tables" / "screen_long.parquet", columns=["temperature_k"])
+    assert (long["temperature_k"] == 77.0).all()
+    snakemake(work)  # back to config.yaml alone (the state the module's other tests expect)
+
+
+def test_nested_config_on_the_command_line_gets_a_clear_message(small_run):
+    work, _ = small_run
+    res = snakemake(work, "-n", "--config", 'survival={"temperature_k": 10}', check=False)
+    text = res.stdout + res.stderr
+    assert res.returncode != 0
+    assert "survival.temperature_k: the text '10' where a number is expected" in text
+    assert "my-overlay.yaml" in text and "not of type" not in text
+
+
+def test_validate_campaign_prints_the_rejects_without_screening(tmp_path):
+    subprocess.run([sys.executable, str(REPO / "inputs" / "make_campaign.py"), "--out", str(tmp_path / "campaign"),
+                    "--count", "3", "--seed", "5"], check=True)
+    config = yaml.safe_load((REPO / "config" / "config.yaml").read_text())
+    config["campaign"] = str(tmp_path / "campaign")
+    (tmp_path / "config.yaml").write_text(yaml.safe_dump(config))
+    res = snakemake(tmp_path, "validate_campaign")
+    assert "checked 10 record files" in res.stdout and "7 would be rejected (nothing was screened)" in res.stdout
+    assert "[record breaks the input contract (schema or physical checks)]" in res.stdout
+    assert len(pd.read_csv(tmp_path / "results" / "validation" / "rejects.csv")["entry_id"].unique()) == 7
+    assert not (tmp_path / "results" / "shards").exists()  # nothing screened
+    assert not (tmp_path / "results" / "cache" / "keldysh_table.npz").exists()

@@ -24,7 +24,8 @@ def shard_tables(ids, lattice, seed):
                           "mu_inplane_me": float(rng.uniform(0.1, 0.5)),
                           "radius_angstrom": float(rng.uniform(3.0, 40.0)),
                           "bright_exciton_ev": 1.5, "dark_exciton_ev": float(rng.uniform(1.4, 1.6)),
-                          "bright_weight": 2.0, "dark_weight": 6.0}
+                          "bright_weight": 2.0, "dark_weight": 6.0, "kappa": 4.5,
+                          "radiative_rate_0_per_s": 2.0e12, "bright_mass_me": 1.0}
                          for e in ids for n in (0, 1, 2) for env in ("suspended", "encapsulated")])
     long.loc[1, "binding_ev"] = np.nan  # an unbound or missing row stays NaN, never a crash
     wide = pd.DataFrame({"entry_id": ids, "lattice_angstrom": lattice})

@@ -107,3 +107,22 @@ def test_proxy_vectorised_over_compounds():
                                        np.array([10.0, 20.0]), 300.0, 1.0)
     assert g0.shape == gt.shape == (2,)
     np.testing.assert_allclose(g0[0] / g0[1], 4.0, rtol=1e-12)  # 1/a^2
+
+
+@pytest.mark.parametrize("a", [4.0, 12.0, 40.0])
+def test_decay_length_from_rms_radius(a):
+    # Independent: scipy quad of <r^2> over |phi|^2 = exp(-2 r / a) in the plane (2D 1s envelope).
+    num, _ = integrate.quad(lambda r: r**3 * np.exp(-2 * r / a), 0, np.inf)
+    den, _ = integrate.quad(lambda r: r * np.exp(-2 * r / a), 0, np.inf)
+    np.testing.assert_allclose(br.decay_length_from_rms_angstrom(np.sqrt(num / den)), a, rtol=1e-10)
+
+
+def test_emitted_rate_is_the_thermal_rate_times_the_bright_fraction():
+    # Analytic: <Gamma> = (4/3) Gamma_0 (n E_X)^2 / (2 M c^2 k_B T) (Andreani et al. 1991), scipy.constants.
+    from scipy import constants as sc
+    g0, ex, mass, t, n, f = 3.0e12, 1.8, 1.2, 300.0, 2.1, 0.7
+    ec_j = (n * ex * sc.e) ** 2 / (2 * mass * sc.m_e * sc.c**2)
+    want = 4.0 / 3.0 * g0 * ec_j / (sc.k * t)
+    thermal, proxy = br.emitted_rate_per_s(g0, ex, mass, t, f, n)
+    np.testing.assert_allclose(thermal, want, rtol=1e-9)
+    np.testing.assert_allclose(proxy, f * want, rtol=1e-9)

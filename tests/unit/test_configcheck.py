@@ -51,3 +51,23 @@ def test_every_problem_is_reported_at_once():
 
 def test_target_layers_equal_to_max_layers_is_fine():
     assert cross_problems(changed(ranking__target_layers=CONFIG["layers"]["max_layers"])) == []
+
+
+def test_text_where_a_number_is_expected_names_the_key_and_the_remedy():
+    from lamellume import io
+    from lamellume.configcheck import text_given_for_numbers
+
+    schema = io.load_schema("config.schema.json")
+    # what Snakemake hands over for --config 'survival={"temperature_k": 10}'
+    problems = text_given_for_numbers({"survival": {"temperature_k": "10"}}, schema)
+    assert len(problems) == 1
+    assert problems[0].startswith("survival.temperature_k: the text '10' where a number is expected")
+    assert "--configfile config/config.yaml my-overlay.yaml" in problems[0]
+    nested = {"environments": {"on_glass": {"top": "1", "bottom": 2.1}}, "ranking": {"window_nm": [500, "900"],
+              "require_direct": "true", "shortlist_size": "3", "environment": "on_glass"}}
+    paths = sorted(p.split(":")[0] for p in text_given_for_numbers(nested, schema))
+    assert paths == ["environments.on_glass.top", "ranking.require_direct", "ranking.shortlist_size",
+                     "ranking.window_nm[1]"]
+    # real numbers, text settings and words that are not numbers are left to the schema
+    assert not text_given_for_numbers({"survival": {"temperature_k": 10}, "campaign": "inputs/demo",
+                                       "ranking": {"environment": "10", "shortlist_size": "many"}}, schema)

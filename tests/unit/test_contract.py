@@ -32,7 +32,7 @@ CASES = [
     ("missing id", _set(["id"], _DELETE), "(record)", "'id' is a required property"),
     ("unsafe id", _set(["id"], "../etc"), "id", "does not match"),
     ("markup id", _set(["id"], "<b>x</b>"), "id", "does not match"),
-    ("id differs from file", _set(["id"], "fixture-b"), "id", "differs from the file name"),
+    ("id differs from file", _set(["id"], "fixture-b"), "id", "differs from the file name 'fixture-a.json'"),
     ("wrong format tag", _set(["record_format"], "v0"), "record_format", "was expected"),
     ("unknown field", _set(["colour"], "red"), "(record)", "Additional properties"),
     ("string mass", _set(["valleys", 0, "mass", "isotropic_me"], "0.5"), "valleys[0].mass.isotropic_me",

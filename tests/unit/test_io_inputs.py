@@ -8,6 +8,7 @@ import os
 import signal
 import socket
 from contextlib import contextmanager
+from pathlib import Path
 
 import pandas as pd
 import pytest
@@ -278,3 +279,18 @@ def test_calculation_files_are_read_by_the_same_rules(tmp_path, kind, words):
         with no_hang(), pytest.raises(ImportProblem) as err:
             read()
         assert words in str(err.value.reason)
+
+
+def test_campaign_history_dir_is_one_per_campaign(tmp_path, monkeypatch):
+    (tmp_path / "a" / "demo").mkdir(parents=True)
+    (tmp_path / "a" / "mine").mkdir(parents=True)
+    (tmp_path / "link").symlink_to(tmp_path / "a" / "demo")
+    monkeypatch.chdir(tmp_path)
+    one = io.campaign_history_dir("results/history", "a/demo")
+    assert one == Path("results/history/demo")
+    assert one == io.campaign_history_dir("results/history", tmp_path / "a" / "demo")  # any spelling
+    assert one == io.campaign_history_dir("results/history", "link")
+    assert one == io.campaign_history_dir("results/history", "a/demo/")
+    assert one != io.campaign_history_dir("results/history", "a/mine")
+    assert io.campaign_history_dir("h", tmp_path / "my campaign!") == Path("h/my_campaign_")
+    assert io.campaign_history_dir("h", tmp_path / "..hidden") == Path("h/hidden")  # never a hidden folder

@@ -138,3 +138,21 @@ def test_thermal_shift_moves_every_gap_and_no_binding(table):
                                    rtol=1e-9, atol=1e-12)
     # emission follows the shifted optical gap: lambda = hc/E (CODATA via scipy.constants)
     np.testing.assert_allclose(hot.stack["emission_nm"], HC_EV_NM / hot.stack["optical_gap_ev"], rtol=1e-12)
+
+
+def test_radiative_rate_of_the_bright_exciton_in_the_2d_hydrogen_limit(table):
+    # r0 -> 0: the 1s envelope is 2D hydrogen, phi ~ exp(-r/a) with a = a0 kappa / (2 mu), so
+    # |phi(0)|^2 = 2 / (pi a^2) (Yang et al., Phys. Rev. A 43, 1186 (1991)). Kane energy E_P = E_g / (2 mu)
+    # (two-band k.p, Kane 1957); Gamma_0 = e^2 / (2 eps0 n c m_e) (E_P / E_X) |phi(0)|^2 with n = sqrt(kappa)
+    # (Andreani et al., Solid State Commun. 77, 641 (1991)). All constants from scipy.constants.
+    res = model.evaluate(_three_valley_inputs(1e-6), model.ModelSettings(), table)
+    kappa = np.array([2.0, 12.0])
+    mu, gap = 0.25, 2.0                     # the bright K-K pair (by hand)
+    ex = gap - 4 * RY_EV * mu / kappa**2
+    a_m = sc.value("Bohr radius") * kappa / (2 * mu)
+    origin = 2 / (np.pi * a_m**2)
+    gamma0 = sc.e**2 / (2 * sc.epsilon_0 * np.sqrt(kappa) * sc.c * sc.m_e) * (gap / (2 * mu) / ex) * origin
+    np.testing.assert_allclose(res.stack["radiative_rate_0_per_s"][0, 0], gamma0, rtol=2e-4)
+    # the bright exciton's translational mass: 0.5 + 0.5 m_e (by hand); also when a dark exciton lies lower
+    np.testing.assert_allclose(res.stack["bright_mass_me"][0, 0], [1.0, 1.0], rtol=1e-12)
+    assert np.isnan(res.bulk["radiative_rate_0_per_s"]).all()   # the 2D formula is not applied to bulk

@@ -280,3 +280,28 @@ def test_campaign_listing_lists_near_misses_and_ignores_foreign_files(tmp_path):
     rows = [r for r in rows if r[0] in ("a.json", "b.json")]
     listing = {"entries": rows}
     assert pipeline.listed_paths("camp", listing, "entries") == ["camp/entries/a.json", "camp/entries/b.json"]
+
+
+def test_validate_campaign_reports_the_screens_rejects_without_screening(tmp_path, record, table_path):
+    bad = dict(record, id="bad-mass")
+    bad["valleys"] = [dict(v) for v in record["valleys"]]
+    bad["valleys"][0] = dict(bad["valleys"][0], mass={"isotropic_me": -1.0})
+    entries = _campaign(tmp_path, record, [("bad-mass.json", json.dumps(bad)), ("broken.json", "{"),
+                                           ("no-cif.json", json.dumps(dict(record, id="no-cif",
+                                                                           structure_file="absent.cif")))])
+    paths = sorted(str(p) for p in entries.glob("*.json"))
+    rejects, listed = pipeline.validate_campaign(paths, str(entries.parent), SETTINGS)
+    assert listed == 6
+    assert sorted(rejects["source_file"].unique()) == ["bad-mass.json", "broken.json", "no-cif.json"]
+    # the same problems as the screen's rejects table
+    _, tables = _run(tmp_path, entries, table_path)
+    screened = tables["rejects"][["source_file", "field", "reason", "stage"]].sort_values(["source_file", "field"])
+    checked = rejects[["source_file", "field", "reason", "stage"]].sort_values(["source_file", "field"])
+    pd.testing.assert_frame_equal(checked.reset_index(drop=True), screened.reset_index(drop=True),
+                                  check_dtype=False)
+    report = pipeline.validation_report(rejects, listed, "my-campaign", "results/validation/rejects.csv")
+    assert report.splitlines()[0] == ("lamellume: checked 6 record files of my-campaign: 3 pass every check, "
+                                      "3 would be rejected (nothing was screened).")
+    assert "bad-mass.json: valleys[0].mass.isotropic_me:" in report
+    assert "[record breaks the input contract (schema or physical checks)]" in report
+    assert "contract]" not in report and "[read]" not in report  # stage names in plain words

@@ -29,7 +29,8 @@ def tables(rows):
         "bright_exciton_ev": sc.h * sc.c / sc.e / (r[4] * 1e-9),
         "dark_exciton_ev": sc.h * sc.c / sc.e / (r[4] * 1e-9) + r[3], "bright_weight": 2.0, "dark_weight": 2.0,
         "bright_pair": "K->K", "dark_pair": "K->Q", "binding_beyond_validity": False, "spin_given": False,
-        "optical_gap_compensated_ev": sc.h * sc.c / sc.e / (r[4] * 1e-9), "emission_compensated_nm": r[4]}
+        "optical_gap_compensated_ev": sc.h * sc.c / sc.e / (r[4] * 1e-9), "emission_compensated_nm": r[4],
+        "kappa": 4.5, "radiative_rate_0_per_s": 2.0e12, "bright_mass_me": 1.0, "mott_density_per_cm2": 1.4e13}
         for r in rows])
     wide = pd.DataFrame({"entry_id": [r[0] for r in rows], "formula": "F", "lattice_angstrom": 3.2,
                          "thinning_verdict": "v"})
@@ -62,11 +63,66 @@ def test_each_criterion(row, failing):
 def test_score_components_and_weights():
     long, wide = tables([("a", "direct", 0.2, 0.1, 750.0)])
     r = ranking.rank(long, wide, SETTINGS).iloc[0]
-    kt = sc.k * 300.0 / sc.e
-    assert r["score_binding"] == pytest.approx(min(0.2 / kt / 6.0, 1.0))
+    x = r["target_bound_fraction"]
+    # bound part: decades of the unbound share below what the criterion allows (0.5 by default here: off -> 1)
+    assert r["score_binding"] == pytest.approx(min(np.log10(1.0 / (1.0 - x)) / 2.0, 1.0))
     assert r["score_margin"] == pytest.approx(0.1 / ranking.MARGIN_FULL_EV)
-    assert r["score_window"] == pytest.approx(1.0)  # window centre
+    assert r["score_window"] == pytest.approx(1.0)  # inside the window, no Monte Carlo: pass/fail
+    b = np.log10(r["target_brightness_proxy_per_s"] / 1e8) / 2.0
+    assert r["score_brightness"] == pytest.approx(b)
     assert r["score"] == pytest.approx(0.4 * r["score_binding"] + 0.3 * r["score_margin"] + 0.3)
+    with_b = {**SETTINGS, "ranking": {**SETTINGS["ranking"],
+                                      "weights": {"binding": 0.3, "margin": 0.3, "window": 0.3, "brightness": 0.1}}}
+    r2 = ranking.rank(long, wide, with_b).iloc[0]
+    assert r2["score"] == pytest.approx(0.3 * r["score_binding"] + 0.3 * r["score_margin"] + 0.3 + 0.1 * b)
+
+
+def test_window_part_is_the_monte_carlo_probability_not_the_distance_from_the_centre():
+    # two compounds inside the window, one at its centre: with p_pass_window given the part is that probability
+    long, wide = tables([("a", "direct", 0.2, 0.1, 750.0), ("b", "direct", 0.2, 0.1, 610.0)])
+    probs = pd.DataFrame({"entry_id": ["a", "b"], "p_pass_window": [0.55, 0.97]})
+    r = ranking.rank(long, wide, SETTINGS, probs).set_index("entry_id")
+    assert r.loc["a", "score_window"] == pytest.approx(0.55)
+    assert r.loc["b", "score_window"] == pytest.approx(0.97)
+    assert r.index[0] == "b"
+
+
+def test_bound_criterion_is_the_saha_fraction_at_the_planned_density():
+    # E_b = 0.1 eV (3.9 kT at 300 K) passes a 3 kT floor, but at 1e10 cm^-2 (continuous-wave) fewer than
+    # half of the pairs are bound. Independent solve of the 2D Saha law n (1 - x)^2 = S x with numpy.roots,
+    # S = mu m_e kT / (2 pi hbar^2) exp(-E_b/kT) (Saha 1920; scipy.constants).
+    kt_j = sc.k * 300.0
+    saha = 0.25 * sc.m_e * kt_j / (2 * np.pi * sc.hbar**2) * np.exp(-0.1 * sc.e / kt_j) * 1e-4  # cm^-2
+    x_of = {}
+    for n in (1e12, 1e10):
+        roots = np.roots([n, -(2 * n + saha), n]).real
+        x_of[n] = roots[(roots >= 0) & (roots <= 1)][0]
+    assert x_of[1e12] > 0.5 > x_of[1e10]
+    for n, passes in ((1e12, True), (1e10, False)):
+        settings = {**SETTINGS, "survival": {**SETTINGS["survival"], "pair_density_per_cm2": n},
+                    "ranking": {**SETTINGS["ranking"], "min_bound_fraction": 0.5}}
+        long, wide = tables([("a", "direct", 0.1, 0.1, 750.0)])
+        long = ranking.add_survival(long, wide, settings)
+        r = ranking.rank(long, wide, settings).iloc[0]
+        assert r["target_bound_fraction"] == pytest.approx(x_of[n], rel=1e-6)
+        assert bool(r["pass_binding"]) is passes
+        want = np.clip(np.log10(0.5 / (1 - x_of[n])) / 2.0, 0, 1)
+        assert r["score_binding"] == pytest.approx(want, rel=1e-6, abs=1e-12)
+
+
+def test_thermal_brightness_columns_follow_the_temperature():
+    # <Gamma> = (4/3) Gamma_0 E_c / kT, E_c = (n E_X)^2 / (2 M c^2) (Andreani et al. 1991), n = sqrt(kappa);
+    # times the bright fraction. Independent: scipy.constants.
+    long, _ = tables([("a", "direct", 0.2, 0.1, 750.0)])
+    ex = sc.h * sc.c / sc.e / 750e-9
+    ec_j = (np.sqrt(4.5) * ex * sc.e) ** 2 / (2 * 1.0 * sc.m_e * sc.c**2)
+    thermal = 4.0 / 3.0 * 2.0e12 * ec_j / (sc.k * 300.0)
+    assert long["radiative_rate_thermal_per_s"].iloc[0] == pytest.approx(thermal, rel=1e-9)
+    assert long["brightness_proxy_per_s"].iloc[0] == pytest.approx(thermal * long["bright_fraction"].iloc[0],
+                                                                   rel=1e-9)
+    cold = {**SETTINGS, "survival": {**SETTINGS["survival"], "temperature_k": 77.0}}
+    again = ranking.add_survival(long, tables([("a", "direct", 0.2, 0.1, 750.0)])[1], cold)
+    assert again["radiative_rate_thermal_per_s"].iloc[0] == pytest.approx(thermal * 300.0 / 77.0, rel=1e-9)
 
 
 def test_candidates_first_and_ties_by_identifier():
@@ -87,16 +143,6 @@ def test_order_by_probability():
     settings = {**SETTINGS, "ranking": {**SETTINGS["ranking"], "order_by": "probability"}}
     assert list(ranking.rank(long, wide, settings, probs)["entry_id"]) == ["b", "a"]
     assert list(ranking.rank(long, wide, SETTINGS, probs)["entry_id"]) == ["a", "b"]
-
-
-def test_shortlist_has_plain_headers_with_units():
-    rows = [("a", "direct", 0.3, 0.3, 750.0), ("b", "direct", 0.3, 0.1, 750.0), ("c", "direct", 0.3, 0.2, 700.0)]
-    long, wide = tables(rows)
-    short = ranking.shortlist(ranking.rank(long, wide, SETTINGS), SETTINGS)
-    assert len(short) == 2
-    assert "Emission wavelength (nm)" in short.columns and "Binding energy (meV)" in short.columns
-    assert (short["Status"] == "model estimate, not a measurement").all()
-    np.testing.assert_allclose(short["Binding energy (meV)"], [300.0, 300.0])
 
 
 def test_unknown_brightness_never_passes_and_scores_no_margin():

@@ -362,6 +362,12 @@ INTENDED_CHANGES = (
     # bulk rows use a volume pair density (issue 17, 3D Saha bound fraction)
     ("1e+12 cm\u207b\u00b2 Surroundings", "1e+12 cm\u207b\u00b2 (layers), 1e+17 cm\u207b\u00b3 (bulk) Surroundings"),
     (" Overview All compounds", " Overview Recompute next All compounds"),  # link to the added section
+    # issue 18: the bound criterion is the Saha fraction at the planned density; the kT line is an optional floor
+    ("the dashed line is the binding needed to survive the operating temperature.",
+     "a dashed line, when drawn, is the configured binding floor (ranking.min_binding_over_kt). The bound "
+     "criterion itself is the Saha bound fraction at the planned pair density, which depends on the reduced "
+     "mass too, so it is no single line here."),
+    ("needed: 4 kT = 103 meV at 300 K", "floor: 4 kT = 103 meV at 300 K"),
 )
 #: Rewritten on purpose for the exciton-level verdict, the emission bracket and the model error
 #: (issue 17); their new wording is checked by test_brightness_words_* and test_methods_*.

@@ -223,6 +223,12 @@ def test_zero_uncertainty_reproduces_screen(demo, settings, table, environment, 
             np.testing.assert_array_equal(out[f"{q}_{p}"].to_numpy(), at[ref].to_numpy(dtype=float))
     bulk = wide.set_index("entry_id").reindex(out["entry_id"])["bulk_binding_ev"].to_numpy(dtype=float)
     np.testing.assert_array_equal(out["bulk_binding_ev_p50"].to_numpy(), bulk)
+    # every surroundings' emission percentiles: the screen's emission there (one model, every kappa at once)
+    for env in s["environments"]:
+        there = long[(long["layers"] == target) & (long["environment"] == env)].set_index("entry_id")
+        want = there.reindex(out["entry_id"])["emission_nm"].to_numpy(dtype=float)
+        for p in ("p16", "p84"):
+            np.testing.assert_array_equal(out[f"emission_nm_{p}__{env}"].to_numpy(), want, err_msg=env)
     # p_direct is 0 or 1 and equals the screen's gap character
     p_direct = out["p_direct_target"].to_numpy()
     assert set(np.unique(p_direct)) <= {0.0, 1.0}
@@ -239,6 +245,7 @@ def test_zero_uncertainty_reproduces_screen(demo, settings, table, environment, 
     {"require_direct": False},
     {"target_layers": 2, "environment": "suspended"},
     {"min_direct_margin_ev": 0.0, "min_binding_over_kt": 8.0, "window_nm": [1000, 600]},
+    {"min_bound_fraction": 0.98},
 ])
 def test_criteria_agree_with_ranking(demo, settings, table, overrides):
     # Reference: the pass_* columns of lamellume.ranking.rank on the demo data.
@@ -260,7 +267,8 @@ def test_criteria_agree_with_ranking(demo, settings, table, overrides):
     with np.errstate(invalid="ignore"):
         got = {"pass_direct": (verdict == "bright") if r["require_direct"] else np.isin(verdict, ["bright", "dark"]),
                "pass_margin": np.nan_to_num(margin, nan=-np.inf) >= r["min_direct_margin_ev"],
-               "pass_binding": np.nan_to_num(e_kt, nan=-np.inf) >= r["min_binding_over_kt"],
+               "pass_binding": (np.nan_to_num(e_kt, nan=-np.inf) >= r["min_binding_over_kt"])
+               & (np.nan_to_num(at["bound_fraction"].to_numpy(dtype=float), nan=-np.inf) >= r["min_bound_fraction"]),
                "pass_window": (lam >= lo) & (lam <= hi) & (lam_full >= lo) & (lam_full <= hi)}
     got["meets_all"] = got["pass_direct"] & got["pass_margin"] & got["pass_binding"] & got["pass_window"]
     for key in ("pass_direct", "pass_margin", "pass_binding", "pass_window"):
@@ -322,7 +330,7 @@ def test_estimate_converges_as_one_over_sqrt_n(settings, table):
 # --------------------------------------------------------------------------- #
 def test_zero_samples_gives_a_typed_table(demo, settings, table):
     out = U.propagate_uncertainty(demo["entries"], demo["valleys"], settings, table, samples=0)
-    assert list(out.columns) == U.OUTPUT_COLUMNS
+    assert list(out.columns) == U.output_columns(settings)
     assert len(out) == len(demo["entries"])
     assert (out["n_samples"] == 0).all() and out["n_samples"].dtype == np.int32
     assert out.filter(like="_p").isna().all().all() and out["p_meets_all"].isna().all()
@@ -332,7 +340,7 @@ def test_zero_samples_gives_a_typed_table(demo, settings, table):
 def test_empty_shard(settings, table):
     e, v = _synthetic([])
     out = U.propagate_uncertainty(e, v, settings, table)
-    assert list(out.columns) == U.OUTPUT_COLUMNS and len(out) == 0
+    assert list(out.columns) == U.output_columns(settings) and len(out) == 0
 
 
 def test_probabilities_and_intervals_are_ordered(demo, settings, table):

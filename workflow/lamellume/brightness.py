@@ -69,6 +69,21 @@ def origin_density_2d_per_angstrom2(radius_angstrom):
     return 2.0 / (np.pi * a**2)
 
 
+def decay_length_from_rms_angstrom(rms_radius_angstrom):
+    """1s decay length a of phi ~ exp(-r/a) with the given rms radius, Angstrom.
+
+    For the strict-2D 1s envelope <r^2> = 3 a^2 / 2, so a = r_rms sqrt(2/3).
+    Used to turn the Rytova-Keldysh rms radius (:func:`lamellume.keldysh.keldysh_radius_angstrom`)
+    into the decay length of :func:`origin_density_2d_per_angstrom2`; the screened
+    wavefunction is not exactly hydrogenic, so |phi(0)|^2 is then an estimate.
+
+    References
+    ----------
+    Yang et al., Phys. Rev. A 43, 1186 (1991) (2D hydrogen ground state).
+    """
+    return np.asarray(rms_radius_angstrom, dtype=float) * np.sqrt(2.0 / 3.0)
+
+
 def intrinsic_rate_per_s(kane_ev, exciton_ev, origin_density_per_angstrom2, refractive_index=1.0):
     """Radiative rate Gamma_0 (population, 1/s) of a 2D exciton at zero in-plane momentum.
 
@@ -127,6 +142,25 @@ def thermal_rate_per_s(intrinsic_per_s, exciton_ev, exciton_mass_me, temperature
     e_c = light_cone_energy_ev(exciton_ev, exciton_mass_me, refractive_index)
     kt = BOLTZMANN_EV_PER_K * np.asarray(temperature_k, dtype=float)
     return (4.0 / 3.0) * np.asarray(intrinsic_per_s, dtype=float) * e_c / kt
+
+
+def emitted_rate_per_s(intrinsic_per_s, exciton_ev, exciton_mass_me, temperature_k, bright_fraction,
+                       refractive_index=1.0):
+    """Thermal radiative rate and brightness proxy at the operating temperature, 1/s.
+
+    The temperature stage of the proxy, used alike by the nominal screen
+    (:func:`lamellume.ranking.add_survival`) and the Monte Carlo: the
+    thermally averaged rate :func:`thermal_rate_per_s` of the lowest bright
+    exciton, and that rate times the thermal bright fraction (the share of
+    excitons in the bright state).
+
+    Returns
+    -------
+    tuple of numpy.ndarray
+        (<Gamma> in 1/s, <Gamma> x bright fraction in 1/s).
+    """
+    thermal = thermal_rate_per_s(intrinsic_per_s, exciton_ev, exciton_mass_me, temperature_k, refractive_index)
+    return thermal, thermal * np.asarray(bright_fraction, dtype=float)
 
 
 def brightness_proxy_per_s(gap_ev, exciton_ev, reduced_mass_me, exciton_mass_me,

@@ -11,6 +11,54 @@ from __future__ import annotations
 
 from typing import Any, Mapping
 
+#: The one place that tells people how to change a nested setting for one run.
+OVERRIDE_HINT = ("change nested settings for one run with an overlay file holding only those keys, "
+                 "e.g. --configfile config/config.yaml my-overlay.yaml (config/README.md, "
+                 "'Changing settings for one run')")
+
+_KINDS = {"number": "a number", "integer": "a whole number", "boolean": "true or false"}
+
+
+def _looks_like(kind: str, text: str) -> bool:
+    if kind == "boolean":
+        return text.strip().lower() in ("true", "false", "yes", "no")
+    try:
+        value = float(text)
+    except ValueError:
+        return False
+    return kind == "number" or value == int(value)
+
+
+def text_given_for_numbers(config: Any, schema: Mapping, path: str = "") -> list[str]:
+    """Settings given as text where the schema wants a number, whole number or flag.
+
+    The usual cause: a nested section on Snakemake's command line,
+    ``--config 'survival={"temperature_k": 10}'``, whose inner values reach the
+    workflow as text ('10'). One message per setting, naming its key path and
+    how to give it instead (:data:`OVERRIDE_HINT`); checked before the schema,
+    whose own message ("'10' is not of type 'number'") names no remedy.
+    """
+    out: list[str] = []
+    kinds = schema.get("type")
+    kinds = [kinds] if isinstance(kinds, str) else list(kinds or [])
+    if isinstance(config, str):
+        wanted = [k for k in kinds if k in _KINDS]
+        if wanted and "string" not in kinds and _looks_like(wanted[0], config):
+            out.append(f"{path or '(config)'}: the text {config!r} where {_KINDS[wanted[0]]} is expected. "
+                       f"A nested setting given as --config '{path.split('.')[0].split('[')[0]}={{...}}' "
+                       f"reaches the workflow as text; {OVERRIDE_HINT}")
+    elif isinstance(config, Mapping):
+        props = schema.get("properties", {})
+        extra = schema.get("additionalProperties")
+        for key, value in config.items():
+            sub = props.get(key, extra if isinstance(extra, Mapping) else None)
+            if sub is not None:
+                out += text_given_for_numbers(value, sub, f"{path}.{key}" if path else str(key))
+    elif isinstance(config, list) and isinstance(schema.get("items"), Mapping):
+        for i, value in enumerate(config):
+            out += text_given_for_numbers(value, schema["items"], f"{path}[{i}]")
+    return out
+
 
 def cross_problems(config: Mapping[str, Any]) -> list[str]:
     """Problems of a schema-valid config, one message per problem, each starting with its key path."""

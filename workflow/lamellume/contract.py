@@ -273,7 +273,8 @@ def physical_problems(record: dict, *, stem: str,
     """Physical and cross-field checks of a schema-valid record."""
     out: list[Problem] = []
     if record["id"] != stem:
-        out.append(Problem("id", f"identifier {record['id']!r} differs from the file name {stem!r}.json"))
+        out.append(Problem("id", f"identifier {record['id']!r} differs from the file name '{stem}.json' (the id must equal the "
+                           f"file name without .json)"))
 
     diel = record["dielectric"]
     for key, max_eps in (("electronic", MAX_ELECTRONIC_EPS), ("static", MAX_STATIC_EPS)):

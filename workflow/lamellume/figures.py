@@ -251,7 +251,7 @@ def figure_binding_vs_gap(ranked: pd.DataFrame, settings: Mapping) -> dict:
         ys += [v * MEV_PER_EV for v in ranked["target_binding_ev_p16"].to_numpy(dtype=float) if np.isfinite(v)]
         ys += [v * MEV_PER_EV for v in ranked["target_binding_ev_p84"].to_numpy(dtype=float) if np.isfinite(v)]
     t_k = float(settings["survival"]["temperature_k"])
-    need_mev = float(r["min_binding_over_kt"]) * units.thermal_energy_ev(t_k) * MEV_PER_EV
+    need_mev = float(r.get("min_binding_over_kt", 0.0)) * units.thermal_energy_ev(t_k) * MEV_PER_EV
     lo_nm, hi_nm = sorted(float(v) for v in r["window_nm"])
     win_ev = (units.wavelength_nm_from_energy_ev(hi_nm), units.wavelength_nm_from_energy_ev(lo_nm))
     x_lo, x_hi, xticks = linear_ticks(min(xs), max(xs))
@@ -259,12 +259,12 @@ def figure_binding_vs_gap(ranked: pd.DataFrame, settings: Mapping) -> dict:
     ax.xlim, ax.ylim = (x_lo, x_hi), (y_lo, y_hi)
     marks = [ax.band(*win_ev, "window", f"target emission window {lo_nm:g}\u2013{hi_nm:g} nm")]
     marks += ax.frame(xticks, yticks, f"optical gap at {n_target} layer(s), {env} (eV)", "binding energy (meV)")
-    if need_mev <= y_hi:
+    if 0 < need_mev <= y_hi:
         yy = _c1(ax.y(need_mev))
         marks.append(el("line", {"class": "threshold", "x1": _c1(ax.x0), "x2": _c1(ax.x1), "y1": yy, "y2": yy}))
         marks.append(el("text", {"class": "note", "x": _c1(ax.x1 - 4), "y": _c1(ax.y(need_mev) - 5),
                                  "text-anchor": "end"},
-                        text=f"needed: {float(r['min_binding_over_kt']):g} kT = {need_mev:.0f} meV at {t_k:g} K"))
+                        text=f"floor: {float(r['min_binding_over_kt']):g} kT = {need_mev:.0f} meV at {t_k:g} K"))
     character = ranked["target_gap_character"].astype(str).to_numpy()
     cand = ranked["meets_all_criteria"].to_numpy(dtype=bool)
     ids = ranked["entry_id"].astype(str).to_numpy()

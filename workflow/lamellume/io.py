@@ -62,6 +62,21 @@ def sha256_bytes(data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
 
 
+def campaign_history_dir(root: str | os.PathLike, campaign: str | os.PathLike) -> Path:
+    """Folder of one campaign's run history under ``root`` (``results/history``).
+
+    Named after the campaign folder (its resolved path's last part; letters, digits,
+    ``.``, ``-``, ``_`` kept, anything else ``_``): the same campaign reached by any
+    spelling of its path (relative, absolute, through a link) keeps one history, and
+    the change report compares a campaign only with its own previous run. The name
+    alone decides, so a campaign copied or moved to another place keeps its history;
+    two campaigns need folders of different names.
+    """
+    folder = Path(campaign).resolve()
+    name = "".join(c if c.isascii() and (c.isalnum() or c in "._-") else "_" for c in folder.name)
+    return Path(root) / (name.lstrip(".") or "campaign")
+
+
 def canonical_json_hash(obj: Any) -> str:
     """Hex SHA-256 of a JSON-serialisable object with sorted keys (for config hashes)."""
     text = json.dumps(obj, sort_keys=True, separators=(",", ":"), default=str)

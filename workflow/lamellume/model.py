@@ -49,14 +49,15 @@ from typing import NamedTuple
 
 import numpy as np
 
-from lamellume import excitons, gapshift, hydrogenic, keldysh, layers as layer_model, masses
+from lamellume import brightness, excitons, gapshift, hydrogenic, keldysh, layers as layer_model, masses
 
 BULK = layer_model.BULK
 
 #: Exciton-level quantities (:func:`_exciton_level`), in ``stack`` and ``bulk`` alike.
 EXCITON_QUANTITIES = ("bright_exciton_ev", "dark_exciton_ev", "exciton_margin_ev", "brightness",
                       "bright_pair_index", "dark_pair_index", "bright_weight", "dark_weight",
-                      "optical_gap_compensated_ev", "emission_compensated_nm")
+                      "optical_gap_compensated_ev", "emission_compensated_nm", "radiative_rate_0_per_s",
+                      "bright_mass_me")
 #: Requests that need the exciton level (the optical gap is the lowest bright exciton).
 _EXCITON_TRIGGERS = frozenset(EXCITON_QUANTITIES) | {"optical_gap_ev", "emission_nm"}
 
@@ -372,8 +373,17 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     f_lay = np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (n,))
     f_bulk = np.broadcast_to(np.asarray(inputs.binding_factor_bulk, dtype=float), (n,))
 
-    def fill(out: dict, energy, dimension, compensated=None):
+    def fill(out: dict, energy, dimension, compensated=None, rate=None):
         lev = excitons.lowest_excitons(c, energy, pr.bright, n)
+        pick = np.maximum(lev.bright_pair, 0)
+        found = lev.bright_pair >= 0
+        out["bright_mass_me"] = np.where(found, total[pick] if len(total) else np.nan, np.nan)
+        if rate is None:
+            out["radiative_rate_0_per_s"] = np.full(lev.bright_ev.shape, np.nan)
+        else:   # (P, F, E) per pair -> the lowest bright pair's
+            sel = rate[pick, np.arange(pick.shape[1])[None, :, None], np.arange(pick.shape[2])[None, None, :]] \
+                if len(rate) else np.full(pick.shape, np.nan)
+            out["radiative_rate_0_per_s"] = np.where(found, sel, np.nan)
         if compensated is None:
             out["optical_gap_compensated_ev"] = lev.bright_ev
         else:
@@ -408,8 +418,19 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     eb_ref = keldysh.keldysh_binding_ev(np.broadcast_to(mu[:, None], shape[:2]), r0[:, :, 0],
                                         np.broadcast_to(kap_ref[:, None], shape[:2]), table, state="1s") \
         * f_lay[c][:, None]
+    rate = None
+    if settings.stack & {"radiative_rate_0_per_s"}:
+        # Radiative-rate proxy of every pair's exciton (lamellume.brightness): Kane energy of the
+        # pair's gap and reduced mass, |phi(0)|^2 from the Rytova-Keldysh rms radius, index sqrt(kappa).
+        radius = keldysh.keldysh_radius_angstrom(np.broadcast_to(mu[:, None, None], shape), r0,
+                                                 np.broadcast_to(kappa[None, None, :], shape), table, state="1s")
+        with np.errstate(invalid="ignore", divide="ignore"):
+            rate = brightness.intrinsic_rate_per_s(
+                brightness.kane_energy_ev(gaps[:, :-1, None], mu[:, None, None]), gaps[:, :-1, None] - eb,
+                brightness.origin_density_2d_per_angstrom2(brightness.decay_length_from_rms_angstrom(radius)),
+                np.sqrt(kappa)[None, None, :])
     if settings.stack & _EXCITON_TRIGGERS:
-        fill(result.stack, gaps[:, :-1, None] - eb, 2, gaps[:, :-1] - eb_ref)
+        fill(result.stack, gaps[:, :-1, None] - eb, 2, gaps[:, :-1] - eb_ref, rate)
     if settings.bulk & _EXCITON_TRIGGERS:
         eps_bulk = np.asarray(inputs.eps_bulk, dtype=float)[c]
         eb_b = hydrogenic.binding_3d_ev(mu, eps_bulk)

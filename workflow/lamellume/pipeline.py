@@ -99,6 +99,109 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
     return screen_shard(entry_paths, campaign, settings, table, cache_dir, outputs)[0]
 
 
+def check_records(entry_paths: Sequence[str], structures_dir: Path, settings: Mapping, stamps: Mapping[str, str],
+                  checker: contract.RecordChecker, geometry_of, reuse=lambda stem, input_hash: False,
+                  ) -> tuple[list[dict], list[dict], list[dict]]:
+    """Read and check every record (and its CIF) as the screen does: the reject stages in order.
+
+    The one implementation of the checks, used by the shard job (:func:`screen_shard`)
+    and by the validate-only target (:func:`validate_campaign`). ``reuse(stem,
+    input_hash)`` tells records whose rows come from a cache (not checked again);
+    ``geometry_of`` analyses a CIF (see :func:`lamellume.intake.check_and_normalise`).
+
+    Returns
+    -------
+    entry rows, valley rows and reject rows of the checked records (gapless ones rejected).
+    """
+    max_layers = settings["layers"]["max_layers"]
+    new_entries, new_valleys, reject_rows = [], [], []
+    readable = [p for p in entry_paths if io.skip_reason(os.path.basename(p), "entries") is None]
+    siblings = case_variants([Path(p).stem for p in readable])
+    for path in sorted(entry_paths):
+        stem = Path(path).stem
+        source = os.path.basename(path)
+        skipped = io.skip_reason(source, "entries")
+        if skipped:  # listed so the user sees it, never opened
+            reject_rows += _reject_rows(stem, source, [contract.Problem("(file name)", skipped)], "skipped",
+                                        "", stamps)
+            continue
+        raw = io.read_record(path)
+        cif_bytes, cif_hash, cif_problem = None, "", "file not found"
+        if raw.error is None and isinstance(raw.data, dict) and isinstance(raw.data.get("structure_file"), str):
+            name = raw.data["structure_file"]
+            if "/" not in name and "\\" not in name and not name.startswith("."):
+                cif_bytes, cif_problem = io.read_text_limited(structures_dir / name)
+                if cif_bytes is not None:
+                    cif_hash = io.sha256_bytes(cif_bytes)
+            elif name.startswith("."):
+                cif_problem = io.skip_reason(name, "structures")
+        input_hash = io.sha256_bytes((raw.sha256 + cif_hash).encode())[:32]
+
+        if stem in siblings:
+            others = ", ".join(f"{s}.json" for s in siblings[stem])
+            reject_rows += _reject_rows(stem, source, [contract.Problem(
+                "id", f"duplicate identifier: {source} and {others} differ only in letter case; all of them "
+                      "are rejected until one is renamed or removed")], "duplicate", input_hash, stamps)
+            continue
+        if reuse(stem, input_hash):
+            continue
+        outcome = intake.check_and_normalise(
+            raw, stem=stem, source=source, input_hash=input_hash, cif_bytes=cif_bytes, cif_hash=cif_hash,
+            cif_problem=cif_problem, checker=checker, settings=settings, geometry_of=geometry_of)
+        if outcome.stage:
+            reject_rows += _reject_rows(stem, source, outcome.problems, outcome.stage, input_hash, stamps)
+            continue
+        new_entries.append({**outcome.entry, **stamps})
+        new_valleys.extend({**v, **stamps} for v in outcome.valleys)
+
+    new_entries, new_valleys, gapless = ingest.without_gapless(
+        new_entries, new_valleys, max_layers=max_layers, fit_exponent=bool(settings["layers"]["fit_exponent"]))
+    for entry, problems in gapless:
+        reject_rows += _reject_rows(entry["entry_id"], entry["source_file"], problems, "normalise",
+                                    entry["input_hash"], stamps)
+    return new_entries, new_valleys, reject_rows
+
+
+def _analyse_structure(cif_bytes: bytes, cif_hash: str) -> tuple[object, str | None]:
+    """Layer geometry of a CIF or the analysis error (no cache: the validate-only target)."""
+    from lamellume import structure  # pymatgen: imported only when a CIF is analysed
+
+    try:
+        return structure.analyse_cif_text(cif_bytes), None
+    except structure.StructureError as exc:
+        return None, str(exc)
+
+
+def validate_campaign(entry_paths: Sequence[str], campaign: str, settings: Mapping) -> tuple[pd.DataFrame, int]:
+    """Check a campaign's records without screening: (reject rows, number of record files listed).
+
+    The checks of the screen (:func:`check_records`: file reading, duplicate
+    identifiers, schema and physical checks, CIF analysis, normalisation, a gap at
+    every layer count), nothing else: no exciton model, no cache.
+    """
+    checker = contract.RecordChecker(io.load_schema("entry.schema.json"))
+    _, _, rows = check_records(entry_paths, Path(campaign) / "structures", settings, {}, checker,
+                               _analyse_structure)
+    rejects = pd.DataFrame(rows) if rows else _empty_rejects()
+    rejects = rejects[[c for c in ("entry_id", "source_file", "stage", "field", "reason") if c in rejects.columns]]
+    return rejects.sort_values(["entry_id", "field"], kind="stable").reset_index(drop=True), len(entry_paths)
+
+
+def validation_report(rejects: pd.DataFrame, listed: int, campaign: str, csv_path: str, shown: int = 40) -> str:
+    """The validate-only target's console report: counts, then one line per problem (the first ``shown``)."""
+    bad = int(rejects["entry_id"].nunique()) if len(rejects) else 0
+    lines = [f"lamellume: checked {listed} record files of {campaign}: {listed - bad} pass every check, "
+             f"{bad} would be rejected (nothing was screened)."]
+    for row in rejects.head(shown).to_dict("records"):
+        lines.append(f"  {row['source_file']}: {row['field']}: {row['reason']} "
+                     f"[{intake.stage_words(row['stage'])}]")
+    if len(rejects) > shown:
+        lines.append(f"  ... and {len(rejects) - shown} more problems")
+    if len(rejects):
+        lines.append(f"  every problem: {csv_path}")
+    return "\n".join(lines) + "\n"
+
+
 def screen_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, table: str | KeldyshTable,
                  cache_dir: str, outputs: Mapping[str, str], survival: Mapping | None = None,
                  ) -> tuple[dict[str, int], dict[str, pd.DataFrame]]:
@@ -132,51 +235,8 @@ def screen_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, t
     temperature_k = float(source["survival"]["temperature_k"]) if "survival" in source else None
     cache = ShardCache(cache_dir, stamps, temperature_k=temperature_k)
 
-    new_entries, new_valleys, reject_rows = [], [], []
-    readable = [p for p in entry_paths if io.skip_reason(os.path.basename(p), "entries") is None]
-    siblings = case_variants([Path(p).stem for p in readable])
-    for path in sorted(entry_paths):
-        stem = Path(path).stem
-        source = os.path.basename(path)
-        skipped = io.skip_reason(source, "entries")
-        if skipped:  # listed so the user sees it, never opened
-            reject_rows += _reject_rows(stem, source, [contract.Problem("(file name)", skipped)], "skipped",
-                                        "", stamps)
-            continue
-        raw = io.read_record(path)
-        cif_bytes, cif_hash, cif_problem = None, "", "file not found"
-        if raw.error is None and isinstance(raw.data, dict) and isinstance(raw.data.get("structure_file"), str):
-            name = raw.data["structure_file"]
-            if "/" not in name and "\\" not in name and not name.startswith("."):
-                cif_bytes, cif_problem = io.read_text_limited(structures_dir / name)
-                if cif_bytes is not None:
-                    cif_hash = io.sha256_bytes(cif_bytes)
-            elif name.startswith("."):
-                cif_problem = io.skip_reason(name, "structures")
-        input_hash = io.sha256_bytes((raw.sha256 + cif_hash).encode())[:32]
-
-        if stem in siblings:
-            others = ", ".join(f"{s}.json" for s in siblings[stem])
-            reject_rows += _reject_rows(stem, source, [contract.Problem(
-                "id", f"duplicate identifier: {source} and {others} differ only in letter case; all of them "
-                      "are rejected until one is renamed or removed")], "duplicate", input_hash, stamps)
-            continue
-        if cache.reuse(stem, input_hash):
-            continue
-        outcome = intake.check_and_normalise(
-            raw, stem=stem, source=source, input_hash=input_hash, cif_bytes=cif_bytes, cif_hash=cif_hash,
-            cif_problem=cif_problem, checker=checker, settings=settings, geometry_of=cache.structure_geometry)
-        if outcome.stage:
-            reject_rows += _reject_rows(stem, source, outcome.problems, outcome.stage, input_hash, stamps)
-            continue
-        new_entries.append({**outcome.entry, **stamps})
-        new_valleys.extend({**v, **stamps} for v in outcome.valleys)
-
-    new_entries, new_valleys, gapless = ingest.without_gapless(
-        new_entries, new_valleys, max_layers=max_layers, fit_exponent=bool(settings["layers"]["fit_exponent"]))
-    for entry, problems in gapless:
-        reject_rows += _reject_rows(entry["entry_id"], entry["source_file"], problems, "normalise",
-                                    entry["input_hash"], stamps)
+    new_entries, new_valleys, reject_rows = check_records(
+        entry_paths, structures_dir, settings, stamps, checker, cache.structure_geometry, reuse=cache.reuse)
     entries_new = ingest.typed_frame(new_entries, ingest.ENTRY_COLUMNS + list(stamps))
     valleys_new = ingest.typed_frame(new_valleys, ingest.valley_columns(max_layers) + list(stamps))
     long_new, wide_new = screen.screen_entries(entries_new, valleys_new, settings, _keldysh_table(table),
@@ -250,7 +310,7 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     :func:`lamellume.assemble.run_join` (rule ``join_tables``); ``inputs["long"]``
     is read here only for the rows at the target layer count and environment.
     """
-    from lamellume import ranking
+    from lamellume import ranking, shortlist
 
     rejects = _concat(inputs["rejects"])
     wide = _concat(inputs["wide"]).sort_values("entry_id", kind="stable").reset_index(drop=True)
@@ -276,7 +336,7 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     io.write_parquet(rejects, outputs["rejects"], table_metadata=meta)
     io.write_csv(rejects, outputs["rejects_csv"])
     io.write_parquet(ranked, outputs["wide"], table_metadata=meta)
-    io.write_csv(ranking.shortlist(ranked, settings), outputs["shortlist"])
+    io.write_csv(shortlist.shortlist_table(ranked, settings), outputs["shortlist"])
     counts = {"screened": len(wide), "rejected": int(rejects["entry_id"].nunique()) if len(rejects) else 0,
               "candidates": int(ranked["meets_all_criteria"].sum()) if len(ranked) else 0}
     log.info("ranked: %s", counts)
@@ -312,9 +372,16 @@ def git_version(workdir: str) -> str:
 
 
 def write_manifest(entry_paths: Sequence[str], structure_paths: Sequence[str], wide_path: str,
-                   config: Mapping, config_hash: str, workdir: str, output: str) -> None:
-    """Run manifest: input hashes, config and its hash, code version, package versions, counts."""
+                   config: Mapping, config_hash: str, workdir: str, output: str,
+                   settings_output: str | None = None, campaign: str = "") -> None:
+    """Run manifest: input hashes, config and its hash, code version, package versions, counts.
+
+    With ``settings_output``, also the shortlist's settings sheet
+    (:func:`lamellume.shortlist.settings_table`), stamped like the manifest.
+    """
     import datetime
+
+    from lamellume import shortlist
 
     wide = io.read_parquet(wide_path)
     hashes: dict[str, dict[str, str]] = {"entries": {}, "structures": {}}
@@ -345,6 +412,10 @@ def write_manifest(entry_paths: Sequence[str], structure_paths: Sequence[str], w
         "cautions": CAUTIONS,
     }
     io.write_json(manifest, output)
+    if settings_output:
+        stamps = {"campaign": campaign, "written_utc": manifest["written_utc"], "config_hash": config_hash,
+                  "code_version": manifest["code_version"], "git": manifest["git"], **manifest["counts"]}
+        io.write_csv(shortlist.settings_table(config, stamps), settings_output)
 
 
 #: Cautions shown with every output handed to experimental teams.

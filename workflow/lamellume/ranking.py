@@ -5,17 +5,28 @@ ranking criteria only, so changing them never re-runs the exciton solves.
 
 Score
 -----
-The score of a compound is a weighted mean of three components in [0, 1],
-evaluated at the target layer count in the ranking environment:
+The score of a compound is a weighted mean of four parts in [0, 1], evaluated
+at the target layer count in the ranking surroundings. Each part orders
+candidates by something a lab cares about; none is full for nearly every
+candidate (measured on the demo, README "Ranking"):
 
-* binding: ``clip((E_b/kT) / (2 x min_binding_over_kt), 0, 1)`` -- full marks
-  at twice the required binding;
+* bound (weight ``binding``): how far the 2D Saha bound fraction x at the
+  planned pair density (``survival.pair_density_per_cm2``) clears the
+  criterion ``min_bound_fraction``, in decades of the unbound share:
+  ``clip(log10((1 - x_min) / (1 - x)) / BOUND_DECADES, 0, 1)``; full marks when
+  the unbound share is 1/100 of what the criterion allows;
 * margin: ``clip(margin / MARGIN_FULL_EV, 0, 1)`` with the exciton-level
   margin (lowest dark minus lowest bright exciton energy) in eV (full marks at
-  0.2 eV; a compound without a dark competitor scores 0: missing data never
-  count as brightness);
-* window: inside the target window ``1 - |lambda - centre| / width`` (1 at the
-  centre, 0.5 at the edges), 0 outside.
+  0.2 eV, about 8 kT at 300 K; a compound without a dark competitor scores 0:
+  missing data never count as brightness);
+* window: the Monte Carlo probability that the emission bracket lies inside
+  the target window given the input uncertainties (``p_pass_window``); without
+  the Monte Carlo (``uncertainty.samples = 0``) 1 inside, 0 outside;
+* brightness (a tie-breaker, small default weight): the radiative-rate proxy
+  at the operating temperature (:mod:`lamellume.brightness`, thermal rate x
+  bright fraction) on a log scale, ``clip(log10(rate / BRIGHTNESS_FLOOR_PER_S)
+  / BRIGHTNESS_DECADES, 0, 1)``; a decade of radiative rate is a decade of
+  quantum yield when non-radiative decay dominates.
 
 Candidates (all criteria met) rank first by score, then everything else by
 score; ties are broken by identifier, so the order is fully reproducible.
@@ -28,14 +39,37 @@ from typing import Mapping
 import numpy as np
 import pandas as pd
 
-from lamellume import excitons, survival
+from lamellume import brightness, excitons, survival, units
 
-#: Direct-indirect margin (eV) that earns the full margin component.
+#: Exciton-level margin (eV) that earns the full margin part (about 8 kT at 300 K).
 MARGIN_FULL_EV = 0.2
+#: Decades of the unbound share below the criterion's that earn the full bound part.
+BOUND_DECADES = 2.0
+#: Brightness proxy (1/s) that earns 0 of the brightness part (10 ns radiative lifetime).
+BRIGHTNESS_FLOOR_PER_S = 1.0e8
+#: Decades above the floor that earn the full brightness part (full at 0.1 ns).
+BRIGHTNESS_DECADES = 2.0
+
+
+def score_definition(settings: Mapping) -> str:
+    """The score of :func:`rank` in one line of plain words, with the run's weights and thresholds."""
+    r = settings["ranking"]
+    w = r["weights"]
+    lo, hi = sorted(float(x) for x in r["window_nm"])
+    return (f"weighted mean ({float(w.get('binding', 0)):g} bound, {float(w.get('margin', 0)):g} margin, "
+            f"{float(w.get('window', 0)):g} window, {float(w.get('brightness', 0)):g} brightness) of four parts in "
+            f"[0, 1]: bound = log10((1 - {float(r.get('min_bound_fraction', 0)):g}) / (1 - bound fraction at the "
+            f"planned pair density)) / {BOUND_DECADES:g} capped at 1; margin = (dark - bright exciton) / "
+            f"{MARGIN_FULL_EV * units.MEV_PER_EV:g} meV capped at 1 (0 without a dark competitor); window = "
+            f"Monte Carlo probability that the emission lies inside {lo:g}-{hi:g} nm given the input uncertainties "
+            f"(1 inside, 0 outside without it); brightness = log10(radiative-rate proxy / "
+            f"{BRIGHTNESS_FLOOR_PER_S:.0e} s^-1) / {BRIGHTNESS_DECADES:g} capped at 1 (a tie-breaker)")
+
 
 #: Every long-table column that follows the operating temperature: written by
 #: :func:`add_survival` only, replaced when the temperature changes.
-TEMPERATURE_COLUMNS = survival.SURVIVAL_COLUMNS + ("bright_fraction",)
+TEMPERATURE_COLUMNS = survival.SURVIVAL_COLUMNS + ("bright_fraction", "radiative_rate_thermal_per_s",
+                                                   "brightness_proxy_per_s")
 
 
 def add_survival(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping) -> pd.DataFrame:
@@ -53,11 +87,15 @@ def add_survival(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping) -> p
         long["bright_exciton_ev"].to_numpy(dtype=float), long["dark_exciton_ev"].to_numpy(dtype=float),
         long["bright_weight"].to_numpy(dtype=float), long["dark_weight"].to_numpy(dtype=float),
         float(settings["survival"]["temperature_k"]))
+    out["radiative_rate_thermal_per_s"], out["brightness_proxy_per_s"] = brightness.emitted_rate_per_s(
+        long["radiative_rate_0_per_s"].to_numpy(dtype=float), long["bright_exciton_ev"].to_numpy(dtype=float),
+        long["bright_mass_me"].to_numpy(dtype=float), float(settings["survival"]["temperature_k"]),
+        out["bright_fraction"].to_numpy(dtype=float), np.sqrt(long["kappa"].to_numpy(dtype=float)))
     return out
 
 
 def criteria(brightness, exciton_margin_ev, binding_over_kt, emission_nm, bright_fraction,
-             ranking: Mapping, emission_compensated_nm=None) -> dict[str, np.ndarray]:
+             ranking: Mapping, emission_compensated_nm=None, bound_fraction=None) -> dict[str, np.ndarray]:
     """The four ranking criteria, vectorized: the one definition used by :func:`rank` and the Monte Carlo.
 
     Parameters
@@ -69,7 +107,7 @@ def criteria(brightness, exciton_margin_ev, binding_over_kt, emission_nm, bright
     exciton_margin_ev : array_like
         Lowest dark minus lowest bright exciton energy, eV (NaN fails).
     binding_over_kt : array_like
-        E_b / kT (NaN fails).
+        E_b / kT (NaN fails when ``min_binding_over_kt`` > 0).
     emission_nm : array_like
         Emission wavelength, nm (NaN fails).
     bright_fraction : array_like
@@ -77,9 +115,12 @@ def criteria(brightness, exciton_margin_ev, binding_over_kt, emission_nm, bright
     emission_compensated_nm : array_like, optional
         The other end of the emission bracket (full gap compensation); when
         given the window criterion needs both ends inside the window.
+    bound_fraction : array_like, optional
+        2D Saha bound fraction at the planned pair density (NaN fails when
+        ``min_bound_fraction`` > 0; None: that part of the criterion is not applied).
     ranking : mapping
         The ``ranking`` config section (require_direct, min_direct_margin_ev,
-        min_binding_over_kt, window_nm).
+        min_binding_over_kt, min_bound_fraction, window_nm).
 
     Returns
     -------
@@ -96,13 +137,18 @@ def criteria(brightness, exciton_margin_ev, binding_over_kt, emission_nm, bright
     lo, hi = sorted(float(x) for x in ranking["window_nm"])
     margin = np.nan_to_num(np.asarray(exciton_margin_ev, dtype=float), nan=-np.inf)
     e_kt = np.nan_to_num(np.asarray(binding_over_kt, dtype=float), nan=-np.inf)
+    need_kt = float(ranking.get("min_binding_over_kt", 0.0))
+    need_bound = float(ranking.get("min_bound_fraction", 0.0))
+    bound_ok = np.ones(verdict.shape, dtype=bool)
+    if bound_fraction is not None and need_bound > 0:
+        bound_ok = np.nan_to_num(np.asarray(bound_fraction, dtype=float), nan=-np.inf) >= need_bound
     lam = np.asarray(emission_nm, dtype=float)
     need = float(ranking.get("min_bright_fraction", 0.0))
     frac = np.nan_to_num(np.asarray(bright_fraction, dtype=float), nan=-np.inf)
     out = {
         "pass_direct": (verdict == "bright") if ranking["require_direct"] else known,
         "pass_margin": margin >= float(ranking["min_direct_margin_ev"]),
-        "pass_binding": e_kt >= float(ranking["min_binding_over_kt"]),
+        "pass_binding": bound_ok & ((e_kt >= need_kt) if need_kt > 0 else True),
         "pass_window": (lam >= lo) & (lam <= hi) & (
             True if emission_compensated_nm is None
             else (np.asarray(emission_compensated_nm, dtype=float) >= lo)
@@ -112,6 +158,62 @@ def criteria(brightness, exciton_margin_ev, binding_over_kt, emission_nm, bright
     out["meets_all"] = (out["pass_direct"] & out["pass_margin"] & out["pass_binding"] & out["pass_window"]
                         & out["pass_bright_fraction"])
     return out
+
+
+#: Score parts and their weight keys (``ranking.weights``).
+SCORE_WEIGHTS = {"binding": "binding", "margin": "margin", "window": "window", "brightness": "brightness"}
+
+
+def score_parts(bound_fraction, exciton_margin_ev, pass_window, brightness_per_s, ranking: Mapping,
+                p_window=None) -> dict[str, np.ndarray]:
+    """The four score parts in [0, 1] (see the module docstring); NaN inputs score 0.
+
+    Parameters
+    ----------
+    bound_fraction : array_like
+        2D Saha bound fraction at the planned pair density.
+    exciton_margin_ev : array_like
+        Lowest dark minus lowest bright exciton energy, eV.
+    pass_window : array_like of bool
+        The window criterion (used where ``p_window`` is missing).
+    brightness_per_s : array_like
+        Brightness proxy (thermal radiative rate x bright fraction), 1/s.
+    ranking : mapping
+        The ``ranking`` config section (``min_bound_fraction``).
+    p_window : array_like, optional
+        Monte Carlo probability of the window criterion (NaN or None: not computed).
+
+    Returns
+    -------
+    dict of numpy.ndarray
+        ``binding`` (bound part), ``margin``, ``window``, ``brightness``.
+
+    References
+    ----------
+    Common practice (scoring choices, documented in README "Ranking").
+    """
+    x = np.asarray(bound_fraction, dtype=float)
+    x_min = min(float(ranking.get("min_bound_fraction", 0.0)), 1.0 - 1e-12)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        s_bound = np.log10((1.0 - x_min) / np.maximum(1.0 - x, 1e-300)) / BOUND_DECADES
+        s_margin = np.asarray(exciton_margin_ev, dtype=float) / MARGIN_FULL_EV
+        s_bright = np.log10(np.asarray(brightness_per_s, dtype=float) / BRIGHTNESS_FLOOR_PER_S) / BRIGHTNESS_DECADES
+    window = np.asarray(pass_window, dtype=bool).astype(float)
+    if p_window is not None:
+        p = np.asarray(p_window, dtype=float)
+        window = np.where(np.isfinite(p), p, window)
+
+    def unit(v):
+        return np.clip(np.nan_to_num(v, nan=0.0, posinf=0.0, neginf=0.0), 0.0, 1.0)
+    return {"binding": unit(s_bound), "margin": unit(s_margin), "window": unit(window),
+            "brightness": unit(s_bright)}
+
+
+def weighted_score(parts: Mapping[str, np.ndarray], weights: Mapping) -> np.ndarray:
+    """Weighted mean of the score parts (weights of :data:`SCORE_WEIGHTS`; a missing weight is 0)."""
+    w = {k: float(weights.get(key, 0.0)) for k, key in SCORE_WEIGHTS.items()}
+    total = sum(w.values()) or 1.0
+    return sum(w[k] * np.asarray(parts[k], dtype=float) for k in w) / total
 
 
 def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
@@ -137,35 +239,31 @@ def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
                  "binding_over_kt", "direct_margin_ev", "bound_fraction", "wannier_ok", "radius_angstrom",
                  "brightness", "bright_exciton_ev", "dark_exciton_ev", "exciton_margin_ev", "bright_pair",
                  "dark_pair", "bright_fraction", "binding_beyond_validity", "spin_given",
-                 "optical_gap_compensated_ev", "emission_compensated_nm"):
+                 "optical_gap_compensated_ev", "emission_compensated_nm", "radiative_rate_0_per_s",
+                 "radiative_rate_thermal_per_s", "brightness_proxy_per_s", "mott_density_per_cm2"):
         out[f"target_{name}"] = at[name].set_axis(out.index)
     e_kt = col("binding_over_kt")
     margin = col("exciton_margin_ev")
     lam = col("emission_nm")
-    lo, hi = sorted(float(x) for x in r["window_nm"])
+    bound = col("bound_fraction")
     passed = criteria(at["brightness"].to_numpy(dtype=object), margin, e_kt, lam, col("bright_fraction"), r,
-                      col("emission_compensated_nm"))
+                      col("emission_compensated_nm"), bound)
     for key in ("pass_direct", "pass_margin", "pass_binding", "pass_window", "pass_bright_fraction"):
         out[key] = passed[key]
     out["meets_all_criteria"] = passed["meets_all"]
 
-    with np.errstate(invalid="ignore", divide="ignore"):
-        need = max(float(r["min_binding_over_kt"]), 1e-9)
-        s_bind = np.clip(np.nan_to_num(e_kt / (2.0 * need), nan=0.0), 0.0, 1.0)
-        s_margin = np.clip(np.nan_to_num(margin / MARGIN_FULL_EV, nan=0.0, posinf=0.0, neginf=0.0), 0.0, 1.0)
-        centre, width = 0.5 * (lo + hi), max(hi - lo, 1e-9)
-        s_window = np.where((lam >= lo) & (lam <= hi), 1.0 - np.abs(lam - centre) / width, 0.0)
-    w = r["weights"]
-    wb, wm, ww = float(w["binding"]), float(w["margin"]), float(w["window"])
-    total = wb + wm + ww or 1.0
-    out["score_binding"] = s_bind
-    out["score_margin"] = s_margin
-    out["score_window"] = s_window
-    out["score"] = (wb * s_bind + wm * s_margin + ww * s_window) / total
+    p_window = None
+    if probabilities is not None and "p_pass_window" in probabilities.columns:
+        p_window = out["entry_id"].map(probabilities.set_index("entry_id")["p_pass_window"]).to_numpy(dtype=float)
+    parts = score_parts(bound, margin, passed["pass_window"], col("brightness_proxy_per_s"), r, p_window)
+    for key, values in parts.items():
+        out[f"score_{key}"] = values
+    out["score"] = weighted_score(parts, r["weights"])
 
     if probabilities is not None and "entry_id" in probabilities.columns:
         extra = [c for c in probabilities.columns if c == "entry_id" or c not in out.columns]
         out = out.merge(probabilities[extra], on="entry_id", how="left")
+
     by_probability = r.get("order_by", "score") == "probability" and "p_meets_all" in out.columns
     keys = ["meets_all_criteria", "p_meets_all", "score"] if by_probability else ["meets_all_criteria", "score"]
     frame = out.assign(_id=out["entry_id"])
@@ -173,37 +271,3 @@ def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
                               na_position="last")
     frame["rank"] = np.arange(1, len(frame) + 1, dtype="int32")
     return frame.drop(columns="_id").reset_index(drop=True)
-
-
-def shortlist(ranked: pd.DataFrame, settings: Mapping) -> pd.DataFrame:
-    """The shortlist for experimental teams: candidates only, plain headers with units."""
-    r = settings["ranking"]
-    top = ranked[ranked["meets_all_criteria"]].head(int(r["shortlist_size"]))
-    n = int(r["target_layers"])
-    table = pd.DataFrame({
-        "Rank": top["rank"].to_numpy(),
-        "Compound": top["entry_id"].to_numpy(),
-        "Formula": top["formula"].to_numpy(),
-        f"Gap character at {n} layer(s)": top["target_gap_character"].to_numpy(),
-        "Thinning behaviour": top["thinning_verdict"].to_numpy(),
-        f"Exciton energy in {r['environment']} (eV)": top["target_optical_gap_ev"].round(3).to_numpy(),
-        "Emission wavelength (nm)": top["target_emission_nm"].round(1).to_numpy(),
-        "Emission if the gap compensates (nm)": top["target_emission_compensated_nm"].round(1).to_numpy(),
-        "Spectral band": top["target_emission_band"].to_numpy(),
-        "Binding energy (meV)": (1000 * top["target_binding_ev"]).round(1).to_numpy(),
-        f"Binding / kT at {settings['survival']['temperature_k']:g} K": top["target_binding_over_kt"].round(2).to_numpy(),
-        "Lowest exciton": top["target_brightness"].to_numpy(),
-        "Dark - bright exciton (meV)": (1000 * top["target_exciton_margin_ev"]).round(1).to_numpy(),
-        f"Bright fraction at {settings['survival']['temperature_k']:g} K":
-            top["target_bright_fraction"].round(2).to_numpy(),
-        "Direct-indirect band-gap margin (meV)": (1000 * top["target_direct_margin_ev"]).round(1).to_numpy(),
-        "Score (0-1)": top["score"].round(3).to_numpy(),
-        "Emission at": np.where(np.isfinite(top["gap_temperature_k"].to_numpy(dtype=float)) if "gap_temperature_k"
-                                in top.columns else np.zeros(len(top), dtype=bool),
-                                f"{settings['survival']['temperature_k']:g} K (thermal gap shift applied)",
-                                "the calculation's temperature (no thermal gap data)"),
-    })
-    if "p_meets_all" in top.columns:
-        table["Probability all criteria met"] = top["p_meets_all"].round(2).to_numpy()
-    table["Status"] = "model estimate, not a measurement"
-    return table

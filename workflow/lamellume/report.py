@@ -362,8 +362,10 @@ def _criteria_words(settings: Mapping) -> list[tuple[str, str, str]]:
     r = settings["ranking"]
     t_k = float(settings["survival"]["temperature_k"])
     n = int(r["target_layers"])
-    need = float(r["min_binding_over_kt"])
+    need = float(r.get("min_binding_over_kt", 0.0))
     need_mev = need * units.thermal_energy_ev(t_k) * MEV_PER_EV
+    need_bound = float(r.get("min_bound_fraction", 0.0))
+    density = float(settings["survival"]["pair_density_per_cm2"])
     lo, hi = sorted(float(v) for v in r["window_nm"])
     direct = (f"the lowest exciton at {n} layer(s) is bright (a same-valley, spin-allowed pair; 'unknown' when "
               "no competing valley is given never passes)" if r["require_direct"]
@@ -372,8 +374,10 @@ def _criteria_words(settings: Mapping) -> list[tuple[str, str, str]]:
         ("pass_direct", "Bright", direct),
         ("pass_margin", "Margin", f"the lowest dark exciton lies at least "
                                   f"{float(r['min_direct_margin_ev']) * MEV_PER_EV:g} meV above the lowest bright one"),
-        ("pass_binding", "Bound", f"the binding energy is at least {need:g} kT "
-                                  f"({need_mev:.0f} meV at {t_k:g} K)"),
+        ("pass_binding", "Bound", f"at the planned pair density of {density:.3g} cm\u207b\u00b2 and {t_k:g} K, at "
+                                  f"least {need_bound * 100:g} % of the photo-excited pairs are bound as excitons "
+                                  "(2D Saha balance)"
+                                  + (f", and the binding is at least {need:g} kT ({need_mev:.0f} meV)" if need > 0 else "")),
         ("pass_window", "Window", f"the emission bracket (no gap shift to full compensation) lies inside "
                                   f"{lo:g}\u2013{hi:g} nm"),
     ]
@@ -427,6 +431,15 @@ def brightness_words(row: Mapping, settings: Mapping) -> str:
     return out
 
 
+def _bound_words(fraction: float) -> str:
+    """A bound fraction rounded for people: '75 %', 'over 99 %' (never '100 %')."""
+    if fraction >= 0.99:
+        return "over 99 %"
+    if fraction <= 0.01:
+        return "under 1 %"
+    return f"{fraction * 100:.0f} %"
+
+
 def _reasons(row: Mapping, settings: Mapping) -> list[str]:
     r = settings["ranking"]
     t_k = float(settings["survival"]["temperature_k"])
@@ -434,22 +447,27 @@ def _reasons(row: Mapping, settings: Mapping) -> list[str]:
     lo, hi = sorted(float(v) for v in r["window_nm"])
     out = []
     out.append(brightness_words(row, settings))
+    density = float(settings["survival"]["pair_density_per_cm2"])
+    bound = _num(row.get("target_bound_fraction"))
     out.append(f"Bound: {_fmt(row.get('target_binding_ev'), 0, MEV_PER_EV)} meV, "
                f"{_fmt(row.get('target_binding_over_kt'), 1)} kT at {t_k:g} K"
-               + (f"; {_fmt(_num(row.get('target_bound_fraction')) * 100, 0)} % of pairs bound."
-                  if math.isfinite(_num(row.get("target_bound_fraction"))) else "."))
+               + (f"; about {_bound_words(bound)} of the pairs bound at {density:.3g} cm\u207b\u00b2 (Saha estimate)."
+                  if math.isfinite(bound) else "."))
     lam = _num(row.get("target_emission_nm"))
     lam_full = _num(row.get("target_emission_compensated_nm"))
     inside = lo <= lam <= hi and (not math.isfinite(lam_full) or lo <= lam_full <= hi)
     where = "inside" if inside else "not wholly inside"
-    out.append(f"Emits at {_fmt(lam, 0)} nm ({_text(row.get('target_emission_band')) or 'no band'}; "
+    band = _band_text(row, "target_emission_nm", 0)
+    out.append(f"Expected emission about {_fmt(lam, 0)} nm (model estimate; "
+               + (f"16\u201384 % range {band} nm given the input uncertainties; " if band else "")
+               + f"{_text(row.get('target_emission_band')) or 'no band'}; "
                f"{_fmt(lam_full, 0)} nm if the gap fully compensates the change of screening), "
                f"{where} the {lo:g}\u2013{hi:g} nm window, at the calculation's temperature.")
     verdict = _text(row.get("thinning_verdict"))
     if verdict:
         out.append(f"Thinning: {verdict}.")
     if "p_meets_all" in row and math.isfinite(_num(row.get("p_meets_all"))):
-        out.append(f"Chance that every criterion holds within the input uncertainties: "
+        out.append(f"Chance that every criterion holds, given the input uncertainties (a model estimate): "
                    f"{_fmt(_num(row['p_meets_all']) * 100, 0)} %.")
     return out
 
@@ -631,8 +649,9 @@ def _figures(ranked: pd.DataFrame, long: pd.DataFrame, settings: Mapping) -> lis
     return [
         {"heading": "Is it bound, and where does it emit?", "figure": figures.figure_binding_vs_gap(ranked, settings),
          "caption": f"One dot per compound at {where}. Large ringed dots meet every criterion; the shaded strip is the "
-                    "target window in photon energy; the dashed line is the binding needed to survive the "
-                    "operating temperature."},
+                    "target window in photon energy; a dashed line, when drawn, is the configured binding floor "
+                    "(ranking.min_binding_over_kt). The bound criterion itself is the Saha bound fraction at the "
+                    "planned pair density, which depends on the reduced mass too, so it is no single line here."},
         {"heading": "How the gap moves with thickness",
          "figure": figures.figure_gap_vs_layers(ranked, long, settings),
          "caption": "Optical gap per layer count for the leading compounds; the dashed segment joins the thickest "
@@ -698,11 +717,15 @@ def _methods(settings: Mapping) -> dict:
     r = settings["ranking"]
     w = r.get("weights", {})
     lo, hi = sorted(float(v) for v in r["window_nm"])
-    return {"need": f"{float(r['min_binding_over_kt']):g}",
+    return {"need_kt": f"{float(r.get('min_binding_over_kt', 0)):g}" if float(r.get('min_binding_over_kt', 0)) > 0
+            else "",
+            "min_bound": f"{float(r.get('min_bound_fraction', 0)):g}",
+            "density": f"{float(settings['survival']['pair_density_per_cm2']):.3g}",
+            "bound_decades": f"{ranking.BOUND_DECADES:g}",
             "margin_full": f"{ranking.MARGIN_FULL_EV * MEV_PER_EV:g}",
             "window_lo": f"{lo:g}", "window_hi": f"{hi:g}",
             "w_binding": f"{float(w.get('binding', 0)):g}", "w_margin": f"{float(w.get('margin', 0)):g}",
-            "w_window": f"{float(w.get('window', 0)):g}",
+            "w_window": f"{float(w.get('window', 0)):g}", "w_brightness": f"{float(w.get('brightness', 0)):g}",
             "model_unc_layers": f"{float(settings['excitons']['model_rel_unc_layers']) * 100:g}",
             "model_unc_bulk": f"{float(settings['excitons']['model_rel_unc_bulk']) * 100:g}",
             "max_binding_fraction": f"{float(settings['excitons']['max_binding_fraction']) * 100:g}"}
@@ -712,6 +735,8 @@ def _methods(settings: Mapping) -> dict:
 REFERENCES = (
     "N. S. Rytova, Proc. Moscow State Univ. Phys. Astron. 3, 30 (1967).",
     "L. V. Keldysh, JETP Lett. 29, 658 (1979).",
+    "L. C. Andreani, F. Tassone, F. Bassani, Solid State Commun. 77, 641 (1991) (radiative rate of 2D excitons).",
+    "E. O. Kane, J. Phys. Chem. Solids 1, 249 (1957) (two-band k\u00b7p).",
     "P. Cudazzo, I. V. Tokatly, A. Rubio, Phys. Rev. B 84, 085406 (2011).",
     "X. L. Yang, S. H. Guo, F. T. Chan, K. W. Wong, W. Y. Ching, Phys. Rev. A 43, 1186 (1991).",
     "T. Olsen, S. Latini, F. Rasmussen, K. S. Thygesen, Phys. Rev. Lett. 116, 056401 (2016).",

@@ -231,7 +231,8 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
         np.full(int(np.prod(shape)), np.nan), survival.mott_density_3d_per_cm3(res.bulk["mott_radius_angstrom"])])
     pair_names = pair_labels(res.valley_pairs, valleys)
     for key in ("bright_exciton_ev", "dark_exciton_ev", "exciton_margin_ev", "brightness", "bright_weight",
-                "dark_weight", "optical_gap_compensated_ev", "emission_compensated_nm"):
+                "dark_weight", "optical_gap_compensated_ev", "emission_compensated_nm", "radiative_rate_0_per_s",
+                "bright_mass_me"):
         long[key] = np.concatenate([np.asarray(res.stack[key]).reshape(-1), np.asarray(res.bulk[key])])
     for key in ("bright", "dark"):
         idx = np.concatenate([res.stack[f"{key}_pair_index"].reshape(-1), res.bulk[f"{key}_pair_index"]])

@@ -8,7 +8,7 @@ it is current). A column name means the same thing in every table it appears
 in. Families of columns (one per layer count, per surroundings, per
 percentile) are declared once as a pattern (:data:`PATTERNS`).
 
-Units: ``eV``, ``nm``, ``Angstrom``, ``m_e``, ``K``, ``deg``, ``cm^-2``, ``1``
+Units: ``eV``, ``meV``, ``nm``, ``Angstrom``, ``m_e``, ``K``, ``deg``, ``cm^-2``, ``1``
 (a dimensionless number) and ``-`` (text, identifier or flag: not a quantity).
 Arrow types: ``string`` (stored as large_string), ``float64``, ``int16``,
 ``int32``, ``int64``, ``bool``.
@@ -164,6 +164,18 @@ _LONG = [
     ("dark_weight", F, "1", "Boltzmann weight g M^(d/2) of the lowest dark exciton"),
     ("bright_fraction", F, "1", "thermal bright fraction at the operating temperature: Boltzmann occupation of "
      "the lowest bright vs the lowest dark exciton (NaN: no dark competitor, unknown)"),
+    ("bright_mass_me", F, "m_e", "centre-of-mass (translational) mass of the lowest bright exciton, "
+     "sqrt(det(M_e + M_h)) in the plane"),
+    ("radiative_rate_0_per_s", F, "1/s",
+     "layer rows: intrinsic radiative rate of the lowest bright exciton at zero in-plane momentum (Andreani 1991; "
+     "Kane energy from two-band k.p, |phi(0)|^2 from the Rytova-Keldysh rms radius, index sqrt(kappa)); "
+     "a model estimate, NaN on bulk rows"),
+    ("radiative_rate_thermal_per_s", F, "1/s",
+     "layer rows: thermal average of radiative_rate_0_per_s over a Boltzmann gas of bright excitons at the "
+     "operating temperature, (4/3) Gamma_0 E_c / kT (model estimate)"),
+    ("brightness_proxy_per_s", F, "1/s",
+     "layer rows: radiative_rate_thermal_per_s x bright_fraction, the brightness proxy of the score's "
+     "tie-breaker (model estimate; NaN when the brightness is unknown)"),
     ("binding_beyond_validity", B, NO_UNIT,
      "binding above excitons.max_binding_fraction of the direct gap: outside the effective-mass model's validity"),
     ("spin_given", B, NO_UNIT, "the record gives spin sub-bands (without them every same-label pair counts as bright)"),
@@ -250,6 +262,10 @@ _WIDE = [
     ("target_bright_pair", S, NO_UNIT, "valley pair of the lowest bright exciton at the target"),
     ("target_dark_pair", S, NO_UNIT, "valley pair of the lowest dark exciton at the target"),
     ("target_bright_fraction", F, "1", "thermal bright fraction at the target"),
+    ("target_radiative_rate_0_per_s", F, "1/s", "intrinsic radiative rate of the lowest bright exciton at the target"),
+    ("target_radiative_rate_thermal_per_s", F, "1/s", "thermally averaged radiative rate at the target"),
+    ("target_brightness_proxy_per_s", F, "1/s", "brightness proxy (thermal rate x bright fraction) at the target"),
+    ("target_mott_density_per_cm2", F, "cm^-2", "2D Mott density estimate at the target (pump below it)"),
     ("target_binding_beyond_validity", B, NO_UNIT, "target binding outside the effective-mass model's validity"),
     ("target_spin_given", B, NO_UNIT, "the record gives spin sub-bands"),
     ("target_optical_gap_compensated_ev", F, "eV", "full-compensation end of the optical-gap bracket at the target"),
@@ -259,13 +275,19 @@ _WIDE = [
     ("pass_margin", B, NO_UNIT, "criterion: dark - bright exciton energy at least min_direct_margin_ev"),
     ("pass_bright_fraction", B, NO_UNIT, "criterion: thermal bright fraction at least min_bright_fraction "
      "(always true when it is 0)"),
-    ("pass_binding", B, NO_UNIT, "criterion: binding at least min_binding_over_kt times kT"),
+    ("pass_binding", B, NO_UNIT, "criterion: 2D Saha bound fraction at the planned pair density "
+     "(survival.pair_density_per_cm2) at least min_bound_fraction, and binding at least min_binding_over_kt "
+     "times kT (0 = off)"),
     ("pass_window", B, NO_UNIT, "criterion: both ends of the emission bracket (no gap shift, full compensation) "
      "inside the target window"),
     ("meets_all_criteria", B, NO_UNIT, "every ranking criterion holds (a candidate)"),
-    ("score_binding", F, "1", "binding component of the score, in [0, 1]"),
-    ("score_margin", F, "1", "margin component of the score, in [0, 1]"),
-    ("score_window", F, "1", "emission-window component of the score, in [0, 1]"),
+    ("score_binding", F, "1", "bound part of the score in [0, 1]: decades by which the unbound share at the "
+     "planned pair density lies below the one min_bound_fraction allows, over 2"),
+    ("score_margin", F, "1", "margin part of the score in [0, 1]: dark - bright exciton energy over 0.2 eV"),
+    ("score_window", F, "1", "window part of the score in [0, 1]: Monte Carlo probability that the emission "
+     "bracket lies in the target window (pass/fail without the Monte Carlo)"),
+    ("score_brightness", F, "1", "brightness part of the score in [0, 1] (tie-breaker): "
+     "log10(brightness proxy / 1e8 s^-1) / 2"),
     ("score", F, "1", "weighted mean of the score components, in [0, 1]"),
     ("rank", "int32", "1", "position in the ranked list (candidates first)"),
 ]
@@ -274,7 +296,7 @@ _UNCERTAINTY = [
     ("p_direct_target", F, "1", "probability that the gap is direct at the target layer count"),
     ("p_meets_all", F, "1", "probability that every ranking criterion is met"),
     ("p_pass_margin", F, "1", "probability that the exciton-level (dark - bright) margin criterion is met"),
-    ("p_pass_binding", F, "1", "probability that the binding/kT criterion is met"),
+    ("p_pass_binding", F, "1", "probability that the bound criterion (bound fraction, binding/kT) is met"),
     ("p_pass_window", F, "1", "probability that the emission lies in the target window"),
     ("n_samples", "int32", "1", "Monte Carlo samples per entry (0 = propagation disabled)"),
     ("seed", "int64", "1", "campaign seed; each entry's stream also depends on its identifier"),
@@ -319,9 +341,60 @@ _REFINEMENT = [
     ("advice", S, NO_UNIT, "the recommendation in plain words"),
 ]
 
+#: results/shortlist.csv: plain headers for people, fixed whatever the settings (the layer count,
+#: surroundings and temperature the values are for are columns, not parts of headers).
+_SHORTLIST = [
+    ("Rank", "int32", "1", "position in the ranked list (candidates first)"),
+    ("Compound", S, NO_UNIT, "compound identifier (the record's id)"),
+    ("Formula", S, NO_UNIT, "chemical formula as given by the record"),
+    ("Candidate", S, NO_UNIT, "'yes' when the compound meets every ranking criterion, else 'no'"),
+    ("Criteria missed", S, NO_UNIT, "the ranking criteria the compound misses, in words ('' for a candidate)"),
+    ("Layers", "int16", "1", "layer count every value of the row is for (config ranking.target_layers)"),
+    ("Surroundings", S, NO_UNIT, "surroundings every value of the row is for (config ranking.environment)"),
+    ("Dielectric constant above", F, "1", "relative permittivity above the flake in those surroundings"),
+    ("Dielectric constant below", F, "1", "relative permittivity below the flake in those surroundings"),
+    ("Temperature (K)", F, "K", "operating temperature of Binding / kT and Bright fraction"),
+    ("Gap character", S, NO_UNIT, "'direct', 'indirect' or 'unknown' band gap at that layer count"),
+    ("Thinning behaviour", S, NO_UNIT, "how the gap character changes with thinning, in words"),
+    ("Exciton energy (eV)", F, "eV", "lowest bright exciton energy (optical gap)"),
+    ("Exciton energy 16 % (eV)", F, "eV", "16th percentile of the exciton energy (Monte Carlo; empty without)"),
+    ("Exciton energy 84 % (eV)", F, "eV", "84th percentile of the exciton energy (Monte Carlo; empty without)"),
+    ("Emission wavelength (nm)", F, "nm", "vacuum wavelength of the lowest bright exciton (no gap shift)"),
+    ("Emission wavelength 16 % (nm)", F, "nm", "16th percentile of the emission wavelength (Monte Carlo)"),
+    ("Emission wavelength 84 % (nm)", F, "nm", "84th percentile of the emission wavelength (Monte Carlo)"),
+    ("Emission if the gap compensates (nm)", F, "nm",
+     "other end of the emission bracket: the quasiparticle gap shrinks with the screening as the binding falls"),
+    ("Emission at", S, NO_UNIT,
+     "temperature the exciton energy and wavelength are for: the operating temperature when the record gives "
+     "the gap's temperature dependence (thermal shift applied), else the calculation's temperature"),
+    ("Spectral band", S, NO_UNIT, "named spectral band of the emission (config emission_bands)"),
+    ("Binding energy (meV)", F, "meV", "exciton binding energy (Rytova-Keldysh)"),
+    ("Binding energy 16 % (meV)", F, "meV", "16th percentile of the binding energy (Monte Carlo)"),
+    ("Binding energy 84 % (meV)", F, "meV", "84th percentile of the binding energy (Monte Carlo)"),
+    ("Binding / kT", F, "1", "binding energy over kT at the temperature of the row"),
+    ("Lowest exciton", S, NO_UNIT, "'bright', 'dark' or 'unknown' (no competing valley given)"),
+    ("Dark - bright exciton (meV)", F, "meV", "lowest dark minus lowest bright exciton energy: > 0 bright"),
+    ("Bright fraction", F, "1", "thermal share of excitons in the bright state at the temperature of the row"),
+    ("Direct-indirect band-gap margin (meV)", F, "meV", "indirect minus direct band gap: > 0 direct"),
+    ("Score (0-1)", F, "1", "the ranking score; its definition is the 'score definition' row of the settings sheet"),
+    ("Probability all criteria met", F, "1", "share of Monte Carlo samples meeting every criterion (empty without)"),
+]
+
+#: results/shortlist_settings.csv: the settings and stamps of the run, one row each.
+_SHORTLIST_SETTINGS = [
+    ("Setting", S, NO_UNIT, "name of the setting or stamp"),
+    ("Value", S, NO_UNIT, "its value in this run"),
+    ("Unit", S, NO_UNIT, "unit of the value ('1' a plain number, empty for text)"),
+    ("Meaning", S, NO_UNIT, "what the setting does, in words"),
+]
+
+#: Columns of the shortlist and its settings sheet, in order.
+SHORTLIST_COLUMNS = tuple(c[0] for c in _SHORTLIST)
+SHORTLIST_SETTINGS_COLUMNS = tuple(c[0] for c in _SHORTLIST_SETTINGS)
+
 #: Every column with a fixed name.
 COLUMNS: dict[str, Column] = _declare(_STAMPS + _ENTRY + _VALLEY + _REJECT + _LONG + _WIDE + _UNCERTAINTY
-                                      + _CHANGES + _REFINEMENT)
+                                      + _CHANGES + _REFINEMENT + _SHORTLIST + _SHORTLIST_SETTINGS)
 
 #: Percentiles and quantities of the Monte Carlo summary columns ``<quantity>_p<NN>``.
 PERCENTILES = (16, 50, 84)
@@ -339,6 +412,9 @@ PATTERNS: dict[str, tuple[str, str, str]] = {
     r"binding_1l_ev__(?P<env>.+)": (F, "eV", "monolayer Rytova-Keldysh binding in environment {env}"),
     r"optical_gap_1l_ev__(?P<env>.+)": (F, "eV", "monolayer bright exciton energy in environment {env}"),
     r"emission_1l_nm__(?P<env>.+)": (F, "nm", "monolayer emission wavelength in environment {env}"),
+    r"emission_nm_p(?P<p>\d+)__(?P<env>.+)": (
+        F, "nm", "{p}th percentile (Monte Carlo) of the emission wavelength at the target layer count in "
+                 "surroundings {env}"),
     r"(?P<q>target_binding_ev|target_optical_gap_ev|target_emission_nm|bulk_binding_ev)_p(?P<p>\d+)": (
         F, "{unit}", "{p}th percentile (Monte Carlo) of the {text}"),
 }
@@ -413,7 +489,7 @@ TABLES: dict[str, tuple[str, list[str]]] = {
          "binding_1l_ev__<env>", "optical_gap_1l_ev__<env>", "emission_1l_nm__<env>",
          *[c[0] for c in _WIDE[30:-1]],
          *[f"{q}_p{p}" for q in MC_QUANTITIES for p in PERCENTILES], *[c[0] for c in _UNCERTAINTY],
-         "rank", "physics_hash", "code_version", "config_hash"]),
+         "emission_nm_p16__<env>", "emission_nm_p84__<env>", "rank", "physics_hash", "code_version", "config_hash"]),
     "results/tables/attribution.parquet": (
         "one row per borderline compound, attributed output and input group (variance-based attribution)",
         ["entry_id", "input_hash", "physics_hash", "output", "input_group", "input_kind", "valley_index",
@@ -426,6 +502,15 @@ TABLES: dict[str, tuple[str, list[str]]] = {
     "results/tables/changes.parquet": (
         "one row per compound that changed since the previous run",
         ["entry_id", *[c[0] for c in _CHANGES]]),
+    "results/shortlist.csv": (
+        "the shortlist for experimental teams: the ranked list's first ranking.shortlist_size compounds "
+        "(candidates first); column names never change with the settings",
+        list(SHORTLIST_COLUMNS)),
+    "results/shortlist_settings.csv": (
+        "the settings and stamps of the run that wrote the shortlist, one row each (written beside the "
+        "manifest): caution, campaign, date, layer count, surroundings, temperature, criteria, score "
+        "definition, config hash, code version",
+        list(SHORTLIST_SETTINGS_COLUMNS)),
 }
 
 

@@ -51,10 +51,14 @@ Model per sample: the exciton model itself
 ------------------------------------------
 Each block of samples is one call of :func:`lamellume.model.evaluate` (the
 function the nominal screen calls), with the entry x sample cells as its
-compound axis, the layer counts ``[ranking.target_layers, bulk]`` and the
-surroundings ``ranking.environment``; it is asked only for the Rytova-Keldysh
-binding, optical gap and emission at the target layer count and the bulk 3D
-hydrogenic binding. E_b/kT at ``survival.temperature_k`` comes from
+compound axis, the layer counts ``[ranking.target_layers, bulk]`` and every
+configured surroundings; it is asked only for the Rytova-Keldysh binding,
+optical gap, emission and exciton levels at the target layer count and the bulk
+3D hydrogenic binding. The criteria use the ranking surroundings
+(``ranking.environment``); the emission of every surroundings is summarised as
+``emission_nm_p16__<env>`` / ``emission_nm_p84__<env>`` (the cards' expected
+ranges). The bound criterion uses the 2D Saha bound fraction at
+``survival.pair_density_per_cm2``. E_b/kT at ``survival.temperature_k`` comes from
 :func:`lamellume.survival.binding_over_kt`, and the four ranking criteria from
 :func:`lamellume.ranking.criteria`, the function the ranking uses. Label ties
 (direct gaps degenerate within 1e-9 eV) resolve to the lexically smallest
@@ -130,6 +134,26 @@ _PROBABILITIES = ("p_direct_target", "p_meets_all", "p_pass_margin", "p_pass_bin
 
 def _pcol(quantity: str, q: float) -> str:
     return f"{quantity}_p{int(q)}"
+
+
+#: Percentiles of the emission at the target layer count reported for every surroundings.
+ENV_PERCENTILES: tuple[float, ...] = (16.0, 84.0)
+
+
+def env_emission_key(env: str) -> str:
+    """Per-sample key of the target emission in one surroundings."""
+    return f"emission_nm__{env}"
+
+
+def env_emission_columns(env_names) -> list[str]:
+    """``emission_nm_p16__<env>``, ``emission_nm_p84__<env>`` for every surroundings, in config order."""
+    return [f"emission_nm_p{int(q)}__{env}" for env in env_names for q in ENV_PERCENTILES]
+
+
+def output_columns(settings: Mapping) -> list[str]:
+    """Columns of :func:`propagate_uncertainty` for these settings: :data:`OUTPUT_COLUMNS` then the
+    per-surroundings emission percentiles."""
+    return OUTPUT_COLUMNS + env_emission_columns(settings["environments"])
 
 
 #: Columns of the table returned by :func:`propagate_uncertainty`, in order.
@@ -310,9 +334,12 @@ class _Prepared(NamedTuple):
     sig_mass: np.ndarray
     sig_edge: np.ndarray        # eV
     layers: np.ndarray          # [target, bulk]
-    kappa: np.ndarray           # (1,) the ranking environment
+    kappa: np.ndarray           # (E,) every configured surroundings
+    env_names: tuple            # (E,) their names
+    env_index: int              # the ranking surroundings among them
     model_settings: model.ModelSettings
     temperature_k: float
+    pair_density_per_cm2: float  # planned pair density of the bound-fraction criterion
     ranking: Mapping
     edge_kappa: np.ndarray      # (n,) mean constant of the surroundings the edges belong to
     degeneracy: np.ndarray      # (V,)
@@ -323,8 +350,10 @@ class _Prepared(NamedTuple):
     gap_thermal: gapshift.GapThermal  # (n,) arrays: each record's thermal gap form
 
 
-#: What the Monte Carlo asks of the exciton model (lamellume.model.evaluate).
-_STACK_WANTED = frozenset({"binding_ev", "optical_gap_ev", "emission_nm", *model.EXCITON_QUANTITIES})
+#: What the Monte Carlo asks of the exciton model (lamellume.model.evaluate); the radiative-rate
+#: proxy is not summarised by the Monte Carlo, so it is not computed per sample.
+_STACK_WANTED = frozenset({"binding_ev", "optical_gap_ev", "emission_nm", *model.EXCITON_QUANTITIES}) \
+    - {"radiative_rate_0_per_s"}
 _BULK_WANTED = frozenset({"bulk_binding_ev"})
 
 
@@ -340,8 +369,8 @@ def _prepare(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping) ->
     target = int(rk["target_layers"])
     if not 1 <= target <= max_layers:
         raise ValueError(f"ranking.target_layers = {target} is outside 1..layers.max_layers = {max_layers}")
-    env = settings["environments"][rk["environment"]]
-    kappa = (env["top"] + env["bottom"]) / 2
+    env_names = tuple(settings["environments"])
+    kappa = screen.environment_kappa(settings)
     lay = screen.layer_counts(max_layers)
 
     entries = entries.reset_index(drop=True)
@@ -384,10 +413,12 @@ def _prepare(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping) ->
         inv=screen.inverse_mass(vt), edges=edges,
         sig_mass=lognormal_sigma(_given_or(vt["mass_rel_unc"], unc["default_mass_rel"])),
         sig_edge=_given_or(vt["edge_unc_ev"], unc["default_edge_ev"]),
-        layers=np.array([target, layer_model.BULK]), kappa=np.array([kappa], dtype=float),
+        layers=np.array([target, layer_model.BULK]), kappa=np.asarray(kappa, dtype=float), env_names=env_names,
+        env_index=env_names.index(rk["environment"]),
         model_settings=model.ModelSettings.from_config(settings, stack=_STACK_WANTED, bulk=_BULK_WANTED,
                                                        principal_masses=False),
         temperature_k=float(settings["survival"]["temperature_k"]), ranking=rk,
+        pair_density_per_cm2=float(settings["survival"]["pair_density_per_cm2"]),
         **dict(zip(("degeneracy", "spin_split", "edge_spin"), screen.exciton_inputs(vt).values())),
         edge_kappa=((entries["edge_eps_top"] + entries["edge_eps_bottom"]) / 2).fillna(1.0).to_numpy(dtype=float),
         sig_model_layers=float(lognormal_sigma(settings["excitons"]["model_rel_unc_layers"])),
@@ -468,18 +499,22 @@ def _evaluate_block(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, tabl
         gap_thermal=prep.gap_thermal.take(rep), temperature_k=prep.temperature_k),
         prep.model_settings, table)
     gc = res.gap
-    eb = res.stack["binding_ev"][:, 0, 0]
-    lam = res.stack["emission_nm"][:, 0, 0]
-    st = {k: np.asarray(res.stack[k])[:, 0, 0] for k in model.EXCITON_QUANTITIES}
+    ei = prep.env_index
+    eb = res.stack["binding_ev"][:, 0, ei]
+    lam = res.stack["emission_nm"][:, 0, ei]
+    st = {k: np.asarray(res.stack[k])[:, 0, ei] for k in model.EXCITON_QUANTITIES}
     with np.errstate(divide="ignore", invalid="ignore"):
         e_kt = survival.binding_over_kt(eb, prep.temperature_k)
     fraction = excitons.thermal_bright_fraction(st["bright_exciton_ev"], st["dark_exciton_ev"],
                                                 st["bright_weight"], st["dark_weight"], prep.temperature_k)
+    bound = survival.bound_fraction_2d(eb, res.pairs["bright"].mu_me[:, 0], prep.temperature_k,
+                                       prep.pair_density_per_cm2)
     crit = ranking.criteria(st["brightness"], st["exciton_margin_ev"], e_kt, lam, fraction, prep.ranking,
-                            st["emission_compensated_nm"])
-    out = {"target_binding_ev": eb, "target_optical_gap_ev": res.stack["optical_gap_ev"][:, 0, 0],
+                            st["emission_compensated_nm"], bound)
+    out = {"target_binding_ev": eb, "target_optical_gap_ev": res.stack["optical_gap_ev"][:, 0, ei],
            "target_emission_nm": lam, "bulk_binding_ev": res.bulk["bulk_binding_ev"],
-           "direct_target": gc.is_direct[:, 0] & gc.complete[:, 0], **crit}
+           "direct_target": gc.is_direct[:, 0] & gc.complete[:, 0], **crit,
+           **{env_emission_key(name): res.stack["emission_nm"][:, 0, e] for e, name in enumerate(prep.env_names)}}
     return {key: np.asarray(v).reshape(n_e, n_s) for key, v in out.items()}
 
 
@@ -637,6 +672,7 @@ def propagate_uncertainty(entries: pd.DataFrame, valleys: pd.DataFrame, settings
     prep = _prepare(entries, valleys, settings)
     n = len(prep.ids)
     stats = {c: np.full(n, np.nan) for c in OUTPUT_COLUMNS[2:-2]}
+    env_stats = {c: np.full(n, np.nan) for c in env_emission_columns(prep.env_names)}
     if samples > 0:
         for a, b, res in _iter_entry_samples(prep, table, samples, seed, block_cells):
             for name in QUANTITIES:
@@ -647,14 +683,19 @@ def propagate_uncertainty(entries: pd.DataFrame, valleys: pd.DataFrame, settings
             stats["p_meets_all"][a:b] = res["meets_all"].mean(axis=1)
             for key in ("pass_margin", "pass_binding", "pass_window"):
                 stats[f"p_{key}"][a:b] = res[key].mean(axis=1)
+            for env in prep.env_names:
+                pct = row_percentiles(res[env_emission_key(env)], ENV_PERCENTILES)
+                for i, q in enumerate(ENV_PERCENTILES):
+                    env_stats[f"emission_nm_p{int(q)}__{env}"][a:b] = pct[i]
     frame = pd.DataFrame({
         "entry_id": pd.Series(prep.ids, dtype=object),
         "input_hash": pd.Series(prep.input_hash, dtype=object),
         **{c: pd.Series(v, dtype="float64") for c, v in stats.items()},
         "n_samples": pd.Series(np.full(n, samples), dtype="int32"),
         "seed": pd.Series(np.full(n, seed), dtype="int64"),
+        **{c: pd.Series(v, dtype="float64") for c, v in env_stats.items()},
     })
-    return frame[OUTPUT_COLUMNS].sort_values("entry_id", kind="stable").reset_index(drop=True)
+    return frame[OUTPUT_COLUMNS + list(env_stats)].sort_values("entry_id", kind="stable").reset_index(drop=True)
 
 
 # --------------------------------------------------------------------------- #

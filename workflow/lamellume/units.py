@@ -26,6 +26,9 @@ HC_EV_NM: float = _c.h * _c.c / _c.electron_volt / _c.nano
 #: hbar^2 / (2 m_e) in eV Angstrom^2; a band E = HBAR2_OVER_2ME_EV_A2 * k^2 / m has mass m in m_e.
 HBAR2_OVER_2ME_EV_A2: float = _c.hbar**2 / (2.0 * _c.m_e) / _c.electron_volt / _c.angstrom**2
 
+#: Conversion factor from eV to meV.
+MEV_PER_EV: float = 1.0 / _c.milli
+
 #: Conversion factor from cm^-2 to Angstrom^-2.
 PER_CM2_TO_PER_ANGSTROM2: float = (_c.angstrom / _c.centi) ** 2
 

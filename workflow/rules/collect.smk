@@ -90,6 +90,7 @@ rule write_manifest:
         code=sorted(set(code_files("write_manifest")) | set(library_files())),
     output:
         manifest="results/manifest.json",
+        shortlist_settings="results/shortlist_settings.csv",
     log:
         "results/logs/write_manifest/write_manifest.log",
     conda:
@@ -98,5 +99,5 @@ rule write_manifest:
         adapter(
             "write_manifest",
             inputs=("tables", "records", "settings"),
-            outputs=("manifest",),
+            outputs=("manifest", "shortlist_settings"),
         )

@@ -8,7 +8,7 @@ from pathlib import Path
 from snakemake.utils import validate
 
 sys.path.insert(0, str(Path(workflow.basedir) / "workflow"))
-from lamellume.configcheck import cross_problems  # noqa: E402
+from lamellume.configcheck import cross_problems, text_given_for_numbers  # noqa: E402
 from lamellume.provenance import adapter_files  # noqa: E402
 from lamellume import io  # noqa: E402
 from lamellume.io import campaign_listing as campaign_listing_rows, canonical_json_hash, snapshot_json  # noqa: E402
@@ -16,6 +16,10 @@ from lamellume.sharding import shard_name, shard_of_file  # noqa: E402
 from lamellume.io import calculation_listing as calculation_listing_rows  # noqa: E402
 
 
+# Before the schema: the nested --config pitfall gets a message naming the remedy.
+if text_given_for_numbers(config, io.load_schema("config.schema.json")):
+    sys.exit("lamellume: the config has problems:\n  "
+             + "\n  ".join(text_given_for_numbers(config, io.load_schema("config.schema.json"))))
 validate(config, schema="../schemas/config.schema.json")
 if cross_problems(config):  # before any job: one line per problem, each with its key path
     sys.exit("lamellume: the config has problems:\n  " + "\n  ".join(cross_problems(config)))
@@ -95,7 +99,8 @@ def run_summary():
     if counts["rejected"]:
         lines.append("  rejects: results/tables/rejects.csv; first reasons:")
         lines += [f"    {reason}" for reason in counts["reasons"]]
-    lines.append("  summary page: results/summary.html; shortlist: results/shortlist.csv")
+    lines.append("  summary page: results/summary.html; shortlist: results/shortlist.csv "
+                 "(its settings: results/shortlist_settings.csv)")
     return "\n".join(lines)
 
 
@@ -195,6 +200,7 @@ def final_outputs():
         "results/tables/entries.parquet",
         "results/tables/rejects.parquet",
         "results/shortlist.csv",
+        "results/shortlist_settings.csv",
         "results/tables/refinement.parquet",
         "results/refinement.csv",
         "results/manifest.json",
@@ -230,6 +236,11 @@ def rank_settings(wildcards):
     return snapshot("rank", {"settings": ranking_settings(), "config_hash": config_hash()})
 
 
+def validate_settings(wildcards):
+    """Settings of the validate_campaign job: the campaign and the sections its checks read."""
+    return snapshot("validate", {"campaign": str(campaign_dir()), "physics": {k: config[k] for k in ("layers", "structure")}})
+
+
 def join_settings(wildcards):
     """Settings of the join_tables job."""
     return snapshot("join", {"config_hash": config_hash()})
@@ -242,8 +253,10 @@ def manifest_settings(wildcards):
 
 
 def summary_settings(wildcards):
-    """Settings of the write_summary job: the whole config and the history folder."""
-    return snapshot("summary", {"settings": config, "history": "results/history"})
+    """Settings of the write_summary job: the whole config and the campaign's own history folder
+    (results/history/<campaign folder name>: campaigns never mix)."""
+    return snapshot("summary", {"settings": config,
+                                "history": str(io.campaign_history_dir("results/history", campaign_dir()))})
 
 
 # ---------------------------------------------------------------- import of calculations

@@ -15,5 +15,7 @@ pipeline.write_manifest(
     config_hash=settings["config_hash"],
     workdir=settings["workdir"],
     output=job.one("output", "manifest"),
+    settings_output=job.one("output", "shortlist_settings"),
+    campaign=settings["campaign"],
 )
 io.end_job()  # last statement: skips the interpreter teardown (see io.end_job)
