@@ -711,7 +711,8 @@ def prepare_inputs(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
     return _prepare(entries, valleys, settings)
 
 
-def evaluate_draws(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, table) -> dict[str, np.ndarray]:
+def evaluate_draws(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, table,
+                   z_model=None) -> dict[str, np.ndarray]:
     """Per-sample model outputs of entries a..b-1 for given standard-normal draws.
 
     Parameters
@@ -724,6 +725,9 @@ def evaluate_draws(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, table
     z_mass, z_edge : numpy.ndarray, shape (V, S)
         Draws of the valleys' mass and edge inputs (V valleys of the range).
     table : lamellume.keldysh.KeldyshTable
+    z_model : numpy.ndarray, shape (2, b - a, S), optional
+        Draws of the Rytova-Keldysh and bulk binding-model errors (None: the
+        models are taken as exact).
 
     Returns
     -------
@@ -731,4 +735,4 @@ def evaluate_draws(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, table
         The :data:`QUANTITIES` (eV or nm), ``direct_target`` and the criteria
         of :func:`criteria` -- exactly what the propagation summarises.
     """
-    return _evaluate_block(prep, a, b, z_ent, z_mass, z_edge, table)
+    return _evaluate_block(prep, a, b, z_ent, z_mass, z_edge, table, z_model)
