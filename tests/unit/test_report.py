@@ -633,3 +633,4 @@ def test_bound_fraction_is_rounded_never_a_guarantee():
     assert report._bound_words(0.997) == "over 99 %"
     assert report._bound_words(0.754) == "75 %"
     assert report._bound_words(0.001) == "under 1 %"
+    assert report._about(0.754) == "About 75 %" and report._about(0.9995) == "Over 99 %"

@@ -434,7 +434,7 @@ def brightness_words(row: Mapping, settings: Mapping) -> str:
         out = (f"Brightness unknown {where}: the record gives no competing valley (another label or a spin "
                "sub-band), so a lower dark exciton cannot be excluded; it is not counted as bright.")
     if math.isfinite(fraction):
-        out += f" About {_bound_words(fraction)} of the excitons are in the bright state at {t_k:g} K (Boltzmann)."
+        out += f" {_about(fraction)} of the excitons are in the bright state at {t_k:g} K (Boltzmann)."
     if not bool(row.get("target_spin_given")):
         out += " Spin was not given: every same-valley pair is taken as spin-allowed."
     if bool(row.get("target_binding_beyond_validity")):
@@ -452,6 +452,12 @@ def _bound_words(fraction: float) -> str:
     return f"{fraction * 100:.0f} %"
 
 
+def _about(fraction: float) -> str:
+    """'About 75 %', 'Over 99 %', 'Under 1 %': a rounded fraction that starts a sentence."""
+    words = _bound_words(fraction)
+    return f"About {words}" if words[0].isdigit() else words[0].upper() + words[1:]
+
+
 def _reasons(row: Mapping, settings: Mapping) -> list[str]:
     r = settings["ranking"]
     t_k = float(settings["survival"]["temperature_k"])
@@ -463,7 +469,7 @@ def _reasons(row: Mapping, settings: Mapping) -> list[str]:
     bound = _num(row.get("target_bound_fraction"))
     out.append(f"Bound: {_fmt(row.get('target_binding_ev'), 0, MEV_PER_EV)} meV, "
                f"{_fmt(row.get('target_binding_over_kt'), 1)} kT at {t_k:g} K"
-               + (f"; about {_bound_words(bound)} of the pairs bound at {density:.3g} cm\u207b\u00b2 (Saha estimate)."
+               + (f"; {_about(bound).lower()} of the pairs bound at {density:.3g} cm\u207b\u00b2 (Saha estimate)."
                   if math.isfinite(bound) else "."))
     lam = _num(row.get("target_emission_nm"))
     lam_full = _num(row.get("target_emission_compensated_nm"))
@@ -658,16 +664,19 @@ def _overview(ranked, rejects, manifest, settings) -> dict:
     }
 
 
+#: Score parts on the page: (ranked column suffix, weight key, bar class).
+SCORE_PARTS = (("binding", "binding", "sb"), ("margin", "margin", "sm"), ("window", "window", "sw"),
+               ("brightness", "brightness", "sr"))
+
+
 def _score_bar(row: Mapping, weights: Mapping) -> dict:
-    wb, wm, ww = (float(weights.get(k, 0)) for k in ("binding", "margin", "window"))
-    total = (wb + wm + ww) or 1.0
-    parts = [("sb", wb * _num(row.get("score_binding")) / total),
-             ("sm", wm * _num(row.get("score_margin")) / total),
-             ("sw", ww * _num(row.get("score_window")) / total)]
+    w = {name: float(weights.get(key, 0)) for name, key, _ in SCORE_PARTS}
+    total = sum(w.values()) or 1.0
+    parts = [(cls, w[name] * _num(row.get(f"score_{name}")) / total) for name, _, cls in SCORE_PARTS]
     return {"parts": [{"cls": cls, "width": f"{(value if math.isfinite(value) else 0.0) * 48:.0f}px"}
                       for cls, value in parts],
-            "title": "parts: " + " + ".join(f"{name} {_fmt(row.get('score_' + name), 2)}"
-                                            for name in ("binding", "margin", "window"))}
+            "title": "parts: " + " + ".join(f"{'bound' if name == 'binding' else name} "
+                                            f"{_fmt(row.get('score_' + name), 2)}" for name, _, _ in SCORE_PARTS)}
 
 
 def _band_text(row: Mapping, base: str, digits: int, scale: float = 1.0) -> str:
