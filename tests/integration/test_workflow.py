@@ -180,3 +180,22 @@ def test_validate_campaign_prints_the_rejects_without_screening(tmp_path):
     assert len(pd.read_csv(tmp_path / "results" / "validation" / "rejects.csv")["entry_id"].unique()) == 7
     assert not (tmp_path / "results" / "shards").exists()  # nothing screened
     assert not (tmp_path / "results" / "cache" / "keldysh_table.npz").exists()
+
+
+def test_placeholder_partition_or_account_stops_before_any_submission(tmp_path):
+    """The SLURM profile's EDIT_ME placeholders stop even a dry run, with the remedy (README, SLURM)."""
+    profile = yaml.safe_load((REPO / "workflow" / "profiles" / "slurm" / "config.yaml").read_text())
+    kept = {k: profile[k] for k in ("default-resources", "set-resources")}  # not the executor: no cluster here
+    (tmp_path / "prof").mkdir()
+    (tmp_path / "prof" / "config.yaml").write_text(yaml.safe_dump(kept))
+    config = yaml.safe_load((REPO / "config" / "config.yaml").read_text())
+    config["campaign"] = str(REPO / "inputs" / "demo")
+    (tmp_path / "config.yaml").write_text(yaml.safe_dump(config))
+    res = snakemake(tmp_path, "-n", "--profile", str(tmp_path / "prof"), check=False)
+    text = res.stdout + res.stderr
+    assert res.returncode != 0
+    assert "the cluster profile still holds placeholders" in text and "slurm_partition=EDIT_ME_partition" in text
+    assert "Nothing was submitted" in text and "rule screen_shard" not in text
+    kept["default-resources"].update(slurm_partition="short", slurm_account="mygroup")
+    (tmp_path / "prof" / "config.yaml").write_text(yaml.safe_dump(kept))
+    assert snakemake(tmp_path, "-n", "--profile", str(tmp_path / "prof"), check=False).returncode == 0

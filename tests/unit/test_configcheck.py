@@ -71,3 +71,20 @@ def test_text_where_a_number_is_expected_names_the_key_and_the_remedy():
     # real numbers, text settings and words that are not numbers are left to the schema
     assert not text_given_for_numbers({"survival": {"temperature_k": 10}, "campaign": "inputs/demo",
                                        "ranking": {"environment": "10", "shortlist_size": "many"}}, schema)
+
+
+def test_placeholders_of_the_shipped_slurm_profile_are_caught(repo):
+    import yaml
+
+    from lamellume.configcheck import placeholder_message, placeholder_resources
+
+    profile = yaml.safe_load((repo / "workflow" / "profiles" / "slurm" / "config.yaml").read_text())
+    defaults = [f"{k}={v}" for k, v in profile["default-resources"].items()]
+    found = placeholder_resources(defaults, profile.get("set-resources", {}))
+    assert found == ["default-resources slurm_partition=EDIT_ME_partition",
+                     "default-resources slurm_account=EDIT_ME_account"]
+    assert "Nothing was submitted" in placeholder_message(found)
+    filled = [a.replace("EDIT_ME_", "") for a in defaults]
+    assert placeholder_resources(filled, {"screen_shard": {"slurm_account": "EDIT_ME_x"}}) == [
+        "set-resources screen_shard: slurm_account=EDIT_ME_x"]
+    assert placeholder_resources(filled, {}) == [] and placeholder_message([]) == ""

@@ -93,3 +93,35 @@ def cross_problems(config: Mapping[str, Any]) -> list[str]:
         else:
             seen[name] = i
     return out
+
+
+#: Marker of a value the user must replace in a shipped profile (workflow/profiles/slurm).
+PLACEHOLDER = "EDIT_ME"
+
+
+def placeholder_resources(default_args, overrides) -> list[str]:
+    """Cluster resources that still hold a profile's placeholder, one text per resource.
+
+    Parameters
+    ----------
+    default_args : iterable of str
+        The ``name=value`` texts of Snakemake's default resources.
+    overrides : mapping
+        Rule name -> {resource name: value text} of Snakemake's ``set-resources``.
+    """
+    found = [f"default-resources {a}" for a in default_args if PLACEHOLDER in str(a)]
+    for rule, resources in overrides.items():
+        found += [f"set-resources {rule}: {name}={value}" for name, value in resources.items()
+                  if PLACEHOLDER in str(value)]
+    return found
+
+
+def placeholder_message(found) -> str:
+    """The stop message for placeholders left in the cluster profile (empty when none)."""
+    if not found:
+        return ""
+    return ("lamellume: the cluster profile still holds placeholders (" + "; ".join(found) + "). Set your "
+            "cluster's partition and account in workflow/profiles/slurm/config.yaml (`sinfo -s` lists "
+            "partitions, `sacctmgr -n -s list user $USER format=account` your accounts), or give them for this "
+            "run: --default-resources slurm_partition=<partition> slurm_account=<account> runtime=60 mem_mb=2000 "
+            "cpus_per_task=1. Nothing was submitted.")

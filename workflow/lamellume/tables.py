@@ -136,7 +136,8 @@ _LONG = [
     ("mu_inplane_me", F, "m_e", "in-plane reduced mass of the bright pair (geometric mean of principal values)"),
     ("mu_small_me", F, "m_e", "smaller principal in-plane reduced mass of the bright pair"),
     ("mu_large_me", F, "m_e", "larger principal in-plane reduced mass of the bright pair"),
-    ("mu_angle_deg", F, "deg", "angle of the light principal reduced-mass axis from the layer-frame x axis"),
+    ("mu_angle_deg", F, "deg", "angle of the axis of mu_small_me (the lighter principal reduced mass of the bright pair) from the "
+     "layer-frame x axis, counter-clockwise seen from +z"),
     ("mu_dark_me", F, "m_e", "in-plane reduced mass of the fundamental (VBM, CBM) pair"),
     ("r0_angstrom", F, "Angstrom", "Rytova-Keldysh screening length of the N-layer stack"),
     ("kappa", F, "1", "mean dielectric constant of the surroundings (bulk rows: the crystal's sqrt(eps_par eps_perp))"),

@@ -8,7 +8,8 @@ from pathlib import Path
 from snakemake.utils import validate
 
 sys.path.insert(0, str(Path(workflow.basedir) / "workflow"))
-from lamellume.configcheck import cross_problems, text_given_for_numbers  # noqa: E402
+from lamellume.configcheck import (  # noqa: E402
+    cross_problems, placeholder_message, placeholder_resources, text_given_for_numbers)
 from lamellume.provenance import adapter_files  # noqa: E402
 from lamellume import io  # noqa: E402
 from lamellume.io import campaign_listing as campaign_listing_rows, canonical_json_hash, snapshot_json  # noqa: E402
@@ -23,6 +24,21 @@ if text_given_for_numbers(config, io.load_schema("config.schema.json")):
 validate(config, schema="../schemas/config.schema.json")
 if cross_problems(config):  # before any job: one line per problem, each with its key path
     sys.exit("lamellume: the config has problems:\n  " + "\n  ".join(cross_problems(config)))
+
+
+
+def cluster_placeholders():
+    """Resources of the profile in use that still hold the shipped placeholder (EDIT_ME_...)."""
+    rs = workflow.resource_settings
+    defaults = getattr(rs.default_resources, "args", None) or []
+    overrides = {rule: {name: getattr(r, "raw", r) for name, r in res.items()}
+                 for rule, res in (rs.overwrite_resources or {}).items()}
+    return placeholder_resources(defaults, overrides)
+
+
+# Before planning, so a dry run stops too and nothing is ever submitted with a placeholder.
+if cluster_placeholders():
+    sys.exit(placeholder_message(cluster_placeholders()))
 
 
 wildcard_constraints:
