@@ -368,6 +368,16 @@ INTENDED_CHANGES = (
      "criterion itself is the Saha bound fraction at the planned pair density, which depends on the reduced "
      "mass too, so it is no single line here."),
     ("needed: 4 kT = 103 meV at 300 K", "floor: 4 kT = 103 meV at 300 K"),
+    # issue 14 item 7: every surroundings label carries its dielectric constants (once)
+    ("on silica", "on silica (above 1.0, below 3.9)"),
+    ("suspended", "suspended (above 1.0, below 1.0)"),
+    ("(above 1.0, below 3.9) (above 1.0, below 3.9)", "(above 1.0, below 3.9)"),
+    ("(above 1.0, below 1.0) (above 1.0, below 1.0)", "(above 1.0, below 1.0)"),
+    ("encapsulated", "encapsulated (above 4.5, below 4.5)"),
+    ("(above 4.5, below 4.5) (above 4.5, below 4.5)", "(above 4.5, below 4.5)"),
+    # issue 14 item 7: the rejects' Check column names the check in words, not the stage name
+    (" contract tensor:", " record breaks the input contract (schema or physical checks) tensor:"),
+    (" valleys read no", " valleys file could not be read as JSON no"),
 )
 #: Rewritten on purpose for the exciton-level verdict, the emission bracket and the model error
 #: (issue 17); their new wording is checked by test_brightness_words_* and test_methods_*.
