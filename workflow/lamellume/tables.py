@@ -310,8 +310,8 @@ _UNCERTAINTY = [
     ("p_pass_margin", F, "1", "probability that the exciton-level (dark - bright) margin criterion is met"),
     ("p_pass_binding", F, "1", "probability that the bound criterion (bound fraction, binding/kT) is met"),
     ("p_pass_window", F, "1", "probability that the emission lies in the target window"),
-    ("n_samples", "int32", "1", "Monte Carlo samples per entry (0 = propagation disabled)"),
-    ("seed", "int64", "1", "campaign seed; each entry's stream also depends on its identifier"),
+    ("n_samples", "int32", "1", "Monte Carlo samples per compound (0 = propagation disabled)"),
+    ("seed", "int64", "1", "campaign seed; each compound's stream also depends on its identifier"),
 ]
 
 _CHANGES = [
