@@ -334,7 +334,7 @@ def test_uncertainty_columns_shown_only_when_present(settings):
     errbar = re.compile(r'<line class="errbar[ "]')
     assert "P(all met)" not in plain and not errbar.search(plain)
     base = _ranked(ids, settings)
-    extra = {"p_meets_all": np.linspace(0.2, 0.9, 6), "p_direct_target": np.full(6, 0.7)}
+    extra = {"p_meets_all": np.linspace(0.2, 0.9, 6), "p_pass_direct": np.full(6, 0.7)}
     for name in ("target_binding_ev", "target_optical_gap_ev", "target_emission_nm"):
         for q, f in (("p16", 0.9), ("p50", 1.0), ("p84", 1.1)):
             extra[f"{name}_{q}"] = base[name].to_numpy() * f

@@ -351,7 +351,7 @@ def _env_with_constants(name: str, settings: Mapping) -> str:
 # ---------------------------------------------------------------------------
 
 #: Probability columns shown inside the criterion cells of the compound table.
-CRITERION_PROBABILITY = {"pass_direct": "p_direct_target", "pass_margin": "p_pass_margin",
+CRITERION_PROBABILITY = {"pass_direct": "p_pass_direct", "pass_margin": "p_pass_margin",
                          "pass_binding": "p_pass_binding", "pass_window": "p_pass_window"}
 PROBABILITY_LABELS = {"p_meets_all": "P(all met)"}
 

@@ -305,8 +305,9 @@ _WIDE = [
 ]
 
 _UNCERTAINTY = [
-    ("p_direct_target", F, "1", "probability that the gap is direct at the target layer count"),
+    ("p_gap_direct", F, "1", "probability that the band gap is direct at the target layer count"),
     ("p_meets_all", F, "1", "probability that every ranking criterion is met"),
+    ("p_pass_direct", F, "1", "probability that the brightness criterion is met (the lowest exciton at the target is bright)"),
     ("p_pass_margin", F, "1", "probability that the exciton-level (dark - bright) margin criterion is met"),
     ("p_pass_binding", F, "1", "probability that the bound criterion (bound fraction, binding/kT) is met"),
     ("p_pass_window", F, "1", "probability that the emission lies in the target window"),
