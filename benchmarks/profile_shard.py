@@ -46,24 +46,30 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--size", type=int, default=2500)
     parser.add_argument("--out", type=Path, default=ROOT / "benchmarks" / "out" / "profile")
+    parser.add_argument("--campaign", type=Path, help="screen this campaign's records instead of a new one")
+    parser.add_argument("--dump", type=Path, help="also write the raw cProfile statistics here")
     args = parser.parse_args()
     from lamellume import io, keldysh, pipeline
 
     out = args.out.resolve()
     shutil.rmtree(out, ignore_errors=True)
     out.mkdir(parents=True)
-    campaign = out / "campaign"
-    subprocess.run([sys.executable, str(ROOT / "inputs" / "make_campaign.py"), "--out", str(campaign),
-                    "--count", str(args.size), "--no-broken", "--cif-fraction", "0"], check=True,
-                   capture_output=True)
+    campaign = args.campaign.resolve() if args.campaign else out / "campaign"
+    if not args.campaign:
+        subprocess.run([sys.executable, str(ROOT / "inputs" / "make_campaign.py"), "--out", str(campaign),
+                        "--count", str(args.size), "--no-broken", "--cif-fraction", "0"], check=True,
+                       capture_output=True)
     cfg = yaml.safe_load((ROOT / "config" / "config.yaml").read_text())
     t = time.perf_counter()
     io.save_arrays(keldysh.build_table().to_arrays(), str(out / "keldysh_table.npz"))
     table_s = time.perf_counter() - t
-    physics = {k: cfg[k] for k in ("layers", "structure", "environments", "monolayer", "emission_bands")}
-    propagation = {k: cfg[k] for k in ("uncertainty", "survival", "ranking", "layers", "monolayer", "environments")}
+    # the sections workflow/rules/common.smk hands the screen_shard job (physics_settings,
+    # uncertainty_settings)
+    physics = {k: cfg[k] for k in ("layers", "structure", "environments", "monolayer", "excitons", "emission_bands")}
+    propagation = {k: cfg[k] for k in ("uncertainty", "survival", "ranking", "layers", "monolayer", "excitons",
+                                       "environments")}
     outputs = {n: str(out / f"{n}.parquet") for n in pipeline.SHARD_TABLES + ("uncertainty",)}
-    paths = sorted(str(p) for p in (campaign / "entries").glob("*.json"))
+    paths = sorted(str(p) for p in (campaign / "entries").glob("*.json"))[:args.size]
     profile = cProfile.Profile()
     t = time.perf_counter()
     profile.enable()
@@ -71,6 +77,8 @@ def main() -> None:
                            str(out / "cache"), outputs)
     profile.disable()
     total = time.perf_counter() - t
+    if args.dump:
+        profile.dump_stats(str(args.dump))
     stats = pstats.Stats(profile).stats
     print(f"Keldysh table build (not profiled, one core): {table_s:.2f} s\n")
     print(f"| stage of one shard job, {args.size} records | s (profiled) | share |")

@@ -332,3 +332,27 @@ def test_surroundings_and_checks_are_shown_in_words(driver, run):
         "return Array.from(document.querySelectorAll('#rejects tbody tr')).map(r => r.cells[3].textContent);")
     assert checks and "record breaks the input contract (schema or physical checks)" in checks
     assert not set(checks) & {"contract", "read", "structure", "normalise", "duplicate", "skipped"}
+
+
+def test_cards_plan_the_first_experiment(driver, run):
+    # Issue 18: every card of "What to make first" plans the first experiment, in model-estimate wording.
+    cards = driver.execute_script(
+        "return Array.from(document.querySelectorAll('#make-first article.card')).map(c => ({"
+        "labels: Array.from(c.querySelectorAll('dl.plan dt')).map(d => d.textContent.trim()),"
+        "emission: Array.from(c.querySelectorAll('dl.plan dd')).map(d => d.innerText)[1] || '',"
+        "head: (c.querySelector('.plan-head') || {}).textContent || '',"
+        "text: c.innerText}));")
+    assert cards, "no card on the page"
+    with open(ROOT / "config" / "config.yaml", encoding="utf-8") as fh:
+        envs = yaml.safe_load(fh)["environments"]
+    for card in cards:
+        assert card["labels"] == ["Make", "Expected emission", "Quick test", "Measure at", "Pump below"]
+        assert "model estimates" in card["head"]
+        # one expected range per surroundings, each with its dielectric constants
+        assert card["emission"].count("dielectric constant") == len(envs), card["emission"]
+        assert "16\u201384 %" in card["emission"]
+        assert "reflectance" in card["text"].lower() and "cooling" in card["text"]
+        assert "Mott estimate" in card["text"] and "cm\u207b\u00b2" in card["text"]
+    body = driver.execute_script("return document.body.innerText")
+    assert "Emits at" not in body and "100 % of pairs" not in body
+    assert "given the input uncertainties" in body

@@ -11,6 +11,7 @@ from pathlib import Path
 import numpy as np
 import markupsafe
 import pandas as pd
+from scipy import constants as sc
 import pytest
 import yaml
 
@@ -378,6 +379,8 @@ INTENDED_CHANGES = (
     # issue 14 item 7: the rejects' Check column names the check in words, not the stage name
     (" contract tensor:", " record breaks the input contract (schema or physical checks) tensor:"),
     (" valleys read no", " valleys file could not be read as JSON no"),
+    # issue 18: what the model leaves out, stated among the cautions
+    ("the run. A high rank means", "the run. " + " ".join(report.MODEL_LIMITS) + " A high rank means"),
 )
 #: Rewritten on purpose for the exciton-level verdict, the emission bracket and the model error
 #: (issue 17); their new wording is checked by test_brightness_words_* and test_methods_*.
@@ -587,3 +590,57 @@ def test_recompute_section_says_why_it_is_empty(settings):
     page = report.build_html(ranked, _long(ranked, off), _rejects(), MANIFEST, report.empty_changes(), off,
                              refinement=empty)
     assert "switched off" in page
+
+
+PLAN_SETTINGS = {
+    "environments": {"suspended": {"top": 1.0, "bottom": 1.0}, "encapsulated": {"top": 4.5, "bottom": 4.5}},
+    "survival": {"temperature_k": 300.0, "pair_density_per_cm2": 1e12},
+    "ranking": {"environment": "encapsulated", "target_layers": 1},
+}
+
+
+def _plan_row(**extra):
+    row = {"entry_id": "x", "thinning_verdict": "direct only as a monolayer, indirect from 2 layers",
+           "gap_character_1l": "direct", "character_switch_layers": 2, "target_brightness": "bright",
+           "target_exciton_margin_ev": 0.08, "target_bright_exciton_ev": 1.9, "target_mott_density_per_cm2": 2.0e13,
+           "target_radius_angstrom": 12.0, "emission_nm_p16__suspended": 640.0, "emission_nm_p84__suspended": 700.0,
+           "emission_nm_p16__encapsulated": 630.0, "emission_nm_p84__encapsulated": 690.0}
+    row.update(extra)
+    return row
+
+
+def test_card_plan_names_every_step_of_the_first_experiment():
+    long = pd.DataFrame({"entry_id": ["x", "x"], "layers": [1, 1], "environment": ["suspended", "encapsulated"],
+                         "emission_nm": [668.0, 655.0], "emission_compensated_nm": [668.0, 668.0]})
+    plan = dict(report._plan(_plan_row(), long, PLAN_SETTINGS))
+    assert list(plan) == ["Make", "Expected emission", "Quick test", "Measure at", "Pump below"]
+    assert plan["Make"].startswith("1-layer flake(s), encapsulated")
+    # one range per surroundings, with its dielectric constants and the Monte Carlo 16-84 % range
+    susp, enc = plan["Expected emission"]
+    assert "1.0 above, 1.0 below" in susp and "640\u2013700 nm" in susp and "nominal 668 nm" in susp
+    assert "4.5 above, 4.5 below" in enc and "630\u2013690 nm" in enc and "668 nm if the gap fully" in enc
+    tests = " ".join(plan["Quick test"])
+    assert "monolayer and bilayer" in tests and "brighten on cooling" in tests and "reflectance" in tests.lower()
+    # 80 meV is about 3 kT at 300 K: little change from the dark state on cooling
+    assert "little change" in plan["Measure at"]
+    # 30 meV: kT equals it at 30 meV / k_B = 348 K (scipy.constants, independent of lamellume.units)
+    close = dict(report._plan(_plan_row(target_exciton_margin_ev=0.03), long, PLAN_SETTINGS))
+    assert f"about {0.03 * sc.e / sc.k:.0f} K" in close["Measure at"] and "temperature series" in close["Measure at"]
+    assert "2e+13 cm\u207b\u00b2" in plan["Pump below"] and "1e+12" in plan["Pump below"]
+
+
+def test_card_plan_for_a_dark_ground_state_expects_dimming_and_no_layer_test():
+    plan = dict(report._plan(_plan_row(target_brightness="dark", target_exciton_margin_ev=-0.03,
+                                       character_switch_layers=-1), None, PLAN_SETTINGS))
+    tests = " ".join(plan["Quick test"])
+    assert "dim on cooling" in tests and "monolayer and bilayer" not in tests
+    assert all("no Monte Carlo range" not in t for t in plan["Expected emission"])
+    no_mc = dict(report._plan(_plan_row(**{"emission_nm_p16__suspended": float("nan")}), None, PLAN_SETTINGS))
+    assert "no Monte Carlo range" in no_mc["Expected emission"][0]
+
+
+def test_bound_fraction_is_rounded_never_a_guarantee():
+    assert report._bound_words(0.997) == "over 99 %"
+    assert report._bound_words(0.754) == "75 %"
+    assert report._bound_words(0.001) == "under 1 %"
+    assert report._about(0.754) == "About 75 %" and report._about(0.9995) == "Over 99 %"

@@ -299,9 +299,17 @@ def read_record(path: str | os.PathLike) -> RawRecord:
         return RawRecord(path, digest, error=f"not UTF-8 text (byte {exc.start}: {exc.reason})")
     if text.startswith("\ufeff"):
         text = text[1:]
+    repeated: list[bool] = []
+
+    def object_pairs(pairs: list[tuple[str, Any]]) -> dict:
+        obj = _object_pairs(pairs)
+        if obj.repeated:
+            repeated.append(True)
+        return obj
+
     try:
         data = json.loads(text, parse_constant=_reject_constant, parse_int=_parse_int,
-                          object_pairs_hook=_object_pairs)
+                          object_pairs_hook=object_pairs)
     except json.JSONDecodeError as exc:
         return RawRecord(path, digest, error=f"invalid JSON at line {exc.lineno} column {exc.colno}: {exc.msg}")
     except RecursionError:
@@ -311,7 +319,9 @@ def read_record(path: str | os.PathLike) -> RawRecord:
             return RawRecord(path, digest, error="invalid JSON: an integer with more than "
                                                  f"{sys.get_int_max_str_digits()} digits")
         return RawRecord(path, digest, error=f"invalid JSON: {exc}")
-    problem = _content_problem(data, [])
+    # Decoded UTF-8 holds no lone surrogate; only a \\u escape can make one. Without a
+    # repeated key and without an escape there is nothing for the walk to find.
+    problem = _content_problem(data, []) if repeated or "\\u" in text else None
     if problem:
         return RawRecord(path, digest, error=problem[1], error_field=problem[0])
     return RawRecord(path, digest, data=data)

@@ -31,6 +31,13 @@ from lamellume import io
 PACKAGE = "lamellume"
 
 
+@functools.lru_cache(maxsize=None)
+def _parse(source: str) -> ast.Module:
+    """Syntax tree of a source (parsed once per process: every code version and every
+    rule's code input walks the same library files)."""
+    return ast.parse(source)
+
+
 def imported_modules(source: str, local: Iterable[str] = ()) -> set[str]:
     """Names of the ``lamellume`` modules (and of the ``local`` top-level modules) a source imports.
 
@@ -45,7 +52,7 @@ def imported_modules(source: str, local: Iterable[str] = ()) -> set[str]:
     """
     local = set(local)
     found: set[str] = set()
-    for node in ast.walk(ast.parse(source)):
+    for node in ast.walk(_parse(source)):
         if isinstance(node, ast.Import):
             for alias in node.names:
                 parts = alias.name.split(".")
@@ -78,7 +85,7 @@ def imported_modules(source: str, local: Iterable[str] = ()) -> set[str]:
 def declared_data_files(source: str) -> list[str]:
     """The module-level ``DATA_FILES`` tuple of a source (files the module reads at run time,
     relative to the library folder, e.g. the page's templates), read without importing it."""
-    for node in ast.parse(source).body:
+    for node in _parse(source).body:
         if isinstance(node, ast.Assign) and any(getattr(t, "id", None) == "DATA_FILES" for t in node.targets):
             return [str(name) for name in ast.literal_eval(node.value)]
     return []

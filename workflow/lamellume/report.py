@@ -97,6 +97,18 @@ CAUTIONS = (
     "and your safety officer.",
 )
 
+#: What the model leaves out, stated beside every result (issue 18).
+MODEL_LIMITS = (
+    "Not in the model: strain (it shifts band edges and can reorder valleys), charged excitons (trions) in doped "
+    "or gated samples, defect- and substrate-bound states, and spin or parity selection rules the record does not "
+    "give. Each can move or dim the emission.",
+    "The brightness proxy is a radiative rate of an ideal flake (a model estimate); real yields are usually set by "
+    "non-radiative decay, which the model does not include.",
+    "Probabilities and 16\u201384 % ranges are given the input uncertainties and the binding models' stated error; "
+    "they are not the chance that a sample will emit. Thresholds (bound fraction, margin, window) are configured "
+    "choices stated above, not laws.",
+)
+
 DASH = "\u2014"
 
 #: The compound table lists the best-ranked compounds up to this many rows, so a screen of
@@ -421,7 +433,7 @@ def brightness_words(row: Mapping, settings: Mapping) -> str:
         out = (f"Brightness unknown {where}: the record gives no competing valley (another label or a spin "
                "sub-band), so a lower dark exciton cannot be excluded; it is not counted as bright.")
     if math.isfinite(fraction):
-        out += f" About {_fmt(fraction * 100, 0)} % of the excitons are in the bright state at {t_k:g} K."
+        out += f" {_about(fraction)} of the excitons are in the bright state at {t_k:g} K (Boltzmann)."
     if not bool(row.get("target_spin_given")):
         out += " Spin was not given: every same-valley pair is taken as spin-allowed."
     if bool(row.get("target_binding_beyond_validity")):
@@ -439,6 +451,12 @@ def _bound_words(fraction: float) -> str:
     return f"{fraction * 100:.0f} %"
 
 
+def _about(fraction: float) -> str:
+    """'About 75 %', 'Over 99 %', 'Under 1 %': a rounded fraction that starts a sentence."""
+    words = _bound_words(fraction)
+    return f"About {words}" if words[0].isdigit() else words[0].upper() + words[1:]
+
+
 def _reasons(row: Mapping, settings: Mapping) -> list[str]:
     r = settings["ranking"]
     t_k = float(settings["survival"]["temperature_k"])
@@ -450,7 +468,7 @@ def _reasons(row: Mapping, settings: Mapping) -> list[str]:
     bound = _num(row.get("target_bound_fraction"))
     out.append(f"Bound: {_fmt(row.get('target_binding_ev'), 0, MEV_PER_EV)} meV, "
                f"{_fmt(row.get('target_binding_over_kt'), 1)} kT at {t_k:g} K"
-               + (f"; about {_bound_words(bound)} of the pairs bound at {density:.3g} cm\u207b\u00b2 (Saha estimate)."
+               + (f"; {_about(bound).lower()} of the pairs bound at {density:.3g} cm\u207b\u00b2 (Saha estimate)."
                   if math.isfinite(bound) else "."))
     lam = _num(row.get("target_emission_nm"))
     lam_full = _num(row.get("target_emission_compensated_nm"))
@@ -471,7 +489,107 @@ def _reasons(row: Mapping, settings: Mapping) -> list[str]:
     return out
 
 
-def _make_first(ranked: pd.DataFrame, settings: Mapping) -> dict:
+def _emission_ranges(row: Mapping, long: pd.DataFrame | None, settings: Mapping) -> list[str]:
+    """Expected emission at the target layer count in every surroundings, with its dielectric constants."""
+    n = int(settings["ranking"]["target_layers"])
+    here = pd.DataFrame()
+    if long is not None and len(long):
+        here = long[(long["entry_id"] == row.get("entry_id")) & (long["layers"] == n)].set_index("environment")
+    out = []
+    for env, entry in (settings.get("environments", {}) or {}).items():
+        kappa = (float(entry["top"]) + float(entry["bottom"])) / 2
+        where = (f"{environment_label(env, settings)} (dielectric constant {_fmt(entry['top'], 1)} above, "
+                 f"{_fmt(entry['bottom'], 1)} below; mean {_fmt(kappa, 2)})")
+        lo, hi = _num(row.get(f"emission_nm_p16__{env}")), _num(row.get(f"emission_nm_p84__{env}"))
+        lam = _num(here["emission_nm"].get(env)) if "emission_nm" in here else math.nan
+        full = _num(here["emission_compensated_nm"].get(env)) if "emission_compensated_nm" in here else math.nan
+        text = where + ": "
+        if math.isfinite(lo) and math.isfinite(hi):
+            text += f"{_fmt(lo, 0)}\u2013{_fmt(hi, 0)} nm (16\u201384 % given the input uncertainties)"
+        else:
+            text += "no Monte Carlo range"
+        if math.isfinite(lam):
+            text += f"; nominal {_fmt(lam, 0)} nm"
+            if math.isfinite(full) and abs(full - lam) >= 0.5:
+                text += f", {_fmt(full, 0)} nm if the gap fully compensates the screening"
+        out.append(text)
+    return out
+
+
+def _quick_tests(row: Mapping, settings: Mapping) -> list[str]:
+    """Fast ways to falsify the prediction, chosen from what the model says about the compound."""
+    n = int(settings["ranking"]["target_layers"])
+    out = []
+    switch = int(_num(row.get("character_switch_layers"))) if math.isfinite(_num(row.get("character_switch_layers"))) \
+        else -1
+    if _text(row.get("gap_character_1l")) == "direct" and switch == 2:
+        out.append("Thinning makes it bright: compare monolayer and bilayer emission under the same excitation. "
+                   "The model expects the monolayer far brighter (the bilayer gap is indirect); similar "
+                   "intensities would falsify the prediction.")
+    margin = _num(row.get("target_exciton_margin_ev"))
+    verdict = _text(row.get("target_brightness"))
+    if verdict == "bright":
+        out.append(f"Cool the sample: with a bright lowest exciton (the dark one about "
+                   f"{_fmt(margin, 0, MEV_PER_EV)} meV higher) emission should brighten on cooling; "
+                   "dimming on cooling points to a dark exciton below the bright one.")
+    elif verdict == "dark":
+        out.append(f"Cool the sample: with a dark lowest exciton (about {_fmt(-margin, 0, MEV_PER_EV)} meV below "
+                   "the bright one) emission should dim on cooling; brightening would falsify the dark verdict.")
+    else:
+        out.append("Cool the sample: brightening on cooling suggests a bright lowest exciton, dimming a dark one "
+                   "(the record gives no competing valley, so the model cannot say which).")
+    ex = _num(row.get("target_bright_exciton_ev"))
+    if math.isfinite(ex):
+        out.append(f"Measure reflectance (or absorption) beside the emission of the {n}-layer flake: the bright "
+                   f"exciton should show near {_fmt(ex, 2)} eV ({_fmt(units.wavelength_nm_from_energy_ev(ex), 0)} nm "
+                   "in the ranked surroundings); emission well below that feature points to a dark, charged or "
+                   "defect state.")
+    return out
+
+
+def _temperatures(row: Mapping, settings: Mapping) -> str:
+    t_k = float(settings["survival"]["temperature_k"])
+    temps = sorted({4.0, 77.0, t_k})
+    text = (", ".join(f"{t:g} K" for t in temps)
+            + " (liquid-helium and liquid-nitrogen stages and the operating temperature)")
+    margin = _num(row.get("target_exciton_margin_ev"))
+    if math.isfinite(margin) and margin > 0:
+        t_star = margin / units.BOLTZMANN_EV_PER_K
+        if t_star <= 2 * t_k:
+            text += (f"; kT equals the {_fmt(margin, 0, MEV_PER_EV)} meV dark-bright splitting at about "
+                     f"{t_star:.0f} K, so the dark share changes most between 4 K and {t_k:g} K: a temperature "
+                     "series there tests the verdict")
+        else:
+            text += (f"; the dark exciton lies {_fmt(margin, 0, MEV_PER_EV)} meV above the bright one, far above "
+                     f"kT at {t_k:g} K, so the model expects little change from it on cooling")
+    return text + "."
+
+
+def _pump_limit(row: Mapping, settings: Mapping) -> str:
+    mott = _num(row.get("target_mott_density_per_cm2"))
+    density = float(settings["survival"]["pair_density_per_cm2"])
+    if not math.isfinite(mott):
+        return "No Mott estimate (the exciton radius is not known)."
+    return (f"Keep the photo-excited pair density well below the Mott estimate of about {mott:.1g} cm\u207b\u00b2 "
+            f"(1/(\u03c0 r\u00b2) with the exciton radius {_fmt(row.get('target_radius_angstrom'), 0)} \u00c5), "
+            f"where excitons dissolve into a plasma; the bound fraction above assumes {density:.2g} cm\u207b\u00b2.")
+
+
+def _plan(row: Mapping, long: pd.DataFrame | None, settings: Mapping) -> list[tuple[str, Any]]:
+    """The first experiment for one card: (label, text or list of texts), all model estimates."""
+    r = settings["ranking"]
+    n = int(r["target_layers"])
+    make = (f"{n}-layer flake(s), {environment_label(r['environment'], settings)} (the surroundings ranked)")
+    if _text(row.get("thinning_verdict")):
+        make += f"; thinning: {_text(row.get('thinning_verdict'))}"
+    return [("Make", make + "."),
+            ("Expected emission", _emission_ranges(row, long, settings)),
+            ("Quick test", _quick_tests(row, settings)),
+            ("Measure at", _temperatures(row, settings)),
+            ("Pump below", _pump_limit(row, settings))]
+
+
+def _make_first(ranked: pd.DataFrame, settings: Mapping, long: pd.DataFrame | None = None) -> dict:
     r = settings["ranking"]
     cands = ranked[ranked["meets_all_criteria"].astype(bool)] if len(ranked) else ranked
     pick = cands.head(3) if len(cands) else ranked.head(3)
@@ -480,11 +598,13 @@ def _make_first(ranked: pd.DataFrame, settings: Mapping) -> dict:
     for rowd in pick.to_dict("records"):
         cards.append({
             "rank": int(rowd["rank"]), "id": _text(rowd["entry_id"]), "formula": _text(rowd.get("formula")),
-            "headline": (f"{_fmt(rowd.get('target_emission_nm'), 0)} nm \u00b7 "
+            "headline": (f"about {_fmt(rowd.get('target_emission_nm'), 0)} nm (model estimate) \u00b7 "
                          f"{_fmt(rowd.get('target_binding_ev'), 0, MEV_PER_EV)} meV \u00b7 "
                          f"score {_fmt(rowd.get('score'), 2)}"),
             "reasons": _reasons(rowd, settings),
             "missed": [short for key, short, _ in words if key in rowd and not bool(rowd[key])],
+            "plan": [{"label": label, "items": value if isinstance(value, list) else [value]}
+                     for label, value in _plan(rowd, long, settings)],
         })
     return {"screened": len(ranked), "candidates": len(cands), "layers": int(r["target_layers"]),
             "environment": environment_label(r["environment"], settings), "cards": cards}
@@ -543,16 +663,19 @@ def _overview(ranked, rejects, manifest, settings) -> dict:
     }
 
 
+#: Score parts on the page: (ranked column suffix, weight key, bar class).
+SCORE_PARTS = (("binding", "binding", "sb"), ("margin", "margin", "sm"), ("window", "window", "sw"),
+               ("brightness", "brightness", "sr"))
+
+
 def _score_bar(row: Mapping, weights: Mapping) -> dict:
-    wb, wm, ww = (float(weights.get(k, 0)) for k in ("binding", "margin", "window"))
-    total = (wb + wm + ww) or 1.0
-    parts = [("sb", wb * _num(row.get("score_binding")) / total),
-             ("sm", wm * _num(row.get("score_margin")) / total),
-             ("sw", ww * _num(row.get("score_window")) / total)]
+    w = {name: float(weights.get(key, 0)) for name, key, _ in SCORE_PARTS}
+    total = sum(w.values()) or 1.0
+    parts = [(cls, w[name] * _num(row.get(f"score_{name}")) / total) for name, _, cls in SCORE_PARTS]
     return {"parts": [{"cls": cls, "width": f"{(value if math.isfinite(value) else 0.0) * 48:.0f}px"}
                       for cls, value in parts],
-            "title": "parts: " + " + ".join(f"{name} {_fmt(row.get('score_' + name), 2)}"
-                                            for name in ("binding", "margin", "window"))}
+            "title": "parts: " + " + ".join(f"{'bound' if name == 'binding' else name} "
+                                            f"{_fmt(row.get('score_' + name), 2)}" for name, _, _ in SCORE_PARTS)}
 
 
 def _band_text(row: Mapping, base: str, digits: int, scale: float = 1.0) -> str:
@@ -741,6 +864,8 @@ REFERENCES = (
     "T. Olsen, S. Latini, F. Rasmussen, K. S. Thygesen, Phys. Rev. Lett. 116, 056401 (2016).",
     "W. Kohn, J. M. Luttinger, Phys. Rev. 98, 915 (1955).",
     "P. P. Edwards, M. J. Sienko, Phys. Rev. B 17, 2575 (1978) (Mott criterion n^(1/3) a = 0.26).",
+    "Y. P. Varshni, Physica 34, 149 (1967); K. P. O'Donnell, X. Chen, Appl. Phys. Lett. 58, 2924 (1991) "
+    "(temperature dependence of the gap).",
     "T. C. Berkelbach, M. S. Hybertsen, D. R. Reichman, Phys. Rev. B 88, 045318 (2013) (Rytova-Keldysh "
     "against many-body calculations: the default model error).",
     "S. P. Ong et al., Comput. Mater. Sci. 68, 314 (2013) (pymatgen, used to read structure files).",
@@ -756,6 +881,7 @@ def _cautions(manifest: Mapping) -> list[str]:
         covered = "not measurements" in text or "laboratory safety" in text  # said above in our words
         if text not in items and not covered:
             items.append(text)
+    items.extend(MODEL_LIMITS)
     items.append("A high rank means the model inputs look promising, not that a sample will emit. "
                  "Confirm with measurements before committing growth or device time.")
     return items
@@ -879,7 +1005,7 @@ def build_html(ranked: pd.DataFrame, long: pd.DataFrame, rejects: pd.DataFrame, 
                      f" \u00b7 written {_text(manifest.get('written_utc', ''))}"),
         "caution_top": CAUTIONS[1],
         "digest": _digest(changes, baseline),
-        "make_first": _make_first(ranked, settings),
+        "make_first": _make_first(ranked, settings, long),
         "overview": _overview(ranked, rejects, manifest, settings),
         "recompute": _recompute(refinement, settings),
         "table": _table(listed, settings, entries, left_out),
@@ -946,7 +1072,7 @@ def _baseline_info(frame: pd.DataFrame, config_hash: str) -> dict:
 
 #: Columns of the long table the page uses (the file can be large: read only these).
 LONG_COLUMNS_USED = ["entry_id", "layers", "environment", "gap_character", "direct_gap_ev",
-                     "optical_gap_ev", "binding_ev"]
+                     "optical_gap_ev", "binding_ev", "emission_nm", "emission_compensated_nm"]
 
 
 def write_summary(inputs: Mapping[str, str], outputs: Mapping[str, str], settings: Mapping,
