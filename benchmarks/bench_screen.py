@@ -58,8 +58,9 @@ entries = sorted(str(p) for p in (Path(cfg["campaign"]) / "entries").glob("*.jso
 t0 = time.perf_counter()
 io.save_arrays(keldysh.build_table().to_arrays(), work / "keldysh_table.npz")
 t1 = time.perf_counter()
-keys = ("layers", "structure", "environments", "monolayer", "emission_bands")
-ukeys = ("uncertainty", "survival", "ranking", "layers", "monolayer", "environments")
+# the sections of physics_settings() and uncertainty_settings() in workflow/rules/common.smk
+keys = ("layers", "structure", "environments", "monolayer", "excitons", "emission_bands")
+ukeys = ("uncertainty", "survival", "ranking", "layers", "monolayer", "excitons", "environments")
 shard = {n: str(work / "shard" / f"{n}.parquet") for n in pipeline.SHARD_TABLES + ("uncertainty",)}
 counts = pipeline.run_shard_job(entries, cfg["campaign"], {k: cfg[k] for k in keys}, {k: cfg[k] for k in ukeys},
                                 str(work / "keldysh_table.npz"), str(work / "cache"), shard)

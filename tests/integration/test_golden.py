@@ -182,6 +182,10 @@ _BULK_3D = ("issue 17 item 3: bulk rows get the 3D Saha bound fraction at a volu
             "own; the 2D bound fraction is for layer rows only")
 EXPECTED_CHANGES[("tables/screen_long.parquet", "bound_fraction", "*")] = _BULK_3D
 EXPECTED_CHANGES[("tables/screen_long.parquet", "bound_fraction_3d", "*")] = _BULK_3D
+_THERMAL = "added (issue 17 item 7): thermal gap shift from the record's gap_temperature, and where it was applied"
+EXPECTED_CHANGES[("tables/screen_wide.parquet", "gap_temperature_k", "*")] = _THERMAL
+EXPECTED_CHANGES[("tables/screen_wide.parquet", "gap_thermal_shift_ev", "*")] = _THERMAL
+EXPECTED_CHANGES[("shortlist.csv", "Emission at", "*")] = _THERMAL
 _RADIUS = ("issue 17 item 4: the bulk row's binding, 2s/3s and radius come from one model (hydrogenic.bulk_exciton); "
            "every radius column is the in-plane rms radius of its row's model")
 for _col in ("binding_2s_ev", "binding_3s_ev", "radius_angstrom", "wannier_ok"):

@@ -33,6 +33,7 @@ import sys
 import time
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 import pyarrow.parquet as pq
 import pytest
@@ -288,6 +289,14 @@ def last_counts(log: Path, marker: str) -> dict[str, int]:
 
 def test_temperature_change_repropagates_without_rescreening(second_run):
     work, campaign, _ = second_run
+    # One record gives a thermal gap form (Varshni): its gaps follow the operating temperature, so it
+    # alone is screened again; every other record's screened rows do not depend on the temperature.
+    warm_path = sorted((campaign / "entries").glob("*.json"))[1]
+    record = json.loads(warm_path.read_text())
+    record["gap_temperature"] = {"form": "varshni", "alpha_ev_per_k": 4.5e-4, "beta_k": 220.0,
+                                 "calculation_temperature_k": 0.0}
+    warm_path.write_text(json.dumps(record))
+    warm = warm_path.stem
     snakemake(work, *TARGETS)  # up to date first, whatever ran before
     shards = sorted((work / "results" / "shards").iterdir())
     screened = {(d.name, t): pd.read_parquet(d / f"{t}.parquet")
@@ -302,21 +311,32 @@ def test_temperature_change_repropagates_without_rescreening(second_run):
     assert {rule for rule, _ in jobs} <= {"screen_shard"} | DOWNSTREAM, jobs
 
     snakemake(work, *TARGETS, configfile="config-77k.yaml")
+    recomputed = 0
     for d in shards:
         log = work / "results" / "logs" / "screen_shard" / f"{d.name}.log"
         screen = last_counts(log, "shard done")
-        assert screen["computed"] == 0 and screen["reused"] > 0, screen
+        has_warm = (screened[(d.name, "entries")]["entry_id"] == warm).any()
+        recomputed += screen["computed"]
+        assert screen["computed"] == int(has_warm) and screen["reused"] > 0, screen
         propagated = last_counts(log, "propagation done")
         assert propagated["reused"] == 0 and propagated["computed"] == screen["screened"], propagated
         for t in ("entries", "valleys", "exciton_long", "exciton_wide"):
             # the long table's survival columns (computed in the shard job) follow the temperature;
-            # every screened column stays exactly as it was
+            # every screened column of the records without a thermal form stays exactly as it was
             now, before = pd.read_parquet(d / f"{t}.parquet"), screened[(d.name, t)]
-            warm = [c for c in TEMPERATURE_COLUMNS if c in before.columns]
-            pd.testing.assert_frame_equal(now.drop(columns=warm), before.drop(columns=warm),
-                                          check_exact=True, obj=f"{d.name}/{t}")
-            if warm:
+            hot = [c for c in TEMPERATURE_COLUMNS if c in before.columns]
+            pd.testing.assert_frame_equal(
+                now[now["entry_id"] != warm].drop(columns=hot).reset_index(drop=True),
+                before[before["entry_id"] != warm].drop(columns=hot).reset_index(drop=True),
+                check_exact=True, obj=f"{d.name}/{t}")
+            if hot:
                 assert (now["temperature_k"] == 77.0).all()
+            if t == "exciton_long" and has_warm:
+                # Varshni (Physica 34, 149 (1967)), by hand: the gap at 77 K minus the gap at 300 K
+                change = 4.5e-4 * (300.0**2 / 520.0 - 77.0**2 / 297.0)
+                pick = lambda f: f[f["entry_id"] == warm]["optical_gap_ev"].to_numpy(dtype=float)  # noqa: E731
+                np.testing.assert_allclose(pick(now) - pick(before), change, rtol=1e-9)
+    assert recomputed == 1
     long = pd.read_parquet(work / "results" / "tables" / "screen_long.parquet", columns=["temperature_k"])
     assert (long["temperature_k"] == 77.0).all()
 

@@ -13,10 +13,13 @@ import sympy as sp
 from scipy import integrate
 
 from lamellume.gapshift import (
+    THERMAL_FORMS,
+    GapThermal,
     bose_einstein_shift_ev,
     environment_gap_change_ev,
     gap_at_temperature_ev,
     slab_gap_shift_ev,
+    thermal_gap_change_ev,
     varshni_shift_ev,
 )
 
@@ -74,6 +77,48 @@ def test_gap_at_temperature_round_trip():
     gap_77 = gap_at_temperature_ev(1.519, shift(0.0), shift(77.0))
     np.testing.assert_allclose(gap_at_temperature_ev(gap_77, shift(77.0), shift(0.0)), 1.519, rtol=1e-15)
     np.testing.assert_allclose(gap_77, 1.519 - 5.405e-4 * 77**2 / 281.0, rtol=1e-14)
+
+
+# --------------------------------------------------------------------------- per-record thermal change
+
+
+def _thermal(form, alpha=np.nan, beta=np.nan, coupling=np.nan, phonon=np.nan, calc=0.0):
+    return GapThermal(*(np.atleast_1d(np.asarray(v)) for v in (THERMAL_FORMS[form], alpha, beta, coupling, phonon,
+                                                               calc)))
+
+
+def test_thermal_change_gaas_77k_to_300k():
+    # GaAs (Vurgaftman, Meyer and Ram-Mohan, J. Appl. Phys. 89, 5815 (2001); from memory): Varshni
+    # alpha = 0.5405 meV/K, beta = 204 K; handbook gaps 1.508 eV at 77 K and 1.424 eV at 300 K
+    # (Sze; from memory). A calculation "at 77 K" moved to 300 K loses about 85 meV.
+    change = thermal_gap_change_ev(_thermal("varshni", 5.405e-4, 204.0, calc=77.0), 300.0)
+    np.testing.assert_allclose(change, 1.424 - 1.508, atol=0.004)
+    # Hand computation of the Varshni difference: alpha (77^2/281 - 300^2/504).
+    np.testing.assert_allclose(change, 5.405e-4 * (77.0**2 / 281.0 - 300.0**2 / 504.0), rtol=1e-13)
+
+
+def test_thermal_change_bose_einstein_against_mpmath():
+    # -S w [coth(w/2kT) - 1] at both temperatures, evaluated with mpmath (O'Donnell and Chen 1991);
+    # Si parameters S = 1.49, <hbar w> = 25.5 meV (from memory), calculation at 10 K, target 77 K.
+    import mpmath as mp
+
+    def shift(t):
+        return -1.49 * 0.0255 * (mp.coth(mp.mpf(0.0255) / (2 * mp.mpf(KB_EV_PER_K) * t)) - 1)
+
+    change = thermal_gap_change_ev(_thermal("bose-einstein", coupling=1.49, phonon=0.0255, calc=10.0), 77.0)
+    np.testing.assert_allclose(change, float(shift(77.0) - shift(10.0)), rtol=1e-8)
+
+
+def test_thermal_change_per_compound_form_and_none():
+    # Mixed compounds: no form -> 0 (gaps stay at the calculation's temperature); same temperature -> 0.
+    th = GapThermal(np.array([0, 1, 2]), np.array([np.nan, 5e-4, np.nan]), np.array([np.nan, 200.0, np.nan]),
+                    np.array([np.nan, np.nan, 1.5]), np.array([np.nan, np.nan, 0.025]), np.zeros(3))
+    change = thermal_gap_change_ev(th, 300.0)
+    assert change[0] == 0.0 and np.all(change[1:] < 0)
+    np.testing.assert_allclose(change[1], -5e-4 * 300.0**2 / 500.0, rtol=1e-14)
+    np.testing.assert_array_equal(thermal_gap_change_ev(th._replace(calculation_temperature_k=np.full(3, 300.0)),
+                                                        300.0), 0.0)
+    np.testing.assert_array_equal(th.take(np.array([2, 2, 0])).form_code, [2, 2, 0])
 
 
 # --------------------------------------------------------------------------- surroundings

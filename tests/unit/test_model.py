@@ -2,14 +2,17 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 from scipy import constants as sc
 
-from lamellume import keldysh, model
+from lamellume import gapshift, keldysh, model
 
 # CODATA via scipy.constants, independent of lamellume.units.
 RY_EV = sc.value("Rydberg constant times hc in eV")
+HC_EV_NM = sc.h * sc.c / sc.e * 1e9
 
 
 def test_label_codes_are_lexical_within_each_compound():
@@ -109,6 +112,32 @@ def test_binding_factor_scales_every_layer_binding(table):
     np.testing.assert_allclose(scaled.stack["binding_ev"], 1.2 * base.stack["binding_ev"], rtol=1e-14)
     np.testing.assert_allclose(2.0 - scaled.stack["bright_exciton_ev"], 1.2 * (2.0 - base.stack["bright_exciton_ev"]),
                                rtol=1e-12)
+
+
+def test_thermal_shift_moves_every_gap_and_no_binding(table):
+    # A Varshni compound (alpha 4.5e-4 eV/K, beta 220 K, calculated at 0 K) at 300 K: every gap, the
+    # optical gaps and both exciton energies move by -alpha T^2/(T + beta) (Varshni 1967; computed by
+    # hand here), bindings and the exciton margin do not. Without a temperature nothing moves.
+    base = _three_valley_inputs(40.0)
+    n = base.n_compounds
+    thermal = gapshift.GapThermal(np.ones(n, dtype=np.int64), np.full(n, 4.5e-4), np.full(n, 220.0),
+                                  np.full(n, np.nan), np.full(n, np.nan), np.zeros(n))
+    ref = model.evaluate(base, model.ModelSettings(), table)
+    same = model.evaluate(replace(base, gap_thermal=thermal), model.ModelSettings(), table)
+    np.testing.assert_array_equal(same.stack["optical_gap_ev"], ref.stack["optical_gap_ev"])
+    hot = model.evaluate(replace(base, gap_thermal=thermal, temperature_k=300.0), model.ModelSettings(), table)
+    expected = -4.5e-4 * 300.0**2 / 520.0
+    np.testing.assert_allclose(hot.thermal_shift_ev, expected, rtol=1e-14)
+    for key in ("fundamental_gap_ev", "direct_gap_ev"):
+        np.testing.assert_allclose(getattr(hot.gap, key) - getattr(ref.gap, key), expected, rtol=1e-9)
+    for part in ("stack", "bulk"):
+        for key in ("optical_gap_ev", "optical_gap_compensated_ev", "bright_exciton_ev"):
+            np.testing.assert_allclose(getattr(hot, part)[key] - getattr(ref, part)[key], expected, rtol=1e-9)
+        np.testing.assert_allclose(getattr(hot, part)["binding_ev"], getattr(ref, part)["binding_ev"], rtol=1e-12)
+        np.testing.assert_allclose(getattr(hot, part)["exciton_margin_ev"], getattr(ref, part)["exciton_margin_ev"],
+                                   rtol=1e-9, atol=1e-12)
+    # emission follows the shifted optical gap: lambda = hc/E (CODATA via scipy.constants)
+    np.testing.assert_allclose(hot.stack["emission_nm"], HC_EV_NM / hot.stack["optical_gap_ev"], rtol=1e-12)
 
 
 def test_radiative_rate_of_the_bright_exciton_in_the_2d_hydrogen_limit(table):

@@ -10,63 +10,38 @@ attribution predicts the result of those re-runs, it is not used to make them.
 """
 
 import copy
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
-import yaml
 from scipy import special
 
-from lamellume import io, keldysh, pipeline, refinement, uncertainty
+from lamellume import io, pipeline, refinement, uncertainty
 
-ROOT = Path(__file__).resolve().parents[2]
-UNC_ENTRY = ("eps_rel_unc", "r0_rel_unc", "scissor_unc_ev")
-UNC_VALLEY = ("mass_rel_unc", "edge_unc_ev")
-ZERO_DEFAULTS = {"default_mass_rel": 0.0, "default_eps_rel": 0.0, "default_edge_ev": 0.0,
-                 "default_r0_rel": 0.0, "default_scissor_ev": 0.0}
+from mc_setup import config_sections, zero_uncertainty
 
 
 @pytest.fixture(scope="module")
 def settings():
-    with open(ROOT / "config" / "config.yaml", encoding="utf-8") as fh:
-        config = yaml.safe_load(fh)
-    keys = ("uncertainty", "survival", "ranking", "layers", "monolayer", "excitons", "environments", "structure",
-            "emission_bands", "refinement")
-    return {k: copy.deepcopy(config[k]) for k in keys}
+    return config_sections()
 
 
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory, settings):
+def demo(screened_demo, coarse_table, settings):
     """The demo campaign screened and propagated by the pipeline; the borderline entries attributed."""
-    tmp = tmp_path_factory.mktemp("demo")
-    table = keldysh.build_table(keldysh.default_s_grid(per_decade=4))
-    table_path = tmp / "table.npz"
-    io.save_arrays(table.to_arrays(), table_path)
-    campaign = ROOT / "inputs" / "demo"
-    paths = sorted(str(p) for p in (campaign / "entries").glob("*.json"))
-    outputs = {name: str(tmp / f"{name}.parquet") for name in pipeline.SHARD_TABLES}
-    pipeline.run_shard(paths, str(campaign), settings, str(table_path), str(tmp / "cache"), outputs)
-    entries, valleys = io.read_parquet(outputs["entries"]), io.read_parquet(outputs["valleys"])
-    unc = uncertainty.propagate_uncertainty(entries, valleys, settings, table)
+    frames = screened_demo["frames"]
+    entries, valleys = frames["entries"], frames["valleys"]
+    unc = uncertainty.propagate_uncertainty(entries, valleys, settings, coarse_table)
     entries = entries.merge(unc[["entry_id", "p_meets_all"]], on="entry_id")
     chosen = entries[refinement.borderline(entries["p_meets_all"], settings["refinement"]["band"])]
     assert len(chosen) >= 10                       # the demo is built to have borderline compounds
-    rows = refinement.attribute(chosen, valleys, settings, table)
-    return {"entries": entries, "valleys": valleys, "table": table, "borderline": chosen, "rows": rows,
-            "tmp": tmp, "outputs": outputs, "table_path": str(table_path)}
+    rows = refinement.attribute(chosen, valleys, settings, coarse_table)
+    return {"entries": entries, "valleys": valleys, "table": coarse_table, "borderline": chosen, "rows": rows,
+            "tmp": screened_demo["tmp"], "outputs": screened_demo["outputs"],
+            "table_path": screened_demo["table_path"]}
 
 
-def _zeroed(entries, valleys, settings):
-    e, v = entries.copy(), valleys.copy()
-    for c in UNC_ENTRY:
-        e[c] = np.nan
-    for c in UNC_VALLEY:
-        v[c] = np.nan
-    s = copy.deepcopy(settings)
-    s["uncertainty"].update(ZERO_DEFAULTS)
-    s["excitons"].update({"model_rel_unc_layers": 0.0, "model_rel_unc_bulk": 0.0})
-    return e, v, s
+_zeroed = zero_uncertainty
 
 
 def _effective(frame, column, default):
@@ -97,6 +72,27 @@ def test_one_uncertain_input_carries_the_whole_verdict(demo, settings):
     for col in ("share_first", "share_total"):
         err = varied[f"{col}_se"].to_numpy()
         assert np.all(np.abs(varied[col].to_numpy() - 1.0) <= 4 * err + 0.02), varied[["output", col, f"{col}_se"]]
+
+
+def test_model_error_alone_carries_the_whole_verdict(demo, settings):
+    # Sobol' (2001), as above, with the binding model's own error as the one uncertain input: the
+    # binding factor is log-normal with a relative standard deviation of the configured 20 % (its
+    # definition, excitons.model_rel_unc_layers), so the binding's spread over the base samples
+    # is 20 % of its mean up to sampling error (sd of a sample sd ~ 1/sqrt(2N), common practice).
+    me = demo["rows"][(demo["rows"]["input_kind"] == "model_error") & (demo["rows"]["output"] == "meets_all")]
+    assert len(me)                                   # the group is attributed on the demo by default
+    eid = me.sort_values(["share_first", "entry_id"]).iloc[-1]["entry_id"]
+    ent = demo["entries"][demo["entries"]["entry_id"] == eid]
+    val = demo["valleys"][demo["valleys"]["entry_id"] == eid]
+    e, v, s = _zeroed(ent, val, settings)
+    s["excitons"]["model_rel_unc_layers"] = 0.2
+    s["refinement"]["samples"] = 512
+    rows = refinement.attribute(e, v, s, demo["table"])
+    assert set(rows["input_kind"]) == {"model_error"}
+    eb = rows[rows["output"] == "target_binding_ev"].iloc[0]
+    np.testing.assert_allclose(np.sqrt(eb["variance"]) / eb["mean"], 0.2, rtol=0.15)
+    for col in ("share_first", "share_total"):
+        assert abs(eb[col] - 1.0) <= 4 * eb[f"{col}_se"] + 0.02, eb
 
 
 def test_indices_order_and_sums_as_the_method_says(demo):

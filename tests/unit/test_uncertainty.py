@@ -7,74 +7,39 @@ or the point estimate of lamellume.screen / lamellume.ranking themselves.
 
 import copy
 import math
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
-import yaml
 from scipy import special
 
-from lamellume import hydrogenic, ingest, io, keldysh, pipeline, ranking, screen
+from lamellume import hydrogenic, ingest, ranking, screen
 from lamellume import uncertainty as U
 from lamellume.units import RYDBERG_EV
 
-ROOT = Path(__file__).resolve().parents[2]
-NO_MODEL_ERROR = {"model_rel_unc_layers": 0.0, "model_rel_unc_bulk": 0.0}
-ZERO_DEFAULTS = {"default_mass_rel": 0.0, "default_eps_rel": 0.0, "default_edge_ev": 0.0,
-                 "default_r0_rel": 0.0, "default_scissor_ev": 0.0}
-UNC_ENTRY = ("eps_rel_unc", "r0_rel_unc", "scissor_unc_ev")
-UNC_VALLEY = ("mass_rel_unc", "edge_unc_ev")
+from mc_setup import NO_MODEL_ERROR, ZERO_DEFAULTS, config_sections, zero_uncertainty
 
 
 # --------------------------------------------------------------------------- #
 # Fixtures
 # --------------------------------------------------------------------------- #
 @pytest.fixture(scope="module")
-def config():
-    with open(ROOT / "config" / "config.yaml", encoding="utf-8") as fh:
-        return yaml.safe_load(fh)
+def settings():
+    return config_sections()
 
 
 @pytest.fixture(scope="module")
-def settings(config):
-    keys = ("uncertainty", "survival", "ranking", "layers", "monolayer", "excitons", "environments",
-            "structure", "emission_bands")
-    return {k: copy.deepcopy(config[k]) for k in keys}
+def table(coarse_table):
+    return coarse_table
 
 
 @pytest.fixture(scope="module")
-def table():
-    # A coarse grid keeps the test fast; screen and Monte Carlo use the same table.
-    return keldysh.build_table(keldysh.default_s_grid(per_decade=4))
-
-
-@pytest.fixture(scope="module")
-def demo(tmp_path_factory, settings, table):
+def demo(screened_demo):
     """The demo campaign normalised and screened by the pipeline itself."""
-    tmp = tmp_path_factory.mktemp("demo")
-    table_path = tmp / "table.npz"
-    io.save_arrays(table.to_arrays(), table_path)
-    campaign = ROOT / "inputs" / "demo"
-    paths = sorted(str(p) for p in (campaign / "entries").glob("*.json"))
-    outputs = {name: str(tmp / f"{name}.parquet") for name in pipeline.SHARD_TABLES}
-    pipeline.run_shard(paths, str(campaign), settings, str(table_path), str(tmp / "cache"), outputs)
-    frames = {name: io.read_parquet(path) for name, path in outputs.items()}
-    assert len(frames["entries"]) > 20
-    return frames
+    return screened_demo["frames"]
 
 
-def _zero(entries, valleys, settings):
-    """Copies with every uncertainty zero (record values removed, defaults 0)."""
-    e, v = entries.copy(), valleys.copy()
-    for c in UNC_ENTRY:
-        e[c] = np.nan
-    for c in UNC_VALLEY:
-        v[c] = np.nan
-    s = copy.deepcopy(settings)
-    s["uncertainty"].update(ZERO_DEFAULTS)
-    s["excitons"].update(NO_MODEL_ERROR)
-    return e, v, s
+_zero = zero_uncertainty
 
 
 def _synthetic(ids, m_e=0.5, m_h=0.7, eps=10.0, r0=None, edges=None, max_layers=6):

@@ -1,7 +1,10 @@
 """Shifts of the quasiparticle gap with temperature and with the dielectric surroundings.
 
-Pure functions, not yet wired into the screen (they are available to the
-exciton-level model). Energies in eV, temperatures in K, lengths in Angstrom,
+Pure functions. The thermal shift is wired: :func:`thermal_gap_change_ev`
+moves every gap of a compound to the operating temperature inside
+:func:`lamellume.model.evaluate` (nominal screen and Monte Carlo alike). The
+image-charge renormalisation is not wired (the screen reports the optical gap
+as a bracket instead). Energies in eV, temperatures in K, lengths in Angstrom,
 dielectric constants relative to the vacuum permittivity. All functions
 broadcast over compounds.
 
@@ -65,6 +68,8 @@ References
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
 
 from lamellume.units import BOHR_RADIUS_ANGSTROM, HARTREE_EV, thermal_energy_ev
@@ -73,6 +78,10 @@ __all__ = [
     "varshni_shift_ev",
     "bose_einstein_shift_ev",
     "gap_at_temperature_ev",
+    "GapThermal",
+    "THERMAL_FORMS",
+    "thermal_shift_ev",
+    "thermal_gap_change_ev",
     "slab_gap_shift_ev",
     "environment_gap_change_ev",
 ]
@@ -159,6 +168,77 @@ def gap_at_temperature_ev(gap_ev, shift_at_calc_ev, shift_at_target_ev):
     """
     return (np.asarray(gap_ev, dtype=float) - np.asarray(shift_at_calc_ev, dtype=float)
             + np.asarray(shift_at_target_ev, dtype=float))
+
+
+#: Codes of the thermal forms in :class:`GapThermal` (record field ``gap_temperature.form``).
+THERMAL_FORMS = {"": 0, "varshni": 1, "bose-einstein": 2}
+
+
+class GapThermal(NamedTuple):
+    """Per-compound temperature dependence of the gap (arrays of equal shape).
+
+    Attributes
+    ----------
+    form_code : int array
+        :data:`THERMAL_FORMS` code: 0 none given, 1 Varshni, 2 Bose-Einstein.
+    alpha_ev_per_k, beta_k : float arrays
+        Varshni coefficients (NaN where not Varshni).
+    coupling, phonon_energy_ev : float arrays
+        Bose-Einstein coupling S and mean phonon energy (NaN where not Bose-Einstein).
+    calculation_temperature_k : float array
+        Temperature the band edges belong to, K.
+    """
+
+    form_code: np.ndarray
+    alpha_ev_per_k: np.ndarray
+    beta_k: np.ndarray
+    coupling: np.ndarray
+    phonon_energy_ev: np.ndarray
+    calculation_temperature_k: np.ndarray
+
+    def take(self, index) -> "GapThermal":
+        """The rows ``index`` of every array (e.g. one row per Monte Carlo sample)."""
+        return GapThermal(*(np.asarray(a)[index] for a in self))
+
+
+def thermal_shift_ev(thermal: GapThermal, temperature_k):
+    """E_g(T) - E_g(0) of each compound's own form (0 where no form is given), eV."""
+    code = np.asarray(thermal.form_code)
+    with np.errstate(all="ignore"):
+        varshni = varshni_shift_ev(thermal.alpha_ev_per_k, thermal.beta_k, temperature_k)
+        bose = bose_einstein_shift_ev(thermal.coupling, thermal.phonon_energy_ev, temperature_k)
+    return np.where(code == THERMAL_FORMS["varshni"], varshni,
+                    np.where(code == THERMAL_FORMS["bose-einstein"], bose, 0.0))
+
+
+def thermal_gap_change_ev(thermal: GapThermal, temperature_k):
+    """Change of every gap of a compound from its calculation's temperature to ``temperature_k``, eV.
+
+    ``shift(T) - shift(T_calc)`` (:func:`gap_at_temperature_ev` applied to a
+    zero gap) with each compound's own form, Varshni or Bose-Einstein; 0 for
+    compounds without a form (their gaps stay at the calculation's
+    temperature). Negative when the target is warmer and the gap shrinks on
+    heating.
+
+    Parameters
+    ----------
+    thermal : GapThermal
+        Per-compound forms and coefficients.
+    temperature_k : float or array_like
+        Target (operating) temperature, K.
+
+    Returns
+    -------
+    numpy.ndarray
+        Gap change in eV, shape of ``thermal``'s arrays.
+
+    References
+    ----------
+    .. [1] Y. P. Varshni, Physica 34, 149 (1967).
+    .. [2] K. P. O'Donnell and X. Chen, Appl. Phys. Lett. 58, 2924 (1991).
+    """
+    return gap_at_temperature_ev(0.0, thermal_shift_ev(thermal, thermal.calculation_temperature_k),
+                                 thermal_shift_ev(thermal, temperature_k))
 
 
 def _artanh_sqrt_over_sqrt(p):

@@ -44,12 +44,12 @@ L. V. Keldysh, JETP Lett. 29, 658 (1979). Others: see the called functions.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import NamedTuple
 
 import numpy as np
 
-from lamellume import brightness, excitons, hydrogenic, keldysh, layers as layer_model, masses
+from lamellume import brightness, excitons, gapshift, hydrogenic, keldysh, layers as layer_model, masses
 
 BULK = layer_model.BULK
 
@@ -126,6 +126,13 @@ class ModelInputs:
         (record ``band_edge_origin``; 1 = suspended).
     kappa : (E,)
         Mean dielectric constant of each surroundings, (top + bottom)/2.
+    gap_thermal : lamellume.gapshift.GapThermal of (n,) arrays, or None
+        Temperature dependence of each compound's gaps (record ``gap_temperature``).
+    temperature_k : float or None
+        Operating temperature: with ``gap_thermal``, every gap of a compound
+        that gives a form is moved from its calculation's temperature to this
+        one (:func:`lamellume.gapshift.thermal_gap_change_ev`, added to the
+        scissor shift); None leaves every gap at the calculation's temperature.
     """
 
     layers: np.ndarray
@@ -149,6 +156,8 @@ class ModelInputs:
     binding_factor_layers: np.ndarray | float = 1.0
     binding_factor_bulk: np.ndarray | float = 1.0
     edge_kappa: np.ndarray | float = 1.0
+    gap_thermal: gapshift.GapThermal | None = None
+    temperature_k: float | None = None
 
     @property
     def n_compounds(self) -> int:
@@ -198,7 +207,9 @@ class PairMasses(NamedTuple):
 class ModelResult:
     """Output of :func:`evaluate`.
 
-    ``gap``: the :class:`lamellume.layers.GapCharacter` (n, L); ``pairs``:
+    ``thermal_shift_ev`` (n,): change of every gap from the calculation's
+    temperature to the operating one (0 where no thermal form is given or no
+    temperature was asked for). ``gap``: the :class:`lamellume.layers.GapCharacter` (n, L); ``pairs``:
     :class:`PairMasses` per pair name of :data:`PAIRS`; ``r0_monolayer_angstrom``
     (n,); ``stack``: (n, F, E) arrays of the few-layer counts; ``bulk``: (n,)
     arrays of the bulk crystal.
@@ -210,6 +221,7 @@ class ModelResult:
     stack: dict[str, np.ndarray] = field(default_factory=dict)
     bulk: dict[str, np.ndarray] = field(default_factory=dict)
     valley_pairs: excitons.Pairs | None = None
+    thermal_shift_ev: np.ndarray | None = None
 
 
 #: Exciton pairs: name -> (valence label, conduction label) fields of the gap character.
@@ -310,6 +322,12 @@ def evaluate(inputs: ModelInputs, settings: ModelSettings, table: keldysh.Keldys
     if lay.size < 2 or lay[-1] != BULK or np.any(lay[:-1] == BULK):
         raise ValueError("layers must list the few-layer counts followed by bulk (0)")
     n = inputs.n_compounds
+    thermal = np.zeros(n)
+    if inputs.gap_thermal is not None and inputs.temperature_k is not None:
+        # Every gap of the compound moves with temperature alike: one shift of the conduction edges,
+        # applied where the scissor is, so every later step sees gaps at the operating temperature.
+        thermal = gapshift.thermal_gap_change_ev(inputs.gap_thermal, inputs.temperature_k)
+        inputs = replace(inputs, scissor_ev=np.asarray(inputs.scissor_ev, dtype=float) + thermal, gap_thermal=None)
     gap = layer_model.gap_character(inputs.owner, inputs.label_code, inputs.is_conduction, inputs.edges_ev,
                                     scissor_ev=inputs.scissor_ev, n_compounds=n)
     vt = valley_table(inputs)
@@ -322,7 +340,7 @@ def evaluate(inputs: ModelInputs, settings: ModelSettings, table: keldysh.Keldys
     r0_1 = np.where(np.isfinite(r0_given), r0_given,
                     keldysh.screening_length_from_bulk_angstrom(inputs.eps_parallel, inputs.spacing_angstrom)) \
         * inputs.r0_factor
-    result = ModelResult(gap, pairs, r0_1)
+    result = ModelResult(gap, pairs, r0_1, thermal_shift_ev=thermal)
     result.bulk = _bulk(inputs, settings, gap, pairs)
     result.stack = _stack(inputs, settings, table, gap, pairs, r0_1)
     if (settings.stack | settings.bulk) & _EXCITON_TRIGGERS:

@@ -217,6 +217,9 @@ def screen_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, t
     outputs : paths for 'entries', 'valleys', 'rejects', 'long', 'wide'.
     survival : settings with the ``survival`` section; when given, the long table gets
         the temperature-dependent columns (:func:`lamellume.ranking.add_survival`).
+        Records with a thermal gap form are screened at the operating temperature of
+        ``survival`` (else of ``settings``, else at their calculation's temperature);
+        their cached rows are reused only at the same temperature.
 
     Returns
     -------
@@ -228,13 +231,16 @@ def screen_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, t
     max_layers = settings["layers"]["max_layers"]
     structures_dir = Path(campaign) / "structures"
     checker = contract.RecordChecker(io.load_schema("entry.schema.json"))
-    cache = ShardCache(cache_dir, stamps)
+    source = settings if survival is None else survival
+    temperature_k = float(source["survival"]["temperature_k"]) if "survival" in source else None
+    cache = ShardCache(cache_dir, stamps, temperature_k=temperature_k)
 
     new_entries, new_valleys, reject_rows = check_records(
         entry_paths, structures_dir, settings, stamps, checker, cache.structure_geometry, reuse=cache.reuse)
     entries_new = ingest.typed_frame(new_entries, ingest.ENTRY_COLUMNS + list(stamps))
     valleys_new = ingest.typed_frame(new_valleys, ingest.valley_columns(max_layers) + list(stamps))
-    long_new, wide_new = screen.screen_entries(entries_new, valleys_new, settings, _keldysh_table(table))
+    long_new, wide_new = screen.screen_entries(entries_new, valleys_new, settings, _keldysh_table(table),
+                                               temperature_k=temperature_k)
     for frame in (long_new, wide_new):
         frame["physics_hash"] = stamps["physics_hash"]
         frame["code_version"] = stamps["code_version"]

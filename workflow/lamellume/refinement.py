@@ -14,8 +14,9 @@ Input groups (``refinement.groups``)
 ------------------------------------
 ``mass`` and ``band_edges`` give one group per valley (the valley's mass
 factor, the valley's edge shift); ``dielectric`` (the tensor's factor),
-``screening_length`` (the r0 factor) and ``scissor`` (the scissor shift) one
-group per entry. A group whose uncertainty is zero for an entry carries
+``screening_length`` (the r0 factor), ``scissor`` (the scissor shift) and
+``model_error`` (the binding models' own error, Rytova-Keldysh and bulk, as
+sampled by the propagation) one group per entry. A group whose uncertainty is zero for an entry carries
 nothing and is not evaluated. Inputs left out of ``groups`` keep varying but
 are not attributed.
 
@@ -63,6 +64,7 @@ GROUP_KINDS: dict[str, tuple[str, str]] = {
     "screening_length": ("screening length r0", "a monolayer polarisability calculation"),
     "band_edges": ("band edge", "a higher-level (e.g. many-body) band-edge calculation"),
     "scissor": ("scissor shift", "a many-body gap correction"),
+    "model_error": ("binding model error", "a many-body (e.g. Bethe-Salpeter) exciton calculation"),
 }
 
 #: Attributed outputs: (name, display name, kind).
@@ -85,7 +87,7 @@ COLUMNS: dict[str, tuple[str, str, str]] = {
     "output": ("string", "", "attributed output: meets_all, pass_direct, pass_margin, pass_binding, "
                              "pass_window (0/1 verdicts), target_binding_ev, target_optical_gap_ev"),
     "input_group": ("string", "", "input group: kind, and valley label and band for per-valley groups"),
-    "input_kind": ("string", "", "mass, dielectric, screening_length, band_edges or scissor"),
+    "input_kind": ("string", "", "mass, dielectric, screening_length, band_edges, scissor or model_error"),
     "valley_index": ("int32", "", "the record's valley (its valley_index) of a per-valley group; -1 otherwise"),
     "p_meets_all": ("float64", "1", "probability that every criterion is met, from the propagation's samples "
                                     "(the value the shortlist shows)"),
@@ -144,9 +146,17 @@ def borderline(p_meets_all, band) -> np.ndarray:
     return np.isfinite(p) & (p >= lo) & (p <= hi)
 
 
+def _typed(frame: pd.DataFrame | None, columns: Mapping[str, tuple[str, str, str]]) -> pd.DataFrame:
+    """``frame`` reduced to ``columns`` in their order and dtypes (strings as object); None: no rows."""
+    if frame is None:
+        return pd.DataFrame({c: pd.Series(dtype=d if d != "string" else object) for c, (d, _, _) in columns.items()})
+    frame = frame[list(columns)]
+    return frame.astype({c: object if d == "string" else d for c, (d, _, _) in columns.items()})
+
+
 def empty_frame() -> pd.DataFrame:
     """An attribution table without rows (columns and dtypes of :data:`COLUMNS`)."""
-    return pd.DataFrame({c: pd.Series(dtype=d if d != "string" else object) for c, (d, _, _) in COLUMNS.items()})
+    return _typed(None, COLUMNS)
 
 
 def _entry_groups(prep, e: int, kinds, labels, bands, vindex) -> tuple[list, list, list, list]:
@@ -154,13 +164,14 @@ def _entry_groups(prep, e: int, kinds, labels, bands, vindex) -> tuple[list, lis
     v0, v1 = int(prep.vstart[e]), int(prep.vstart[e + 1])
     k = v1 - v0
     cols, names, kind_of, valley = [], [], [], []
-    single = {"dielectric": (0, prep.sig_eps[e]), "screening_length": (1, prep.sig_r0[e]),
-              "scissor": (2, prep.sig_scissor[e])}
+    single = {"dielectric": ([0], prep.sig_eps[e]), "screening_length": ([1], prep.sig_r0[e]),
+              "scissor": ([2], prep.sig_scissor[e]),
+              "model_error": ([3 + 2 * k, 4 + 2 * k], max(prep.sig_model_layers, prep.sig_model_bulk))}
     for kind in kinds:
         if kind in single:
             col, sig = single[kind]
             if sig > 0:
-                cols.append([col]), names.append(GROUP_KINDS[kind][0]), kind_of.append(kind), valley.append(-1)
+                cols.append(col), names.append(GROUP_KINDS[kind][0]), kind_of.append(kind), valley.append(-1)
             continue
         sig = prep.sig_mass if kind == "mass" else prep.sig_edge
         base = 3 if kind == "mass" else 3 + k
@@ -252,30 +263,34 @@ def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, t
                             if "p_meets_all" in entries else np.nan)
     frame["n_base"] = np.int32(n_base)
     frame["seed"] = np.int64(seed)
-    frame = frame[list(COLUMNS)]
-    for c, (dtype, _, _) in COLUMNS.items():
-        frame[c] = frame[c].astype(object if dtype == "string" else dtype)
-    return frame.sort_values(["entry_id", "output", "input_group"], kind="stable").reset_index(drop=True)
+    return _typed(frame, COLUMNS).sort_values(["entry_id", "output", "input_group"], kind="stable").reset_index(drop=True)
 
 
 def _evaluate_design(prep, a: int, b: int, zs, table, block_cells: int) -> dict[str, np.ndarray]:
-    """Model outputs (b - a, S) of entries a..b-1 on their draws zs[i] (S, 3 + 2 k_i), in blocks."""
+    """Model outputs (b - a, S) of entries a..b-1 on their draws zs[i] (S, 3 + 2 k_i + 2), in blocks.
+
+    Columns of one entry's draws: eps, r0, scissor, k mass, k edge, then the
+    Rytova-Keldysh and bulk model errors.
+    """
     n_e = b - a
     s_tot = zs[0].shape[0]
     k = np.diff(prep.vstart[a:b + 1])
     z_ent = np.empty((3, n_e, s_tot))
     z_mass = np.empty((int(k.sum()), s_tot))
     z_edge = np.empty_like(z_mass)
+    z_model = np.empty((2, n_e, s_tot))
     pos = 0
     for i, z in enumerate(zs):
         ke = int(k[i])
         z_ent[:, i, :] = z[:, :3].T
         z_mass[pos:pos + ke] = z[:, 3:3 + ke].T
-        z_edge[pos:pos + ke] = z[:, 3 + ke:].T
+        z_edge[pos:pos + ke] = z[:, 3 + ke:3 + 2 * ke].T
+        z_model[:, i, :] = z[:, 3 + 2 * ke:].T
         pos += ke
     step = s_tot if n_e * s_tot <= block_cells else max(1, block_cells // n_e)
     parts = [uncertainty.evaluate_draws(prep, a, b, z_ent[:, :, s0:s0 + step], z_mass[:, s0:s0 + step],
-                                        z_edge[:, s0:s0 + step], table) for s0 in range(0, s_tot, step)]
+                                        z_edge[:, s0:s0 + step], table, z_model[:, :, s0:s0 + step])
+             for s0 in range(0, s_tot, step)]
     if len(parts) == 1:
         return parts[0]
     return {key: np.concatenate([p[key] for p in parts], axis=1) for key in parts[0]}
@@ -297,7 +312,7 @@ def _attribute_block(prep, a: int, b: int, groups, n_base: int, n_halved: int, s
     designs = []
     for i in range(n_e):
         rng = np.random.default_rng(attribution_seed_sequence(seed, prep.ids[a + i]))
-        draws = rng.standard_normal((4 if r else 2, n_base, 3 + 2 * int(k[i])))
+        draws = rng.standard_normal((4 if r else 2, n_base, 5 + 2 * int(k[i])))
         designs.append(attribution.sobol_design(draws, groups[i][0], residual=0.5 if r else None))
     stage1 = [np.concatenate([g.a[None], g.b[None], g.ab], axis=0).reshape((d + 2) * n_base, -1) for g in designs]
     y1 = {name: np.asarray(v, dtype=float).reshape(n_e, d + 2, n_base)
@@ -353,8 +368,7 @@ def refinement_list(frame: pd.DataFrame, effect: str = "halved", per_entry: int 
     """
     verdict = frame[frame["output"] == "meets_all"].copy()
     if not len(verdict):
-        return pd.DataFrame({c: pd.Series(dtype=d if d != "string" else object)
-                             for c, (d, _, _) in LIST_COLUMNS.items()})
+        return _typed(None, LIST_COLUMNS)
     share = verdict["share_halved"] if effect == "halved" else verdict["share_first"]
     verdict["expected_effect"] = (share * verdict["variance"]).to_numpy(dtype=float)
     verdict = verdict[np.isfinite(verdict["expected_effect"]) & (verdict["expected_effect"] > 0)]

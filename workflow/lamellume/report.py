@@ -865,6 +865,8 @@ REFERENCES = (
     "T. Olsen, S. Latini, F. Rasmussen, K. S. Thygesen, Phys. Rev. Lett. 116, 056401 (2016).",
     "W. Kohn, J. M. Luttinger, Phys. Rev. 98, 915 (1955).",
     "P. P. Edwards, M. J. Sienko, Phys. Rev. B 17, 2575 (1978) (Mott criterion n^(1/3) a = 0.26).",
+    "Y. P. Varshni, Physica 34, 149 (1967); K. P. O'Donnell, X. Chen, Appl. Phys. Lett. 58, 2924 (1991) "
+    "(temperature dependence of the gap).",
     "T. C. Berkelbach, M. S. Hybertsen, D. R. Reichman, Phys. Rev. B 88, 045318 (2013) (Rytova-Keldysh "
     "against many-body calculations: the default model error).",
     "S. P. Ong et al., Comput. Mater. Sci. 68, 314 (2013) (pymatgen, used to read structure files).",

@@ -33,7 +33,7 @@ from typing import Mapping
 import numpy as np
 import pandas as pd
 
-from lamellume import dielectric, excitons, keldysh, layers as layer_model, model, survival
+from lamellume import dielectric, excitons, gapshift, keldysh, layers as layer_model, model, survival
 from lamellume.ingest import TENSOR_COMPONENTS, edge_column
 
 BULK = layer_model.BULK
@@ -108,18 +108,36 @@ def pair_labels(pairs: excitons.Pairs, valleys: pd.DataFrame) -> np.ndarray:
     return np.append(np.asarray(text, dtype=object), "")
 
 
+def gap_thermal(entries: pd.DataFrame) -> gapshift.GapThermal:
+    """Each compound's record ``gap_temperature`` (entry columns ``gap_t_*``) as model input."""
+    form = entries["gap_t_form"].astype(object).map(gapshift.THERMAL_FORMS).fillna(0)
+    return gapshift.GapThermal(
+        form.to_numpy(dtype=np.int64), entries["gap_t_alpha_ev_per_k"].to_numpy(dtype=float),
+        entries["gap_t_beta_k"].to_numpy(dtype=float), entries["gap_t_coupling"].to_numpy(dtype=float),
+        entries["gap_t_phonon_ev"].to_numpy(dtype=float),
+        entries["gap_t_reference_k"].fillna(0.0).to_numpy(dtype=float))
+
+
 def environment_kappa(settings: Mapping) -> np.ndarray:
     """(top + bottom)/2 of every configured surroundings, in config order."""
     return np.array([(e["top"] + e["bottom"]) / 2 for e in settings["environments"].values()], dtype=float)
 
 
 def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping,
-                   table: keldysh.KeldyshTable) -> tuple[pd.DataFrame, pd.DataFrame]:
+                   table: keldysh.KeldyshTable, temperature_k: float | None = None,
+                   ) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Long and wide exciton tables for normalised compounds (see module docstring).
 
     The physics is one call of :func:`lamellume.model.evaluate`; this function
-    prepares its input arrays and names the output columns.
+    prepares its input arrays and names the output columns. With
+    ``temperature_k`` (the operating temperature), compounds whose record gives
+    ``gap_temperature`` have every gap moved to it; the others stay at their
+    calculation's temperature (wide columns ``gap_temperature_k``,
+    ``gap_thermal_shift_ev``). Without it, the temperature of
+    ``settings["survival"]`` when present, else none (no shift).
     """
+    if temperature_k is None and "survival" in settings:
+        temperature_k = float(settings["survival"]["temperature_k"])
     max_layers = int(settings["layers"]["max_layers"])
     lay = layer_counts(max_layers)
     env_names = list(settings["environments"])
@@ -136,6 +154,7 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
     spacing = entries["spacing_angstrom"].to_numpy(dtype=float)
     lattice = entries["lattice_angstrom"].to_numpy(dtype=float)
 
+    thermal = gap_thermal(entries)
     res = model.evaluate(model.ModelInputs(
         layers=lay, owner=owner, label_code=codes, is_conduction=(valleys["band"] == "conduction").to_numpy(bool),
         edges_ev=fill.filled_ev, inv_mass=inverse_mass(valleys),
@@ -144,8 +163,10 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
         eps_bulk=eps_bulk, spacing_angstrom=spacing,
         r0_given_angstrom=entries["r0_given_angstrom"].to_numpy(dtype=float),
         kappa=environment_kappa(settings), **exciton_inputs(valleys),
-        edge_kappa=((entries["edge_eps_top"] + entries["edge_eps_bottom"]) / 2).fillna(1.0).to_numpy(dtype=float)),
+        edge_kappa=((entries["edge_eps_top"] + entries["edge_eps_bottom"]) / 2).fillna(1.0).to_numpy(dtype=float),
+        gap_thermal=thermal, temperature_k=temperature_k),
         model.ModelSettings.from_config(settings), table)
+    shifted = (thermal.form_code > 0) & (temperature_k is not None)
     gc, bright, dark = res.gap, res.pairs["bright"], res.pairs["dark"]
     cross = layer_model.layer_crossover(gc.is_direct, lay, known=gc.complete)
     jb = len(lay) - 1
@@ -258,6 +279,8 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
         **{k: res.bulk[k] for k in ("bulk_binding_ev", "bulk_radius_angstrom", "bulk_binding_aniso_ev",
                                     "quasi2d_binding_ev", "quasi2d_radius_angstrom")},
         "bulk_optical_gap_ev": res.bulk["optical_gap_ev"],
+        "gap_temperature_k": np.where(shifted, np.nan if temperature_k is None else float(temperature_k), np.nan),
+        "gap_thermal_shift_ev": np.where(shifted, res.thermal_shift_ev, np.nan),
         "edge_fit_rms_ev": _per_compound_max(fill.residual_ev, owner, n),
         "warnings": entries["warnings"].to_numpy(dtype=object),
     })

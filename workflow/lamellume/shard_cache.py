@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 
 from lamellume import io
+from lamellume.gapshift import THERMAL_FORMS
 
 log = logging.getLogger("lamellume")
 
@@ -56,15 +57,17 @@ class ShardCache:
     ignored as a whole.
     """
 
-    def __init__(self, cache_dir: str | Path, stamps: Mapping[str, str]):
+    def __init__(self, cache_dir: str | Path, stamps: Mapping[str, str], temperature_k: float | None = None):
         self.dir = Path(cache_dir)
         self.stamps = dict(stamps)
+        self.temperature_k = temperature_k
         self.tables = self._load()
         if self.tables:
             old = self.tables["rejects"]
             self.tables["rejects"] = old[~old["stage"].isin(CONTEXT_STAGES)] if len(old) else old
         self.keys = (set(file_keys(self.tables["entries"])) | set(file_keys(self.tables["rejects"]))
                      if self.tables else set())
+        self.keys -= self._other_temperature_keys()
         self.reused: set[str] = set()
         self._memo_path = self.dir / "structures.json"
         self._memo = self._load_memo()
@@ -92,6 +95,25 @@ class ShardCache:
             log.warning("ignoring cache %s: its tables come from different runs", self.dir)
             return {}
         return out
+
+    def _other_temperature_keys(self) -> set[str]:
+        """Keys of records with a thermal gap form whose cached rows belong to another temperature.
+
+        Their gaps depend on the operating temperature (wide column
+        ``gap_temperature_k``), so they are screened again; every other record's
+        rows do not depend on it and are reused.
+        """
+        if not self.tables or not len(self.tables["entries"]):
+            return set()
+        entries, wide = self.tables["entries"], self.tables["wide"]
+        has_form = entries["gap_t_form"].astype(object).map(THERMAL_FORMS).fillna(0).to_numpy() > 0
+        if "gap_temperature_k" in wide.columns:
+            at = wide.set_index("entry_id")["gap_temperature_k"].reindex(entries["entry_id"]).to_numpy(dtype=float)
+        else:
+            at = np.full(len(entries), np.nan)
+        want = np.nan if self.temperature_k is None else float(self.temperature_k)
+        same = (at == want) | (np.isnan(at) & np.isnan(want))
+        return set(file_keys(entries[has_form & ~same]))
 
     def reuse(self, stem: str, input_hash: str) -> bool:
         """Whether the rows of this record file come from the cache (and mark them for reuse)."""

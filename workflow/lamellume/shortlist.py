@@ -111,6 +111,9 @@ def shortlist_table(ranked: pd.DataFrame, settings: Mapping) -> pd.DataFrame:
         "Emission wavelength 16 % (nm)": _column(top, "target_emission_nm_p16", digits=1),
         "Emission wavelength 84 % (nm)": _column(top, "target_emission_nm_p84", digits=1),
         "Emission if the gap compensates (nm)": _column(top, "target_emission_compensated_nm", digits=1),
+        "Emission at": np.where(np.isfinite(_column(top, "gap_temperature_k")),
+                                f"{float(settings['survival']['temperature_k']):g} K (thermal gap shift applied)",
+                                "the calculation's temperature (no thermal gap data)").astype(object),
         "Spectral band": top["target_emission_band"].fillna("").astype(str).to_numpy() if n
         else np.array([], dtype=object),
         "Binding energy (meV)": _column(top, "target_binding_ev", MEV_PER_EV, 1),

@@ -236,6 +236,13 @@ _WIDE = [
     ("quasi2d_binding_ev", F, "eV", "2D hydrogenic binding with the bulk constant (4x bulk)"),
     ("quasi2d_radius_angstrom", F, "Angstrom", "2D Bohr radius (1s decay length) with the bulk constant"),
     ("bulk_optical_gap_ev", F, "eV", "bulk direct gap - bulk binding"),
+    ("gap_temperature_k", F, "K",
+     "temperature every gap, optical gap and wavelength of this compound refers to: the operating temperature "
+     "when the record gives gap_temperature; empty: the calculation's temperature (no thermal shift given)"),
+    ("gap_thermal_shift_ev", F, "eV",
+     "change of every gap from the calculation's temperature to the operating temperature (record "
+     "gap_temperature: Varshni or Bose-Einstein form); empty: none given, emission at the calculation's "
+     "temperature"),
     ("edge_fit_rms_ev", F, "eV", "largest rms residual of the layer-count confinement fit over the compound's valleys"),
     ("rank_environment", S, NO_UNIT, "surroundings the ranking uses (config ranking.environment)"),
     ("rank_layers", "int64", "1", "layer count the ranking uses (config ranking.target_layers)"),
@@ -358,6 +365,9 @@ _SHORTLIST = [
     ("Emission wavelength 84 % (nm)", F, "nm", "84th percentile of the emission wavelength (Monte Carlo)"),
     ("Emission if the gap compensates (nm)", F, "nm",
      "other end of the emission bracket: the quasiparticle gap shrinks with the screening as the binding falls"),
+    ("Emission at", S, NO_UNIT,
+     "temperature the exciton energy and wavelength are for: the operating temperature when the record gives "
+     "the gap's temperature dependence (thermal shift applied), else the calculation's temperature"),
     ("Spectral band", S, NO_UNIT, "named spectral band of the emission (config emission_bands)"),
     ("Binding energy (meV)", F, "meV", "exciton binding energy (Rytova-Keldysh)"),
     ("Binding energy 16 % (meV)", F, "meV", "16th percentile of the binding energy (Monte Carlo)"),

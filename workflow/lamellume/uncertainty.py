@@ -106,7 +106,7 @@ import numpy as np
 import pandas as pd
 from scipy import special
 
-from lamellume import dielectric, excitons, keldysh, layers as layer_model, model, ranking, screen, survival
+from lamellume import dielectric, excitons, gapshift, keldysh, layers as layer_model, model, ranking, screen, survival
 
 __all__ = [
     "BLOCK_CELLS",
@@ -347,6 +347,7 @@ class _Prepared(NamedTuple):
     edge_spin: np.ndarray       # (V,) int
     sig_model_layers: float     # log-normal width of the Rytova-Keldysh model error
     sig_model_bulk: float       # log-normal width of the bulk 3D model error
+    gap_thermal: gapshift.GapThermal  # (n,) arrays: each record's thermal gap form
 
 
 #: What the Monte Carlo asks of the exciton model (lamellume.model.evaluate); the radiative-rate
@@ -421,7 +422,8 @@ def _prepare(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping) ->
         **dict(zip(("degeneracy", "spin_split", "edge_spin"), screen.exciton_inputs(vt).values())),
         edge_kappa=((entries["edge_eps_top"] + entries["edge_eps_bottom"]) / 2).fillna(1.0).to_numpy(dtype=float),
         sig_model_layers=float(lognormal_sigma(settings["excitons"]["model_rel_unc_layers"])),
-        sig_model_bulk=float(lognormal_sigma(settings["excitons"]["model_rel_unc_bulk"])))
+        sig_model_bulk=float(lognormal_sigma(settings["excitons"]["model_rel_unc_bulk"])),
+        gap_thermal=screen.gap_thermal(entries))
 
 
 def _truncate_below(z, p_lo):
@@ -493,7 +495,8 @@ def _evaluate_block(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, tabl
         eps_perpendicular=prep.eps_perp[rep] * f_eps, eps_bulk=prep.eps_bulk[rep] * f_eps,
         spacing_angstrom=prep.spacing[rep], r0_given_angstrom=prep.r0_given[rep], kappa=prep.kappa,
         r0_factor=f_r0, edge_kappa=prep.edge_kappa[rep], degeneracy=prep.degeneracy[gp], spin_split_ev=prep.spin_split[gp],
-        edge_spin=prep.edge_spin[gp], binding_factor_layers=f_lay, binding_factor_bulk=f_bulk),
+        edge_spin=prep.edge_spin[gp], binding_factor_layers=f_lay, binding_factor_bulk=f_bulk,
+        gap_thermal=prep.gap_thermal.take(rep), temperature_k=prep.temperature_k),
         prep.model_settings, table)
     gc = res.gap
     ei = prep.env_index
@@ -708,7 +711,8 @@ def prepare_inputs(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
     return _prepare(entries, valleys, settings)
 
 
-def evaluate_draws(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, table) -> dict[str, np.ndarray]:
+def evaluate_draws(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, table,
+                   z_model=None) -> dict[str, np.ndarray]:
     """Per-sample model outputs of entries a..b-1 for given standard-normal draws.
 
     Parameters
@@ -721,6 +725,9 @@ def evaluate_draws(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, table
     z_mass, z_edge : numpy.ndarray, shape (V, S)
         Draws of the valleys' mass and edge inputs (V valleys of the range).
     table : lamellume.keldysh.KeldyshTable
+    z_model : numpy.ndarray, shape (2, b - a, S), optional
+        Draws of the Rytova-Keldysh and bulk binding-model errors (None: the
+        models are taken as exact).
 
     Returns
     -------
@@ -728,4 +735,4 @@ def evaluate_draws(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, table
         The :data:`QUANTITIES` (eV or nm), ``direct_target`` and the criteria
         of :func:`criteria` -- exactly what the propagation summarises.
     """
-    return _evaluate_block(prep, a, b, z_ent, z_mass, z_edge, table)
+    return _evaluate_block(prep, a, b, z_ent, z_mass, z_edge, table, z_model)
