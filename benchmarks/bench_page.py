@@ -43,7 +43,7 @@ def tables(n: int) -> tuple[pd.DataFrame, pd.DataFrame]:
         "pass_binding": True, "pass_window": cand, "meets_all_criteria": cand, "score_binding": 1.0,
         "score_margin": 0.5, "score_window": 0.5, "score": rng.uniform(size=n),
         "thinning_verdict": "direct only as a monolayer", "warnings": "",
-        "p_meets_all": rng.uniform(size=n), "p_direct_target": rng.uniform(size=n),
+        "p_meets_all": rng.uniform(size=n), "p_pass_direct": rng.uniform(size=n),
     })
     for base in ("target_optical_gap_ev", "target_binding_ev", "target_emission_nm"):
         for q, f in (("p16", 0.95), ("p50", 1.0), ("p84", 1.05)):

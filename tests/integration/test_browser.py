@@ -319,6 +319,21 @@ def test_every_plot_has_a_legend_and_colours_keep_one_meaning(driver, run):
         assert colours["candStroke"] != colours["otherStroke"]
 
 
+def test_surroundings_and_checks_are_shown_in_words(driver, run):
+    """Issue 14 item 7: no config key or stage name reaches people; surroundings carry their constants."""
+    plots = driver.execute_script(
+        "return Array.from(document.querySelectorAll('figure.plot')).map(f => f.textContent).join(' ');")
+    # config/config.yaml: encapsulated 4.5 / 4.5 (the ranking), on_silica 1.0 / 3.9
+    assert "encapsulated (above 4.5, below 4.5)" in plots
+    assert "on silica (above 1.0, below 3.9)" in plots and "on_silica" not in plots
+    page = driver.execute_script("return document.body.innerText;")
+    assert "on_silica" not in page
+    checks = driver.execute_script(
+        "return Array.from(document.querySelectorAll('#rejects tbody tr')).map(r => r.cells[3].textContent);")
+    assert checks and "record breaks the input contract (schema or physical checks)" in checks
+    assert not set(checks) & {"contract", "read", "structure", "normalise", "duplicate", "skipped"}
+
+
 def test_cards_plan_the_first_experiment(driver, run):
     # Issue 18: every card of "What to make first" plans the first experiment, in model-estimate wording.
     cards = driver.execute_script(

@@ -133,6 +133,10 @@ EXPECTED_CHANGES: dict[tuple[str, str, str], str] = {
         "issue 17: model error sampled and exciton-level criteria in the Monte Carlo",
     ("tables/screen_wide.parquet", "p_pass_binding", "*"):
         "issue 17: model error sampled and exciton-level criteria in the Monte Carlo",
+    ("tables/screen_wide.parquet", "p_gap_direct", "*"):
+        "issue 14 item 7: one naming pattern for probabilities: p_direct_target renamed p_gap_direct",
+    ("tables/screen_wide.parquet", "p_pass_direct", "*"):
+        "issue 14 item 7: the probability of the brightness criterion itself, shown in its criterion cell",
     ("tables/screen_wide.parquet", "p_direct_target", "*"):
         "issue 17: model error sampled and exciton-level criteria in the Monte Carlo",
     ("tables/screen_wide.parquet", "bulk_binding_ev_p16", "*"):

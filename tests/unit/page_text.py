@@ -138,7 +138,7 @@ def reference_inputs(report) -> dict:
         "thinning_verdict": "direct only as a monolayer, indirect from 2 layers",
         "warnings": ["", "Wannier model doubtful", "", "", "", "", "", "", ""],
         "p_meets_all": np.linspace(0.2, 0.9, n).round(3),
-        "p_direct_target": np.full(n, 0.7),
+        "p_pass_direct": np.full(n, 0.7),
         "p_pass_binding": np.full(n, 0.55),
     })
     ranked.loc[0, "target_direct_margin_ev"] = np.inf

@@ -335,7 +335,7 @@ def test_uncertainty_columns_shown_only_when_present(settings):
     errbar = re.compile(r'<line class="errbar[ "]')
     assert "P(all met)" not in plain and not errbar.search(plain)
     base = _ranked(ids, settings)
-    extra = {"p_meets_all": np.linspace(0.2, 0.9, 6), "p_direct_target": np.full(6, 0.7)}
+    extra = {"p_meets_all": np.linspace(0.2, 0.9, 6), "p_pass_direct": np.full(6, 0.7)}
     for name in ("target_binding_ev", "target_optical_gap_ev", "target_emission_nm"):
         for q, f in (("p16", 0.9), ("p50", 1.0), ("p84", 1.1)):
             extra[f"{name}_{q}"] = base[name].to_numpy() * f
@@ -369,6 +369,16 @@ INTENDED_CHANGES = (
      "criterion itself is the Saha bound fraction at the planned pair density, which depends on the reduced "
      "mass too, so it is no single line here."),
     ("needed: 4 kT = 103 meV at 300 K", "floor: 4 kT = 103 meV at 300 K"),
+    # issue 14 item 7: every surroundings label carries its dielectric constants (once)
+    ("on silica", "on silica (above 1.0, below 3.9)"),
+    ("suspended", "suspended (above 1.0, below 1.0)"),
+    ("(above 1.0, below 3.9) (above 1.0, below 3.9)", "(above 1.0, below 3.9)"),
+    ("(above 1.0, below 1.0) (above 1.0, below 1.0)", "(above 1.0, below 1.0)"),
+    ("encapsulated", "encapsulated (above 4.5, below 4.5)"),
+    ("(above 4.5, below 4.5) (above 4.5, below 4.5)", "(above 4.5, below 4.5)"),
+    # issue 14 item 7: the rejects' Check column names the check in words, not the stage name
+    (" contract tensor:", " record breaks the input contract (schema or physical checks) tensor:"),
+    (" valleys read no", " valleys file could not be read as JSON no"),
     # issue 18: what the model leaves out, stated among the cautions
     ("the run. A high rank means", "the run. " + " ".join(report.MODEL_LIMITS) + " A high rank means"),
 )

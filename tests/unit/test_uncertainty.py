@@ -124,7 +124,7 @@ def test_truncated_normal_map():
 
 def test_output_columns_are_the_report_contract():
     # names read by ranking.rank and by the HTML report: must stay exactly these.
-    for name in ("entry_id", "input_hash", "p_direct_target", "p_meets_all", "n_samples", "seed"):
+    for name in ("entry_id", "input_hash", "p_gap_direct", "p_meets_all", "n_samples", "seed"):
         assert name in U.OUTPUT_COLUMNS
     for q in ("target_binding_ev", "target_optical_gap_ev", "target_emission_nm", "bulk_binding_ev"):
         for p in ("p16", "p50", "p84"):
@@ -195,7 +195,7 @@ def test_zero_uncertainty_reproduces_screen(demo, settings, table, environment, 
         for p in ("p16", "p84"):
             np.testing.assert_array_equal(out[f"emission_nm_{p}__{env}"].to_numpy(), want, err_msg=env)
     # p_direct is 0 or 1 and equals the screen's gap character
-    p_direct = out["p_direct_target"].to_numpy()
+    p_direct = out["p_gap_direct"].to_numpy()
     assert set(np.unique(p_direct)) <= {0.0, 1.0}
     np.testing.assert_array_equal(p_direct == 1.0, (at["gap_character"] == "direct").to_numpy())
     # p_meets_all is 0 or 1 and equals the ranking's verdict
@@ -312,9 +312,9 @@ def test_probabilities_and_intervals_are_ordered(demo, settings, table):
     out = U.propagate_uncertainty(demo["entries"], demo["valleys"], settings, table, samples=200)
     for q in U.QUANTITIES:
         assert (out[f"{q}_p16"] <= out[f"{q}_p50"]).all() and (out[f"{q}_p50"] <= out[f"{q}_p84"]).all()
-    for p in ("p_direct_target", "p_meets_all"):
+    for p in ("p_gap_direct", "p_meets_all"):
         assert out[p].between(0.0, 1.0).all()
-    assert (out["p_meets_all"] <= out["p_direct_target"] + 1e-15).all()  # require_direct is on
+    assert (out["p_meets_all"] <= out["p_gap_direct"] + 1e-15).all()  # require_direct is on
     # with uncertainty some demo entries are neither certain passes nor certain failures
     assert ((out["p_meets_all"] > 0) & (out["p_meets_all"] < 1)).any()
 

@@ -66,10 +66,17 @@ def gap_class(character: Any) -> str:
 
 
 def environment_label(name: str, settings: Mapping) -> str:
-    """Display name of a surroundings entry of the config ('on_silica' -> 'on silica')."""
+    """Display label of a surroundings entry of the config, with its dielectric constants.
+
+    'on_silica' with top 1.0 and bottom 3.9 -> 'on silica (above 1.0, below 3.9)': the
+    one label of the surroundings on the page and in the plots (never the config key).
+    """
     entry = (settings.get("environments", {}) or {}).get(name, {}) or {}
     label = entry.get("label") if isinstance(entry, Mapping) else None
-    return str(label) if label else str(name).replace("_", " ")
+    text = str(label) if label else str(name).replace("_", " ")
+    if isinstance(entry, Mapping) and "top" in entry and "bottom" in entry:
+        text += f" (above {float(entry['top']):.1f}, below {float(entry['bottom']):.1f})"
+    return text
 
 
 # ---------------------------------------------------------------------------

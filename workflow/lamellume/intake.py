@@ -18,22 +18,6 @@ from typing import Callable, Mapping
 
 from lamellume import contract, ingest
 
-#: Every reject stage in plain words (the page and the validate-only target show these).
-STAGE_WORDS = {
-    "skipped": "file name not read (hidden, other letter case or more after .json)",
-    "read": "file could not be read as JSON",
-    "duplicate": "identifier differs from another only in letter case",
-    "contract": "record breaks the input contract (schema or physical checks)",
-    "structure": "structure file (CIF) could not be analysed",
-    "normalise": "record could not be turned into layer-frame values (or has no gap)",
-    "import": "calculation folder could not be turned into a record",
-}
-
-
-def stage_words(stage: str) -> str:
-    """A reject stage in plain words (the stage name itself when unknown)."""
-    return STAGE_WORDS.get(str(stage), str(stage))
-
 
 @dataclass
 class Outcome:

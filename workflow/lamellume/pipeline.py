@@ -23,6 +23,7 @@ import pandas as pd
 
 from lamellume import contract, ingest, intake, io, provenance, screen
 from lamellume.keldysh import KeldyshTable
+from lamellume.tables import stage_words
 from lamellume.shard_cache import (CONTEXT_STAGES, SHARD_TABLES, PropagationCache, ShardCache,  # noqa: F401
                                     is_in, record_keys)
 
@@ -194,7 +195,7 @@ def validation_report(rejects: pd.DataFrame, listed: int, campaign: str, csv_pat
              f"{bad} would be rejected (nothing was screened)."]
     for row in rejects.head(shown).to_dict("records"):
         lines.append(f"  {row['source_file']}: {row['field']}: {row['reason']} "
-                     f"[{intake.stage_words(row['stage'])}]")
+                     f"[{stage_words(row['stage'])}]")
     if len(rejects) > shown:
         lines.append(f"  ... and {len(rejects) - shown} more problems")
     if len(rejects):

@@ -44,7 +44,7 @@ import numpy as np
 import pandas as pd
 from markupsafe import Markup
 
-from lamellume import figures, io, units
+from lamellume import figures, io, tables, units
 from lamellume.figures import MEV_PER_EV, environment_label
 
 log = logging.getLogger("lamellume")
@@ -355,8 +355,7 @@ def uncertainty_columns(columns: Sequence[str]) -> dict[str, list[str]]:
 
 def _env_with_constants(name: str, settings: Mapping) -> str:
     """'on silica (above 1.0, below 3.9)': display name and dielectric constants of the surroundings."""
-    entry = settings.get("environments", {}).get(name, {}) or {}
-    return f"{environment_label(name, settings)} (above {_fmt(entry.get('top'), 1)}, below {_fmt(entry.get('bottom'), 1)})"
+    return environment_label(name, settings)
 
 
 # ---------------------------------------------------------------------------
@@ -364,7 +363,7 @@ def _env_with_constants(name: str, settings: Mapping) -> str:
 # ---------------------------------------------------------------------------
 
 #: Probability columns shown inside the criterion cells of the compound table.
-CRITERION_PROBABILITY = {"pass_direct": "p_direct_target", "pass_margin": "p_pass_margin",
+CRITERION_PROBABILITY = {"pass_direct": "p_pass_direct", "pass_margin": "p_pass_margin",
                          "pass_binding": "p_pass_binding", "pass_window": "p_pass_window"}
 PROBABILITY_LABELS = {"p_meets_all": "P(all met)"}
 
@@ -417,7 +416,7 @@ def brightness_words(row: Mapping, settings: Mapping) -> str:
     bright, dark = _text(row.get("target_bright_pair")), _text(row.get("target_dark_pair"))
     margin = _num(row.get("target_exciton_margin_ev"))
     fraction = _num(row.get("target_bright_fraction"))
-    where = f"at {n} layer(s) in {env}"
+    where = f"at {n} layer(s) in {environment_label(env, settings)}"
     if verdict == "bright":
         out = (f"Bright {where}: the lowest exciton is the {bright} pair's, "
                f"{_fmt(row.get('target_bright_exciton_ev'), 3)} eV; the lowest dark one ({dark}, "
@@ -811,8 +810,8 @@ def _changes(changes: pd.DataFrame, baseline: Mapping | None) -> dict:
 
 
 def _rejects(rejects: pd.DataFrame) -> dict:
-    rows = [{k: _text(x.get(k)) for k in ("entry_id", "source_file", "field", "stage", "reason")}
-            for x in rejects.to_dict("records")]
+    rows = [{**{k: _text(x.get(k)) for k in ("entry_id", "source_file", "field", "reason")},
+             "stage": tables.stage_words(_text(x.get("stage")))} for x in rejects.to_dict("records")]
     return {"records": int(rejects["entry_id"].nunique()) if len(rejects) else 0, "rows": rows}
 
 

@@ -120,6 +120,24 @@ _REJECT = [
     ("stage", S, NO_UNIT, "step that rejected the record: read, duplicate, contract, structure, normalise"),
 ]
 
+#: Every value of the rejects table's ``stage`` column in plain words (the page and the
+#: validate-only target show these).
+STAGE_WORDS = {
+    "skipped": "file name not read (hidden, other letter case or more after .json)",
+    "read": "file could not be read as JSON",
+    "duplicate": "identifier differs from another only in letter case",
+    "contract": "record breaks the input contract (schema or physical checks)",
+    "structure": "structure file (CIF) could not be analysed",
+    "normalise": "record could not be turned into layer-frame values (or has no gap)",
+    "import": "calculation folder could not be turned into a record",
+}
+
+
+def stage_words(stage: str) -> str:
+    """A reject stage in plain words (the stage name itself when unknown)."""
+    return STAGE_WORDS.get(str(stage), str(stage))
+
+
 _LONG = [
     ("layers", "int16", "1", "layer count; 0 = bulk crystal"),
     ("environment", S, NO_UNIT, "surroundings (config environments) or 'bulk crystal'"),
@@ -294,13 +312,14 @@ _WIDE = [
 ]
 
 _UNCERTAINTY = [
-    ("p_direct_target", F, "1", "probability that the gap is direct at the target layer count"),
+    ("p_gap_direct", F, "1", "probability that the band gap is direct at the target layer count"),
     ("p_meets_all", F, "1", "probability that every ranking criterion is met"),
+    ("p_pass_direct", F, "1", "probability that the brightness criterion is met (the lowest exciton at the target is bright)"),
     ("p_pass_margin", F, "1", "probability that the exciton-level (dark - bright) margin criterion is met"),
     ("p_pass_binding", F, "1", "probability that the bound criterion (bound fraction, binding/kT) is met"),
     ("p_pass_window", F, "1", "probability that the emission lies in the target window"),
-    ("n_samples", "int32", "1", "Monte Carlo samples per entry (0 = propagation disabled)"),
-    ("seed", "int64", "1", "campaign seed; each entry's stream also depends on its identifier"),
+    ("n_samples", "int32", "1", "Monte Carlo samples per compound (0 = propagation disabled)"),
+    ("seed", "int64", "1", "campaign seed; each compound's stream also depends on its identifier"),
 ]
 
 _CHANGES = [

@@ -129,7 +129,7 @@ PERCENTILES: tuple[float, ...] = (16.0, 50.0, 84.0)
 #: Per-sample quantities summarised by percentiles.
 QUANTITIES: tuple[str, ...] = ("target_binding_ev", "target_optical_gap_ev", "target_emission_nm",
                                "bulk_binding_ev")
-_PROBABILITIES = ("p_direct_target", "p_meets_all", "p_pass_margin", "p_pass_binding", "p_pass_window")
+_PROBABILITIES = ("p_gap_direct", "p_meets_all", "p_pass_direct", "p_pass_margin", "p_pass_binding", "p_pass_window")
 
 
 def _pcol(quantity: str, q: float) -> str:
@@ -653,7 +653,7 @@ def propagate_uncertainty(entries: pd.DataFrame, valleys: pd.DataFrame, settings
     pandas.DataFrame
         One row per entry, sorted by entry_id, columns :data:`OUTPUT_COLUMNS`:
         ``entry_id``, ``input_hash``, ``<q>_p16``, ``<q>_p50``, ``<q>_p84`` for
-        q in :data:`QUANTITIES` (eV or nm), ``p_direct_target``,
+        q in :data:`QUANTITIES` (eV or nm), ``p_gap_direct``,
         ``p_meets_all``, ``p_pass_margin``, ``p_pass_binding``,
         ``p_pass_window`` (fractions of samples), ``n_samples``, ``seed``.
         With ``samples = 0`` the rows are present with NaN values and
@@ -679,9 +679,9 @@ def propagate_uncertainty(entries: pd.DataFrame, valleys: pd.DataFrame, settings
                 pct = row_percentiles(res[name], PERCENTILES)
                 for i, q in enumerate(PERCENTILES):
                     stats[_pcol(name, q)][a:b] = pct[i]
-            stats["p_direct_target"][a:b] = res["direct_target"].mean(axis=1)
+            stats["p_gap_direct"][a:b] = res["direct_target"].mean(axis=1)
             stats["p_meets_all"][a:b] = res["meets_all"].mean(axis=1)
-            for key in ("pass_margin", "pass_binding", "pass_window"):
+            for key in ("pass_direct", "pass_margin", "pass_binding", "pass_window"):
                 stats[f"p_{key}"][a:b] = res[key].mean(axis=1)
             for env in prep.env_names:
                 pct = row_percentiles(res[env_emission_key(env)], ENV_PERCENTILES)
