@@ -46,8 +46,10 @@ TRACER = textwrap.dedent('''
             return
         files = sorted({getattr(m, "__file__", None) or "" for name, m in list(sys.modules.items())
                         if name == "lamellume" or name.startswith("lamellume.") or name == "adapter_args"} - {""})
-        with open(os.path.join(folder, f"{os.getpid()}.json"), "w") as fh:
+        path = os.path.join(folder, f"{os.getpid()}.json")
+        with open(path + ".part", "w") as fh:  # written whole, then renamed: never read half-written
             json.dump({"script": os.path.abspath(sys.argv[0]), "files": files}, fh)
+        os.replace(path + ".part", path)
 
     def _traced_exit(code):
         _dump()
@@ -78,10 +80,12 @@ def traces(tmp_path_factory) -> list[dict]:
     trace_dir.mkdir()
     env = {**os.environ, "PYTHONPATH": os.pathsep.join([str(site), os.environ.get("PYTHONPATH", "")]),
            "LAMELLUME_TRACE_DIR": str(trace_dir)}
-    res = subprocess.run([sys.executable, "-m", "snakemake", "-s", str(REPO / "Snakefile"), "--directory", str(work),
-                          "--configfile", str(work / "config.yaml"), "--cores", "2"],
-                         capture_output=True, text=True, cwd=work, env=env, timeout=900, check=False)
-    assert res.returncode == 0, res.stdout[-3000:] + res.stderr[-3000:]
+    # the screen (rule all), then the validate-only target, which rule all does not ask for
+    for targets in ((), ("validate_campaign",)):
+        res = subprocess.run([sys.executable, "-m", "snakemake", "-s", str(REPO / "Snakefile"), "--directory",
+                              str(work), "--configfile", str(work / "config.yaml"), "--cores", "2", *targets],
+                             capture_output=True, text=True, cwd=work, env=env, timeout=900, check=False)
+        assert res.returncode == 0, res.stdout[-3000:] + res.stderr[-3000:]
     found = [json.loads(p.read_text()) for p in sorted(trace_dir.glob("*.json"))]
     return [t for t in found if Path(t["script"]).parent == ADAPTERS]
 
