@@ -493,6 +493,11 @@ def read_library_text(relative: str) -> str:
     return (LIBRARY_DIR / relative).read_text(encoding="utf-8")
 
 
+def library_paths() -> list[Path]:
+    """Every library module and page template file (what :func:`library_digest` hashes)."""
+    return sorted(p for p in [*LIBRARY_DIR.glob("*.py"), *(LIBRARY_DIR / "templates").glob("*")] if p.is_file())
+
+
 def library_digest(modules: list[str] | None = None) -> str:
     """Short content hash of the library sources (all modules, or the named ones).
 
@@ -503,8 +508,7 @@ def library_digest(modules: list[str] | None = None) -> str:
     if modules:
         names = sorted(modules)
     else:  # every module and the page's template files
-        names = sorted([p.name for p in LIBRARY_DIR.glob("*.py")]
-                       + [f"templates/{p.name}" for p in (LIBRARY_DIR / "templates").glob("*") if p.is_file()])
+        names = sorted(str(p.relative_to(LIBRARY_DIR)) for p in library_paths())
     h = hashlib.sha256()
     for name in names:
         h.update(name.encode())

@@ -182,8 +182,7 @@ def code_files(adapter_name):
 def library_files():
     """Every library module and page template: the manifest's ``code_version`` digests them
     all (lamellume.io.library_digest), so the manifest job depends on them all."""
-    lib = io.LIBRARY_DIR
-    return sorted(str(p) for p in [*lib.glob("*.py"), *(lib / "templates").glob("*")] if p.is_file())
+    return [str(p) for p in io.library_paths()]
 
 
 def physics_settings():
