@@ -105,6 +105,8 @@ _CRITERIA = ("pass_direct", "pass_margin", "pass_binding", "pass_window")
 #: Verdicts that select compounds (``refinement.verdicts``) and rank the list: name -> plain words,
 #: and the column of each verdict's probability.
 VERDICTS: dict[str, str] = {"meets_all": "meets every criterion", "on_shortlist": "makes the shortlist"}
+#: The list's words for each value of its ``verdict`` column (``both``: see :func:`refinement_list`).
+_VERDICT_WORDS = {**VERDICTS, "both": "meets every criterion, and with it makes the shortlist"}
 
 #: Columns of the per-entry attribution table: name -> (dtype, unit, description).
 COLUMNS: dict[str, tuple[str, str, str]] = {
@@ -149,8 +151,8 @@ LIST_COLUMNS: dict[str, tuple[str, str, str]] = {
     "input_kind": COLUMNS["input_kind"],
     "valley_index": COLUMNS["valley_index"],
     "recompute": ("string", "", "what a recomputation of this input would be"),
-    "verdict": ("string", "", "the verdict in doubt: meets_all (meets every criterion) or on_shortlist "
-                              "(makes the shortlist)"),
+    "verdict": ("string", "", "the verdict in doubt: meets_all (meets every criterion), on_shortlist (makes "
+                              "the shortlist) or both (membership follows the criteria in every sample)"),
     "p_meets_all": COLUMNS["p_meets_all"],
     "p_on_shortlist": COLUMNS["p_on_shortlist"],
     "share_first": COLUMNS["share_first"],
@@ -562,11 +564,14 @@ def refinement_list(frame: pd.DataFrame, effect: str = "halved", per_entry: int 
     pandas.DataFrame
         Columns :data:`LIST_COLUMNS`, ranked by ``expected_effect`` (ties by
         entry_id, verdict, input_group); inputs with a non-positive effect are left out.
+        A compound whose membership equals its verdict in every sample of its
+        design gets one set of rows with verdict ``both``.
     """
     verdict = frame[frame["output"].isin([v for v in VERDICTS if v in set(verdicts)])].copy()
     if band is not None and len(verdict):
         p = np.where(verdict["output"] == "meets_all", verdict["p_meets_all"], verdict["p_on_shortlist"])
         verdict = verdict[borderline(p, band)]
+    verdict = _merge_identical_verdicts(verdict)
     if not len(verdict):
         return _typed(None, LIST_COLUMNS)
     share = verdict["share_halved"] if effect == "halved" else verdict["share_first"]
@@ -602,17 +607,45 @@ def refinement_list(frame: pd.DataFrame, effect: str = "halved", per_entry: int 
     return out
 
 
+def _merge_identical_verdicts(verdict: pd.DataFrame) -> pd.DataFrame:
+    """One set of rows, verdict ``both``, for a compound whose membership follows the criteria in
+    every sample of its design (identical mean, variance and shares for every input): the
+    shortlist then holds exactly its candidates near it, and two identical rows would say one thing twice."""
+    cols = ["mean", "variance", "share_first", "share_total", "share_halved"]
+    meets = verdict[verdict["output"] == "meets_all"].set_index(["entry_id", "input_group"])[cols]
+    on = verdict[verdict["output"] == "on_shortlist"].set_index(["entry_id", "input_group"])[cols]
+    if not len(meets) or not len(on):
+        return verdict
+    a, b = meets.align(on, join="outer")
+    same = ((a.to_numpy() == b.to_numpy()) | (np.isnan(a.to_numpy()) & np.isnan(b.to_numpy()))).all(axis=1)
+    same = pd.Series(same, index=a.index).groupby(level="entry_id").all()
+    both = set(same.index[same])
+    if not both:
+        return verdict
+    in_both = verdict["entry_id"].isin(both)
+    verdict = verdict[~(in_both & (verdict["output"] == "on_shortlist"))].copy()
+    verdict.loc[verdict["entry_id"].isin(both) & (verdict["output"] == "meets_all"), "output"] = "both"
+    return verdict
+
+
 def _percent(x: float) -> str:
     return "under 1 %" if not np.isfinite(x) or x < 0.005 else f"{100 * x:.0f} %"
 
 
 def plain_words(row) -> str:
     """One recommendation, e.g. 'Recompute the dielectric tensor of X: it decides 70 % of ...'."""
-    shortlist = getattr(row, "verdict", "meets_all") == "on_shortlist"
-    p = row.p_on_shortlist if shortlist else row.p_meets_all
+    kind = getattr(row, "verdict", "meets_all")
+    if kind == "both":
+        doubt = (f"{row.entry_id} meets every criterion and, with it, whether it makes the shortlist (now "
+                 f"{100 * row.p_meets_all:.0f} % and {100 * row.p_on_shortlist:.0f} % likely, the other compounds "
+                 f"as ranked)")
+    elif kind == "on_shortlist":
+        doubt = (f"{row.entry_id} makes the shortlist (now {100 * row.p_on_shortlist:.0f} % likely, the other "
+                 f"compounds as ranked)")
+    else:
+        doubt = f"{row.entry_id} meets every criterion (now {100 * row.p_meets_all:.0f} % likely)"
     text = (f"Recompute the {row.input_group} of {row.entry_id} ({row.recompute}): it decides "
-            f"{_percent(row.share_first)} of whether {row.entry_id} {VERDICTS['on_shortlist' if shortlist else 'meets_all']} "
-            f"(now {100 * p:.0f} % likely{', the other compounds as ranked' if shortlist else ''})")
+            f"{_percent(row.share_first)} of whether {doubt}")
     if row.mostly_through:
         text += f", mostly through '{row.mostly_through}'"
     if np.isfinite(row.share_halved):
@@ -642,7 +675,7 @@ _PERCENT = ("p_meets_all", "p_on_shortlist", "share_first", "share_total", "shar
 def display_frame(ranked: pd.DataFrame) -> pd.DataFrame:
     """The refinement list with display headers, fractions as percentages (one decimal)."""
     out = ranked[list(DISPLAY)].copy()
-    out["verdict"] = out["verdict"].map(lambda v: VERDICTS.get(v, v))
+    out["verdict"] = out["verdict"].map(lambda v: _VERDICT_WORDS.get(v, v))
     for c in _PERCENT:
         out[c] = (100.0 * out[c].astype(float)).round(1)
     out["expected_effect"] = out["expected_effect"].astype(float).round(4)

@@ -348,8 +348,8 @@ _REFINEMENT = [
     ("shortlist_cut", S, NO_UNIT, "the ranking key (candidate, score, compound) of the shortlist_size-th other "
                                   "compound that on_shortlist is measured against ('none': fewer other compounds "
                                   "than the shortlist size; '' when not attributed); part of the record's cache key"),
-    ("verdict", S, NO_UNIT, "the verdict in doubt: meets_all (meets every criterion) or on_shortlist (makes the "
-                            "shortlist)"),
+    ("verdict", S, NO_UNIT, "the verdict in doubt: meets_all (meets every criterion), on_shortlist (makes the "
+                            "shortlist) or both (membership follows the criteria in every sample)"),
     ("mean", F, "output unit", "mean of the output over the base samples (for a verdict: its probability)"),
     ("variance", F, "output unit squared", "variance of the output over the base samples"),
     ("share_first", F, "1", "first-order Sobol index (Saltelli 2010): expected fraction of the variance "
