@@ -73,7 +73,7 @@ import numpy as np
 import pandas as pd
 
 
-from lamellume import attribution, keldysh, ranking, uncertainty
+from lamellume import attribution, keldysh, ranking, tables, uncertainty
 
 __all__ = ["GROUP_KINDS", "OUTPUTS", "VERDICTS", "COLUMNS", "LIST_COLUMNS", "PROBABILITY_COLUMNS", "UNITS",
            "DESCRIPTIONS", "ShortlistCut", "ShortlistCuts", "shortlist_cuts", "sample_score", "on_shortlist",
@@ -108,67 +108,27 @@ VERDICTS: dict[str, str] = {"meets_all": "meets every criterion", "on_shortlist"
 #: The list's words for each value of its ``verdict`` column (``both``: see :func:`refinement_list`).
 _VERDICT_WORDS = {**VERDICTS, "both": "meets every criterion, and with it makes the shortlist"}
 
-#: Columns of the per-entry attribution table: name -> (dtype, unit, description).
-COLUMNS: dict[str, tuple[str, str, str]] = {
-    "entry_id": ("string", "", "compound identifier"),
-    "input_hash": ("string", "", "content hash of the record the row was computed from"),
-    "physics_hash": ("string", "", "hash of the physics settings the record was screened with"),
-    "output": ("string", "", "attributed output: meets_all, pass_direct, pass_margin, pass_binding, "
-                             "pass_window, on_shortlist (0/1 verdicts), target_binding_ev, target_optical_gap_ev"),
-    "input_group": ("string", "", "input group: kind, and valley label and band for per-valley groups"),
-    "input_kind": ("string", "", "mass, dielectric, screening_length, band_edges, scissor or model_error"),
-    "valley_index": ("int32", "", "the record's valley (its valley_index) of a per-valley group; -1 otherwise"),
-    "p_meets_all": ("float64", "1", "probability that every criterion is met, from the propagation's samples "
-                                    "(the value the shortlist shows)"),
-    "p_on_shortlist": ("float64", "1", "probability that the compound is on the shortlist with every other "
-                                       "compound at its rank: fraction of the N base samples of matrix A "
-                                       "(NaN when membership is not attributed)"),
-    "shortlist_cut": ("string", "", "the ranking key (candidate, score, compound) of the shortlist_size-th "
-                                    "other compound that on_shortlist is measured against ('none': fewer other "
-                                    "compounds than the shortlist size; '' when not attributed); part of the "
-                                    "record's cache key"),
-    "mean": ("float64", "output unit", "mean of the output over the base samples "
-                                        "(for a verdict: its probability)"),
-    "variance": ("float64", "output unit squared", "variance of the output over the base samples"),
-    "share_first": ("float64", "1", "first-order Sobol index (Saltelli 2010): expected fraction of the "
-                                     "variance removed if this input were known exactly"),
-    "share_first_se": ("float64", "1", "standard error of share_first"),
-    "share_total": ("float64", "1", "total Sobol index (Jansen 1999): fraction of the variance this "
-                                     "input takes part in, interactions included"),
-    "share_total_se": ("float64", "1", "standard error of share_total"),
-    "share_halved": ("float64", "1", "expected fraction of the variance removed if this input's standard "
-                                      "uncertainty were halved (NaN when not computed)"),
-    "share_halved_se": ("float64", "1", "standard error of share_halved"),
-    "n_base": ("int32", "1", "base samples N of the pick-freeze design"),
-    "seed": ("int64", "", "campaign seed; each entry's stream also depends on its identifier"),
-}
+def _declared(names) -> dict[str, tuple[str, str, str]]:
+    """(dtype, unit, description) of each column as :mod:`lamellume.tables` declares it (the one declaration)."""
+    return {n: (tables.COLUMNS[n].dtype, tables.COLUMNS[n].unit, tables.COLUMNS[n].description) for n in names}
 
-#: Columns of the campaign refinement list (:func:`refinement_list`).
-LIST_COLUMNS: dict[str, tuple[str, str, str]] = {
-    "rank": ("int32", "1", "rank in the campaign by expected effect (1 = recompute first)"),
-    "entry_id": COLUMNS["entry_id"],
-    "input_group": COLUMNS["input_group"],
-    "input_kind": COLUMNS["input_kind"],
-    "valley_index": COLUMNS["valley_index"],
-    "recompute": ("string", "", "what a recomputation of this input would be"),
-    "verdict": ("string", "", "the verdict in doubt: meets_all (meets every criterion), on_shortlist (makes "
-                              "the shortlist) or both (membership follows the criteria in every sample)"),
-    "p_meets_all": COLUMNS["p_meets_all"],
-    "p_on_shortlist": COLUMNS["p_on_shortlist"],
-    "share_first": COLUMNS["share_first"],
-    "share_total": COLUMNS["share_total"],
-    "share_halved": COLUMNS["share_halved"],
-    "expected_effect": ("float64", "1", "expected drop of the verdict's variance p(1-p) if this input's "
-                                        "uncertainty were halved (or removed, per refinement.effect)"),
-    "mostly_through": ("string", "", "the criterion whose outcome this input moves most"),
-    "advice": ("string", "", "the recommendation in plain words"),
-}
+
+#: Columns of the per-entry attribution table, in order: name -> (dtype, unit, description).
+COLUMNS: dict[str, tuple[str, str, str]] = _declared((
+    "entry_id", "input_hash", "physics_hash", "output", "input_group", "input_kind", "valley_index", "p_meets_all",
+    "p_on_shortlist", "shortlist_cut", "mean", "variance", "share_first", "share_first_se", "share_total",
+    "share_total_se", "share_halved", "share_halved_se", "n_base", "seed"))
+
+#: Columns of the campaign refinement list (:func:`refinement_list`), in order.
+LIST_COLUMNS: dict[str, tuple[str, str, str]] = _declared((
+    "rank", "entry_id", "input_group", "input_kind", "valley_index", "recompute", "verdict", "p_meets_all",
+    "p_on_shortlist", "share_first", "share_total", "share_halved", "expected_effect", "mostly_through", "advice"))
 
 #: Columns of the per-record cache of ``p_on_shortlist`` (:func:`shortlist_probability`).
 PROBABILITY_COLUMNS: dict[str, tuple[str, str, str]] = {
     k: COLUMNS[k] for k in ("entry_id", "input_hash", "physics_hash", "shortlist_cut", "p_on_shortlist")}
 
-UNITS: dict[str, str] = {k: v[1] for k, v in {**COLUMNS, **LIST_COLUMNS}.items() if v[1]}
+UNITS: dict[str, str] = {k: v[1] for k, v in {**COLUMNS, **LIST_COLUMNS}.items() if v[1] not in ("", "-")}
 DESCRIPTIONS: dict[str, str] = {k: v[2] for k, v in {**COLUMNS, **LIST_COLUMNS}.items()}
 
 
