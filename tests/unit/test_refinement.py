@@ -414,3 +414,19 @@ def test_disabled_or_nothing_borderline_gives_an_empty_table(demo, settings, tmp
     assert counts == {"borderline": 0, "computed": 0, "reused": 0}
     frame = io.read_parquet(tmp_path / "a.parquet")
     assert len(frame) == 0 and list(frame.columns) == list(refinement.COLUMNS)
+
+
+def test_membership_equal_to_the_verdict_is_listed_once(demo, settings):
+    # Where membership equals the verdict in every sample, its attribution rows equal the verdict's
+    # (the same sample vectors); the list then says it once (verdict "both"); a compound whose
+    # membership differs in one share keeps both sets.
+    meets = demo["rows"][demo["rows"]["output"] == "meets_all"].assign(p_on_shortlist=0.5)
+    on = meets.assign(output="on_shortlist")
+    other = on["entry_id"].iloc[0]
+    on.loc[on["entry_id"] == other, "share_first"] += 0.01
+    listed = refinement.refinement_list(pd.concat([meets, on], ignore_index=True), band=(0.1, 0.9))
+    by_entry = listed.groupby("entry_id")["verdict"].agg(set)
+    assert by_entry[other] <= {"meets_all", "on_shortlist"} and "on_shortlist" in by_entry[other]
+    assert all(v == {"both"} for e, v in by_entry.items() if e != other)
+    row = listed[listed["verdict"] == "both"].iloc[0]
+    assert "makes the shortlist" in row["advice"] and "meets every criterion" in row["advice"]
