@@ -88,7 +88,9 @@ def test_score_definition_states_the_score_the_ranking_computes():
 
 
 def test_written_files_open_cleanly(tmp_path):
-    ranked = _ranked(ROWS).assign(formula=["=HYPERLINK(1)", "F", "F"])
+    ranked = _ranked(ROWS).assign(formula=["=HYPERLINK(1)", "F", "F"],
+                                  thinning_state=["direct when thin", "indirect at every thickness", "direct when thin"],
+                                  direct_through_layers=pd.array([2, None, 1], dtype="Int16"))
     io.write_csv(shortlist.shortlist_table(ranked, SETTINGS), tmp_path / "shortlist.csv")
     config = {**SETTINGS, "uncertainty": {"samples": 0}}
     stamps = {"campaign": "inputs/mine", "written_utc": "2026-01-01T00:00:00+00:00", "config_hash": "abc",
@@ -98,6 +100,12 @@ def test_written_files_open_cleanly(tmp_path):
         rows = list(csv.reader(fh))
     assert tuple(rows[0]) == tables.SHORTLIST_COLUMNS
     assert rows[1][rows[0].index("Formula")] == "'=HYPERLINK(1)"  # a formula is neutralised (OWASP)
+    # thinning: a state from the declared list and a layer count, empty (never a code) where none exists
+    by_id = {row[rows[0].index("Compound")]: row for row in rows[1:]}
+    assert by_id["a"][rows[0].index("Direct up to (layers)")] == "2"
+    assert by_id["c"][rows[0].index("Direct up to (layers)")] == ""
+    assert by_id["c"][rows[0].index("Thinning state")] == "indirect at every thickness"
+    assert all(row[rows[0].index("Thinning state")] in tables.THINNING_STATES for row in rows[1:])
     with open(tmp_path / "shortlist_settings.csv", newline="") as fh:
         sheet = {row["Setting"]: row for row in csv.DictReader(fh)}
     assert sheet["temperature"]["Value"] == "300" and sheet["temperature"]["Unit"] == "K"

@@ -104,6 +104,8 @@ def shortlist_table(ranked: pd.DataFrame, settings: Mapping) -> pd.DataFrame:
         "Temperature (K)": np.full(n, float(settings["survival"]["temperature_k"])),
         "Gap character": top["target_gap_character"].astype(str).to_numpy() if n else np.array([], dtype=object),
         "Thinning behaviour": top["thinning_verdict"].astype(str).to_numpy() if n else np.array([], dtype=object),
+        "Thinning state": top["thinning_state"].astype(str).to_numpy() if n else np.array([], dtype=object),
+        "Direct up to (layers)": _column(top, "direct_through_layers"),
         "Exciton energy (eV)": _column(top, "target_optical_gap_ev", digits=3),
         "Exciton energy 16 % (eV)": _column(top, "target_optical_gap_ev_p16", digits=3),
         "Exciton energy 84 % (eV)": _column(top, "target_optical_gap_ev_p84", digits=3),
