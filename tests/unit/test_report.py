@@ -517,6 +517,8 @@ def test_large_screen_lists_the_best_ranked_rows(settings):
     assert page.count('<tr id="row-') == 15
     assert page.count('data-candidate="1"') == 15
     assert "5 further candidate(s) and 10 other compound(s)" in page
+    size = settings["ranking"]["shortlist_size"]  # the shortlist is the ranked list's head, not the candidates
+    assert f"the first {size} of the ranked list (candidates first) in results/shortlist.csv" in page
     assert "cmp-" in page and '"rows"' in page
     data = json.loads(re.search(r'id="lamellume-data">(.*?)</script>', page).group(1))
     assert len(data["rows"]) == 15

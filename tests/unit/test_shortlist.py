@@ -116,3 +116,12 @@ def test_written_files_open_cleanly(tmp_path):
     assert "not measurements" in sheet["caution"]["Value"]
     assert sheet["score definition"]["Value"] == ranking.score_definition(config)
     assert pd.read_csv(tmp_path / "shortlist_settings.csv").columns.tolist() == list(tables.SHORTLIST_SETTINGS_COLUMNS)
+
+
+def test_criteria_missed_name_the_rows_own_brightness():
+    # an indirect row of the minimal tables has a dark lowest exciton 0.1 eV below the bright one
+    settings = {**SETTINGS, "ranking": {**SETTINGS["ranking"], "shortlist_size": 2}}
+    short = shortlist.shortlist_table(_ranked([ROWS[0], ("b", "indirect", 0.2, -0.1, 700.0)], settings), settings)
+    missed = short.set_index("Compound").loc["b", "Criteria missed"]
+    assert missed.split("; ")[0] == "lowest exciton dark", missed
+    assert "unknown" not in missed

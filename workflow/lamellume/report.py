@@ -760,7 +760,8 @@ def _table(ranked: pd.DataFrame, settings: Mapping, entries: pd.DataFrame | None
             "probabilities": extra,
         })
     return {"layers": n, "environment": environment_label(r["environment"], settings), "columns": columns,
-            "rows": rows, "with_uncertainty": bool(probs), "left_out": left_out}
+            "rows": rows, "with_uncertainty": bool(probs), "left_out": left_out,
+            "shortlist_size": int(r.get("shortlist_size", 0))}
 
 
 def _figures(ranked: pd.DataFrame, long: pd.DataFrame, settings: Mapping) -> list[dict]:

@@ -53,11 +53,21 @@ def missed_words(settings: Mapping) -> dict[str, str]:
     }
 
 
+#: The brightness criterion's words for a row whose lowest exciton is known (target_brightness).
+_BRIGHTNESS_MISSED = {"dark": "lowest exciton dark",
+                      "unknown": "brightness of the lowest exciton unknown (no competing valley given)"}
+
+
 def _missed(top: pd.DataFrame, settings: Mapping) -> np.ndarray:
     words = missed_words(settings)
     out = []
     for row in top.to_dict("records"):
-        missed = [text for key, text in words.items() if key in row and not bool(row[key])]
+        missed = []
+        for key, text in words.items():
+            if key in row and not bool(row[key]):
+                if key == "pass_direct" and settings["ranking"]["require_direct"]:
+                    text = _BRIGHTNESS_MISSED.get(str(row.get("target_brightness")), text)
+                missed.append(text)
         out.append("; ".join(missed))
     return np.asarray(out, dtype=object)
 
@@ -157,7 +167,8 @@ def settings_table(settings: Mapping, stamps: Mapping[str, str]) -> pd.DataFrame
         ("caution", CAUTION, "", "how to read every number of the shortlist"),
         ("campaign", stamps.get("campaign", ""), "", "campaign folder the records were read from"),
         ("written", stamps.get("written_utc", ""), "UTC", "date and time the run finished its tables"),
-        ("compounds screened", str(stamps.get("screened", "")), "1", "records screened (rejects not counted)"),
+        ("compounds screened", str(stamps.get("screened", "")), "1",
+         "compounds whose records passed every check and were screened (rejected records not counted)"),
         ("candidates", str(stamps.get("candidates", "")), "1", "compounds that meet every criterion"),
         ("shortlist size", str(int(r["shortlist_size"])), "1",
          "rows of the shortlist: the ranked list's first rows, candidates first"),
@@ -170,7 +181,7 @@ def settings_table(settings: Mapping, stamps: Mapping[str, str]) -> pd.DataFrame
         ("emission window shortest", _number(lo), "nm", "criterion: emission at least this wavelength"),
         ("emission window longest", _number(hi), "nm", "criterion: emission at most this wavelength"),
         ("require bright", "yes" if r["require_direct"] else "no", "",
-         "criterion: the lowest exciton must be bright (else its brightness must only be known)"),
+         "criterion: the lowest exciton must be bright ('no': it need only be known to be bright or dark)"),
         ("minimum dark - bright exciton", _number(float(r["min_direct_margin_ev"]) * MEV_PER_EV), "meV",
          "criterion: the lowest dark exciton lies at least this far above the lowest bright one"),
         ("planned pair density", _number(s["pair_density_per_cm2"]), "cm^-2",

@@ -110,13 +110,15 @@ def run_summary():
     if not counts_path.exists() or not manifest_path.exists():
         return "lamellume: run finished (no complete screen yet: rule all was not asked for)"
     counts, manifest = io.read_json(counts_path), io.read_json(manifest_path)
+    candidates = manifest["counts"]["candidates"]
     lines = [f"lamellume: {counts['records']} record files read, {counts['screened']} screened, "
-             f"{counts['rejected']} rejected, {manifest['counts']['candidates']} candidates."]
+             f"{counts['rejected']} rejected, {candidates} candidate{'' if candidates == 1 else 's'}."]
     if counts["rejected"]:
         lines.append("  rejects: results/tables/rejects.csv; first reasons:")
         lines += [f"    {reason}" for reason in counts["reasons"]]
     lines.append("  summary page: results/summary.html; shortlist: results/shortlist.csv "
                  "(its settings: results/shortlist_settings.csv)")
+    lines.append(f"  results/ is {Path('results').resolve()} (the working directory's)")
     return "\n".join(lines)
 
 
