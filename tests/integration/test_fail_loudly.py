@@ -71,6 +71,21 @@ def test_a_successful_run_ends_with_the_console_summary(finished):
     assert f"results/ is {work.resolve() / 'results'}" in text  # where they are, whatever --directory said
 
 
+def test_validating_another_campaign_does_not_repeat_the_last_screens_counts(finished):
+    # results/ holds a complete screen; checking another campaign must not end with that screen's counts
+    work, _ = finished
+    other = work / "other" / "entries"
+    other.mkdir(parents=True, exist_ok=True)
+    shutil.copy(next((work / "campaign" / "entries").glob("lumen-*.json")), other)
+    before = digests(work)
+    res = snakemake(work, "validate_campaign", "--config", "campaign=other")
+    text = res.stdout + res.stderr
+    assert res.returncode == 0, text[-3000:]
+    assert "checked 1 record file of" in text and "no screen was asked for" in text, text[-3000:]
+    assert "record files read" not in text and "summary page:" not in text
+    assert digests(work) == before
+
+
 @pytest.mark.parametrize("setup, reason", [
     (lambda work: None, "does not exist"),
     (lambda work: (work / "elsewhere").mkdir(), "has no entries/ folder"),

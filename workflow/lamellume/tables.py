@@ -415,13 +415,16 @@ _SHORTLIST = [
     ("Gap character", S, NO_UNIT, "'direct', 'indirect' or 'unknown' band gap at that layer count"),
     ("Thinning behaviour", S, NO_UNIT, "how the gap character changes with thinning, in words"),
     ("Thinning state", S, NO_UNIT,
-     "the same as one of a fixed list of values, for filtering (listed below the tables, thinning_state)"),
+     "Thinning behaviour as one of eight fixed values, for filtering (listed with their meanings at the end of "
+     "this page, column thinning_state)"),
     ("Direct up to (layers)", "Int16", "1",
      "thickest layer count N with a direct gap at every count 1..N; empty when the monolayer is not direct"),
     ("Exciton energy (eV)", F, "eV", "lowest bright exciton energy (optical gap)"),
     ("Exciton energy 16 % (eV)", F, "eV", "16th percentile of the exciton energy (Monte Carlo; empty without)"),
     ("Exciton energy 84 % (eV)", F, "eV", "84th percentile of the exciton energy (Monte Carlo; empty without)"),
-    ("Emission wavelength (nm)", F, "nm", "vacuum wavelength of the lowest bright exciton (no gap shift)"),
+    ("Emission wavelength (nm)", F, "nm",
+     "vacuum wavelength of the lowest bright exciton, with the band gap as calculated (not shrunk by the "
+     "surroundings' screening: one end of the emission bracket)"),
     ("Emission wavelength 16 % (nm)", F, "nm", "16th percentile of the emission wavelength (Monte Carlo)"),
     ("Emission wavelength 84 % (nm)", F, "nm", "84th percentile of the emission wavelength (Monte Carlo)"),
     ("Emission if the gap compensates (nm)", F, "nm",
@@ -430,7 +433,7 @@ _SHORTLIST = [
      "temperature the exciton energy and wavelength are for: the operating temperature when the record gives "
      "the gap's temperature dependence (thermal shift applied), else the calculation's temperature"),
     ("Spectral band", S, NO_UNIT, "named spectral band of the emission (config emission_bands)"),
-    ("Binding energy (meV)", F, "meV", "exciton binding energy (Rytova-Keldysh)"),
+    ("Binding energy (meV)", F, "meV", "binding energy of the lowest bright exciton (Rytova-Keldysh model)"),
     ("Binding energy 16 % (meV)", F, "meV", "16th percentile of the binding energy (Monte Carlo)"),
     ("Binding energy 84 % (meV)", F, "meV", "84th percentile of the binding energy (Monte Carlo)"),
     ("Binding / kT", F, "1", "binding energy over kT at the temperature of the row"),
