@@ -49,7 +49,7 @@ def test_candidate_column_and_criteria_missed_in_words():
     assert by_id.loc["a", "Candidate"] == "yes" and by_id.loc["a", "Criteria missed"] == ""
     assert by_id.loc["c", "Candidate"] == "no"
     assert by_id.loc["c", "Criteria missed"] == "binding below 3 kT at 300 K"
-    assert by_id.loc["e", "Criteria missed"] == "emission not wholly inside 600-900 nm"
+    assert by_id.loc["e", "Criteria missed"] == "emission 1000 nm not wholly inside 600-900 nm"  # the row's own
     # 0.3 eV binding is 300 meV (by hand); the margin 0.3 eV is 300 meV
     assert by_id.loc["a", "Binding energy (meV)"] == pytest.approx(300.0)
     assert by_id.loc["a", "Dark - bright exciton (meV)"] == pytest.approx(300.0)
@@ -125,3 +125,5 @@ def test_criteria_missed_name_the_rows_own_brightness():
     missed = short.set_index("Compound").loc["b", "Criteria missed"]
     assert missed.split("; ")[0] == "lowest exciton dark", missed
     assert "unknown" not in missed
+    # the margin miss with the row's own margin: -0.1 eV is 100 meV below (by hand), 50 meV needed (SETTINGS)
+    assert missed.split("; ")[1] == "dark exciton 100 meV below the bright one (50 meV above needed)", missed

@@ -67,9 +67,35 @@ def _missed(top: pd.DataFrame, settings: Mapping) -> np.ndarray:
             if key in row and not bool(row[key]):
                 if key == "pass_direct" and settings["ranking"]["require_direct"]:
                     text = _BRIGHTNESS_MISSED.get(str(row.get("target_brightness")), text)
-                missed.append(text)
+                missed.append(_with_values(key, text, row, settings))
         out.append("; ".join(missed))
     return np.asarray(out, dtype=object)
+
+
+def _finite(row: Mapping, name: str) -> float:
+    try:
+        value = float(row.get(name))
+    except (TypeError, ValueError):
+        return math.nan
+    return value
+
+
+def _with_values(key: str, text: str, row: Mapping, settings: Mapping) -> str:
+    """The words of a missed criterion with the row's own numbers where they say more."""
+    r = settings["ranking"]
+    if key == "pass_margin":
+        m = _finite(row, "target_exciton_margin_ev") * MEV_PER_EV
+        need = float(r["min_direct_margin_ev"]) * MEV_PER_EV
+        if math.isfinite(m):
+            where = f"only {m:.0f} meV above" if m >= 0 else f"{-m:.0f} meV below"
+            return f"dark exciton {where} the bright one ({need:g} meV above needed)"
+    if key == "pass_window":
+        ends = sorted(v for v in (_finite(row, "target_emission_nm"), _finite(row, "target_emission_compensated_nm"))
+                      if math.isfinite(v))
+        if ends:
+            span = f"{ends[0]:.0f} nm" if round(ends[0]) == round(ends[-1]) else f"{ends[0]:.0f}-{ends[-1]:.0f} nm"
+            return f"emission {span} {text.removeprefix('emission ')}"
+    return text
 
 
 def _column(top: pd.DataFrame, name: str, scale: float = 1.0, digits: int | None = None) -> np.ndarray:
