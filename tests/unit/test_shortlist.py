@@ -92,7 +92,7 @@ def test_written_files_open_cleanly(tmp_path):
                                   thinning_state=["direct when thin", "indirect at every thickness", "direct when thin"],
                                   direct_through_layers=pd.array([2, None, 1], dtype="Int16"))
     io.write_csv(shortlist.shortlist_table(ranked, SETTINGS), tmp_path / "shortlist.csv")
-    config = {**SETTINGS, "uncertainty": {"samples": 0}}
+    config = {**SETTINGS, "uncertainty": {"samples": 0}, "layers": {"max_layers": 6}}
     stamps = {"campaign": "inputs/mine", "written_utc": "2026-01-01T00:00:00+00:00", "config_hash": "abc",
               "code_version": "def", "git": "v1", "screened": 3, "candidates": 1}
     io.write_csv(shortlist.settings_table(config, stamps), tmp_path / "shortlist_settings.csv")
@@ -113,6 +113,7 @@ def test_written_files_open_cleanly(tmp_path):
     assert sheet["minimum dark - bright exciton"]["Value"] == "50"  # 0.05 eV in meV
     assert sheet["config hash"]["Value"] == "abc" and sheet["code version"]["Value"] == "def"
     assert sheet["campaign"]["Value"] == "inputs/mine"
+    assert sheet["thickest stack computed"]["Value"] == "6"  # the thinning columns' scan, layers.max_layers
     assert "not measurements" in sheet["caution"]["Value"]
     assert sheet["score definition"]["Value"] == ranking.score_definition(config)
     assert pd.read_csv(tmp_path / "shortlist_settings.csv").columns.tolist() == list(tables.SHORTLIST_SETTINGS_COLUMNS)

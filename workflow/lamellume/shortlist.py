@@ -199,6 +199,9 @@ def settings_table(settings: Mapping, stamps: Mapping[str, str]) -> pd.DataFrame
         ("shortlist size", str(int(r["shortlist_size"])), "1",
          "rows of the shortlist: the ranked list's first rows, candidates first"),
         ("layers", str(int(r["target_layers"])), "1", "layer count every value of the shortlist is for"),
+        ("thickest stack computed", str(int(settings.get("layers", {}).get("max_layers", 0)) or ""), "1",
+         "layer counts 1 to this, then bulk, are what the thinning columns scan ('direct at every thickness': "
+         "at each of them)"),
         ("surroundings", env, "", "surroundings every value of the shortlist is for"),
         ("dielectric constant above", _number(surroundings["top"]), "1", "relative permittivity above the flake"),
         ("dielectric constant below", _number(surroundings["bottom"]), "1",
