@@ -363,11 +363,22 @@ def _segment_min(values, index, compound, n_compounds):
     arg = np.full(shape, NO_PAIR, dtype=np.int64)
     if values.shape[0] == 0:
         return best, arg
-    np.minimum.at(best, compound, values)
-    hit = np.isfinite(values) & (values == best[compound])
-    cand = np.where(hit, index.reshape((-1,) + (1,) * (values.ndim - 1)), np.iinfo(np.int64).max)
-    first = np.full(shape, np.iinfo(np.int64).max, dtype=np.int64)
-    np.minimum.at(first, compound, cand)
+    big = np.iinfo(np.int64).max
+    index = index.reshape((-1,) + (1,) * (values.ndim - 1))
+    first = np.full(shape, big, dtype=np.int64)
+    if np.all(compound[1:] >= compound[:-1]):
+        # pairs sorted by compound (as valley_pairs makes them): one reduction per contiguous segment,
+        # several times faster than the unbuffered ufunc.at scatter; the same minima and first indices
+        start = np.flatnonzero(np.concatenate([[True], compound[1:] != compound[:-1]]))
+        seg = compound[start]
+        seg_best = np.minimum.reduceat(values, start, axis=0)
+        best[seg] = seg_best
+        hit = np.isfinite(values) & (values == np.repeat(seg_best, np.diff(np.append(start, len(compound))), axis=0))
+        first[seg] = np.minimum.reduceat(np.where(hit, index, big), start, axis=0)
+    else:
+        np.minimum.at(best, compound, values)
+        hit = np.isfinite(values) & (values == best[compound])
+        np.minimum.at(first, compound, np.where(hit, index, big))
     arg = np.where(np.isfinite(best), first, NO_PAIR)
     return best, arg
 
