@@ -277,7 +277,7 @@ def pair_inverse_mass(pairs: Pairs, inverse_mass):
     return w[pairs.conduction] + w[pairs.valence]
 
 
-def pair_total_mass_me(pairs: Pairs, inverse_mass):
+def pair_total_mass_me(pairs: Pairs, inverse_mass, index=None):
     """In-plane centre-of-mass (translational) density-of-states mass of each pair, m_e.
 
     The exciton's centre of mass moves with the mass tensor ``M = W_e^-1 +
@@ -289,10 +289,13 @@ def pair_total_mass_me(pairs: Pairs, inverse_mass):
     pairs : Pairs
     inverse_mass : array_like, shape (n_valleys, 2, 2)
         In-plane inverse-mass tensors, 1/m_e.
+    index : array_like of int, optional
+        Only these pairs (any shape; the result takes it): the model needs
+        the mass of the few pairs it selects, not of every pair.
 
     Returns
     -------
-    numpy.ndarray, shape (n_pairs,)
+    numpy.ndarray, shape (n_pairs,) (or that of ``index``)
         ``sqrt(det(M_e + M_h))`` in m_e; NaN where a tensor is missing.
 
     References
@@ -301,18 +304,35 @@ def pair_total_mass_me(pairs: Pairs, inverse_mass):
     of states of an anisotropic parabolic band: common practice.
     """
     w = np.asarray(inverse_mass, dtype=float)
-    good = np.all(np.isfinite(w), axis=(1, 2))
+    cond, val = np.asarray(pairs.conduction), np.asarray(pairs.valence)
+    if index is not None:   # the distinct pairs asked for, computed once each, then spread to index's shape
+        index = np.asarray(index)
+        need = np.zeros(cond.shape, dtype=bool)
+        need[index] = True
+        sel = np.flatnonzero(need)
+        at = np.cumsum(need) - 1
+        return pair_total_mass_me(Pairs(*(np.asarray(f)[sel] for f in pairs)), w)[at[index]]
+    # each valley's mass tensor is inverted where a pair needs it (the same numbers as inverting all first)
+    total = _mass_tensor(w[cond]) + _mass_tensor(w[val])
+    det = total[:, 0, 0] * total[:, 1, 1] - total[:, 0, 1] * total[:, 1, 0]
+    with np.errstate(invalid="ignore"):
+        return np.sqrt(det)
+
+
+def _mass_tensor(w):
+    """Mass tensors (k, 2, 2) of inverse-mass tensors ``w``, m_e; NaN where a tensor is not finite."""
     m = np.full(w.shape, np.nan)
-    if good.any():  # 2x2 inverse written out (numpy.linalg.inv costs ~10x as much for many tiny matrices)
+    good = np.all(np.isfinite(w), axis=(1, 2))
+    if good.all():
+        good = slice(None)
+    if w[good].size:  # 2x2 inverse written out (numpy.linalg.inv costs ~10x as much for many tiny matrices)
         wg = w[good]
         a, b, c, d = wg[:, 0, 0], wg[:, 0, 1], wg[:, 1, 0], wg[:, 1, 1]
         with np.errstate(divide="ignore", invalid="ignore"):
             inv_det = 1.0 / (a * d - b * c)
-        m[good] = np.stack([np.stack([d, -b], axis=-1), np.stack([-c, a], axis=-1)], axis=-2) * inv_det[:, None, None]
-    total = m[pairs.conduction] + m[pairs.valence]
-    det = total[:, 0, 0] * total[:, 1, 1] - total[:, 0, 1] * total[:, 1, 0]
-    with np.errstate(invalid="ignore"):
-        return np.sqrt(det)
+        m[good, 0, 0], m[good, 0, 1] = d * inv_det, -b * inv_det
+        m[good, 1, 0], m[good, 1, 1] = -c * inv_det, a * inv_det
+    return m
 
 
 def pair_degeneracy(pairs: Pairs, degeneracy):
@@ -418,6 +438,9 @@ def lowest_excitons(compound, exciton_ev, bright, n_compounds: int) -> ExcitonLe
     return ExcitonLevels(eb, ib, ed, idk, ed - eb, brightness_verdict(eb, ed))
 
 
+_VERDICTS = np.array(["unknown", "bright", "dark"], dtype=object)
+
+
 def brightness_verdict(bright_ev, dark_ev):
     """Whether the lowest exciton is bright.
 
@@ -446,8 +469,10 @@ def brightness_verdict(bright_ev, dark_ev):
     d = np.asarray(dark_ev, dtype=float)
     has_b, has_d = np.isfinite(b), np.isfinite(d)
     with np.errstate(invalid="ignore"):
-        out = np.where(has_d & (~has_b | (d < b)), "dark", np.where(has_b & has_d, "bright", "unknown"))
-    return out.astype(object)
+        dark = has_d & (~has_b | (d < b))
+    # codes 0 unknown, 1 bright, 2 dark, then one look-up into the words (no string arrays in between)
+    code = np.where(dark, 2, (has_b & has_d).astype(np.int8))
+    return _VERDICTS[code.reshape(-1)].reshape(code.shape)
 
 
 def state_weight(degeneracy, total_mass_me, dimension):
