@@ -143,7 +143,7 @@ def spin_subbands(n_valleys: int, spin_split_ev=None, edge_spin=None) -> SubBand
         raise ValueError("spin_split_ev and edge_spin must have shape (n_valleys,)")
     if np.any(split < 0):
         raise ValueError("spin_split_ev must be >= 0 (the edge is the sub-band nearest the gap)")
-    if np.any(~np.isin(spin, (SPIN_UP, SPIN_DOWN, SPIN_UNKNOWN))):
+    if np.any((spin < SPIN_DOWN) | (spin > SPIN_UP)):   # integers: outside {-1, 0, +1}
         raise ValueError("edge_spin must be +1, -1 or 0")
     two = np.isfinite(split) & (spin != SPIN_UNKNOWN)
     idx = np.arange(n_valleys)
@@ -210,8 +210,10 @@ def valley_pairs(owner, label_code, is_conduction, spin_split_ev=None, edge_spin
     s_cond = cond[sub.valley]
     vs = np.flatnonzero(~s_cond)
     cs = np.flatnonzero(s_cond)
-    vs = vs[np.lexsort((sub.valley[vs], s_owner[vs]))]
-    cs = cs[np.lexsort((sub.valley[cs], s_owner[cs]))]
+    # by (compound, valley): one stable sort of a combined key gives lexsort's order, and fast, as the
+    # sub-bands come sorted by valley and valleys mostly by compound
+    vs = vs[np.argsort(s_owner[vs] * n_v + sub.valley[vs], kind="stable")]
+    cs = cs[np.argsort(s_owner[cs] * n_v + sub.valley[cs], kind="stable")]
     n_comp = int(owner.max()) + 1 if n_v else 0
     n_c_per = np.bincount(s_owner[cs], minlength=n_comp)
     c_start = np.concatenate([[0], np.cumsum(n_c_per)[:-1]]) if n_comp else np.zeros(0, dtype=np.int64)
@@ -224,8 +226,10 @@ def valley_pairs(owner, label_code, is_conduction, spin_split_ev=None, edge_spin
     same = label[vv] == label[cv]
     sv, sc = sub.spin[pv], sub.spin[pc]
     allowed = (sv == SPIN_UNKNOWN) | (sc == SPIN_UNKNOWN) | (sv == sc)
-    order = np.argsort(owner[vv], kind="stable")
     fields = (owner[vv], vv, cv, sub.offset_ev[pv], sub.offset_ev[pc], same, allowed, same & allowed)
+    if np.all(fields[0][1:] >= fields[0][:-1]):   # already by compound (pairs follow the sorted valence list)
+        return Pairs(*fields)
+    order = np.argsort(owner[vv], kind="stable")
     return Pairs(*(np.asarray(f)[order] for f in fields))
 
 
