@@ -77,6 +77,24 @@ def test_a_dry_run_changes_no_file_a_real_run_reads(finished):
     assert "Nothing to be done" in res.stdout + res.stderr, res.stdout[-2000:]
 
 
+def dry_run_beside_a_real_run(work: Path, configfile: str, attempts: int = 3) -> subprocess.CompletedProcess:
+    """A dry run while another run holds the lock, retried on Snakemake's own check-then-act race.
+
+    Snakemake 9 (``IOFile.protected``: exists, then ``os.access(W_OK)``) reports a
+    ``ProtectedOutputException`` when the running run removes an output between the two
+    calls (it removes a job's outputs before running the job). That is Snakemake's planning
+    race, not ours, and the dry run writes nothing it could leave half-done, so it is
+    retried; any other failure, or the race three times running, fails the test.
+    DEVELOPERS.md "Snakemake workarounds" and docs/troubleshooting.md say the same.
+    """
+    for _ in range(attempts):
+        dry = snakemake(work, configfile, "-n")
+        if dry.returncode == 0 or "ProtectedOutputException" not in dry.stdout + dry.stderr:
+            return dry
+        time.sleep(0.2)
+    return dry
+
+
 def test_a_dry_run_during_a_real_run_does_not_break_it(finished):
     logs = finished / "results" / "logs" / "screen_shard"
     inputs = finished / "results" / "cache" / "inputs"
@@ -91,8 +109,8 @@ def test_a_dry_run_during_a_real_run_does_not_break_it(finished):
                 break
             time.sleep(0.05)
         assert run.poll() is None, "the real run ended before the dry run could start"
-        dry = snakemake(finished, "cold.yaml", "-n")
-        assert dry.returncode == 0, dry.stderr[-2000:]
+        dry = dry_run_beside_a_real_run(finished, "cold.yaml")
+        assert dry.returncode == 0, (dry.stdout[-3000:], dry.stderr[-2000:])
         out, _ = run.communicate(timeout=900)
     finally:
         if run.poll() is None:

@@ -331,6 +331,22 @@ def test_numpy_spline_pieces_match_scipy_bspline(table):
         np.testing.assert_allclose(grid, getattr(table, key)[1:], rtol=1e-13)
 
 
+def test_piece_lookup_finds_the_pieces_of_searchsorted(table):
+    # source: numpy.searchsorted (reference library): the bin look-up must give the same piece for
+    # every point, breakpoints themselves, points a rounding step either side of them, and both ends
+    rng = np.random.default_rng(7)
+    breaks = table._spline_pieces("f_1s")[0]
+    x = np.concatenate([rng.uniform(breaks[0] - 1.0, breaks[-1] + 1.0, 200_000), breaks,
+                        np.nextafter(breaks, np.inf), np.nextafter(breaks, -np.inf)])
+    np.testing.assert_array_equal(K._piece_index(K._piece_lookup(breaks), x),
+                                  np.searchsorted(breaks, x, side="right"))
+    # an uneven grid (pieces of very different length) as well
+    uneven = np.cumsum(rng.uniform(0.01, 1.0, 50))
+    y = np.concatenate([rng.uniform(uneven[0] - 1, uneven[-1] + 1, 100_000), uneven])
+    np.testing.assert_array_equal(K._piece_index(K._piece_lookup(uneven), y),
+                                  np.searchsorted(uneven, y, side="right"))
+
+
 def test_stored_pieces_are_used_only_when_consistent(table):
     # source: common practice (a cache entry that does not fit its grid is rebuilt, never trusted)
     arrays = table.to_arrays()

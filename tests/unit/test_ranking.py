@@ -33,7 +33,8 @@ def tables(rows):
         "kappa": 4.5, "radiative_rate_0_per_s": 2.0e12, "bright_mass_me": 1.0, "mott_density_per_cm2": 1.4e13}
         for r in rows])
     wide = pd.DataFrame({"entry_id": [r[0] for r in rows], "formula": "F", "lattice_angstrom": 3.2,
-                         "thinning_verdict": "v"})
+                         "thinning_verdict": "v", "thinning_state": "direct when thin",
+                         "direct_through_layers": pd.array([1] * len(rows), dtype="Int16")})
     return ranking.add_survival(long, wide, SETTINGS), wide
 
 

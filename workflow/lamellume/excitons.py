@@ -143,7 +143,7 @@ def spin_subbands(n_valleys: int, spin_split_ev=None, edge_spin=None) -> SubBand
         raise ValueError("spin_split_ev and edge_spin must have shape (n_valleys,)")
     if np.any(split < 0):
         raise ValueError("spin_split_ev must be >= 0 (the edge is the sub-band nearest the gap)")
-    if np.any(~np.isin(spin, (SPIN_UP, SPIN_DOWN, SPIN_UNKNOWN))):
+    if np.any((spin < SPIN_DOWN) | (spin > SPIN_UP)):   # integers: outside {-1, 0, +1}
         raise ValueError("edge_spin must be +1, -1 or 0")
     two = np.isfinite(split) & (spin != SPIN_UNKNOWN)
     idx = np.arange(n_valleys)
@@ -210,8 +210,10 @@ def valley_pairs(owner, label_code, is_conduction, spin_split_ev=None, edge_spin
     s_cond = cond[sub.valley]
     vs = np.flatnonzero(~s_cond)
     cs = np.flatnonzero(s_cond)
-    vs = vs[np.lexsort((sub.valley[vs], s_owner[vs]))]
-    cs = cs[np.lexsort((sub.valley[cs], s_owner[cs]))]
+    # by (compound, valley): one stable sort of a combined key gives lexsort's order, and fast, as the
+    # sub-bands come sorted by valley and valleys mostly by compound
+    vs = vs[np.argsort(s_owner[vs] * n_v + sub.valley[vs], kind="stable")]
+    cs = cs[np.argsort(s_owner[cs] * n_v + sub.valley[cs], kind="stable")]
     n_comp = int(owner.max()) + 1 if n_v else 0
     n_c_per = np.bincount(s_owner[cs], minlength=n_comp)
     c_start = np.concatenate([[0], np.cumsum(n_c_per)[:-1]]) if n_comp else np.zeros(0, dtype=np.int64)
@@ -224,8 +226,10 @@ def valley_pairs(owner, label_code, is_conduction, spin_split_ev=None, edge_spin
     same = label[vv] == label[cv]
     sv, sc = sub.spin[pv], sub.spin[pc]
     allowed = (sv == SPIN_UNKNOWN) | (sc == SPIN_UNKNOWN) | (sv == sc)
-    order = np.argsort(owner[vv], kind="stable")
     fields = (owner[vv], vv, cv, sub.offset_ev[pv], sub.offset_ev[pc], same, allowed, same & allowed)
+    if np.all(fields[0][1:] >= fields[0][:-1]):   # already by compound (pairs follow the sorted valence list)
+        return Pairs(*fields)
+    order = np.argsort(owner[vv], kind="stable")
     return Pairs(*(np.asarray(f)[order] for f in fields))
 
 
@@ -277,7 +281,7 @@ def pair_inverse_mass(pairs: Pairs, inverse_mass):
     return w[pairs.conduction] + w[pairs.valence]
 
 
-def pair_total_mass_me(pairs: Pairs, inverse_mass):
+def pair_total_mass_me(pairs: Pairs, inverse_mass, index=None):
     """In-plane centre-of-mass (translational) density-of-states mass of each pair, m_e.
 
     The exciton's centre of mass moves with the mass tensor ``M = W_e^-1 +
@@ -289,10 +293,13 @@ def pair_total_mass_me(pairs: Pairs, inverse_mass):
     pairs : Pairs
     inverse_mass : array_like, shape (n_valleys, 2, 2)
         In-plane inverse-mass tensors, 1/m_e.
+    index : array_like of int, optional
+        Only these pairs (any shape; the result takes it): the model needs
+        the mass of the few pairs it selects, not of every pair.
 
     Returns
     -------
-    numpy.ndarray, shape (n_pairs,)
+    numpy.ndarray, shape (n_pairs,) (or that of ``index``)
         ``sqrt(det(M_e + M_h))`` in m_e; NaN where a tensor is missing.
 
     References
@@ -301,18 +308,35 @@ def pair_total_mass_me(pairs: Pairs, inverse_mass):
     of states of an anisotropic parabolic band: common practice.
     """
     w = np.asarray(inverse_mass, dtype=float)
-    good = np.all(np.isfinite(w), axis=(1, 2))
+    cond, val = np.asarray(pairs.conduction), np.asarray(pairs.valence)
+    if index is not None:   # the distinct pairs asked for, computed once each, then spread to index's shape
+        index = np.asarray(index)
+        need = np.zeros(cond.shape, dtype=bool)
+        need[index] = True
+        sel = np.flatnonzero(need)
+        at = np.cumsum(need) - 1
+        return pair_total_mass_me(Pairs(*(np.asarray(f)[sel] for f in pairs)), w)[at[index]]
+    # each valley's mass tensor is inverted where a pair needs it (the same numbers as inverting all first)
+    total = _mass_tensor(w[cond]) + _mass_tensor(w[val])
+    det = total[:, 0, 0] * total[:, 1, 1] - total[:, 0, 1] * total[:, 1, 0]
+    with np.errstate(invalid="ignore"):
+        return np.sqrt(det)
+
+
+def _mass_tensor(w):
+    """Mass tensors (k, 2, 2) of inverse-mass tensors ``w``, m_e; NaN where a tensor is not finite."""
     m = np.full(w.shape, np.nan)
-    if good.any():  # 2x2 inverse written out (numpy.linalg.inv costs ~10x as much for many tiny matrices)
+    good = np.all(np.isfinite(w), axis=(1, 2))
+    if good.all():
+        good = slice(None)
+    if w[good].size:  # 2x2 inverse written out (numpy.linalg.inv costs ~10x as much for many tiny matrices)
         wg = w[good]
         a, b, c, d = wg[:, 0, 0], wg[:, 0, 1], wg[:, 1, 0], wg[:, 1, 1]
         with np.errstate(divide="ignore", invalid="ignore"):
             inv_det = 1.0 / (a * d - b * c)
-        m[good] = np.stack([np.stack([d, -b], axis=-1), np.stack([-c, a], axis=-1)], axis=-2) * inv_det[:, None, None]
-    total = m[pairs.conduction] + m[pairs.valence]
-    det = total[:, 0, 0] * total[:, 1, 1] - total[:, 0, 1] * total[:, 1, 0]
-    with np.errstate(invalid="ignore"):
-        return np.sqrt(det)
+        m[good, 0, 0], m[good, 0, 1] = d * inv_det, -b * inv_det
+        m[good, 1, 0], m[good, 1, 1] = -c * inv_det, a * inv_det
+    return m
 
 
 def pair_degeneracy(pairs: Pairs, degeneracy):
@@ -363,11 +387,22 @@ def _segment_min(values, index, compound, n_compounds):
     arg = np.full(shape, NO_PAIR, dtype=np.int64)
     if values.shape[0] == 0:
         return best, arg
-    np.minimum.at(best, compound, values)
-    hit = np.isfinite(values) & (values == best[compound])
-    cand = np.where(hit, index.reshape((-1,) + (1,) * (values.ndim - 1)), np.iinfo(np.int64).max)
-    first = np.full(shape, np.iinfo(np.int64).max, dtype=np.int64)
-    np.minimum.at(first, compound, cand)
+    big = np.iinfo(np.int64).max
+    index = index.reshape((-1,) + (1,) * (values.ndim - 1))
+    first = np.full(shape, big, dtype=np.int64)
+    if np.all(compound[1:] >= compound[:-1]):
+        # pairs sorted by compound (as valley_pairs makes them): one reduction per contiguous segment,
+        # several times faster than the unbuffered ufunc.at scatter; the same minima and first indices
+        start = np.flatnonzero(np.concatenate([[True], compound[1:] != compound[:-1]]))
+        seg = compound[start]
+        seg_best = np.minimum.reduceat(values, start, axis=0)
+        best[seg] = seg_best
+        hit = np.isfinite(values) & (values == np.repeat(seg_best, np.diff(np.append(start, len(compound))), axis=0))
+        first[seg] = np.minimum.reduceat(np.where(hit, index, big), start, axis=0)
+    else:
+        np.minimum.at(best, compound, values)
+        hit = np.isfinite(values) & (values == best[compound])
+        np.minimum.at(first, compound, np.where(hit, index, big))
     arg = np.where(np.isfinite(best), first, NO_PAIR)
     return best, arg
 
@@ -407,6 +442,9 @@ def lowest_excitons(compound, exciton_ev, bright, n_compounds: int) -> ExcitonLe
     return ExcitonLevels(eb, ib, ed, idk, ed - eb, brightness_verdict(eb, ed))
 
 
+_VERDICTS = np.array(["unknown", "bright", "dark"], dtype=object)
+
+
 def brightness_verdict(bright_ev, dark_ev):
     """Whether the lowest exciton is bright.
 
@@ -435,8 +473,10 @@ def brightness_verdict(bright_ev, dark_ev):
     d = np.asarray(dark_ev, dtype=float)
     has_b, has_d = np.isfinite(b), np.isfinite(d)
     with np.errstate(invalid="ignore"):
-        out = np.where(has_d & (~has_b | (d < b)), "dark", np.where(has_b & has_d, "bright", "unknown"))
-    return out.astype(object)
+        dark = has_d & (~has_b | (d < b))
+    # codes 0 unknown, 1 bright, 2 dark, then one look-up into the words (no string arrays in between)
+    code = np.where(dark, 2, (has_b & has_d).astype(np.int8))
+    return _VERDICTS[code.reshape(-1)].reshape(code.shape)
 
 
 def state_weight(degeneracy, total_mass_me, dimension):

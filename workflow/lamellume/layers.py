@@ -30,6 +30,10 @@ Encodings (integer sentinels)
 ``UNDETERMINED = -2``  the character could not be decided (missing valence or
                        conduction data before a decision was reached).
 ``NO_LABEL = -1``      label code reported where no extremum exists.
+
+These codes stay inside the library: the tables carry the crossover as layer
+counts that are empty where none exists and a state from a fixed list of words
+(:func:`lamellume.screen.thinning_columns`, :data:`lamellume.tables.THINNING_STATES`).
 """
 
 from __future__ import annotations
@@ -433,15 +437,19 @@ def gap_character(owner, label_code, is_conduction, edge_ev, scissor_ev=None,
     con = np.where(ok & cond[:, None], shifted, np.inf)
 
     # groups of (compound, label), contiguous after lexsort
-    order = np.lexsort((label, owner))
+    # (the stable sort of one combined key is lexsort's order; owner is sorted, so it is nearly sorted)
+    order = np.argsort(owner.astype(np.int64) * (int(label.max()) + 1) + label, kind="stable")
     o_s, l_s = owner[order], label[order]
     new = np.ones(n_v, dtype=bool)
     new[1:] = (o_s[1:] != o_s[:-1]) | (l_s[1:] != l_s[:-1])
     g_start = np.flatnonzero(new)
     g_owner, g_label = o_s[g_start], l_s[g_start]
     n_g = g_start.size
-    v_g = np.maximum.reduceat(val[order], g_start, axis=0)  # (n_g, n_l)
-    c_g = np.minimum.reduceat(con[order], g_start, axis=0)
+    if n_g == n_v:   # one valley per (compound, label) group: the group extrema are the valleys'
+        v_g, c_g = val[order], con[order]  # (n_g, n_l)
+    else:
+        v_g = np.maximum.reduceat(val[order], g_start, axis=0)
+        c_g = np.minimum.reduceat(con[order], g_start, axis=0)
     g_label_ext = np.append(g_label, NO_LABEL)
 
     # compound segments over the groups

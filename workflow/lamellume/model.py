@@ -367,7 +367,6 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     good = np.all(np.isfinite(w), axis=(1, 2))
     with np.errstate(invalid="ignore", divide="ignore"):
         mu = np.where(good, masses.inplane_average_mass_me(w), np.nan)
-    total = excitons.pair_total_mass_me(pr, inputs.inv_mass)
     deg = excitons.pair_degeneracy(pr, np.ones(len(inputs.owner)) if inputs.degeneracy is None
                                    else inputs.degeneracy)
     f_lay = np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (n,))
@@ -377,7 +376,10 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
         lev = excitons.lowest_excitons(c, energy, pr.bright, n)
         pick = np.maximum(lev.bright_pair, 0)
         found = lev.bright_pair >= 0
-        out["bright_mass_me"] = np.where(found, total[pick] if len(total) else np.nan, np.nan)
+        # centre-of-mass masses of the selected pairs only (the weights and the bright mass need no other)
+        total = {key: excitons.pair_total_mass_me(pr, inputs.inv_mass, np.maximum(idx, 0)) if len(c)
+                 else np.full(idx.shape, np.nan) for key, idx in (("bright", lev.bright_pair), ("dark", lev.dark_pair))}
+        out["bright_mass_me"] = np.where(found, total["bright"], np.nan)
         if rate is None:
             out["radiative_rate_0_per_s"] = np.full(lev.bright_ev.shape, np.nan)
         else:   # (P, F, E) per pair -> the lowest bright pair's
@@ -392,9 +394,9 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
                 np.full(pick.shape, np.nan)
             out["optical_gap_compensated_ev"] = np.where(lev.bright_pair >= 0, sel, np.nan)
         out["emission_compensated_nm"] = layer_model.emission_wavelength_nm(out["optical_gap_compensated_ev"])
-        weight = excitons.state_weight(deg, total, dimension)
         for key, idx in (("bright", lev.bright_pair), ("dark", lev.dark_pair)):
-            out[f"{key}_weight"] = np.where(idx >= 0, weight[np.maximum(idx, 0)] if len(weight) else np.nan, np.nan)
+            weight = excitons.state_weight(deg[np.maximum(idx, 0)], total[key], dimension) if len(c) else np.nan
+            out[f"{key}_weight"] = np.where(idx >= 0, weight, np.nan)
             out[f"{key}_pair_index"] = idx
         out["bright_exciton_ev"], out["dark_exciton_ev"] = lev.bright_ev, lev.dark_ev
         out["exciton_margin_ev"], out["brightness"] = lev.margin_ev, lev.verdict

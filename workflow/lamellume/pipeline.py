@@ -191,7 +191,8 @@ def validate_campaign(entry_paths: Sequence[str], campaign: str, settings: Mappi
 def validation_report(rejects: pd.DataFrame, listed: int, campaign: str, csv_path: str, shown: int = 40) -> str:
     """The validate-only target's console report: counts, then one line per problem (the first ``shown``)."""
     bad = int(rejects["entry_id"].nunique()) if len(rejects) else 0
-    lines = [f"lamellume: checked {listed} record files of {campaign}: {listed - bad} pass every check, "
+    files = "record file" if listed == 1 else "record files"
+    lines = [f"lamellume: checked {listed} {files} of {campaign}: {listed - bad} pass every check, "
              f"{bad} would be rejected (nothing was screened)."]
     for row in rejects.head(shown).to_dict("records"):
         lines.append(f"  {row['source_file']}: {row['field']}: {row['reason']} "

@@ -64,7 +64,6 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-from pymatgen.core import DummySpecies, Element, Species
 
 __all__ = [
     "BONDING_CRITERIA",
@@ -401,6 +400,8 @@ def _validate(structure, notes: list[str]):
             coords.append(site.frac_coords)
         notes.append("substitutional disorder: each mixed site replaced by its majority species")
         structure = Structure(structure.lattice, species, coords)
+
+    from pymatgen.core import DummySpecies, Element, Species  # here, not at import: compare_geometry needs no pymatgen
 
     for el in structure.composition.elements:
         if isinstance(el, DummySpecies) or not isinstance(el, (Element, Species)):
