@@ -323,7 +323,8 @@ def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, t
 
     entries = entries.sort_values("entry_id", kind="stable").reset_index(drop=True)
     valleys = valleys[valleys["entry_id"].isin(set(entries["entry_id"]))]
-    prep = uncertainty.prepare_inputs(entries, valleys, settings, score_inputs=cuts is not None)
+    prep = uncertainty.prepare_inputs(entries, valleys, settings, score_inputs=cuts is not None,
+                                        ranking_environment_only=True)
     vt = valleys.assign(_o=pd.Index(prep.ids).get_indexer(valleys["entry_id"]))
     vt = vt.sort_values(["_o", "valley_index"], kind="stable")
     labels, bands = vt["label"].astype(str).to_numpy(), vt["band"].astype(str).to_numpy()
@@ -337,7 +338,8 @@ def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, t
     if not len(order):
         return empty_frame()
     entries = entries.iloc[order].reset_index(drop=True)
-    prep = uncertainty.prepare_inputs(entries, valleys, settings, score_inputs=cuts is not None)
+    prep = uncertainty.prepare_inputs(entries, valleys, settings, score_inputs=cuts is not None,
+                                        ranking_environment_only=True)
     groups = [groups[i] for i in order]
     cut_of = None if cuts is None else [cuts[str(e)] for e in prep.ids]
     n_groups = n_groups[order]
@@ -501,7 +503,7 @@ def shortlist_probability(entries: pd.DataFrame, valleys: pd.DataFrame, settings
     if not len(entries) or n_base < 2 or not kinds:
         return out
     valleys = valleys[valleys["entry_id"].isin(set(entries["entry_id"]))]
-    prep = uncertainty.prepare_inputs(entries, valleys, settings, score_inputs=True)
+    prep = uncertainty.prepare_inputs(entries, valleys, settings, score_inputs=True, ranking_environment_only=True)
     active = _has_groups(prep, kinds)
     step = max(1, block_cells // n_base)
     for a in range(0, len(prep.ids), step):
