@@ -498,7 +498,7 @@ def _emission_ranges(row: Mapping, long: pd.DataFrame | None, settings: Mapping)
     out = []
     for env, entry in (settings.get("environments", {}) or {}).items():
         kappa = (float(entry["top"]) + float(entry["bottom"])) / 2
-        where = (f"{environment_label(env, settings)} (dielectric constant {_fmt(entry['top'], 1)} above, "
+        where = (f"{figures.environment_name(env, settings)} (dielectric constant {_fmt(entry['top'], 1)} above, "
                  f"{_fmt(entry['bottom'], 1)} below; mean {_fmt(kappa, 2)})")
         lo, hi = _num(row.get(f"emission_nm_p16__{env}")), _num(row.get(f"emission_nm_p84__{env}"))
         lam = _num(here["emission_nm"].get(env)) if "emission_nm" in here else math.nan
