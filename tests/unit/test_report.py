@@ -378,7 +378,7 @@ INTENDED_CHANGES = (
     ("(above 4.5, below 4.5) (above 4.5, below 4.5)", "(above 4.5, below 4.5)"),
     # issue 14: the binding-per-surroundings groups name the surroundings on one line, their constants on
     # the next (one long line per group ran into its neighbours)
-    *[(f"{name} ({c}) (1 L)", f"{name} (1 L) {c}") for name, c in (
+    *[(f"{name} ({c}) (1 L)", f"{name} (1 L) {c.replace(',', '')}") for name, c in (
         ("suspended", "above 1.0, below 1.0"), ("on silica", "above 1.0, below 3.9"),
         ("encapsulated", "above 4.5, below 4.5"))],
     # issue 14 item 7: the rejects' Check column names the check in words, not the stage name

@@ -470,11 +470,11 @@ def figure_binding_by_environment(ranked: pd.DataFrame, long: pd.DataFrame, sett
     for k, (g, ids, vals, chars) in enumerate(data):
         cx = ax.x(k)
         name = g if g == "bulk crystal" else environment_label(g, settings)
-        # two lines under the group, so neighbouring labels do not run into each other:
-        # the surroundings' name and layer count, then their dielectric constants
+        # short lines under the group, so neighbouring labels do not run into each other:
+        # the surroundings' name and layer count, then their dielectric constants above and below
         entry = settings.get("environments", {}).get(g, {}) if g != "bulk crystal" else {}
         lines = ([g] if g == "bulk crystal" else [f"{environment_name(g, settings)} ({n_target} L)"]
-                 + ([f"above {float(entry['top']):.1f}, below {float(entry['bottom']):.1f}"]
+                 + ([f"above {float(entry['top']):.1f}", f"below {float(entry['bottom']):.1f}"]
                     if "top" in entry and "bottom" in entry else []))
         for j, line in enumerate(lines):
             marks.append(el("text", {"class": ("tick strong" if g == env_ranked else "tick") + " group-label",
