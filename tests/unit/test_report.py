@@ -381,6 +381,9 @@ INTENDED_CHANGES = (
     *[(f"{name} ({c}) (1 L)", f"{name} (1 L) {c.replace(',', '')}") for name, c in (
         ("suspended", "above 1.0, below 1.0"), ("on silica", "above 1.0, below 3.9"),
         ("encapsulated", "above 4.5, below 4.5"))],
+    ("in each surroundings, plus the bulk crystal.",
+     "in each surroundings (under its name, the dielectric constants above and below the flake), plus the bulk "
+     "crystal."),
     # issue 14 item 7: the rejects' Check column names the check in words, not the stage name
     (" contract tensor:", " record breaks the input contract (schema or physical checks) tensor:"),
     (" valleys read no", " valleys file could not be read as JSON no"),

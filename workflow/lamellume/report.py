@@ -782,7 +782,8 @@ def _figures(ranked: pd.DataFrame, long: pd.DataFrame, settings: Mapping) -> lis
                     "candidates."},
         {"heading": "What the surroundings do to binding",
          "figure": figures.figure_binding_by_environment(ranked, long, settings),
-         "caption": "Binding at the ranked thickness in each surroundings, plus the bulk crystal. Ringed dots are "
+         "caption": "Binding at the ranked thickness in each surroundings (under its name, the dielectric "
+                    "constants above and below the flake), plus the bulk crystal. Ringed dots are "
                     "candidates, bars are medians. A more strongly screening environment lowers the binding."},
     ]
 
