@@ -823,7 +823,10 @@ def _recompute(refinement: pd.DataFrame | None, settings: Mapping, max_compounds
     lo, hi = sorted(float(x) for x in ref.get("band", (0.1, 0.9)))
     out = {"enabled": bool(ref.get("enabled", False)), "computed": refinement is not None,
            "low": f"{100 * lo:.0f}", "high": f"{100 * hi:.0f}", "compounds": 0, "rows": [], "more": 0,
-           "per_compound": int(ref.get("per_compound", 1))}
+           "per_compound": int(ref.get("per_compound", 1)),
+           "shortlist": (int(settings.get("ranking", {}).get("shortlist_size", 0))
+                         if "on_shortlist" in ref.get("verdicts", ())
+                         and settings.get("ranking", {}).get("order_by", "score") == "score" else 0)}
     if refinement is None or not len(refinement):
         return out
     firsts = refinement.drop_duplicates("entry_id")

@@ -377,9 +377,17 @@ _CHANGES = [
 
 _REFINEMENT = [
     ("output", S, NO_UNIT, "attributed output: meets_all, pass_direct, pass_margin, pass_binding, "
-                           "pass_window (0/1 verdicts), target_binding_ev, target_optical_gap_ev"),
+                           "pass_window, on_shortlist (0/1 verdicts), target_binding_ev, target_optical_gap_ev"),
     ("input_group", S, NO_UNIT, "input group: kind, and valley label and band for per-valley groups"),
-    ("input_kind", S, NO_UNIT, "mass, dielectric, screening_length, band_edges or scissor"),
+    ("input_kind", S, NO_UNIT, "mass, dielectric, screening_length, band_edges, scissor or model_error"),
+    ("p_on_shortlist", F, "1", "probability that the compound is on the shortlist with every other compound at "
+                               "its rank: fraction of the N base samples of matrix A (NaN when membership is not "
+                               "attributed)"),
+    ("shortlist_cut", S, NO_UNIT, "the ranking key (candidate, score, compound) of the shortlist_size-th other "
+                                  "compound that on_shortlist is measured against ('none': fewer other compounds "
+                                  "than the shortlist size; '' when not attributed); part of the record's cache key"),
+    ("verdict", S, NO_UNIT, "the verdict in doubt: meets_all (meets every criterion), on_shortlist (makes the "
+                            "shortlist) or both (membership follows the criteria in every sample)"),
     ("mean", F, "output unit", "mean of the output over the base samples (for a verdict: its probability)"),
     ("variance", F, "output unit squared", "variance of the output over the base samples"),
     ("share_first", F, "1", "first-order Sobol index (Saltelli 2010): expected fraction of the variance "
@@ -561,12 +569,12 @@ TABLES: dict[str, tuple[str, list[str]]] = {
     "results/tables/attribution.parquet": (
         "one row per borderline compound, attributed output and input group (variance-based attribution)",
         ["entry_id", "input_hash", "physics_hash", "output", "input_group", "input_kind", "valley_index",
-         "p_meets_all", "mean", "variance", "share_first", "share_first_se", "share_total", "share_total_se",
+         "p_meets_all", "p_on_shortlist", "shortlist_cut", "mean", "variance", "share_first", "share_first_se", "share_total", "share_total_se",
          "share_halved", "share_halved_se", "n_base", "seed"]),
     "results/tables/refinement.parquet": (
         "the campaign's refinement list: which input to recompute first (also results/refinement.csv)",
-        ["rank", "entry_id", "input_group", "input_kind", "valley_index", "recompute", "p_meets_all",
-         "share_first", "share_total", "share_halved", "expected_effect", "mostly_through", "advice"]),
+        ["rank", "entry_id", "input_group", "input_kind", "valley_index", "recompute", "verdict", "p_meets_all",
+         "p_on_shortlist", "share_first", "share_total", "share_halved", "expected_effect", "mostly_through", "advice"]),
     "results/tables/changes.parquet": (
         "one row per compound that changed since the previous run",
         ["entry_id", *[c[0] for c in _CHANGES]]),
