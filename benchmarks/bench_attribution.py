@@ -7,12 +7,16 @@ repository root. Steps:
    ``bench_uncertainty.py`` does (``inputs/make_campaign.py --count 10000
    --no-broken --cif-fraction 0``, then ``pipeline.run_shard``; not timed here);
 2. in a fresh child process: run ``uncertainty.propagate_uncertainty`` with
-   400 samples (the propagation, as the shard job runs it), then
-   ``refinement.attribute`` on the records whose ``p_meets_all`` lies in the
-   configured band, with the configured ``refinement`` settings (base samples,
-   effect, groups); report both wall times, their ratio, the number of
-   borderline records, the model evaluations of each, and the resident-memory
-   high-water mark of each step (``VmHWM``, reset between steps);
+   400 samples (the propagation, as the shard job runs it), rank the records
+   (``ranking.rank``, as rule rank_candidates; not timed), then the attribution
+   job's own function ``pipeline.run_attribution`` with an empty cache, twice:
+   with ``refinement.verdicts: [meets_all]`` (records whose ``p_meets_all``
+   lies in the band) and with the configured verdicts (by default also shortlist
+   membership: N more model runs for every other ranked record, then the records
+   whose ``p_on_shortlist`` lies in the band); report the wall times, their
+   ratios to the propagation, the records attributed, the model evaluations,
+   and the resident-memory high-water mark of each step (``VmHWM``, reset
+   between steps);
 3. with ``--profile``: a second, untimed attribution under ``cProfile``,
    printing where the time goes (model evaluation, drawing and design,
    estimators, table assembly).
@@ -41,7 +45,7 @@ import bench_uncertainty as bu  # noqa: E402  (same campaign, same machine repor
 
 def _settings(base: int | None, effect: str | None) -> dict:
     cfg = bu._config()
-    keys = ("uncertainty", "survival", "ranking", "layers", "monolayer", "environments", "refinement")
+    keys = ("uncertainty", "survival", "ranking", "layers", "monolayer", "excitons", "environments", "refinement")
     settings = {k: cfg[k] for k in keys}
     if base is not None:
         settings["refinement"]["samples"] = base
@@ -53,7 +57,9 @@ def _settings(base: int | None, effect: str | None) -> dict:
 def child(entries_path: str, valleys_path: str, table_path: str, samples: int, base: int | None,
           effect: str | None, profile: bool) -> None:
     """Propagation then attribution; print one JSON line (and a profile when asked)."""
-    from lamellume import attribution, io, keldysh, refinement, uncertainty
+    import copy
+
+    from lamellume import attribution, io, keldysh, pipeline, ranking, refinement, uncertainty
 
     settings = _settings(base, effect)
     entries, valleys = io.read_parquet(entries_path), io.read_parquet(valleys_path)
@@ -64,34 +70,50 @@ def child(entries_path: str, valleys_path: str, table_path: str, samples: int, b
     t_prop = time.perf_counter() - t0
     rss_prop = bu._high_water_kib(reset=True)
 
-    t0 = time.perf_counter()
-    merged = entries.merge(unc[["entry_id", "p_meets_all"]], on="entry_id")
-    chosen = merged[refinement.borderline(merged["p_meets_all"], settings["refinement"]["band"])]
-    rows = refinement.attribute(chosen, valleys, settings, table)
-    t_attr = time.perf_counter() - t0
-    rss_attr = bu._high_water_kib()
-
+    # the ranking of rule rank_candidates (not timed): the cut keys of shortlist membership
+    norm = Path(entries_path).parent
+    wide = io.read_parquet(norm / "wide.parquet")
+    long = ranking.add_survival(io.read_parquet(norm / "long.parquet"), wide, settings)
+    r = settings["ranking"]
+    ranked = ranking.rank(long[(long["layers"] == r["target_layers"]) & (long["environment"] == r["environment"])],
+                          wide, settings, unc)
+    work = Path(tempfile.mkdtemp(prefix="bench_attr_run_"))
+    io.write_parquet(unc, work / "uncertainty.parquet")
+    io.write_parquet(ranked[["entry_id", "rank", "meets_all_criteria", "score"]], work / "ranked.parquet")
     ref = settings["refinement"]
-    verdict = rows[rows["output"] == "meets_all"]
-    groups = verdict.groupby("entry_id").size()
     per_compound = int(ref["per_compound"]) if ref["effect"] == "halved" else 0
-    evaluations = sum(attribution.design_size(int(ref["samples"]), int(d), min(per_compound, int(d)))
-                      for d in groups)
-    print(json.dumps({
-        "entries": len(entries), "samples": samples, "propagation_s": t_prop, "attribution_s": t_attr,
-        "ratio": t_attr / t_prop, "borderline": int(len(chosen)), "attributed": int(len(groups)),
-        "mean_groups": float(groups.mean()) if len(groups) else 0.0,
-        "base": int(ref["samples"]), "effect": ref["effect"],
-        "propagation_evaluations": len(entries) * samples, "attribution_evaluations": int(evaluations),
-        "rss_propagation_mib": rss_prop / 1024, "rss_attribution_mib": rss_attr / 1024,
-    }))
+    out = {"entries": len(entries), "samples": samples, "propagation_s": t_prop,
+           "propagation_evaluations": len(entries) * samples, "rss_propagation_mib": rss_prop / 1024,
+           "base": int(ref["samples"]), "effect": ref["effect"]}
+    for label, verdicts in (("verdict", ["meets_all"]), ("configured", list(ref["verdicts"]))):
+        s = copy.deepcopy(settings)
+        s["refinement"]["verdicts"] = verdicts
+        bu._high_water_kib(reset=True)
+        t0 = time.perf_counter()
+        counts = pipeline.run_attribution(str(entries_path), str(valleys_path), str(work / "uncertainty.parquet"),
+                                          str(table_path), s, str(work / f"cache_{label}"),
+                                          str(work / f"attribution_{label}.parquet"), str(work / "ranked.parquet"))
+        t_attr = time.perf_counter() - t0
+        rows = io.read_parquet(work / f"attribution_{label}.parquet")
+        groups = rows[rows["output"] == "meets_all"].groupby("entry_id").size()
+        evaluations = sum(attribution.design_size(int(ref["samples"]), int(d), min(per_compound, int(d)))
+                          for d in groups) + int(ref["samples"]) * counts.get("membership_computed", 0)
+        out[label] = {"verdicts": verdicts, "attribution_s": t_attr, "ratio": t_attr / t_prop,
+                      "attributed": int(len(groups)), "membership_computed": counts.get("membership_computed", 0),
+                      "mean_groups": float(groups.mean()) if len(groups) else 0.0,
+                      "attribution_evaluations": int(evaluations), "rss_attribution_mib": bu._high_water_kib() / 1024}
+    print(json.dumps(out))
+    chosen = entries[entries["entry_id"].isin(set(rows["entry_id"]))].merge(unc[["entry_id", "p_meets_all"]],
+                                                                              on="entry_id")
     if profile:
         import cProfile
         import pstats
 
         prof = cProfile.Profile()
         prof.enable()
-        refinement.attribute(chosen, valleys, settings, table)
+        campaign = refinement.shortlist_cuts(ranked, int(r["shortlist_size"]))
+        refinement.attribute(chosen, valleys, settings, table, cuts={str(e): campaign.against(str(e))
+                                                                     for e in chosen["entry_id"]})
         prof.disable()
         stats = pstats.Stats(prof, stream=sys.stderr)
         stats.sort_stats("cumulative").print_stats(25)
@@ -124,11 +146,13 @@ def main() -> None:
         print(f"{r['entries']} entries: propagation x {r['samples']} samples {r['propagation_s']:.1f} s "
               f"({r['propagation_evaluations'] / 1e6:.1f} M model evaluations, peak RSS "
               f"{r['rss_propagation_mib']:.0f} MiB)")
-        print(f"attribution of {r['borderline']} borderline records ({r['attributed']} with uncertain inputs, "
-              f"{r['mean_groups']:.1f} input groups on average), N = {r['base']}, effect {r['effect']}: "
-              f"{r['attribution_s']:.1f} s ({r['attribution_evaluations'] / 1e6:.1f} M model evaluations, "
-              f"peak RSS {r['rss_attribution_mib']:.0f} MiB)")
-        print(f"ratio attribution / propagation: {r['ratio']:.2f}")
+        for label in ("verdict", "configured"):
+            a = r[label]
+            print(f"attribution, verdicts {a['verdicts']}: {a['attributed']} records attributed "
+                  f"({a['mean_groups']:.1f} input groups on average), membership of {a['membership_computed']} "
+                  f"other records sampled, N = {r['base']}, effect {r['effect']}: {a['attribution_s']:.1f} s "
+                  f"({a['attribution_evaluations'] / 1e6:.1f} M model evaluations, peak RSS "
+                  f"{a['rss_attribution_mib']:.0f} MiB); ratio to the propagation {a['ratio']:.2f}")
         if args.profile:
             print(res.stderr)
 

@@ -193,6 +193,12 @@ def test_filter_and_candidate_toggle(driver, run):
     driver.execute_script("var f = document.getElementById('filter'); f.value = '';"
                           "f.dispatchEvent(new Event('input'));")
     assert _visible_rows(driver) == len(wide)
+    # the thinning state's fixed words filter too (issue 14: states as documented values)
+    state = "direct when thin"
+    box.send_keys(state)
+    assert _visible_rows(driver) == int((wide["thinning_state"] == state).sum()) > 0
+    driver.execute_script("var f = document.getElementById('filter'); f.value = '';"
+                          "f.dispatchEvent(new Event('input'));")
     toggle = driver.find_element(By.ID, "only-cand")
     toggle.click()
     assert _visible_rows(driver) == int(wide["meets_all_criteria"].sum())

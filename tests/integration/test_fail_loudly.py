@@ -15,6 +15,7 @@ Through Snakemake's command line, in a working folder that holds a finished run:
 from __future__ import annotations
 
 import hashlib
+import re
 import shutil
 import subprocess
 import sys
@@ -63,10 +64,26 @@ def test_a_successful_run_ends_with_the_console_summary(finished):
     text = res.stdout + res.stderr
     # 4 valid records plus the generator's 7 deliberately broken ones
     assert "lamellume: 11 record files read, 4 screened, 7 rejected" in text, text[-3000:]
-    assert "candidates." in text
+    assert re.search(r"rejected, \d+ candidates?\.", text), text[-3000:]
     assert "rejects: results/tables/rejects.csv; first reasons:" in text
     assert "    broken-" in text  # a reason names its file
     assert "summary page: results/summary.html" in text
+    assert f"results/ is {work.resolve() / 'results'}" in text  # where they are, whatever --directory said
+
+
+def test_validating_another_campaign_does_not_repeat_the_last_screens_counts(finished):
+    # results/ holds a complete screen; checking another campaign must not end with that screen's counts
+    work, _ = finished
+    other = work / "other" / "entries"
+    other.mkdir(parents=True, exist_ok=True)
+    shutil.copy(next((work / "campaign" / "entries").glob("lumen-*.json")), other)
+    before = digests(work)
+    res = snakemake(work, "validate_campaign", "--config", "campaign=other")
+    text = res.stdout + res.stderr
+    assert res.returncode == 0, text[-3000:]
+    assert "checked 1 record file of" in text and "no screen was asked for" in text, text[-3000:]
+    assert "record files read" not in text and "summary page:" not in text
+    assert digests(work) == before
 
 
 @pytest.mark.parametrize("setup, reason", [

@@ -243,6 +243,13 @@ for _col in ("Gap character at 1 layer(s)", "Exciton energy in encapsulated (eV)
              "Emission wavelength 84 % (nm)", "Binding energy 16 % (meV)", "Binding energy 84 % (meV)",
              "Binding / kT", "Bright fraction"):
     EXPECTED_CHANGES[("shortlist.csv", _col, "*")] = _STANDALONE
+_THINNING = ("issue 14: switch-layer states as documented values, no codes: character_switch_layers "
+             "(-1 none, 0 bulk only, -2 undetermined) is replaced by switch_layers (a layer count or empty) and "
+             "thinning_state (a fixed list of words); direct_through_layers is empty instead of 0 / -2")
+for _col in ("character_switch_layers", "switch_layers", "thinning_state", "direct_through_layers"):
+    EXPECTED_CHANGES[("tables/screen_wide.parquet", _col, "*")] = _THINNING
+for _col in ("Thinning state", "Direct up to (layers)"):
+    EXPECTED_CHANGES[("shortlist.csv", _col, "*")] = _THINNING
 EXPECTED_CHANGES[("shortlist.csv", ROWS, "*")] = (
     "issue 14 item 1: the shortlist holds the ranked list's first shortlist_size compounds (candidates first, "
     "then the closest misses, each with its criteria missed), no longer candidates only")

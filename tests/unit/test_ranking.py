@@ -33,7 +33,8 @@ def tables(rows):
         "kappa": 4.5, "radiative_rate_0_per_s": 2.0e12, "bright_mass_me": 1.0, "mott_density_per_cm2": 1.4e13}
         for r in rows])
     wide = pd.DataFrame({"entry_id": [r[0] for r in rows], "formula": "F", "lattice_angstrom": 3.2,
-                         "thinning_verdict": "v"})
+                         "thinning_verdict": "v", "thinning_state": "direct when thin",
+                         "direct_through_layers": pd.array([1] * len(rows), dtype="Int16")})
     return ranking.add_survival(long, wide, SETTINGS), wide
 
 
@@ -176,3 +177,23 @@ def test_window_applies_to_the_whole_emission_bracket():
     assert not r["pass_window"] and not r["meets_all_criteria"]
     long["emission_compensated_nm"] = 880.0
     assert ranking.rank(long, wide, SETTINGS).iloc[0]["pass_window"]
+
+
+def test_ranks_above_follows_the_order_rank_sorts_by():
+    # Two code paths for one order: rank's sort of the whole table versus the pairwise key
+    # comparison the attribution uses. Keys with ties in the flag and in the score (the
+    # identifier then decides; a lexicographic order, common practice).
+    rng = np.random.default_rng(3)
+    n = 40
+    keys = pd.DataFrame({"entry_id": [f"c{i:02d}" for i in rng.permutation(n)],
+                         "meets_all_criteria": rng.random(n) < 0.4,
+                         "score": rng.choice([0.2, 0.5, 0.5, 0.7, 0.9], n)})
+    # the order rank() sorts by (its final statement, on the same three columns)
+    ordered = keys.sort_values(["meets_all_criteria", "score", "entry_id"], ascending=[False, False, True],
+                               kind="stable").reset_index(drop=True)
+    for j in range(n):
+        other = ordered.iloc[j]
+        mine = np.array([ranking.ranks_above(ordered["meets_all_criteria"].iloc[i], ordered["score"].iloc[i],
+                                             ordered["entry_id"].iloc[i], bool(other.iloc[1]), float(other.iloc[2]),
+                                             other.iloc[0]) for i in range(n)])
+        np.testing.assert_array_equal(mine, np.arange(n) < j)

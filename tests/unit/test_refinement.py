@@ -16,7 +16,7 @@ import pandas as pd
 import pytest
 from scipy import special
 
-from lamellume import io, pipeline, refinement, uncertainty
+from lamellume import io, pipeline, ranking, refinement, uncertainty
 
 from mc_setup import config_sections, zero_uncertainty
 
@@ -36,9 +36,30 @@ def demo(screened_demo, coarse_table, settings):
     chosen = entries[refinement.borderline(entries["p_meets_all"], settings["refinement"]["band"])]
     assert len(chosen) >= 10                       # the demo is built to have borderline compounds
     rows = refinement.attribute(chosen, valleys, settings, coarse_table)
+    # the campaign's ranking (one shard: the whole demo) and the shortlist's cut keys
+    r = settings["ranking"]
+    long = ranking.add_survival(frames["long"], frames["wide"], settings)
+    target = long[(long["layers"] == r["target_layers"]) & (long["environment"] == r["environment"])]
+    ranked = ranking.rank(target, frames["wide"], settings, unc)
+    campaign = refinement.shortlist_cuts(ranked, r["shortlist_size"])
+    ranked_ids = set(ranked["entry_id"])
+    cuts = {e: campaign.against(e) for e in entries["entry_id"] if e in ranked_ids}
+    ranked_path = screened_demo["tmp"] / "ranked.parquet"
+    io.write_parquet(ranked[["entry_id", "rank", "meets_all_criteria", "score"]], ranked_path)
     return {"entries": entries, "valleys": valleys, "table": coarse_table, "borderline": chosen, "rows": rows,
-            "tmp": screened_demo["tmp"], "outputs": screened_demo["outputs"],
-            "table_path": screened_demo["table_path"]}
+            "tmp": screened_demo["tmp"], "outputs": screened_demo["outputs"], "unc": unc, "ranked": ranked,
+            "cuts": cuts, "ranked_path": str(ranked_path), "table_path": screened_demo["table_path"]}
+
+
+@pytest.fixture(scope="module")
+def membership(demo, settings):
+    """Compounds whose shortlist membership is in doubt (p_on_shortlist in the band), attributed."""
+    entries = demo["entries"][demo["entries"]["entry_id"].isin(set(demo["cuts"]))]
+    p_on = refinement.shortlist_probability(entries, demo["valleys"], settings, demo["table"], demo["cuts"])
+    chosen = entries[entries["entry_id"].isin(set(p_on.index[refinement.borderline(p_on, settings["refinement"]["band"])]))]
+    assert len(chosen) >= 5
+    rows = refinement.attribute(chosen, demo["valleys"], settings, demo["table"], cuts=demo["cuts"])
+    return {"p_on": p_on, "chosen": chosen, "rows": rows}
 
 
 _zeroed = zero_uncertainty
@@ -186,6 +207,106 @@ def test_each_borderline_compound_names_an_input_whose_halving_moves_its_probabi
 
 
 # --------------------------------------------------------------------------- #
+# Shortlist membership (on_shortlist)
+# --------------------------------------------------------------------------- #
+def test_nominal_draw_scores_as_the_ranking_does(demo, settings):
+    # Consistency of two code paths: the score inputs of the nominal screen (model.evaluate once,
+    # ranking.add_survival, ranking.rank's target_* columns) against those of the Monte Carlo path
+    # (uncertainty.evaluate_draws per sample, refinement.sample_score) with every input exact. The
+    # window part is the criterion itself in both (one sample has no probability); scores agree to
+    # rounding, verdicts exactly.
+    e, v, s = _zeroed(demo["entries"], demo["valleys"], settings)
+    e = e[e["entry_id"].isin(set(demo["cuts"]))].sort_values("entry_id").reset_index(drop=True)
+    prep = uncertainty.prepare_inputs(e, v[v["entry_id"].isin(set(e["entry_id"]))], s, score_inputs=True)
+    n, n_v = len(prep.ids), int(prep.vstart[-1])
+    values = uncertainty.evaluate_draws(prep, 0, n, np.zeros((3, n, 1)), np.zeros((n_v, 1)), np.zeros((n_v, 1)),
+                                        demo["table"], np.zeros((2, n, 1)))
+    score = refinement.sample_score(values, s["ranking"])[:, 0]
+    r = settings["ranking"]
+    nominal = demo["ranked"].drop(columns=[c for c in demo["ranked"].columns if c.startswith("p_")])
+    # rank's score with the window part the criterion itself (as rank scores without the Monte Carlo)
+    parts = ranking.score_parts(nominal["target_bound_fraction"], nominal["target_exciton_margin_ev"],
+                                nominal["pass_window"], nominal["target_brightness_proxy_per_s"], r)
+    expected = pd.Series(ranking.weighted_score(parts, r["weights"]), index=nominal["entry_id"]).reindex(prep.ids)
+    np.testing.assert_allclose(score, expected.to_numpy(), rtol=1e-9, atol=1e-12)
+    meets = pd.Series(nominal["meets_all_criteria"].to_numpy(), index=nominal["entry_id"]).reindex(prep.ids)
+    np.testing.assert_array_equal(values["meets_all"][:, 0], meets.to_numpy(dtype=bool))
+    assert np.ptp(score) > 0.1                   # the scores spread: a check that can fail
+
+
+def test_nominal_membership_is_the_ranked_shortlist(demo, settings):
+    # Two code paths for membership: the first shortlist_size rows of ranking.rank's table versus
+    # ranks_above of each compound's nominal key against its cut key (the size-th of the others).
+    ranked = demo["ranked"]
+    size = settings["ranking"]["shortlist_size"]
+    for row in ranked.itertuples(index=False):
+        cut = demo["cuts"][row.entry_id]
+        on = True if cut is None else bool(ranking.ranks_above(row.meets_all_criteria, row.score, row.entry_id,
+                                                                *cut))
+        assert on == (row.rank <= size), row.entry_id
+
+
+def test_membership_depends_on_one_input_only(demo, membership, settings):
+    # Sobol' (2001): with one uncertain input, S = ST = 1 for a verdict that varies. The compound
+    # and its input are the first of the membership list with an additive input (edge or scissor).
+    listed = refinement.refinement_list(membership["rows"], verdicts=["on_shortlist"])
+    top = listed[listed["input_kind"].isin(["band_edges", "scissor"])].iloc[0]
+    ent = demo["entries"][demo["entries"]["entry_id"] == top["entry_id"]]
+    val = demo["valleys"][demo["valleys"]["entry_id"] == top["entry_id"]]
+    e, v, s = _zeroed(ent, val, settings)
+    if top["input_kind"] == "scissor":
+        e["scissor_unc_ev"] = 0.1
+    else:
+        v.loc[v["valley_index"] == top["valley_index"], "edge_unc_ev"] = 0.1
+    s["refinement"]["samples"] = 512
+    rows = refinement.attribute(e, v, s, demo["table"], cuts=demo["cuts"])
+    assert set(rows["input_group"]) == {top["input_group"]}
+    on = rows[rows["output"] == "on_shortlist"].iloc[0]
+    assert 0.02 < on["mean"] < 0.98, on                       # membership varies with this input alone
+    for col in ("share_first", "share_total"):
+        assert abs(on[col] - 1.0) <= 4 * on[f"{col}_se"] + 0.02, on
+
+
+def test_membership_probability_is_the_attributions_own(membership):
+    # The selection's p_on_shortlist (matrix A alone) and the attribution's (stage 1) are the same draws.
+    rows = membership["rows"].drop_duplicates("entry_id").set_index("entry_id")["p_on_shortlist"]
+    np.testing.assert_array_equal(rows.to_numpy(), membership["p_on"].reindex(rows.index).to_numpy())
+
+
+def test_halving_the_first_input_moves_membership_as_predicted(demo, membership, settings):
+    """Brute force for a compound near the cut, as for meets_all above: the membership probability
+    after a refinement that halves the first listed input, at M quantiles of what it can find, has
+    the variance share_halved x p(1 - p) (double-loop Monte Carlo versus the pick-freeze estimate)."""
+    listed = refinement.refinement_list(membership["rows"], verdicts=["on_shortlist"],
+                                        band=settings["refinement"]["band"])
+    firsts = listed.drop_duplicates("entry_id")
+    firsts = firsts[firsts["input_kind"].isin(["band_edges", "scissor"])]
+    assert len(firsts)
+    rows = membership["rows"].set_index(["entry_id", "output", "input_group"])
+    n_samples, m = 2000, 16
+    u = special.ndtri((np.arange(m) + 0.5) / m)
+    rng = np.random.default_rng(11)
+    for row in firsts.head(2).itertuples(index=False):
+        ent = demo["entries"][demo["entries"]["entry_id"] == row.entry_id]
+        val = demo["valleys"][demo["valleys"]["entry_id"] == row.entry_id]
+        p = []
+        for uj in u:
+            e, v = _shift_and_halve(ent, val, settings, row, np.sqrt(0.75) * uj)
+            prep = uncertainty.prepare_inputs(e, v, settings, score_inputs=True)
+            k = int(prep.vstart[-1])
+            values = uncertainty.evaluate_draws(
+                prep, 0, 1, rng.standard_normal((3, 1, n_samples)), rng.standard_normal((k, n_samples)),
+                rng.standard_normal((k, n_samples)), demo["table"], rng.standard_normal((2, 1, n_samples)))
+            p.append(refinement.on_shortlist(values, prep.ids, [demo["cuts"][row.entry_id]],
+                                             settings["ranking"])[0].mean())
+        p = np.array(p)
+        assert p.max() - p.min() > 6 * np.sqrt(0.25 / n_samples), (row.entry_id, p)
+        var = rows.loc[(row.entry_id, "on_shortlist", row.input_group)]
+        brute = p.var() / var["variance"]
+        assert abs(brute - var["share_halved"]) <= 0.1 + 3 * var["share_halved_se"], (row.entry_id, brute, var)
+
+
+# --------------------------------------------------------------------------- #
 # Pipeline: per-record cache, the list and its CSV
 # --------------------------------------------------------------------------- #
 def test_run_attribution_caches_per_record(demo, settings, tmp_path):
@@ -194,6 +315,8 @@ def test_run_attribution_caches_per_record(demo, settings, tmp_path):
     io.write_parquet(entries[["entry_id", "p_meets_all"]], prop)
     cache = tmp_path / "cache"
     out1, out2 = tmp_path / "a1.parquet", tmp_path / "a2.parquet"
+    settings = copy.deepcopy(settings)
+    settings["refinement"]["verdicts"] = ["meets_all"]
     first = pipeline.run_attribution(demo["outputs"]["entries"], demo["outputs"]["valleys"], str(prop),
                                      demo["table_path"], settings, str(cache), str(out1))
     assert first == {"borderline": len(demo["borderline"]), "computed": len(demo["borderline"]), "reused": 0}
@@ -219,6 +342,42 @@ def test_run_attribution_caches_per_record(demo, settings, tmp_path):
     # every column carries its unit and description
     units = io.parquet_units(out1)
     assert units["share_first"] == "1" and units["p_meets_all"] == "1"
+
+
+def test_run_attribution_selects_and_caches_membership_by_cut(demo, membership, settings, tmp_path):
+    entries = demo["entries"]
+    prop = tmp_path / "uncertainty.parquet"
+    io.write_parquet(entries[["entry_id", "p_meets_all"]], prop)
+    cache, ranked_path = tmp_path / "cache", demo["ranked_path"]
+
+    def run(name, ranked=ranked_path, s=settings):
+        counts = pipeline.run_attribution(demo["outputs"]["entries"], demo["outputs"]["valleys"], str(prop),
+                                          demo["table_path"], s, str(cache), str(tmp_path / name), ranked)
+        return counts, io.read_parquet(tmp_path / name)
+
+    counts, rows = run("a1.parquet")
+    # selected: p_meets_all or p_on_shortlist in the band
+    expected = set(demo["borderline"]["entry_id"]) | set(membership["chosen"]["entry_id"])
+    assert set(rows["entry_id"]) == expected and counts["borderline"] == len(expected)
+    assert counts["membership_computed"] == len(demo["cuts"]) - len(demo["borderline"])
+    again, rows2 = run("a2.parquet")
+    assert again["computed"] == 0 and again["membership_computed"] == 0
+    pd.testing.assert_frame_equal(rows, rows2)
+    # a moved cut: the ranked table with the last shortlist row's score lowered re-runs the
+    # compounds measured against it, and only those
+    ranked = io.read_parquet(ranked_path)
+    size = settings["ranking"]["shortlist_size"]
+    ranked.loc[ranked["rank"] == size + 1, "score"] -= 1e-6
+    moved = tmp_path / "ranked.parquet"
+    io.write_parquet(ranked, moved)
+    third, _ = run("a3.parquet", str(moved))
+    members = set(ranked.loc[ranked["rank"] <= size, "entry_id"])
+    assert third["computed"] == len(expected & members) and third["reused"] == len(expected - members)
+    # ranking by probability: membership is not attributed (logged), the verdict still is
+    s = copy.deepcopy(settings)
+    s["ranking"]["order_by"] = "probability"
+    fourth, rows4 = run("a4.parquet", s=s)
+    assert "on_shortlist" not in set(rows4["output"]) and set(rows4["entry_id"]) == set(demo["borderline"]["entry_id"])
 
 
 def test_refinement_list_ranks_and_writes_a_plannable_csv(demo, settings, tmp_path):
@@ -250,7 +409,24 @@ def test_disabled_or_nothing_borderline_gives_an_empty_table(demo, settings, tmp
     s = copy.deepcopy(settings)
     s["refinement"]["enabled"] = False
     counts = pipeline.run_attribution(demo["outputs"]["entries"], demo["outputs"]["valleys"], str(prop),
-                                      demo["table_path"], s, str(tmp_path / "c"), str(tmp_path / "a.parquet"))
+                                      demo["table_path"], s, str(tmp_path / "c"), str(tmp_path / "a.parquet"),
+                                      demo["ranked_path"])
     assert counts == {"borderline": 0, "computed": 0, "reused": 0}
     frame = io.read_parquet(tmp_path / "a.parquet")
     assert len(frame) == 0 and list(frame.columns) == list(refinement.COLUMNS)
+
+
+def test_membership_equal_to_the_verdict_is_listed_once(demo, settings):
+    # Where membership equals the verdict in every sample, its attribution rows equal the verdict's
+    # (the same sample vectors); the list then says it once (verdict "both"); a compound whose
+    # membership differs in one share keeps both sets.
+    meets = demo["rows"][demo["rows"]["output"] == "meets_all"].assign(p_on_shortlist=0.5)
+    on = meets.assign(output="on_shortlist")
+    other = on["entry_id"].iloc[0]
+    on.loc[on["entry_id"] == other, "share_first"] += 0.01
+    listed = refinement.refinement_list(pd.concat([meets, on], ignore_index=True), band=(0.1, 0.9))
+    by_entry = listed.groupby("entry_id")["verdict"].agg(set)
+    assert by_entry[other] <= {"meets_all", "on_shortlist"} and "on_shortlist" in by_entry[other]
+    assert all(v == {"both"} for e, v in by_entry.items() if e != other)
+    row = listed[listed["verdict"] == "both"].iloc[0]
+    assert "makes the shortlist" in row["advice"] and "meets every criterion" in row["advice"]

@@ -517,6 +517,8 @@ def test_large_screen_lists_the_best_ranked_rows(settings):
     assert page.count('<tr id="row-') == 15
     assert page.count('data-candidate="1"') == 15
     assert "5 further candidate(s) and 10 other compound(s)" in page
+    size = settings["ranking"]["shortlist_size"]  # the shortlist is the ranked list's head, not the candidates
+    assert f"the first {size} of the ranked list (candidates first) in results/shortlist.csv" in page
     assert "cmp-" in page and '"rows"' in page
     data = json.loads(re.search(r'id="lamellume-data">(.*?)</script>', page).group(1))
     assert len(data["rows"]) == 15
@@ -601,7 +603,7 @@ PLAN_SETTINGS = {
 
 def _plan_row(**extra):
     row = {"entry_id": "x", "thinning_verdict": "direct only as a monolayer, indirect from 2 layers",
-           "gap_character_1l": "direct", "character_switch_layers": 2, "target_brightness": "bright",
+           "thinning_state": "direct when thin", "switch_layers": 2, "target_brightness": "bright",
            "target_exciton_margin_ev": 0.08, "target_bright_exciton_ev": 1.9, "target_mott_density_per_cm2": 2.0e13,
            "target_radius_angstrom": 12.0, "emission_nm_p16__suspended": 640.0, "emission_nm_p84__suspended": 700.0,
            "emission_nm_p16__encapsulated": 630.0, "emission_nm_p84__encapsulated": 690.0}
@@ -631,7 +633,8 @@ def test_card_plan_names_every_step_of_the_first_experiment():
 
 def test_card_plan_for_a_dark_ground_state_expects_dimming_and_no_layer_test():
     plan = dict(report._plan(_plan_row(target_brightness="dark", target_exciton_margin_ev=-0.03,
-                                       character_switch_layers=-1), None, PLAN_SETTINGS))
+                                       thinning_state="direct at every thickness", switch_layers=pd.NA),
+                                None, PLAN_SETTINGS))
     tests = " ".join(plan["Quick test"])
     assert "dim on cooling" in tests and "monolayer and bilayer" not in tests
     assert all("no Monte Carlo range" not in t for t in plan["Expected emission"])

@@ -14,7 +14,8 @@ import pandas as pd
 import pytest
 from scipy import constants as sc
 
-from lamellume import ingest, keldysh, screen
+from lamellume import ingest, keldysh, screen, tables
+from lamellume import layers as layer_model
 
 # CODATA via scipy.constants, independent of lamellume.units.
 RY_EV = sc.value("Rydberg constant times hc in eV")
@@ -131,8 +132,42 @@ def test_worked_example_gap_character_by_layer_count(record, table):
     assert per_layer.loc[4, "vbm_label"] == "G" and per_layer.loc[4, "cbm_label"] == "K"
     assert per_layer.loc[0, "vbm_label"] == "G" and per_layer.loc[0, "cbm_label"] == "Q"
     assert int(wide["direct_through_layers"].iloc[0]) == 3
-    assert int(wide["character_switch_layers"].iloc[0]) == 4
+    assert int(wide["switch_layers"].iloc[0]) == 4
+    assert wide["thinning_state"].iloc[0] == "direct when thin"
     assert wide["thinning_verdict"].iloc[0] == "direct up to 3 layers, indirect from 4"
+
+
+# Crossovers by hand (layer counts 1..6 then bulk) and the thinning columns they must give: the
+# state by its definition in lamellume.tables, the counts a layer count or empty (None), never a code.
+# Sentinels of lamellume.layers: BULK 0 (only bulk differs), NO_SWITCH -1, UNDETERMINED -2.
+_THINNING_CASES = [
+    # (direct_through, switch code, monolayer direct) -> (state, direct_through_layers, switch_layers, verdict)
+    ((6, -1, True), ("direct at every thickness", 6, None, "direct at every thickness")),
+    ((0, -1, False), ("indirect at every thickness", None, None, "indirect at every thickness")),
+    ((1, 2, True), ("direct when thin", 1, 2, "direct only as a monolayer, indirect from 2 layers")),
+    ((3, 4, True), ("direct when thin", 3, 4, "direct up to 3 layers, indirect from 4")),
+    ((0, 3, False), ("indirect when thin", None, 3, "indirect up to 2 layers, direct from 3")),
+    ((6, 0, True), ("direct except in bulk", 6, None, "direct up to 6 layers, indirect in bulk")),
+    ((0, 0, False), ("indirect except in bulk", None, None, "indirect up to 6 layers, direct in bulk")),
+    ((-2, -2, False), ("unknown as a monolayer", None, None, "unknown: the record's band edges")),
+    ((2, -2, True), ("unknown beyond", 2, None, "direct up to at least 2 layers; unknown at a thicker")),
+    ((0, -2, False), ("unknown beyond", None, None, "indirect as a monolayer; unknown at a thicker")),
+]
+
+
+def test_thinning_columns_name_every_state_and_leave_missing_counts_empty():
+    codes = np.array([c for c, _ in _THINNING_CASES])
+    cross = layer_model.Crossover(codes[:, 0], codes[:, 1], codes[:, 2].astype(bool), np.zeros(len(codes), bool))
+    cols = screen.thinning_columns(cross, max_layers=6)
+    for i, (_, (state, through, switch, verdict)) in enumerate(_THINNING_CASES):
+        assert cols["thinning_state"][i] == state
+        assert cols["thinning_verdict"][i].startswith(verdict)
+        for name, want in (("direct_through_layers", through), ("switch_layers", switch)):
+            got = cols[name][i]
+            assert (got is pd.NA) if want is None else (int(got) == want), (name, i, got)
+    assert str(cols["switch_layers"].dtype) == "Int16" and str(cols["direct_through_layers"].dtype) == "Int16"
+    # every value of the declared list occurs, and nothing else
+    assert set(cols["thinning_state"]) == set(tables.THINNING_STATES)
 
 
 def test_crystal_frame_tensor_is_rotated(record, table):

@@ -49,7 +49,7 @@ def test_candidate_column_and_criteria_missed_in_words():
     assert by_id.loc["a", "Candidate"] == "yes" and by_id.loc["a", "Criteria missed"] == ""
     assert by_id.loc["c", "Candidate"] == "no"
     assert by_id.loc["c", "Criteria missed"] == "binding below 3 kT at 300 K"
-    assert by_id.loc["e", "Criteria missed"] == "emission not wholly inside 600-900 nm"
+    assert by_id.loc["e", "Criteria missed"] == "emission 1000 nm not wholly inside 600-900 nm"  # the row's own
     # 0.3 eV binding is 300 meV (by hand); the margin 0.3 eV is 300 meV
     assert by_id.loc["a", "Binding energy (meV)"] == pytest.approx(300.0)
     assert by_id.loc["a", "Dark - bright exciton (meV)"] == pytest.approx(300.0)
@@ -88,9 +88,11 @@ def test_score_definition_states_the_score_the_ranking_computes():
 
 
 def test_written_files_open_cleanly(tmp_path):
-    ranked = _ranked(ROWS).assign(formula=["=HYPERLINK(1)", "F", "F"])
+    ranked = _ranked(ROWS).assign(formula=["=HYPERLINK(1)", "F", "F"],
+                                  thinning_state=["direct when thin", "indirect at every thickness", "direct when thin"],
+                                  direct_through_layers=pd.array([2, None, 1], dtype="Int16"))
     io.write_csv(shortlist.shortlist_table(ranked, SETTINGS), tmp_path / "shortlist.csv")
-    config = {**SETTINGS, "uncertainty": {"samples": 0}}
+    config = {**SETTINGS, "uncertainty": {"samples": 0}, "layers": {"max_layers": 6}}
     stamps = {"campaign": "inputs/mine", "written_utc": "2026-01-01T00:00:00+00:00", "config_hash": "abc",
               "code_version": "def", "git": "v1", "screened": 3, "candidates": 1}
     io.write_csv(shortlist.settings_table(config, stamps), tmp_path / "shortlist_settings.csv")
@@ -98,6 +100,12 @@ def test_written_files_open_cleanly(tmp_path):
         rows = list(csv.reader(fh))
     assert tuple(rows[0]) == tables.SHORTLIST_COLUMNS
     assert rows[1][rows[0].index("Formula")] == "'=HYPERLINK(1)"  # a formula is neutralised (OWASP)
+    # thinning: a state from the declared list and a layer count, empty (never a code) where none exists
+    by_id = {row[rows[0].index("Compound")]: row for row in rows[1:]}
+    assert by_id["a"][rows[0].index("Direct up to (layers)")] == "2"
+    assert by_id["c"][rows[0].index("Direct up to (layers)")] == ""
+    assert by_id["c"][rows[0].index("Thinning state")] == "indirect at every thickness"
+    assert all(row[rows[0].index("Thinning state")] in tables.THINNING_STATES for row in rows[1:])
     with open(tmp_path / "shortlist_settings.csv", newline="") as fh:
         sheet = {row["Setting"]: row for row in csv.DictReader(fh)}
     assert sheet["temperature"]["Value"] == "300" and sheet["temperature"]["Unit"] == "K"
@@ -105,6 +113,18 @@ def test_written_files_open_cleanly(tmp_path):
     assert sheet["minimum dark - bright exciton"]["Value"] == "50"  # 0.05 eV in meV
     assert sheet["config hash"]["Value"] == "abc" and sheet["code version"]["Value"] == "def"
     assert sheet["campaign"]["Value"] == "inputs/mine"
+    assert sheet["thickest stack computed"]["Value"] == "6"  # the thinning columns' scan, layers.max_layers
     assert "not measurements" in sheet["caution"]["Value"]
     assert sheet["score definition"]["Value"] == ranking.score_definition(config)
     assert pd.read_csv(tmp_path / "shortlist_settings.csv").columns.tolist() == list(tables.SHORTLIST_SETTINGS_COLUMNS)
+
+
+def test_criteria_missed_name_the_rows_own_brightness():
+    # an indirect row of the minimal tables has a dark lowest exciton 0.1 eV below the bright one
+    settings = {**SETTINGS, "ranking": {**SETTINGS["ranking"], "shortlist_size": 2}}
+    short = shortlist.shortlist_table(_ranked([ROWS[0], ("b", "indirect", 0.2, -0.1, 700.0)], settings), settings)
+    missed = short.set_index("Compound").loc["b", "Criteria missed"]
+    assert missed.split("; ")[0] == "lowest exciton dark", missed
+    assert "unknown" not in missed
+    # the margin miss with the row's own margin: -0.1 eV is 100 meV below (by hand), 50 meV needed (SETTINGS)
+    assert missed.split("; ")[1] == "dark exciton 100 meV below the bright one (50 meV above needed)", missed

@@ -589,8 +589,8 @@ def _arrow_type(dtype: str):
     """Arrow type of a dtype name of :mod:`lamellume.tables`."""
     import pyarrow as pa
 
-    return {"string": pa.large_string(), "float64": pa.float64(), "int16": pa.int16(), "int32": pa.int32(),
-            "int64": pa.int64(), "bool": pa.bool_()}[dtype]
+    return {"string": pa.large_string(), "float64": pa.float64(), "int16": pa.int16(), "Int16": pa.int16(),
+            "int32": pa.int32(), "int64": pa.int64(), "bool": pa.bool_()}[dtype]
 
 
 def _dictionary_columns(schema: pa.Schema) -> list[str]:

@@ -30,6 +30,10 @@ Encodings (integer sentinels)
 ``UNDETERMINED = -2``  the character could not be decided (missing valence or
                        conduction data before a decision was reached).
 ``NO_LABEL = -1``      label code reported where no extremum exists.
+
+These codes stay inside the library: the tables carry the crossover as layer
+counts that are empty where none exists and a state from a fixed list of words
+(:func:`lamellume.screen.thinning_columns`, :data:`lamellume.tables.THINNING_STATES`).
 """
 
 from __future__ import annotations

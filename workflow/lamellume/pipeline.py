@@ -191,7 +191,8 @@ def validate_campaign(entry_paths: Sequence[str], campaign: str, settings: Mappi
 def validation_report(rejects: pd.DataFrame, listed: int, campaign: str, csv_path: str, shown: int = 40) -> str:
     """The validate-only target's console report: counts, then one line per problem (the first ``shown``)."""
     bad = int(rejects["entry_id"].nunique()) if len(rejects) else 0
-    lines = [f"lamellume: checked {listed} record files of {campaign}: {listed - bad} pass every check, "
+    files = "record file" if listed == 1 else "record files"
+    lines = [f"lamellume: checked {listed} {files} of {campaign}: {listed - bad} pass every check, "
              f"{bad} would be rejected (nothing was screened)."]
     for row in rejects.head(shown).to_dict("records"):
         lines.append(f"  {row['source_file']}: {row['field']}: {row['reason']} "
@@ -470,13 +471,16 @@ def run_propagation(entries: str | pd.DataFrame, valleys: str | pd.DataFrame, ta
 
 
 def run_attribution(entries_path: str, valleys_path: str, uncertainty_path: str, table_path: str,
-                    settings: Mapping, cache_dir: str, output: str) -> dict[str, int]:
+                    settings: Mapping, cache_dir: str, output: str, ranked_path: str | None = None) -> dict[str, int]:
     """Variance-based attribution of one shard's borderline verdicts, re-computing only changed records.
 
     A record is attributed when its ``p_meets_all`` (the propagation's table)
-    lies in ``refinement.band``. Each record's design depends only on the
-    campaign seed and its identifier, so a cached row equals a fresh one
-    whenever ``input_hash``, ``physics_hash``, the settings and the code match.
+    or its ``p_on_shortlist`` (:func:`lamellume.refinement.shortlist_probability`,
+    against the cut keys of the ranked table at ``ranked_path``) lies in
+    ``refinement.band``, for the verdicts of ``refinement.verdicts``. Each
+    record's design depends only on the campaign seed and its identifier, so a
+    cached row equals a fresh one whenever ``input_hash``, ``physics_hash``, the
+    record's shortlist cut key, the settings and the code match.
     """
     from lamellume import refinement
 
@@ -485,25 +489,82 @@ def run_attribution(entries_path: str, valleys_path: str, uncertainty_path: str,
     stamps = {"settings_hash": io.canonical_json_hash(dict(settings))[:16],
               "code_version": stage_code_version()}
     ref = settings["refinement"]
-    chosen = set(probabilities["entry_id"][refinement.borderline(probabilities["p_meets_all"], ref["band"])]) \
-        if ref["enabled"] else set()
-    entries = entries[is_in(entries["entry_id"], chosen)] if chosen else entries.iloc[:0]
+    verdicts = set(ref.get("verdicts", ["meets_all"])) if ref["enabled"] else set()
+    if "on_shortlist" in verdicts and settings["ranking"].get("order_by", "score") != "score":
+        log.info("shortlist membership is not attributed: with ranking.order_by: %s the order uses a probability "
+                 "that one Monte Carlo sample does not have", settings["ranking"]["order_by"])
+        verdicts.discard("on_shortlist")
+    if "on_shortlist" in verdicts and ranked_path is None:
+        raise ValueError("attributing shortlist membership needs the ranked table")
     entries = entries.assign(p_meets_all=entries["entry_id"].map(
         probabilities.set_index("entry_id")["p_meets_all"]).to_numpy(dtype=float))
+    cuts = None
+    if "on_shortlist" in verdicts:
+        ranked = io.read_parquet(ranked_path, columns=["entry_id", "rank", "meets_all_criteria", "score"])
+        campaign = refinement.shortlist_cuts(ranked, int(settings["ranking"]["shortlist_size"]))
+        entries = entries[is_in(entries["entry_id"], set(ranked["entry_id"].astype(str)))]   # ranked ones only
+        cuts = {str(e): campaign.against(str(e)) for e in entries["entry_id"]}
+        entries = entries.assign(shortlist_cut=[refinement.cut_text(cuts[str(e)]) for e in entries["entry_id"]])
+    else:
+        entries = entries.assign(shortlist_cut="")
+    keys = record_keys(entries) + "\0" + entries["shortlist_cut"].astype(str)
+    entries = entries.assign(_key=keys.to_numpy(dtype=object))
+    chosen = set(entries["entry_id"][refinement.borderline(entries["p_meets_all"], ref["band"])]) \
+        if "meets_all" in verdicts else set()
+
+    valleys = None
+    table = None
+
+    def load():
+        nonlocal valleys, table
+        if valleys is None:
+            valleys = io.read_parquet(valleys_path)
+            table = KeldyshTable.from_arrays(io.load_arrays(table_path))
+        return valleys, table
+
+    counts = {"borderline": 0, "computed": 0, "reused": 0}
+    # p_on_shortlist of the records not already chosen: N model runs each, cached per record and cut key
+    prob_path = Path(cache_dir) / "shortlist_probability.parquet"
+    if cuts is not None:
+        rest = entries[~is_in(entries["entry_id"], chosen)] if chosen else entries
+        known = pd.DataFrame()
+        if len(rest) and prob_path.exists() and \
+                io.parquet_metadata(prob_path) == {**io.parquet_metadata(prob_path), **stamps}:
+            old = io.read_parquet(prob_path)
+            if len(old):
+                old = old.assign(_key=(record_keys(old) + "\0" + old["shortlist_cut"].astype(str)).to_numpy(dtype=object))
+                known = old[is_in(old["_key"], set(rest["_key"]))]
+        todo = rest[~is_in(rest["_key"], set(known["_key"]))] if len(known) else rest
+        if len(todo):
+            v, t = load()
+            fresh = refinement.shortlist_probability(todo, v[is_in(v["entry_id"], set(todo["entry_id"]))],
+                                                     settings, t, cuts).to_numpy(dtype=float)
+            fresh = todo.sort_values("entry_id", kind="stable").assign(p_on_shortlist=fresh)
+        else:
+            fresh = pd.DataFrame()
+        probs = pd.concat([f for f in (known, fresh) if len(f)], ignore_index=True) if len(known) or len(fresh) \
+            else pd.DataFrame(columns=list(refinement.PROBABILITY_COLUMNS))
+        counts["membership_computed"] = len(fresh)
+        counts["membership_reused"] = len(known)
+        chosen |= set(probs["entry_id"][refinement.borderline(probs["p_on_shortlist"], ref["band"])])
+        probs = refinement._typed(probs, refinement.PROBABILITY_COLUMNS).sort_values("entry_id", kind="stable")
+        io.write_parquet(probs, prob_path, units=refinement.UNITS, descriptions=refinement.DESCRIPTIONS,
+                         table_metadata=stamps)
+
+    entries = entries[is_in(entries["entry_id"], chosen)] if chosen else entries.iloc[:0]
     cache_path = Path(cache_dir) / "attribution.parquet"
-    keys = record_keys(entries)
     reused = pd.DataFrame()
     if len(entries) and cache_path.exists() and \
             io.parquet_metadata(cache_path) == {**io.parquet_metadata(cache_path), **stamps}:
         old = io.read_parquet(cache_path)
-        reused = old[is_in(record_keys(old), set(keys))] if len(old) else old
+        if len(old):
+            reused = old[is_in(record_keys(old) + "\0" + old["shortlist_cut"].astype(str), set(entries["_key"]))]
     done = set(reused["entry_id"]) if len(reused) else set()
     todo = entries[~is_in(entries["entry_id"], done)] if done else entries
     if len(todo):
-        valleys = io.read_parquet(valleys_path)
-        valleys = valleys[is_in(valleys["entry_id"], set(todo["entry_id"]))]
-        table = KeldyshTable.from_arrays(io.load_arrays(table_path))
-        fresh = refinement.attribute(todo, valleys, settings, table)
+        v, t = load()
+        fresh = refinement.attribute(todo.drop(columns="_key"), v[is_in(v["entry_id"], set(todo["entry_id"]))],
+                                     settings, t, cuts=cuts)
     else:
         fresh = refinement.empty_frame()
     frame = pd.concat([f for f in (fresh, reused) if len(f)] or [fresh], ignore_index=True)
@@ -511,8 +572,8 @@ def run_attribution(entries_path: str, valleys_path: str, uncertainty_path: str,
     io.write_parquet(frame, output, units=refinement.UNITS, descriptions=refinement.DESCRIPTIONS,
                      table_metadata=stamps)
     io.copy_file(output, cache_path)
-    counts = {"borderline": len(entries), "computed": int(todo["entry_id"].nunique()) if len(todo) else 0,
-              "reused": len(done)}
+    counts.update(borderline=len(entries), computed=int(todo["entry_id"].nunique()) if len(todo) else 0,
+                  reused=len(done))
     log.info("attribution done: %s", counts)
     return counts
 
@@ -527,7 +588,8 @@ def run_refinement_list(attribution_paths: Sequence[str], settings: Mapping, out
         frame = refinement.empty_frame()
     frame = frame.sort_values(["entry_id", "output", "input_group"], kind="stable").reset_index(drop=True)
     ref = settings["refinement"]
-    ranked = refinement.refinement_list(frame, effect=ref["effect"], per_entry=int(ref["per_compound"]))
+    ranked = refinement.refinement_list(frame, effect=ref["effect"], per_entry=int(ref["per_compound"]),
+                                        band=ref["band"], verdicts=ref.get("verdicts", ["meets_all"]))
     meta = {"config_hash": config_hash}
     io.write_parquet(frame, outputs["attribution"], units=refinement.UNITS, descriptions=refinement.DESCRIPTIONS,
                      table_metadata=meta)

@@ -216,6 +216,25 @@ def weighted_score(parts: Mapping[str, np.ndarray], weights: Mapping) -> np.ndar
     return sum(w[k] * np.asarray(parts[k], dtype=float) for k in w) / total
 
 
+def ranks_above(meets_all, score, entry_id: str, other_meets_all: bool, other_score: float,
+                other_entry_id: str) -> np.ndarray:
+    """Whether the key (meets_all, score, entry_id) comes before another in the order of :func:`rank`.
+
+    The order of ``ranking.order_by: score``: candidates (every criterion met)
+    first, then the higher score, then the identifier in ascending order.
+    Vectorised over ``meets_all`` and ``score`` (one compound's samples); the
+    other key is one compound's.
+
+    References
+    ----------
+    Common practice (a lexicographic order; the one :func:`rank` sorts by).
+    """
+    m = np.asarray(meets_all, dtype=bool)
+    s = np.asarray(score, dtype=float)
+    om, osc = bool(other_meets_all), float(other_score)
+    return (m & (not om)) | ((m == om) & ((s > osc) | ((s == osc) & (str(entry_id) < str(other_entry_id)))))
+
+
 def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
          probabilities: pd.DataFrame | None = None) -> pd.DataFrame:
     """Wide table with ranking criteria, score components, score and rank.

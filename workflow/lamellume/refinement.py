@@ -20,6 +20,26 @@ sampled by the propagation) one group per entry. A group whose uncertainty is ze
 nothing and is not evaluated. Inputs left out of ``groups`` keep varying but
 are not attributed.
 
+Shortlist membership (``on_shortlist``)
+---------------------------------------
+The shortlist is the first ``ranking.shortlist_size`` rows of the ranked
+table, ordered by the key (meets every criterion, score, identifier)
+(:func:`lamellume.ranking.rank`). In one sample of one compound, with every
+other compound held at its nominal key, the compound is on the shortlist iff
+its sample key ranks above the key of the shortlist_size-th of the *other*
+compounds (:func:`lamellume.ranking.ranks_above`): the nominal key at
+position size + 1 when the compound is itself on the nominal shortlist, else
+the one at position size (:class:`ShortlistCuts`; with fewer other compounds
+than the shortlist size it is always on). The sample's score is
+:func:`lamellume.ranking.score_parts` / :func:`~lamellume.ranking.weighted_score`
+of the sample's own values; its window part is the sample's window indicator
+(0 or 1; its mean over samples is the ``p_pass_window`` of the nominal
+score). ``p_on_shortlist`` is the fraction of the N base samples of matrix A
+on the shortlist; a compound is attributed when ``p_meets_all`` or
+``p_on_shortlist`` lies in the band (``refinement.verdicts`` chooses which).
+With ``ranking.order_by: probability`` the order uses a probability that one
+sample does not have, so membership is not attributed (the log says so).
+
 Expected effects
 ----------------
 ``share_first`` (S_i) is the expected fraction of the output's variance
@@ -47,15 +67,18 @@ Sensitivity Analysis: The Primer* (Wiley, 2008), sec. 1.2.15.
 
 from __future__ import annotations
 
-from typing import Mapping
+from typing import Mapping, NamedTuple
 
 import numpy as np
 import pandas as pd
 
-from lamellume import attribution, keldysh, uncertainty
 
-__all__ = ["GROUP_KINDS", "OUTPUTS", "COLUMNS", "LIST_COLUMNS", "UNITS", "DESCRIPTIONS",
-           "attribution_seed_sequence", "borderline", "empty_frame", "display_frame", "attribute", "refinement_list", "plain_words"]
+from lamellume import attribution, keldysh, ranking, tables, uncertainty
+
+__all__ = ["GROUP_KINDS", "OUTPUTS", "VERDICTS", "COLUMNS", "LIST_COLUMNS", "PROBABILITY_COLUMNS", "UNITS",
+           "DESCRIPTIONS", "ShortlistCut", "ShortlistCuts", "shortlist_cuts", "sample_score", "on_shortlist",
+           "attribution_seed_sequence", "borderline", "empty_frame", "display_frame", "attribute",
+           "shortlist_probability", "refinement_list", "plain_words"]
 
 #: Input group kinds, their display name and what a group would recompute.
 GROUP_KINDS: dict[str, tuple[str, str]] = {
@@ -74,59 +97,114 @@ OUTPUTS: dict[str, tuple[str, str]] = {
     "pass_margin": ("direct-gap margin large enough", "verdict"),
     "pass_binding": ("binding strong enough for the temperature", "verdict"),
     "pass_window": ("emission inside the target window", "verdict"),
+    "on_shortlist": ("on the shortlist, the other compounds at their ranks", "verdict"),
     "target_binding_ev": ("binding energy at the target layer count", "eV"),
     "target_optical_gap_ev": ("optical gap at the target layer count", "eV"),
 }
 _CRITERIA = ("pass_direct", "pass_margin", "pass_binding", "pass_window")
+#: Verdicts that select compounds (``refinement.verdicts``) and rank the list: name -> plain words,
+#: and the column of each verdict's probability.
+VERDICTS: dict[str, str] = {"meets_all": "meets every criterion", "on_shortlist": "makes the shortlist"}
+#: The list's words for each value of its ``verdict`` column (``both``: see :func:`refinement_list`).
+_VERDICT_WORDS = {**VERDICTS, "both": "meets every criterion, and with it makes the shortlist"}
 
-#: Columns of the per-entry attribution table: name -> (dtype, unit, description).
-COLUMNS: dict[str, tuple[str, str, str]] = {
-    "entry_id": ("string", "", "compound identifier"),
-    "input_hash": ("string", "", "content hash of the record the row was computed from"),
-    "physics_hash": ("string", "", "hash of the physics settings the record was screened with"),
-    "output": ("string", "", "attributed output: meets_all, pass_direct, pass_margin, pass_binding, "
-                             "pass_window (0/1 verdicts), target_binding_ev, target_optical_gap_ev"),
-    "input_group": ("string", "", "input group: kind, and valley label and band for per-valley groups"),
-    "input_kind": ("string", "", "mass, dielectric, screening_length, band_edges, scissor or model_error"),
-    "valley_index": ("int32", "", "the record's valley (its valley_index) of a per-valley group; -1 otherwise"),
-    "p_meets_all": ("float64", "1", "probability that every criterion is met, from the propagation's samples "
-                                    "(the value the shortlist shows)"),
-    "mean": ("float64", "output unit", "mean of the output over the base samples "
-                                        "(for a verdict: its probability)"),
-    "variance": ("float64", "output unit squared", "variance of the output over the base samples"),
-    "share_first": ("float64", "1", "first-order Sobol index (Saltelli 2010): expected fraction of the "
-                                     "variance removed if this input were known exactly"),
-    "share_first_se": ("float64", "1", "standard error of share_first"),
-    "share_total": ("float64", "1", "total Sobol index (Jansen 1999): fraction of the variance this "
-                                     "input takes part in, interactions included"),
-    "share_total_se": ("float64", "1", "standard error of share_total"),
-    "share_halved": ("float64", "1", "expected fraction of the variance removed if this input's standard "
-                                      "uncertainty were halved (NaN when not computed)"),
-    "share_halved_se": ("float64", "1", "standard error of share_halved"),
-    "n_base": ("int32", "1", "base samples N of the pick-freeze design"),
-    "seed": ("int64", "", "campaign seed; each entry's stream also depends on its identifier"),
-}
+def _declared(names) -> dict[str, tuple[str, str, str]]:
+    """(dtype, unit, description) of each column as :mod:`lamellume.tables` declares it (the one declaration)."""
+    return {n: (tables.COLUMNS[n].dtype, tables.COLUMNS[n].unit, tables.COLUMNS[n].description) for n in names}
 
-#: Columns of the campaign refinement list (:func:`refinement_list`).
-LIST_COLUMNS: dict[str, tuple[str, str, str]] = {
-    "rank": ("int32", "1", "rank in the campaign by expected effect (1 = recompute first)"),
-    "entry_id": COLUMNS["entry_id"],
-    "input_group": COLUMNS["input_group"],
-    "input_kind": COLUMNS["input_kind"],
-    "valley_index": COLUMNS["valley_index"],
-    "recompute": ("string", "", "what a recomputation of this input would be"),
-    "p_meets_all": COLUMNS["p_meets_all"],
-    "share_first": COLUMNS["share_first"],
-    "share_total": COLUMNS["share_total"],
-    "share_halved": COLUMNS["share_halved"],
-    "expected_effect": ("float64", "1", "expected drop of the verdict's variance p(1-p) if this input's "
-                                        "uncertainty were halved (or removed, per refinement.effect)"),
-    "mostly_through": ("string", "", "the criterion whose outcome this input moves most"),
-    "advice": ("string", "", "the recommendation in plain words"),
-}
 
-UNITS: dict[str, str] = {k: v[1] for k, v in {**COLUMNS, **LIST_COLUMNS}.items() if v[1]}
+#: Columns of the per-entry attribution table, in order: name -> (dtype, unit, description).
+COLUMNS: dict[str, tuple[str, str, str]] = _declared((
+    "entry_id", "input_hash", "physics_hash", "output", "input_group", "input_kind", "valley_index", "p_meets_all",
+    "p_on_shortlist", "shortlist_cut", "mean", "variance", "share_first", "share_first_se", "share_total",
+    "share_total_se", "share_halved", "share_halved_se", "n_base", "seed"))
+
+#: Columns of the campaign refinement list (:func:`refinement_list`), in order.
+LIST_COLUMNS: dict[str, tuple[str, str, str]] = _declared((
+    "rank", "entry_id", "input_group", "input_kind", "valley_index", "recompute", "verdict", "p_meets_all",
+    "p_on_shortlist", "share_first", "share_total", "share_halved", "expected_effect", "mostly_through", "advice"))
+
+#: Columns of the per-record cache of ``p_on_shortlist`` (:func:`shortlist_probability`).
+PROBABILITY_COLUMNS: dict[str, tuple[str, str, str]] = {
+    k: COLUMNS[k] for k in ("entry_id", "input_hash", "physics_hash", "shortlist_cut", "p_on_shortlist")}
+
+UNITS: dict[str, str] = {k: v[1] for k, v in {**COLUMNS, **LIST_COLUMNS}.items() if v[1] not in ("", "-")}
 DESCRIPTIONS: dict[str, str] = {k: v[2] for k, v in {**COLUMNS, **LIST_COLUMNS}.items()}
+
+
+class ShortlistCut(NamedTuple):
+    """The ranking key of one compound: candidate flag, score, identifier."""
+
+    meets_all: bool
+    score: float
+    entry_id: str
+
+    def text(self) -> str:
+        """The key in words, exact (the score's shortest round-trip form): the cache key of a record."""
+        return (f"{'candidate' if self.meets_all else 'not a candidate'}, score {float(self.score)!r}, "
+                f"compound {self.entry_id}")
+
+
+class ShortlistCuts(NamedTuple):
+    """The nominal shortlist and the two keys its membership is measured against.
+
+    Attributes
+    ----------
+    members : frozenset of str
+        Compounds of the nominal shortlist.
+    last_in, first_out : ShortlistCut or None
+        Keys at positions shortlist_size and shortlist_size + 1 of the ranked
+        table (None: no such row).
+    """
+
+    members: frozenset
+    last_in: ShortlistCut | None
+    first_out: ShortlistCut | None
+
+    def against(self, entry_id: str) -> ShortlistCut | None:
+        """The key of the shortlist_size-th of the *other* compounds (None: always on the shortlist)."""
+        return self.first_out if entry_id in self.members else self.last_in
+
+
+def shortlist_cuts(ranked: pd.DataFrame, size: int) -> ShortlistCuts:
+    """The cut keys of a ranked table (:func:`lamellume.ranking.rank`, columns rank,
+    entry_id, meets_all_criteria, score) for a shortlist of ``size`` rows."""
+    if int(size) < 1:
+        raise ValueError("the shortlist size must be at least 1")
+    ranked = ranked.sort_values("rank", kind="stable").reset_index(drop=True)
+
+    def key(i: int) -> ShortlistCut | None:
+        if i >= len(ranked):
+            return None
+        return ShortlistCut(bool(ranked["meets_all_criteria"].iloc[i]), float(ranked["score"].iloc[i]),
+                            str(ranked["entry_id"].iloc[i]))
+    return ShortlistCuts(frozenset(ranked["entry_id"].astype(str).iloc[:int(size)]), key(int(size) - 1),
+                         key(int(size)))
+
+
+def cut_text(cut: ShortlistCut | None) -> str:
+    """:meth:`ShortlistCut.text`, or 'none' for a compound that is always on the shortlist."""
+    return "none" if cut is None else cut.text()
+
+
+def sample_score(values: Mapping[str, np.ndarray], ranking_settings: Mapping) -> np.ndarray:
+    """The score of each sample: :func:`lamellume.ranking.score_parts` and
+    :func:`~lamellume.ranking.weighted_score` of the sample's own values (window part: the
+    sample's window indicator)."""
+    parts = ranking.score_parts(values["target_bound_fraction"], values["target_exciton_margin_ev"],
+                                values["pass_window"], values["target_brightness_proxy_per_s"], ranking_settings)
+    return ranking.weighted_score(parts, ranking_settings["weights"])
+
+
+def on_shortlist(values: Mapping[str, np.ndarray], entry_ids, cuts, ranking_settings: Mapping) -> np.ndarray:
+    """Per-sample membership (n, S) of n compounds; ``cuts[i]``: the key compound i must rank above."""
+    score = np.atleast_2d(sample_score(values, ranking_settings))
+    meets = np.atleast_2d(np.asarray(values["meets_all"], dtype=bool))
+    out = np.ones(meets.shape, dtype=bool)
+    for i, (eid, cut) in enumerate(zip(entry_ids, cuts)):
+        if cut is not None:
+            out[i] = ranking.ranks_above(meets[i], score[i], str(eid), *cut)
+    return out
 
 
 def attribution_seed_sequence(seed: int, entry_id: str) -> np.random.SeedSequence:
@@ -139,10 +217,10 @@ def attribution_seed_sequence(seed: int, entry_id: str) -> np.random.SeedSequenc
     return np.random.SeedSequence(uncertainty.entry_seed_sequence(seed, entry_id).entropy, spawn_key=(1,))
 
 
-def borderline(p_meets_all, band) -> np.ndarray:
-    """Mask of probabilities inside the closed band [low, high]."""
+def borderline(probability, band) -> np.ndarray:
+    """Mask of probabilities inside the closed band [low, high] (NaN: outside)."""
     lo, hi = sorted(float(x) for x in band)
-    p = np.asarray(p_meets_all, dtype=float)
+    p = np.asarray(probability, dtype=float)
     return np.isfinite(p) & (p >= lo) & (p <= hi)
 
 
@@ -185,7 +263,8 @@ def _entry_groups(prep, e: int, kinds, labels, bands, vindex) -> tuple[list, lis
 
 
 def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, table: keldysh.KeldyshTable,
-              block_cells: int = uncertainty.BLOCK_CELLS) -> pd.DataFrame:
+              block_cells: int = uncertainty.BLOCK_CELLS,
+              cuts: Mapping[str, ShortlistCut | None] | None = None) -> pd.DataFrame:
     """Sobol indices of every output of the given entries on their input groups.
 
     Parameters
@@ -201,6 +280,10 @@ def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, t
     table : lamellume.keldysh.KeldyshTable
     block_cells : int, optional
         Memory bound in (entry x sample) cells; never changes results.
+    cuts : mapping, optional
+        Per entry_id the key it must rank above to be on the shortlist
+        (:meth:`ShortlistCuts.against`; None values: always on). Given, the
+        output ``on_shortlist`` is attributed too; omitted, it is not.
 
     Returns
     -------
@@ -224,7 +307,7 @@ def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, t
 
     entries = entries.sort_values("entry_id", kind="stable").reset_index(drop=True)
     valleys = valleys[valleys["entry_id"].isin(set(entries["entry_id"]))]
-    prep = uncertainty.prepare_inputs(entries, valleys, settings)
+    prep = uncertainty.prepare_inputs(entries, valleys, settings, score_inputs=cuts is not None)
     vt = valleys.assign(_o=pd.Index(prep.ids).get_indexer(valleys["entry_id"]))
     vt = vt.sort_values(["_o", "valley_index"], kind="stable")
     labels, bands = vt["label"].astype(str).to_numpy(), vt["band"].astype(str).to_numpy()
@@ -238,8 +321,9 @@ def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, t
     if not len(order):
         return empty_frame()
     entries = entries.iloc[order].reset_index(drop=True)
-    prep = uncertainty.prepare_inputs(entries, valleys, settings)
+    prep = uncertainty.prepare_inputs(entries, valleys, settings, score_inputs=cuts is not None)
     groups = [groups[i] for i in order]
+    cut_of = None if cuts is None else [cuts[str(e)] for e in prep.ids]
     n_groups = n_groups[order]
 
     rows: list[pd.DataFrame] = []
@@ -251,7 +335,8 @@ def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, t
         while stop < len(order) and n_groups[stop] == d and stop - start < step:
             stop += 1
         rows.append(_attribute_block(prep, start, stop, groups[start:stop], n_base, n_halved, seed, table,
-                                     block_cells))
+                                     block_cells, None if cut_of is None else cut_of[start:stop],
+                                     settings["ranking"]))
         start = stop
     frame = pd.concat(rows, ignore_index=True)
     frame["input_hash"] = frame["entry_id"].map(entries.set_index("entry_id")["input_hash"])
@@ -261,6 +346,8 @@ def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, t
         frame["physics_hash"] = ""
     frame["p_meets_all"] = (frame["entry_id"].map(entries.set_index("entry_id")["p_meets_all"])
                             if "p_meets_all" in entries else np.nan)
+    frame["shortlist_cut"] = "" if cuts is None else frame["entry_id"].map(
+        {str(e): cut_text(cuts[str(e)]) for e in prep.ids})
     frame["n_base"] = np.int32(n_base)
     frame["seed"] = np.int64(seed)
     return _typed(frame, COLUMNS).sort_values(["entry_id", "output", "input_group"], kind="stable").reset_index(drop=True)
@@ -296,42 +383,66 @@ def _evaluate_design(prep, a: int, b: int, zs, table, block_cells: int) -> dict[
     return {key: np.concatenate([p[key] for p in parts], axis=1) for key in parts[0]}
 
 
+def _design(prep, e: int, group_cols, n_base: int, halved: bool, seed: int) -> attribution.SobolDesign:
+    """The pick-freeze design of entry e: its own stream (:func:`attribution_seed_sequence`), so
+    matrix A does not depend on the groups, the shard or the other entries."""
+    rng = np.random.default_rng(attribution_seed_sequence(seed, prep.ids[e]))
+    k = int(prep.vstart[e + 1] - prep.vstart[e])
+    draws = rng.standard_normal((4 if halved else 2, n_base, 5 + 2 * k))
+    return attribution.sobol_design(draws, group_cols, residual=0.5 if halved else None)
+
+
+def _outputs(prep, a: int, b: int, zs, table, block_cells: int, cuts, ranking_settings) -> dict[str, np.ndarray]:
+    """:data:`OUTPUTS` of entries a..b-1 on their draws (with ``on_shortlist`` when ``cuts`` are given)."""
+    res = _evaluate_design(prep, a, b, zs, table, block_cells)
+    if cuts is not None:
+        res["on_shortlist"] = on_shortlist(res, prep.ids[a:b], cuts, ranking_settings)
+    return {name: v for name, v in res.items() if name in OUTPUTS}
+
+
+def _halved_choice(idx: Mapping[str, attribution.SobolIndices], r: int) -> np.ndarray:
+    """The r groups per entry that get the halved design: best rank by first-order share over the
+    attributed verdicts (so each verdict's largest share is among them), ties by the larger share."""
+    verdicts = [v for v in VERDICTS if v in idx]
+    firsts = np.stack([np.nan_to_num(idx[v].first, nan=-np.inf) for v in verdicts])       # (V, n_e, d)
+    order = np.argsort(-firsts, axis=2, kind="stable")
+    place = np.empty_like(order)
+    np.put_along_axis(place, order, np.arange(order.shape[2])[None, None, :], axis=2)
+    best, share = place.min(axis=0), firsts.max(axis=0)
+    return np.lexsort((np.arange(best.shape[1])[None, :].repeat(best.shape[0], 0), -share, best), axis=1)[:, :r]
+
+
 def _attribute_block(prep, a: int, b: int, groups, n_base: int, n_halved: int, seed: int, table,
-                     block_cells: int) -> pd.DataFrame:
+                     block_cells: int, cuts=None, ranking_settings=None) -> pd.DataFrame:
     """Indices of entries a..b-1, which share the number of groups d.
 
     Stage 1 evaluates A, B and every A_B^(i); with ``n_halved`` > 0, stage 2
     evaluates the halved-uncertainty matrices of the n_halved groups with the
-    largest first-order share of the verdict (the halved effect never exceeds
+    largest first-order share of the verdicts (the halved effect never exceeds
     the first-order one; see :mod:`lamellume.attribution`).
     """
     n_e = b - a
     d = len(groups[0][0])
     r = min(n_halved, d)
-    k = np.diff(prep.vstart[a:b + 1])
-    designs = []
-    for i in range(n_e):
-        rng = np.random.default_rng(attribution_seed_sequence(seed, prep.ids[a + i]))
-        draws = rng.standard_normal((4 if r else 2, n_base, 5 + 2 * int(k[i])))
-        designs.append(attribution.sobol_design(draws, groups[i][0], residual=0.5 if r else None))
+    designs = [_design(prep, a + i, groups[i][0], n_base, bool(r), seed) for i in range(n_e)]
     stage1 = [np.concatenate([g.a[None], g.b[None], g.ab], axis=0).reshape((d + 2) * n_base, -1) for g in designs]
     y1 = {name: np.asarray(v, dtype=float).reshape(n_e, d + 2, n_base)
-          for name, v in _evaluate_design(prep, a, b, stage1, table, block_cells).items() if name in OUTPUTS}
+          for name, v in _outputs(prep, a, b, stage1, table, block_cells, cuts, ranking_settings).items()}
     idx = {name: attribution.sobol_indices(y[:, 0], y[:, 1], y[:, 2:]) for name, y in y1.items()}
-    halved = {name: (np.full((n_e, d), np.nan), np.full((n_e, d), np.nan)) for name in OUTPUTS}
+    halved = {name: (np.full((n_e, d), np.nan), np.full((n_e, d), np.nan)) for name in y1}
     if r:
-        first = np.nan_to_num(idx["meets_all"].first, nan=-np.inf)
-        top = np.argsort(-first, axis=1, kind="stable")[:, :r]
+        top = _halved_choice(idx, r)
         stage2 = [g.ab_reduced[top[i]].reshape(r * n_base, -1) for i, g in enumerate(designs)]
-        res2 = _evaluate_design(prep, a, b, stage2, table, block_cells)
+        res2 = _outputs(prep, a, b, stage2, table, block_cells, cuts, ranking_settings)
         rows = np.arange(n_e)[:, None]
         for name, y in y1.items():
             y2 = np.asarray(res2[name], dtype=float).reshape(n_e, r, n_base)
             red = attribution.sobol_indices(y[:, 0], y[:, 1], y[:, 2:][rows, top], y2)
             halved[name][0][rows, top] = red.reduced
             halved[name][1][rows, top] = red.reduced_se
+    p_on = y1["on_shortlist"][:, 0].mean(axis=1) if "on_shortlist" in y1 else np.full(n_e, np.nan)
     out = []
-    for name in OUTPUTS:
+    for name in (o for o in OUTPUTS if o in y1):
         res = idx[name]
         out.append(pd.DataFrame({
             "entry_id": np.repeat(prep.ids[a:b], d),
@@ -344,12 +455,55 @@ def _attribute_block(prep, a: int, b: int, groups, n_base: int, n_halved: int, s
             "share_first": res.first.reshape(-1), "share_first_se": res.first_se.reshape(-1),
             "share_total": res.total.reshape(-1), "share_total_se": res.total_se.reshape(-1),
             "share_halved": halved[name][0].reshape(-1), "share_halved_se": halved[name][1].reshape(-1),
+            "p_on_shortlist": np.repeat(p_on, d),
         }))
     return pd.concat(out, ignore_index=True)
 
 
-def refinement_list(frame: pd.DataFrame, effect: str = "halved", per_entry: int = 3) -> pd.DataFrame:
-    """The campaign's ranked (compound, input, expected effect) list from :func:`attribute` rows.
+def shortlist_probability(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping,
+                          table: keldysh.KeldyshTable, cuts: Mapping[str, ShortlistCut | None],
+                          block_cells: int = uncertainty.BLOCK_CELLS) -> pd.Series:
+    """``p_on_shortlist`` of each entry on the N base samples of its matrix A, without the rest of the design.
+
+    The same draws and the same value as :func:`attribute` reports for the entry
+    (matrix A depends only on the campaign seed and the identifier), at the cost
+    of N model runs per entry: what selects the compounds whose membership is in
+    doubt. Entries without an uncertain input group get NaN (nothing varies).
+
+    Returns
+    -------
+    pandas.Series
+        Indexed by entry_id (sorted), the fraction of samples on the shortlist.
+    """
+    ref = settings["refinement"]
+    n_base = int(ref["samples"])
+    halved = ref["effect"] == "halved" and int(ref["per_compound"]) > 0
+    seed = int(settings["uncertainty"]["seed"])
+    kinds = [k for k in GROUP_KINDS if k in set(ref["groups"])]
+    entries = entries.sort_values("entry_id", kind="stable").reset_index(drop=True)
+    out = pd.Series(np.nan, index=pd.Index(entries["entry_id"].astype(str), name="entry_id"), name="p_on_shortlist")
+    if not len(entries) or n_base < 2 or not kinds:
+        return out
+    valleys = valleys[valleys["entry_id"].isin(set(entries["entry_id"]))]
+    prep = uncertainty.prepare_inputs(entries, valleys, settings, score_inputs=True)
+    vt = valleys.assign(_o=pd.Index(prep.ids).get_indexer(valleys["entry_id"]))
+    vt = vt.sort_values(["_o", "valley_index"], kind="stable")
+    labels, bands = vt["label"].astype(str).to_numpy(), vt["band"].astype(str).to_numpy()
+    vindex = vt["valley_index"].to_numpy(dtype=np.int64)
+    step = max(1, block_cells // n_base)
+    for a in range(0, len(prep.ids), step):
+        b = min(a + step, len(prep.ids))
+        active = [len(_entry_groups(prep, e, kinds, labels, bands, vindex)[0]) > 0 for e in range(a, b)]
+        zs = [_design(prep, e, [], n_base, halved, seed).a for e in range(a, b)]
+        member = _outputs(prep, a, b, zs, table, block_cells, [cuts[str(e)] for e in prep.ids[a:b]],
+                          settings["ranking"])["on_shortlist"]
+        out.iloc[a:b] = np.where(active, member.mean(axis=1), np.nan)
+    return out
+
+
+def refinement_list(frame: pd.DataFrame, effect: str = "halved", per_entry: int = 3, band=None,
+                    verdicts=tuple(VERDICTS)) -> pd.DataFrame:
+    """The campaign's ranked (compound, verdict, input, expected effect) list from :func:`attribute` rows.
 
     Parameters
     ----------
@@ -358,23 +512,34 @@ def refinement_list(frame: pd.DataFrame, effect: str = "halved", per_entry: int 
     effect : {"halved", "removed"}
         Which expected effect ranks the list.
     per_entry : int, optional
-        At most this many inputs per compound (the largest effects).
+        At most this many inputs per compound and verdict (the largest effects).
+    band : pair of float, optional
+        Only verdicts whose probability (``p_meets_all``, ``p_on_shortlist``)
+        lies in this band are listed (None: every attributed verdict).
+    verdicts : sequence of str, optional
+        The verdicts of :data:`VERDICTS` to list.
 
     Returns
     -------
     pandas.DataFrame
         Columns :data:`LIST_COLUMNS`, ranked by ``expected_effect`` (ties by
-        entry_id, then input_group); inputs with a non-positive effect are left out.
+        entry_id, verdict, input_group); inputs with a non-positive effect are left out.
+        A compound whose membership equals its verdict in every sample of its
+        design gets one set of rows with verdict ``both``.
     """
-    verdict = frame[frame["output"] == "meets_all"].copy()
+    verdict = frame[frame["output"].isin([v for v in VERDICTS if v in set(verdicts)])].copy()
+    if band is not None and len(verdict):
+        p = np.where(verdict["output"] == "meets_all", verdict["p_meets_all"], verdict["p_on_shortlist"])
+        verdict = verdict[borderline(p, band)]
+    verdict = _merge_identical_verdicts(verdict)
     if not len(verdict):
         return _typed(None, LIST_COLUMNS)
     share = verdict["share_halved"] if effect == "halved" else verdict["share_first"]
     verdict["expected_effect"] = (share * verdict["variance"]).to_numpy(dtype=float)
     verdict = verdict[np.isfinite(verdict["expected_effect"]) & (verdict["expected_effect"] > 0)]
-    verdict = verdict.sort_values(["expected_effect", "entry_id", "input_group"], ascending=[False, True, True],
-                                  kind="stable")
-    verdict = verdict.groupby("entry_id", sort=False).head(per_entry)
+    verdict = verdict.sort_values(["expected_effect", "entry_id", "output", "input_group"],
+                                  ascending=[False, True, True, True], kind="stable")
+    verdict = verdict.groupby(["entry_id", "output"], sort=False).head(per_entry)
 
     crit = frame[frame["output"].isin(_CRITERIA)].assign(
         _w=lambda f: (f["share_first"] * f["variance"]).fillna(0.0))
@@ -389,7 +554,9 @@ def refinement_list(frame: pd.DataFrame, effect: str = "halved", per_entry: int 
         "input_kind": verdict["input_kind"].to_numpy(dtype=object),
         "valley_index": verdict["valley_index"].to_numpy(dtype=np.int32),
         "recompute": verdict["input_kind"].map(lambda k: GROUP_KINDS[k][1]).to_numpy(dtype=object),
+        "verdict": verdict["output"].to_numpy(dtype=object),
         "p_meets_all": verdict["p_meets_all"].to_numpy(dtype=float),
+        "p_on_shortlist": verdict["p_on_shortlist"].to_numpy(dtype=float),
         "share_first": verdict["share_first"].to_numpy(dtype=float),
         "share_total": verdict["share_total"].to_numpy(dtype=float),
         "share_halved": verdict["share_halved"].to_numpy(dtype=float),
@@ -400,15 +567,45 @@ def refinement_list(frame: pd.DataFrame, effect: str = "halved", per_entry: int 
     return out
 
 
+def _merge_identical_verdicts(verdict: pd.DataFrame) -> pd.DataFrame:
+    """One set of rows, verdict ``both``, for a compound whose membership follows the criteria in
+    every sample of its design (identical mean, variance and shares for every input): the
+    shortlist then holds exactly its candidates near it, and two identical rows would say one thing twice."""
+    cols = ["mean", "variance", "share_first", "share_total", "share_halved"]
+    meets = verdict[verdict["output"] == "meets_all"].set_index(["entry_id", "input_group"])[cols]
+    on = verdict[verdict["output"] == "on_shortlist"].set_index(["entry_id", "input_group"])[cols]
+    if not len(meets) or not len(on):
+        return verdict
+    a, b = meets.align(on, join="outer")
+    same = ((a.to_numpy() == b.to_numpy()) | (np.isnan(a.to_numpy()) & np.isnan(b.to_numpy()))).all(axis=1)
+    same = pd.Series(same, index=a.index).groupby(level="entry_id").all()
+    both = set(same.index[same])
+    if not both:
+        return verdict
+    in_both = verdict["entry_id"].isin(both)
+    verdict = verdict[~(in_both & (verdict["output"] == "on_shortlist"))].copy()
+    verdict.loc[verdict["entry_id"].isin(both) & (verdict["output"] == "meets_all"), "output"] = "both"
+    return verdict
+
+
 def _percent(x: float) -> str:
     return "under 1 %" if not np.isfinite(x) or x < 0.005 else f"{100 * x:.0f} %"
 
 
 def plain_words(row) -> str:
     """One recommendation, e.g. 'Recompute the dielectric tensor of X: it decides 70 % of ...'."""
+    kind = getattr(row, "verdict", "meets_all")
+    if kind == "both":
+        doubt = (f"{row.entry_id} meets every criterion and, with it, whether it makes the shortlist (now "
+                 f"{100 * row.p_meets_all:.0f} % and {100 * row.p_on_shortlist:.0f} % likely, the other compounds "
+                 f"as ranked)")
+    elif kind == "on_shortlist":
+        doubt = (f"{row.entry_id} makes the shortlist (now {100 * row.p_on_shortlist:.0f} % likely, the other "
+                 f"compounds as ranked)")
+    else:
+        doubt = f"{row.entry_id} meets every criterion (now {100 * row.p_meets_all:.0f} % likely)"
     text = (f"Recompute the {row.input_group} of {row.entry_id} ({row.recompute}): it decides "
-            f"{_percent(row.share_first)} of whether {row.entry_id} meets every criterion "
-            f"(now {100 * row.p_meets_all:.0f} % likely)")
+            f"{_percent(row.share_first)} of whether {doubt}")
     if row.mostly_through:
         text += f", mostly through '{row.mostly_through}'"
     if np.isfinite(row.share_halved):
@@ -422,7 +619,9 @@ DISPLAY: dict[str, str] = {
     "entry_id": "Compound",
     "input_group": "Input to recompute",
     "recompute": "Suggested recomputation",
+    "verdict": "Verdict in doubt",
     "p_meets_all": "Chance of meeting every criterion now (%)",
+    "p_on_shortlist": "Chance of making the shortlist now (%)",
     "share_first": "Share of the verdict's doubt this input decides (%)",
     "share_total": "Share including interactions with other inputs (%)",
     "share_halved": "Expected share removed by halving its uncertainty (%)",
@@ -430,12 +629,13 @@ DISPLAY: dict[str, str] = {
     "mostly_through": "Mostly through the criterion",
     "advice": "Advice (model estimate, not a measurement)",
 }
-_PERCENT = ("p_meets_all", "share_first", "share_total", "share_halved")
+_PERCENT = ("p_meets_all", "p_on_shortlist", "share_first", "share_total", "share_halved")
 
 
 def display_frame(ranked: pd.DataFrame) -> pd.DataFrame:
     """The refinement list with display headers, fractions as percentages (one decimal)."""
     out = ranked[list(DISPLAY)].copy()
+    out["verdict"] = out["verdict"].map(lambda v: _VERDICT_WORDS.get(v, v))
     for c in _PERCENT:
         out[c] = (100.0 * out[c].astype(float)).round(1)
     out["expected_effect"] = out["expected_effect"].astype(float).round(4)

@@ -520,9 +520,7 @@ def _quick_tests(row: Mapping, settings: Mapping) -> list[str]:
     """Fast ways to falsify the prediction, chosen from what the model says about the compound."""
     n = int(settings["ranking"]["target_layers"])
     out = []
-    switch = int(_num(row.get("character_switch_layers"))) if math.isfinite(_num(row.get("character_switch_layers"))) \
-        else -1
-    if _text(row.get("gap_character_1l")) == "direct" and switch == 2:
+    if _text(row.get("thinning_state")) == tables.DIRECT_WHEN_THIN and _num(row.get("switch_layers")) == 2:
         out.append("Thinning makes it bright: compare monolayer and bilayer emission under the same excitation. "
                    "The model expects the monolayer far brighter (the bilayer gap is indirect); similar "
                    "intensities would falsify the prediction.")
@@ -721,7 +719,7 @@ def _table(ranked: pd.DataFrame, settings: Mapping, entries: pd.DataFrame | None
         eid = _text(d["entry_id"])
         cand = bool(d.get("meets_all_criteria"))
         search = " ".join(_text(d.get(c)) for c in ("entry_id", "formula", "target_emission_band",
-                                                     "thinning_verdict", "target_gap_character")).lower()
+                                                     "thinning_verdict", "thinning_state", "target_gap_character")).lower()
         warn = _text(d.get("warnings"))
         if warn:
             search += " " + warn.lower()
@@ -762,7 +760,8 @@ def _table(ranked: pd.DataFrame, settings: Mapping, entries: pd.DataFrame | None
             "probabilities": extra,
         })
     return {"layers": n, "environment": environment_label(r["environment"], settings), "columns": columns,
-            "rows": rows, "with_uncertainty": bool(probs), "left_out": left_out}
+            "rows": rows, "with_uncertainty": bool(probs), "left_out": left_out,
+            "shortlist_size": int(r.get("shortlist_size", 0))}
 
 
 def _figures(ranked: pd.DataFrame, long: pd.DataFrame, settings: Mapping) -> list[dict]:
@@ -823,7 +822,10 @@ def _recompute(refinement: pd.DataFrame | None, settings: Mapping, max_compounds
     lo, hi = sorted(float(x) for x in ref.get("band", (0.1, 0.9)))
     out = {"enabled": bool(ref.get("enabled", False)), "computed": refinement is not None,
            "low": f"{100 * lo:.0f}", "high": f"{100 * hi:.0f}", "compounds": 0, "rows": [], "more": 0,
-           "per_compound": int(ref.get("per_compound", 1))}
+           "per_compound": int(ref.get("per_compound", 1)),
+           "shortlist": (int(settings.get("ranking", {}).get("shortlist_size", 0))
+                         if "on_shortlist" in ref.get("verdicts", ())
+                         and settings.get("ranking", {}).get("order_by", "score") == "score" else 0)}
     if refinement is None or not len(refinement):
         return out
     firsts = refinement.drop_duplicates("entry_id")

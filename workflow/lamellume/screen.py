@@ -33,7 +33,7 @@ from typing import Mapping
 import numpy as np
 import pandas as pd
 
-from lamellume import dielectric, excitons, gapshift, keldysh, layers as layer_model, model, survival
+from lamellume import dielectric, excitons, gapshift, keldysh, layers as layer_model, model, survival, tables
 from lamellume.ingest import TENSOR_COMPONENTS, edge_column
 
 BULK = layer_model.BULK
@@ -272,9 +272,7 @@ def screen_entries(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mappi
         "margin_1l_ev": gc.direct_margin_ev[:, 0],
         "gap_character_bulk": labels["gap_character"][:, jb],
         "gap_bulk_ev": gc.fundamental_gap_ev[:, jb], "direct_gap_bulk_ev": gc.direct_gap_ev[:, jb],
-        "direct_through_layers": cross.direct_through_layers.astype("int16"),
-        "character_switch_layers": cross.character_switch_layers.astype("int16"),
-        "thinning_verdict": thinning_verdict(cross, max_layers),
+        **thinning_columns(cross, max_layers),
         "mu_1l_me": mu[:, 0], "mu_bulk_me": mu_b, "mu_bulk_perp_me": bright.mu_perp_me[:, jb],
         **{k: res.bulk[k] for k in ("bulk_binding_ev", "bulk_radius_angstrom", "bulk_binding_aniso_ev",
                                     "quasi2d_binding_ev", "quasi2d_radius_angstrom")},
@@ -310,21 +308,66 @@ def _per_compound_max(values: np.ndarray, owner: np.ndarray, n: int) -> np.ndarr
     return np.where(np.isfinite(out), out, np.nan)
 
 
-def thinning_verdict(cross: layer_model.Crossover, max_layers: int) -> np.ndarray:
-    """Plain-words summary of how the gap character changes with thinning."""
-    dtl = np.asarray(cross.direct_through_layers)
+def thinning_columns(cross: layer_model.Crossover, max_layers: int) -> dict[str, object]:
+    """The thinning columns of the wide table from the crossover of :func:`lamellume.layers.layer_crossover`.
+
+    ``thinning_state`` (one of :data:`lamellume.tables.THINNING_STATES`),
+    ``direct_through_layers`` and ``switch_layers`` (layer counts, empty where no
+    such count exists: the library's sentinel codes never reach a table) and
+    ``thinning_verdict`` (the state in words, with the layer counts).
+    """
+    through = np.asarray(cross.direct_through_layers)
     sw = np.asarray(cross.character_switch_layers)
     ml = np.asarray(cross.monolayer_direct)
-    out = np.full(dtl.shape, "undetermined", dtype=object)
-    out[(sw == layer_model.NO_SWITCH) & ml] = "direct at every thickness"
-    out[(sw == layer_model.NO_SWITCH) & ~ml] = "indirect at every thickness"
-    out[(sw == BULK) & ml] = f"direct up to {max_layers} layers, indirect in bulk"
-    out[(sw == BULK) & ~ml] = f"indirect up to {max_layers} layers, direct in bulk"
-    sw_pos = sw > 0
-    direct_then = sw_pos & ml
-    indirect_then = sw_pos & ~ml
-    out[direct_then] = [f"direct only as a monolayer, indirect from {s} layers" if s == 2
-                        else f"direct up to {s - 1} layers, indirect from {s}" for s in sw[direct_then]]
-    out[indirect_then] = [f"indirect as a monolayer, direct from {s} layers" if s == 2
-                          else f"indirect up to {s - 1} layers, direct from {s}" for s in sw[indirect_then]]
+    state = np.full(sw.shape, tables.UNKNOWN_BEYOND, dtype=object)
+    never = sw == layer_model.NO_SWITCH
+    only_bulk = sw == layer_model.BULK
+    at_count = sw > 0
+    state[never & ml] = tables.DIRECT_EVERYWHERE
+    state[never & ~ml] = tables.INDIRECT_EVERYWHERE
+    state[only_bulk & ml] = tables.DIRECT_EXCEPT_BULK
+    state[only_bulk & ~ml] = tables.INDIRECT_EXCEPT_BULK
+    state[at_count & ml] = tables.DIRECT_WHEN_THIN
+    state[at_count & ~ml] = tables.INDIRECT_WHEN_THIN
+    state[through == layer_model.UNDETERMINED] = tables.UNKNOWN_MONOLAYER  # monolayer not decided
+    return {
+        "thinning_state": state,
+        "direct_through_layers": _layer_counts(through, through > 0),
+        "switch_layers": _layer_counts(sw, at_count),
+        "thinning_verdict": thinning_verdict(state, through, sw, max_layers),
+    }
+
+
+def _layer_counts(values: np.ndarray, present: np.ndarray) -> pd.arrays.IntegerArray:
+    """Nullable int16 layer counts: ``values`` where ``present``, empty elsewhere."""
+    return pd.arrays.IntegerArray(np.where(present, values, 0).astype("int16"), ~np.asarray(present, dtype=bool))
+
+
+def thinning_verdict(state: np.ndarray, through: np.ndarray, switch: np.ndarray, max_layers: int) -> np.ndarray:
+    """Plain-words summary of how the gap character changes with thinning.
+
+    ``state`` holds :data:`lamellume.tables.THINNING_STATES` values; ``through`` and
+    ``switch`` the direct-through and switch layer counts of each compound.
+    """
+    out = np.empty(len(state), dtype=object)
+    for i, (kind, t, s) in enumerate(zip(state, through, switch)):
+        t, s = int(t), int(s)
+        if kind == tables.DIRECT_WHEN_THIN:
+            text = (f"direct only as a monolayer, indirect from {s} layers" if s == 2
+                    else f"direct up to {s - 1} layers, indirect from {s}")
+        elif kind == tables.INDIRECT_WHEN_THIN:
+            text = (f"indirect as a monolayer, direct from {s} layers" if s == 2
+                    else f"indirect up to {s - 1} layers, direct from {s}")
+        elif kind == tables.DIRECT_EXCEPT_BULK:
+            text = f"direct up to {max_layers} layers, indirect in bulk"
+        elif kind == tables.INDIRECT_EXCEPT_BULK:
+            text = f"indirect up to {max_layers} layers, direct in bulk"
+        elif kind == tables.UNKNOWN_MONOLAYER:
+            text = "unknown: the record's band edges do not decide the monolayer's gap character"
+        elif kind == tables.UNKNOWN_BEYOND:
+            text = ((f"direct up to at least {t} layers" if t > 0 else "indirect as a monolayer")
+                    + "; unknown at a thicker layer count (band edges missing)")
+        else:
+            text = str(kind)  # direct / indirect at every thickness: the state says it all
+        out[i] = text
     return out

@@ -53,13 +53,49 @@ def missed_words(settings: Mapping) -> dict[str, str]:
     }
 
 
+#: The brightness criterion's words for a row whose lowest exciton is known (target_brightness).
+_BRIGHTNESS_MISSED = {"dark": "lowest exciton dark",
+                      "unknown": "brightness of the lowest exciton unknown (no competing valley given)"}
+
+
 def _missed(top: pd.DataFrame, settings: Mapping) -> np.ndarray:
     words = missed_words(settings)
     out = []
     for row in top.to_dict("records"):
-        missed = [text for key, text in words.items() if key in row and not bool(row[key])]
+        missed = []
+        for key, text in words.items():
+            if key in row and not bool(row[key]):
+                if key == "pass_direct" and settings["ranking"]["require_direct"]:
+                    text = _BRIGHTNESS_MISSED.get(str(row.get("target_brightness")), text)
+                missed.append(_with_values(key, text, row, settings))
         out.append("; ".join(missed))
     return np.asarray(out, dtype=object)
+
+
+def _finite(row: Mapping, name: str) -> float:
+    try:
+        value = float(row.get(name))
+    except (TypeError, ValueError):
+        return math.nan
+    return value
+
+
+def _with_values(key: str, text: str, row: Mapping, settings: Mapping) -> str:
+    """The words of a missed criterion with the row's own numbers where they say more."""
+    r = settings["ranking"]
+    if key == "pass_margin":
+        m = _finite(row, "target_exciton_margin_ev") * MEV_PER_EV
+        need = float(r["min_direct_margin_ev"]) * MEV_PER_EV
+        if math.isfinite(m):
+            where = f"only {m:.0f} meV above" if m >= 0 else f"{-m:.0f} meV below"
+            return f"dark exciton {where} the bright one ({need:g} meV above needed)"
+    if key == "pass_window":
+        ends = sorted(v for v in (_finite(row, "target_emission_nm"), _finite(row, "target_emission_compensated_nm"))
+                      if math.isfinite(v))
+        if ends:
+            span = f"{ends[0]:.0f} nm" if round(ends[0]) == round(ends[-1]) else f"{ends[0]:.0f}-{ends[-1]:.0f} nm"
+            return f"emission {span} {text.removeprefix('emission ')}"
+    return text
 
 
 def _column(top: pd.DataFrame, name: str, scale: float = 1.0, digits: int | None = None) -> np.ndarray:
@@ -104,6 +140,8 @@ def shortlist_table(ranked: pd.DataFrame, settings: Mapping) -> pd.DataFrame:
         "Temperature (K)": np.full(n, float(settings["survival"]["temperature_k"])),
         "Gap character": top["target_gap_character"].astype(str).to_numpy() if n else np.array([], dtype=object),
         "Thinning behaviour": top["thinning_verdict"].astype(str).to_numpy() if n else np.array([], dtype=object),
+        "Thinning state": top["thinning_state"].astype(str).to_numpy() if n else np.array([], dtype=object),
+        "Direct up to (layers)": _column(top, "direct_through_layers"),
         "Exciton energy (eV)": _column(top, "target_optical_gap_ev", digits=3),
         "Exciton energy 16 % (eV)": _column(top, "target_optical_gap_ev_p16", digits=3),
         "Exciton energy 84 % (eV)": _column(top, "target_optical_gap_ev_p84", digits=3),
@@ -155,11 +193,15 @@ def settings_table(settings: Mapping, stamps: Mapping[str, str]) -> pd.DataFrame
         ("caution", CAUTION, "", "how to read every number of the shortlist"),
         ("campaign", stamps.get("campaign", ""), "", "campaign folder the records were read from"),
         ("written", stamps.get("written_utc", ""), "UTC", "date and time the run finished its tables"),
-        ("compounds screened", str(stamps.get("screened", "")), "1", "records screened (rejects not counted)"),
+        ("compounds screened", str(stamps.get("screened", "")), "1",
+         "compounds whose records passed every check and were screened (rejected records not counted)"),
         ("candidates", str(stamps.get("candidates", "")), "1", "compounds that meet every criterion"),
         ("shortlist size", str(int(r["shortlist_size"])), "1",
          "rows of the shortlist: the ranked list's first rows, candidates first"),
         ("layers", str(int(r["target_layers"])), "1", "layer count every value of the shortlist is for"),
+        ("thickest stack computed", str(int(settings.get("layers", {}).get("max_layers", 0)) or ""), "1",
+         "layer counts 1 to this, then bulk, are what the thinning columns scan ('direct at every thickness': "
+         "at each of them)"),
         ("surroundings", env, "", "surroundings every value of the shortlist is for"),
         ("dielectric constant above", _number(surroundings["top"]), "1", "relative permittivity above the flake"),
         ("dielectric constant below", _number(surroundings["bottom"]), "1",
@@ -168,7 +210,7 @@ def settings_table(settings: Mapping, stamps: Mapping[str, str]) -> pd.DataFrame
         ("emission window shortest", _number(lo), "nm", "criterion: emission at least this wavelength"),
         ("emission window longest", _number(hi), "nm", "criterion: emission at most this wavelength"),
         ("require bright", "yes" if r["require_direct"] else "no", "",
-         "criterion: the lowest exciton must be bright (else its brightness must only be known)"),
+         "criterion: the lowest exciton must be bright ('no': it need only be known to be bright or dark)"),
         ("minimum dark - bright exciton", _number(float(r["min_direct_margin_ev"]) * MEV_PER_EV), "meV",
          "criterion: the lowest dark exciton lies at least this far above the lowest bright one"),
         ("planned pair density", _number(s["pair_density_per_cm2"]), "cm^-2",

@@ -11,7 +11,10 @@ percentile) are declared once as a pattern (:data:`PATTERNS`).
 Units: ``eV``, ``meV``, ``nm``, ``Angstrom``, ``m_e``, ``K``, ``deg``, ``cm^-2``, ``1``
 (a dimensionless number) and ``-`` (text, identifier or flag: not a quantity).
 Arrow types: ``string`` (stored as large_string), ``float64``, ``int16``,
-``int32``, ``int64``, ``bool``.
+``int32``, ``int64``, ``bool``; ``Int16`` is an int16 that may be empty (pandas'
+nullable ``Int16``): a count that does not exist for some rows is empty, never a
+sentinel number. Text columns with a fixed list of values declare the list here
+too (:data:`VOCABULARIES`).
 
 Pure declarations: no I/O, no physics.
 """
@@ -44,6 +47,35 @@ def _declare(rows) -> dict[str, Column]:
 
 
 S, F, B = "string", "float64", "bool"
+
+# Values of ``thinning_state``: the band-gap character from the monolayer (1 layer) through
+# max_layers layers to bulk, scanned in that order.
+DIRECT_EVERYWHERE = "direct at every thickness"
+INDIRECT_EVERYWHERE = "indirect at every thickness"
+DIRECT_WHEN_THIN = "direct when thin"
+INDIRECT_WHEN_THIN = "indirect when thin"
+DIRECT_EXCEPT_BULK = "direct except in bulk"
+INDIRECT_EXCEPT_BULK = "indirect except in bulk"
+UNKNOWN_MONOLAYER = "unknown as a monolayer"
+UNKNOWN_BEYOND = "unknown beyond"
+
+#: The values ``thinning_state`` takes, with their meanings (docs/columns.md lists them).
+THINNING_STATES: dict[str, str] = {
+    DIRECT_EVERYWHERE: "direct gap at every layer count 1..max_layers and in bulk",
+    INDIRECT_EVERYWHERE: "indirect gap at every layer count 1..max_layers and in bulk",
+    DIRECT_WHEN_THIN: "direct as a monolayer; the gap first turns indirect at switch_layers layers "
+                      "(direct_through_layers = switch_layers - 1)",
+    INDIRECT_WHEN_THIN: "indirect as a monolayer; the gap first turns direct at switch_layers layers",
+    DIRECT_EXCEPT_BULK: "direct at every layer count 1..max_layers, indirect in bulk",
+    INDIRECT_EXCEPT_BULK: "indirect at every layer count 1..max_layers, direct in bulk",
+    UNKNOWN_MONOLAYER: "the monolayer's gap character cannot be decided from the record (band edges missing); "
+                       "direct_through_layers and switch_layers are empty",
+    UNKNOWN_BEYOND: "the gap character cannot be decided at a thicker layer count before any change was seen; "
+                    "direct_through_layers is a lower bound, switch_layers is empty",
+}
+
+#: Text columns whose values come from a fixed list: column -> {value: meaning}.
+VOCABULARIES: dict[str, dict[str, str]] = {"thinning_state": THINNING_STATES}
 
 _TENSOR = ("xx", "yy", "zz", "xy", "xz", "yz")
 
@@ -239,11 +271,17 @@ _WIDE = [
     ("gap_character_bulk", S, NO_UNIT, "gap character of the bulk crystal"),
     ("gap_bulk_ev", F, "eV", "bulk fundamental gap"),
     ("direct_gap_bulk_ev", F, "eV", "bulk lowest direct gap"),
-    ("direct_through_layers", "int16", "1",
-     "largest N with every count 1..N direct (0: indirect monolayer; -2: undetermined)"),
-    ("character_switch_layers", "int16", "1",
-     "first layer count whose character differs from the monolayer's (0: bulk only; -1: none; -2: undetermined)"),
-    ("thinning_verdict", S, NO_UNIT, "how the gap character changes with thinning, in words"),
+    ("thinning_state", S, NO_UNIT,
+     "how the band-gap character changes from the monolayer to bulk, one of a fixed list of values "
+     "(THINNING_STATES; listed below the tables)"),
+    ("direct_through_layers", "Int16", "1",
+     "thickest layer count N such that the gap is direct at every count 1..N (thinning to N layers or fewer "
+     "gives a direct gap); empty when the monolayer is indirect or unknown; a lower bound when thinning_state "
+     "is 'unknown beyond'"),
+    ("switch_layers", "Int16", "1",
+     "thinnest layer count (2..max_layers) whose gap character differs from the monolayer's; empty when "
+     "every computed layer count has the monolayer's character (thinning_state says whether bulk differs)"),
+    ("thinning_verdict", S, NO_UNIT, "how the gap character changes with thinning, in words (with the layer counts)"),
     ("mu_1l_me", F, "m_e", "monolayer bright-pair in-plane reduced mass"),
     ("mu_bulk_me", F, "m_e", "bulk bright-pair in-plane reduced mass"),
     ("mu_bulk_perp_me", F, "m_e", "bulk bright-pair out-of-plane reduced mass"),
@@ -339,9 +377,17 @@ _CHANGES = [
 
 _REFINEMENT = [
     ("output", S, NO_UNIT, "attributed output: meets_all, pass_direct, pass_margin, pass_binding, "
-                           "pass_window (0/1 verdicts), target_binding_ev, target_optical_gap_ev"),
+                           "pass_window, on_shortlist (0/1 verdicts), target_binding_ev, target_optical_gap_ev"),
     ("input_group", S, NO_UNIT, "input group: kind, and valley label and band for per-valley groups"),
-    ("input_kind", S, NO_UNIT, "mass, dielectric, screening_length, band_edges or scissor"),
+    ("input_kind", S, NO_UNIT, "mass, dielectric, screening_length, band_edges, scissor or model_error"),
+    ("p_on_shortlist", F, "1", "probability that the compound is on the shortlist with every other compound at "
+                               "its rank: fraction of the N base samples of matrix A (NaN when membership is not "
+                               "attributed)"),
+    ("shortlist_cut", S, NO_UNIT, "the ranking key (candidate, score, compound) of the shortlist_size-th other "
+                                  "compound that on_shortlist is measured against ('none': fewer other compounds "
+                                  "than the shortlist size; '' when not attributed); part of the record's cache key"),
+    ("verdict", S, NO_UNIT, "the verdict in doubt: meets_all (meets every criterion), on_shortlist (makes the "
+                            "shortlist) or both (membership follows the criteria in every sample)"),
     ("mean", F, "output unit", "mean of the output over the base samples (for a verdict: its probability)"),
     ("variance", F, "output unit squared", "variance of the output over the base samples"),
     ("share_first", F, "1", "first-order Sobol index (Saltelli 2010): expected fraction of the variance "
@@ -376,10 +422,17 @@ _SHORTLIST = [
     ("Temperature (K)", F, "K", "operating temperature of Binding / kT and Bright fraction"),
     ("Gap character", S, NO_UNIT, "'direct', 'indirect' or 'unknown' band gap at that layer count"),
     ("Thinning behaviour", S, NO_UNIT, "how the gap character changes with thinning, in words"),
+    ("Thinning state", S, NO_UNIT,
+     "Thinning behaviour as one of eight fixed values, for filtering (listed with their meanings at the end of "
+     "this page, column thinning_state)"),
+    ("Direct up to (layers)", "Int16", "1",
+     "thickest layer count N with a direct gap at every count 1..N; empty when the monolayer is not direct"),
     ("Exciton energy (eV)", F, "eV", "lowest bright exciton energy (optical gap)"),
     ("Exciton energy 16 % (eV)", F, "eV", "16th percentile of the exciton energy (Monte Carlo; empty without)"),
     ("Exciton energy 84 % (eV)", F, "eV", "84th percentile of the exciton energy (Monte Carlo; empty without)"),
-    ("Emission wavelength (nm)", F, "nm", "vacuum wavelength of the lowest bright exciton (no gap shift)"),
+    ("Emission wavelength (nm)", F, "nm",
+     "vacuum wavelength of the lowest bright exciton, with the band gap as calculated (not shrunk by the "
+     "surroundings' screening: one end of the emission bracket)"),
     ("Emission wavelength 16 % (nm)", F, "nm", "16th percentile of the emission wavelength (Monte Carlo)"),
     ("Emission wavelength 84 % (nm)", F, "nm", "84th percentile of the emission wavelength (Monte Carlo)"),
     ("Emission if the gap compensates (nm)", F, "nm",
@@ -388,7 +441,7 @@ _SHORTLIST = [
      "temperature the exciton energy and wavelength are for: the operating temperature when the record gives "
      "the gap's temperature dependence (thermal shift applied), else the calculation's temperature"),
     ("Spectral band", S, NO_UNIT, "named spectral band of the emission (config emission_bands)"),
-    ("Binding energy (meV)", F, "meV", "exciton binding energy (Rytova-Keldysh)"),
+    ("Binding energy (meV)", F, "meV", "binding energy of the lowest bright exciton (Rytova-Keldysh model)"),
     ("Binding energy 16 % (meV)", F, "meV", "16th percentile of the binding energy (Monte Carlo)"),
     ("Binding energy 84 % (meV)", F, "meV", "84th percentile of the binding energy (Monte Carlo)"),
     ("Binding / kT", F, "1", "binding energy over kT at the temperature of the row"),
@@ -466,8 +519,11 @@ def descriptions_for(columns) -> dict[str, str]:
     return {c: col.description for c in columns if (col := lookup(c)) is not None}
 
 
-_PANDAS = {"string": "str", "float64": "float64", "int16": "int16", "int32": "int32", "int64": "int64",
-           "bool": "boolean"}
+_PANDAS = {"string": "str", "float64": "float64", "int16": "int16", "Int16": "Int16", "int32": "int32",
+           "int64": "int64", "bool": "boolean"}
+
+#: Position in _WIDE of the first column after the per-surroundings monolayer columns of screen_wide.
+_WIDE_PER_ENV = [c[0] for c in _WIDE].index("rank_environment")
 
 
 def pandas_dtype(name: str) -> str:
@@ -505,20 +561,20 @@ TABLES: dict[str, tuple[str, list[str]]] = {
                                      "code_version", "config_hash"]),
     "results/tables/screen_wide.parquet": (
         "one row per compound, ranked; the Monte Carlo summary joined",
-        ["entry_id", "formula", "input_hash", *[c[0] for c in _WIDE[:30]], "warnings",
+        ["entry_id", "formula", "input_hash", *[c[0] for c in _WIDE[:_WIDE_PER_ENV]], "warnings",
          "binding_1l_ev__<env>", "optical_gap_1l_ev__<env>", "emission_1l_nm__<env>",
-         *[c[0] for c in _WIDE[30:-1]],
+         *[c[0] for c in _WIDE[_WIDE_PER_ENV:-1]],
          *[f"{q}_p{p}" for q in MC_QUANTITIES for p in PERCENTILES], *[c[0] for c in _UNCERTAINTY],
          "emission_nm_p16__<env>", "emission_nm_p84__<env>", "rank", "physics_hash", "code_version", "config_hash"]),
     "results/tables/attribution.parquet": (
         "one row per borderline compound, attributed output and input group (variance-based attribution)",
         ["entry_id", "input_hash", "physics_hash", "output", "input_group", "input_kind", "valley_index",
-         "p_meets_all", "mean", "variance", "share_first", "share_first_se", "share_total", "share_total_se",
+         "p_meets_all", "p_on_shortlist", "shortlist_cut", "mean", "variance", "share_first", "share_first_se", "share_total", "share_total_se",
          "share_halved", "share_halved_se", "n_base", "seed"]),
     "results/tables/refinement.parquet": (
         "the campaign's refinement list: which input to recompute first (also results/refinement.csv)",
-        ["rank", "entry_id", "input_group", "input_kind", "valley_index", "recompute", "p_meets_all",
-         "share_first", "share_total", "share_halved", "expected_effect", "mostly_through", "advice"]),
+        ["rank", "entry_id", "input_group", "input_kind", "valley_index", "recompute", "verdict", "p_meets_all",
+         "p_on_shortlist", "share_first", "share_total", "share_halved", "expected_effect", "mostly_through", "advice"]),
     "results/tables/changes.parquet": (
         "one row per compound that changed since the previous run",
         ["entry_id", *[c[0] for c in _CHANGES]]),
@@ -548,6 +604,12 @@ def column_docs() -> str:
             shown = name if name != "edge_1l_ev" else "edge_<N>l_ev"
             lines.append(f"| `{shown}` | {col.dtype} | {col.unit} | {col.description.replace('ENV', '<env>')} |")
         lines.append("")
+    lines += ["## Values of text columns with a fixed list", "",
+              "`Int16` columns hold a count or are empty; no number stands for a state."]
+    for name, values in VOCABULARIES.items():
+        lines += ["", f"`{name}`:", "", "| value | meaning |", "|---|---|"]
+        lines += [f"| `{value}` | {meaning} |" for value, meaning in values.items()]
+    lines.append("")
     return "\n".join(lines)
 
 

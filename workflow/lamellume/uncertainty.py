@@ -99,6 +99,7 @@ truncated distribution: L. Devroye, *Non-Uniform Random Variate Generation*
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 from typing import Iterator, Mapping, NamedTuple
 
@@ -106,7 +107,8 @@ import numpy as np
 import pandas as pd
 from scipy import special
 
-from lamellume import dielectric, excitons, gapshift, keldysh, layers as layer_model, model, ranking, screen, survival
+from lamellume import (brightness, dielectric, excitons, gapshift, keldysh, layers as layer_model, model, ranking,
+                       screen, survival)
 
 __all__ = [
     "BLOCK_CELLS",
@@ -517,6 +519,14 @@ def _evaluate_block(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, tabl
            "target_emission_nm": lam, "bulk_binding_ev": res.bulk["bulk_binding_ev"],
            "direct_target": gc.is_direct[:, 0] & gc.complete[:, 0], **crit,
            **{env_emission_key(name): res.stack["emission_nm"][:, 0, e] for e, name in enumerate(prep.env_names)}}
+    if "radiative_rate_0_per_s" in prep.model_settings.stack:
+        # the inputs of the score (ranking.score_parts), asked for by the attribution's shortlist
+        # key (prepare_inputs(score_inputs=True)); the same functions as ranking.add_survival
+        out["target_bound_fraction"] = bound
+        out["target_exciton_margin_ev"] = st["exciton_margin_ev"]
+        out["target_brightness_proxy_per_s"] = brightness.emitted_rate_per_s(
+            st["radiative_rate_0_per_s"], st["bright_exciton_ev"], st["bright_mass_me"], prep.temperature_k,
+            fraction, np.sqrt(prep.kappa[ei]))[1]
     return {key: np.asarray(v).reshape(n_e, n_s) for key, v in out.items()}
 
 
@@ -703,14 +713,21 @@ def propagate_uncertainty(entries: pd.DataFrame, valleys: pd.DataFrame, settings
 # --------------------------------------------------------------------------- #
 # The per-sample model for other designs (variance-based attribution)
 # --------------------------------------------------------------------------- #
-def prepare_inputs(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping) -> _Prepared:
+def prepare_inputs(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping,
+                   score_inputs: bool = False) -> _Prepared:
     """Nominal inputs and input widths of a shard, in the layout :func:`evaluate_draws` takes.
 
     Entries keep their order; valleys are ordered by (entry, valley_index).
     Standard-normal columns of one entry: eps, r0, scissor, then one mass and
-    one edge column per valley (see the module docstring).
+    one edge column per valley (see the module docstring). With
+    ``score_inputs`` the model also computes the radiative-rate proxy, and
+    :func:`evaluate_draws` returns the inputs of the score as well.
     """
-    return _prepare(entries, valleys, settings)
+    prep = _prepare(entries, valleys, settings)
+    if score_inputs:
+        ms = prep.model_settings
+        prep = prep._replace(model_settings=dataclasses.replace(ms, stack=ms.stack | {"radiative_rate_0_per_s"}))
+    return prep
 
 
 def evaluate_draws(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, table,
@@ -735,6 +752,11 @@ def evaluate_draws(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, table
     -------
     dict of numpy.ndarray, shape (b - a, S)
         The :data:`QUANTITIES` (eV or nm), ``direct_target`` and the criteria
-        of :func:`criteria` -- exactly what the propagation summarises.
+        of :func:`criteria` -- exactly what the propagation summarises. With
+        ``prep`` from ``prepare_inputs(..., score_inputs=True)`` also the inputs
+        of :func:`lamellume.ranking.score_parts` at the target layer count in
+        the ranking surroundings: ``target_bound_fraction``,
+        ``target_exciton_margin_ev`` (eV) and ``target_brightness_proxy_per_s``
+        (1/s, :func:`lamellume.brightness.emitted_rate_per_s`).
     """
     return _evaluate_block(prep, a, b, z_ent, z_mass, z_edge, table, z_model)

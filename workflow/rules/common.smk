@@ -103,20 +103,34 @@ def campaign_problem():
     return f"the campaign folder {where} holds no record files (entries/*.json) and no calculations/"
 
 
+def screen_asked():
+    """True when this run's plan holds the screen's manifest (rule all or a target that needs
+    it), so the summary's counts belong to this run's request; False for, e.g., a run of
+    validate_campaign alone, whose summary must not repeat an earlier screen's counts."""
+    dag = getattr(workflow, "dag", None)
+    if dag is None:
+        return True
+    return any(job.rule.name == "write_manifest" for job in dag.jobs)
+
+
 def run_summary():
     """Console lines that end a successful run: records read, screened, rejected (with the
     rejects CSV and the first reasons), candidates and the page (from the run's outputs)."""
     counts_path, manifest_path = Path("results/cache/screen_counts.json"), Path("results/manifest.json")
+    if not screen_asked():
+        return "lamellume: run finished (no screen was asked for: rule all was not a target)"
     if not counts_path.exists() or not manifest_path.exists():
         return "lamellume: run finished (no complete screen yet: rule all was not asked for)"
     counts, manifest = io.read_json(counts_path), io.read_json(manifest_path)
+    candidates = manifest["counts"]["candidates"]
     lines = [f"lamellume: {counts['records']} record files read, {counts['screened']} screened, "
-             f"{counts['rejected']} rejected, {manifest['counts']['candidates']} candidates."]
+             f"{counts['rejected']} rejected, {candidates} candidate{'' if candidates == 1 else 's'}."]
     if counts["rejected"]:
         lines.append("  rejects: results/tables/rejects.csv; first reasons:")
         lines += [f"    {reason}" for reason in counts["reasons"]]
     lines.append("  summary page: results/summary.html; shortlist: results/shortlist.csv "
                  "(its settings: results/shortlist_settings.csv)")
+    lines.append(f"  results/ is {Path('results').resolve()} (the working directory's)")
     return "\n".join(lines)
 
 

@@ -1,7 +1,9 @@
 # Stage 2b: what to recompute next. For every record whose chance of meeting every
-# criterion lies in refinement.band, attribute the verdict's uncertainty to the input
-# groups (Saltelli 2010 / Jansen 1999 Sobol indices), per shard with a per-record cache
-# like the propagation's; then rank (compound, input, expected effect) for the campaign.
+# criterion (or of making the shortlist) lies in refinement.band, attribute the verdict's
+# uncertainty to the input groups (Saltelli 2010 / Jansen 1999 Sobol indices), per shard
+# with a per-record cache like the propagation's; then rank (compound, verdict, input,
+# expected effect) for the campaign. Shortlist membership is measured against the ranked
+# table's cut keys, so every attribute_shard job follows rank_candidates.
 
 
 localrules:
@@ -14,6 +16,7 @@ rule attribute_shard:
         entries=rules.screen_shard.output.entries,
         valleys=rules.screen_shard.output.valleys,
         uncertainty=rules.screen_shard.output.uncertainty,
+        ranked=rules.rank_candidates.output.wide,
         settings=attribution_settings,
         code=code_files("attribute_shard"),
     output:
@@ -28,7 +31,7 @@ rule attribute_shard:
     shell:
         adapter(
             "attribute_shard",
-            inputs=("table", "entries", "valleys", "uncertainty", "settings"),
+            inputs=("table", "entries", "valleys", "uncertainty", "ranked", "settings"),
             outputs=("attribution",),
             wildcards=("shard",),
         )

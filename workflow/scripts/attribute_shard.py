@@ -12,6 +12,7 @@ pipeline.run_attribution(
     entries_path=job.one("input", "entries"),
     valleys_path=job.one("input", "valleys"),
     uncertainty_path=job.one("input", "uncertainty"),
+    ranked_path=job.one("input", "ranked"),
     table_path=job.one("input", "table"),
     settings=settings["settings"],
     cache_dir=str(Path(settings["cache_root"]) / job.wildcards["shard"]),
