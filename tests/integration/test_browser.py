@@ -330,8 +330,16 @@ def test_surroundings_and_checks_are_shown_in_words(driver, run):
     plots = driver.execute_script(
         "return Array.from(document.querySelectorAll('figure.plot')).map(f => f.textContent).join(' ');")
     # config/config.yaml: encapsulated 4.5 / 4.5 (the ranking), on_silica 1.0 / 3.9
-    assert "encapsulated (above 4.5, below 4.5)" in plots
-    assert "on silica (above 1.0, below 3.9)" in plots and "on_silica" not in plots
+    assert "encapsulated (above 4.5, below 4.5)" in plots and "on_silica" not in plots
+    # the binding-per-surroundings groups: name and layer count, then the constants, on short lines
+    labels = driver.execute_script(
+        "return Array.from(document.querySelectorAll('#plot-environment text.group-label')).map(t => {"
+        "const b = t.getBBox(); return {text: t.textContent, y: t.getAttribute('y'), x0: b.x, x1: b.x + b.width};});")
+    texts = [label["text"] for label in labels]
+    assert "on silica (1 L)" in texts and "below 3.9" in texts and "bulk crystal" in texts, texts
+    for row in {label["y"] for label in labels}:  # neighbouring labels of one line never overlap
+        line = sorted((label for label in labels if label["y"] == row), key=lambda label: label["x0"])
+        assert all(a["x1"] <= b["x0"] for a, b in zip(line, line[1:])), line
     page = driver.execute_script("return document.body.innerText;")
     assert "on_silica" not in page
     checks = driver.execute_script(

@@ -376,6 +376,14 @@ INTENDED_CHANGES = (
     ("(above 1.0, below 1.0) (above 1.0, below 1.0)", "(above 1.0, below 1.0)"),
     ("encapsulated", "encapsulated (above 4.5, below 4.5)"),
     ("(above 4.5, below 4.5) (above 4.5, below 4.5)", "(above 4.5, below 4.5)"),
+    # issue 14: the binding-per-surroundings groups name the surroundings on one line, their constants on
+    # the next (one long line per group ran into its neighbours)
+    *[(f"{name} ({c}) (1 L)", f"{name} (1 L) {c.replace(',', '')}") for name, c in (
+        ("suspended", "above 1.0, below 1.0"), ("on silica", "above 1.0, below 3.9"),
+        ("encapsulated", "above 4.5, below 4.5"))],
+    ("in each surroundings, plus the bulk crystal.",
+     "in each surroundings (under its name, the dielectric constants above and below the flake), plus the bulk "
+     "crystal."),
     # issue 14 item 7: the rejects' Check column names the check in words, not the stage name
     (" contract tensor:", " record breaks the input contract (schema or physical checks) tensor:"),
     (" valleys read no", " valleys file could not be read as JSON no"),
@@ -620,6 +628,7 @@ def test_card_plan_names_every_step_of_the_first_experiment():
     # one range per surroundings, with its dielectric constants and the Monte Carlo 16-84 % range
     susp, enc = plan["Expected emission"]
     assert "1.0 above, 1.0 below" in susp and "640\u2013700 nm" in susp and "nominal 668 nm" in susp
+    assert susp.startswith("suspended (dielectric constant 1.0 above, 1.0 below; mean 1.00)")  # said once
     assert "4.5 above, 4.5 below" in enc and "630\u2013690 nm" in enc and "668 nm if the gap fully" in enc
     tests = " ".join(plan["Quick test"])
     assert "monolayer and bilayer" in tests and "brighten on cooling" in tests and "reflectance" in tests.lower()

@@ -65,6 +65,13 @@ def gap_class(character: Any) -> str:
     return f"g-{text}" if text in GAP_CHARACTERS else "g-unknown"
 
 
+def environment_name(name: str, settings: Mapping) -> str:
+    """Display name of a surroundings entry of the config, without its constants ('on silica')."""
+    entry = (settings.get("environments", {}) or {}).get(name, {}) or {}
+    label = entry.get("label") if isinstance(entry, Mapping) else None
+    return str(label) if label else str(name).replace("_", " ")
+
+
 def environment_label(name: str, settings: Mapping) -> str:
     """Display label of a surroundings entry of the config, with its dielectric constants.
 
@@ -72,8 +79,7 @@ def environment_label(name: str, settings: Mapping) -> str:
     one label of the surroundings on the page and in the plots (never the config key).
     """
     entry = (settings.get("environments", {}) or {}).get(name, {}) or {}
-    label = entry.get("label") if isinstance(entry, Mapping) else None
-    text = str(label) if label else str(name).replace("_", " ")
+    text = environment_name(name, settings)
     if isinstance(entry, Mapping) and "top" in entry and "bottom" in entry:
         text += f" (above {float(entry['top']):.1f}, below {float(entry['bottom']):.1f})"
     return text
@@ -464,9 +470,16 @@ def figure_binding_by_environment(ranked: pd.DataFrame, long: pd.DataFrame, sett
     for k, (g, ids, vals, chars) in enumerate(data):
         cx = ax.x(k)
         name = g if g == "bulk crystal" else environment_label(g, settings)
-        label = name if g == "bulk crystal" else f"{name} ({n_target} L)"
-        marks.append(el("text", {"class": "tick strong" if g == env_ranked else "tick", "x": _c1(cx),
-                                 "y": _c1(ax.y0 + 18), "text-anchor": "middle"}, text=label))
+        # short lines under the group, so neighbouring labels do not run into each other:
+        # the surroundings' name and layer count, then their dielectric constants above and below
+        entry = settings.get("environments", {}).get(g, {}) if g != "bulk crystal" else {}
+        lines = ([g] if g == "bulk crystal" else [f"{environment_name(g, settings)} ({n_target} L)"]
+                 + ([f"above {float(entry['top']):.1f}", f"below {float(entry['bottom']):.1f}"]
+                    if "top" in entry and "bottom" in entry else []))
+        for j, line in enumerate(lines):
+            marks.append(el("text", {"class": ("tick strong" if g == env_ranked else "tick") + " group-label",
+                                     "x": _c1(cx), "y": _c1(ax.y0 + 18 + 13 * j), "text-anchor": "middle"},
+                            text=line))
         if not len(vals):
             continue
         is_cand = np.array([cand.get(x, False) for x in ids], dtype=bool)

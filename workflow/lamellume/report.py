@@ -498,7 +498,7 @@ def _emission_ranges(row: Mapping, long: pd.DataFrame | None, settings: Mapping)
     out = []
     for env, entry in (settings.get("environments", {}) or {}).items():
         kappa = (float(entry["top"]) + float(entry["bottom"])) / 2
-        where = (f"{environment_label(env, settings)} (dielectric constant {_fmt(entry['top'], 1)} above, "
+        where = (f"{figures.environment_name(env, settings)} (dielectric constant {_fmt(entry['top'], 1)} above, "
                  f"{_fmt(entry['bottom'], 1)} below; mean {_fmt(kappa, 2)})")
         lo, hi = _num(row.get(f"emission_nm_p16__{env}")), _num(row.get(f"emission_nm_p84__{env}"))
         lam = _num(here["emission_nm"].get(env)) if "emission_nm" in here else math.nan
@@ -782,7 +782,8 @@ def _figures(ranked: pd.DataFrame, long: pd.DataFrame, settings: Mapping) -> lis
                     "candidates."},
         {"heading": "What the surroundings do to binding",
          "figure": figures.figure_binding_by_environment(ranked, long, settings),
-         "caption": "Binding at the ranked thickness in each surroundings, plus the bulk crystal. Ringed dots are "
+         "caption": "Binding at the ranked thickness in each surroundings (under its name, the dielectric "
+                    "constants above and below the flake), plus the bulk crystal. Ringed dots are "
                     "candidates, bars are medians. A more strongly screening environment lowers the binding."},
     ]
 

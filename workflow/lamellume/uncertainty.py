@@ -74,7 +74,7 @@ normals (columns: eps, r0, scissor, k valley masses, k valley edges; valleys
 in ``valley_index`` order), drawn in sample chunks that concatenate to the
 same stream. Results therefore do not depend on shard composition, entry
 order or chunking. Work proceeds in blocks of at most
-:data:`BLOCK_CELLS` = 65,536 (entry x sample) cells: ``BLOCK_CELLS // samples``
+:data:`BLOCK_CELLS` = 32,768 (entry x sample) cells: ``BLOCK_CELLS // samples``
 entries with all their samples, or one entry in chunks of ``BLOCK_CELLS``
 samples when ``samples > BLOCK_CELLS``. Each block is reshaped into the
 compound axis (entry-major, then sample) so the vectorized layer and exciton
@@ -124,8 +124,10 @@ __all__ = [
     "propagate_uncertainty",
 ]
 
-#: Largest number of (entry x sample) cells evaluated at once (memory bound).
-BLOCK_CELLS: int = 65_536
+#: Largest number of (entry x sample) cells evaluated at once (memory bound). Half the former
+#: 65,536: the block's arrays then stay nearer the processor's caches, and the Monte Carlo of a
+#: shard took 15 % less CPU (median of 5 alternated runs, 640 records); results never depend on it.
+BLOCK_CELLS: int = 32_768
 #: Percentiles reported for every quantity (16/84 bracket a 68 % interval).
 PERCENTILES: tuple[float, ...] = (16.0, 50.0, 84.0)
 #: Per-sample quantities summarised by percentiles.
