@@ -105,6 +105,9 @@ def child(entries_path: str, valleys_path: str, table_path: str, samples: int, b
                       "mean_groups": float(groups.mean()) if len(groups) else 0.0,
                       "attribution_evaluations": int(evaluations), "rss_attribution_mib": bu._high_water_kib() / 1024}
     print(json.dumps(out))
+    import shutil
+
+    shutil.rmtree(work, ignore_errors=True)
     chosen = entries[entries["entry_id"].isin(set(rows["entry_id"]))].merge(unc[["entry_id", "p_meets_all"]],
                                                                               on="entry_id")
     if profile:
