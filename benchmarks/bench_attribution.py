@@ -14,7 +14,8 @@ repository root. Steps:
    lies in the band) and with the configured verdicts (by default also shortlist
    membership: N more model runs for every other ranked record, then the records
    whose ``p_on_shortlist`` lies in the band); report the wall times, their
-   ratios to the propagation, the records attributed, the model evaluations,
+   ratios to the propagation (wall and process CPU time), the records
+   attributed, the model evaluations,
    and the resident-memory high-water mark of each step (``VmHWM``, reset
    between steps);
 3. with ``--profile``: a second, untimed attribution under ``cProfile``,
@@ -65,9 +66,9 @@ def child(entries_path: str, valleys_path: str, table_path: str, samples: int, b
     entries, valleys = io.read_parquet(entries_path), io.read_parquet(valleys_path)
     table = keldysh.KeldyshTable.from_arrays(io.load_arrays(table_path))
     bu._high_water_kib(reset=True)
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     unc = uncertainty.propagate_uncertainty(entries, valleys, settings, table, samples=samples)
-    t_prop = time.perf_counter() - t0
+    t_prop, c_prop = time.perf_counter() - t0, time.process_time() - c0
     rss_prop = bu._high_water_kib(reset=True)
 
     # the ranking of rule rank_candidates (not timed): the cut keys of shortlist membership
@@ -82,23 +83,24 @@ def child(entries_path: str, valleys_path: str, table_path: str, samples: int, b
     io.write_parquet(ranked[["entry_id", "rank", "meets_all_criteria", "score"]], work / "ranked.parquet")
     ref = settings["refinement"]
     per_compound = int(ref["per_compound"]) if ref["effect"] == "halved" else 0
-    out = {"entries": len(entries), "samples": samples, "propagation_s": t_prop,
+    out = {"entries": len(entries), "samples": samples, "propagation_s": t_prop, "propagation_cpu_s": c_prop,
            "propagation_evaluations": len(entries) * samples, "rss_propagation_mib": rss_prop / 1024,
            "base": int(ref["samples"]), "effect": ref["effect"]}
     for label, verdicts in (("verdict", ["meets_all"]), ("configured", list(ref["verdicts"]))):
         s = copy.deepcopy(settings)
         s["refinement"]["verdicts"] = verdicts
         bu._high_water_kib(reset=True)
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         counts = pipeline.run_attribution(str(entries_path), str(valleys_path), str(work / "uncertainty.parquet"),
                                           str(table_path), s, str(work / f"cache_{label}"),
                                           str(work / f"attribution_{label}.parquet"), str(work / "ranked.parquet"))
-        t_attr = time.perf_counter() - t0
+        t_attr, c_attr = time.perf_counter() - t0, time.process_time() - c0
         rows = io.read_parquet(work / f"attribution_{label}.parquet")
         groups = rows[rows["output"] == "meets_all"].groupby("entry_id").size()
         evaluations = sum(attribution.design_size(int(ref["samples"]), int(d), min(per_compound, int(d)))
                           for d in groups) + int(ref["samples"]) * counts.get("membership_computed", 0)
         out[label] = {"verdicts": verdicts, "attribution_s": t_attr, "ratio": t_attr / t_prop,
+                      "attribution_cpu_s": c_attr, "cpu_ratio": c_attr / c_prop,
                       "attributed": int(len(groups)), "membership_computed": counts.get("membership_computed", 0),
                       "mean_groups": float(groups.mean()) if len(groups) else 0.0,
                       "attribution_evaluations": int(evaluations), "rss_attribution_mib": bu._high_water_kib() / 1024}
@@ -144,6 +146,7 @@ def main() -> None:
         res = subprocess.run(cmd, check=True, capture_output=True, text=True)
         r = json.loads(res.stdout.strip().splitlines()[-1])
         print(f"{r['entries']} entries: propagation x {r['samples']} samples {r['propagation_s']:.1f} s "
+              f"(CPU {r['propagation_cpu_s']:.1f} s) "
               f"({r['propagation_evaluations'] / 1e6:.1f} M model evaluations, peak RSS "
               f"{r['rss_propagation_mib']:.0f} MiB)")
         for label in ("verdict", "configured"):
@@ -152,7 +155,8 @@ def main() -> None:
                   f"({a['mean_groups']:.1f} input groups on average), membership of {a['membership_computed']} "
                   f"other records sampled, N = {r['base']}, effect {r['effect']}: {a['attribution_s']:.1f} s "
                   f"({a['attribution_evaluations'] / 1e6:.1f} M model evaluations, peak RSS "
-                  f"{a['rss_attribution_mib']:.0f} MiB); ratio to the propagation {a['ratio']:.2f}")
+                  f"{a['rss_attribution_mib']:.0f} MiB); ratio to the propagation {a['ratio']:.2f} "
+                  f"(CPU {a['attribution_cpu_s']:.1f} s, ratio {a['cpu_ratio']:.2f})")
         if args.profile:
             print(res.stderr)
 

@@ -74,7 +74,7 @@ def prepare(work: Path, count: int) -> tuple[Path, Path]:
                    stdout=subprocess.DEVNULL)
     t_gen = time.perf_counter() - t0
     cfg = _config()
-    settings = {k: cfg[k] for k in ("layers", "structure", "environments", "monolayer", "emission_bands")}
+    settings = {k: cfg[k] for k in ("layers", "structure", "environments", "monolayer", "excitons", "emission_bands")}
     paths = sorted(str(p) for p in (campaign / "entries").glob("*.json"))
     outputs = {name: str(work / "norm" / f"{name}.parquet") for name in pipeline.SHARD_TABLES}
     t0 = time.perf_counter()

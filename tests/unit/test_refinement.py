@@ -430,3 +430,16 @@ def test_membership_equal_to_the_verdict_is_listed_once(demo, settings):
     assert all(v == {"both"} for e, v in by_entry.items() if e != other)
     row = listed[listed["verdict"] == "both"].iloc[0]
     assert "makes the shortlist" in row["advice"] and "meets every criterion" in row["advice"]
+
+
+def test_attribution_in_the_ranking_surroundings_alone_changes_nothing(demo, membership, settings, monkeypatch):
+    # The attribution evaluates the model in the ranking surroundings only (every attributed output is
+    # taken there); with every configured surroundings evaluated, the rows are bit for bit the same.
+    chosen = membership["chosen"].iloc[:4]
+    fast = refinement.attribute(chosen, demo["valleys"], settings, demo["table"], cuts=demo["cuts"])
+    full = uncertainty.prepare_inputs
+    monkeypatch.setattr(uncertainty, "prepare_inputs",
+                        lambda *a, ranking_environment_only=False, **k: full(*a, **k))
+    pd.testing.assert_frame_equal(fast, refinement.attribute(chosen, demo["valleys"], settings, demo["table"],
+                                                             cuts=demo["cuts"]), check_exact=True)
+    assert len(settings["environments"]) > 1

@@ -262,6 +262,22 @@ def _entry_groups(prep, e: int, kinds, labels, bands, vindex) -> tuple[list, lis
     return cols, names, kind_of, valley
 
 
+def _has_groups(prep, kinds) -> np.ndarray:
+    """Per entry: whether any input group of ``kinds`` is uncertain (as :func:`_entry_groups` finds them)."""
+    n = len(prep.ids)
+    out = np.zeros(n, dtype=bool)
+    single = {"dielectric": prep.sig_eps, "screening_length": prep.sig_r0, "scissor": prep.sig_scissor,
+              "model_error": np.full(n, max(prep.sig_model_layers, prep.sig_model_bulk))}
+    owner = np.repeat(np.arange(n), np.diff(prep.vstart))
+    for kind in kinds:
+        if kind in single:
+            out |= np.asarray(single[kind], dtype=float) > 0
+        else:
+            sig = np.asarray(prep.sig_mass if kind == "mass" else prep.sig_edge, dtype=float)
+            out |= np.bincount(owner, weights=(sig > 0).astype(float), minlength=n) > 0
+    return out
+
+
 def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, table: keldysh.KeldyshTable,
               block_cells: int = uncertainty.BLOCK_CELLS,
               cuts: Mapping[str, ShortlistCut | None] | None = None) -> pd.DataFrame:
@@ -307,7 +323,8 @@ def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, t
 
     entries = entries.sort_values("entry_id", kind="stable").reset_index(drop=True)
     valleys = valleys[valleys["entry_id"].isin(set(entries["entry_id"]))]
-    prep = uncertainty.prepare_inputs(entries, valleys, settings, score_inputs=cuts is not None)
+    prep = uncertainty.prepare_inputs(entries, valleys, settings, score_inputs=cuts is not None,
+                                        ranking_environment_only=True)
     vt = valleys.assign(_o=pd.Index(prep.ids).get_indexer(valleys["entry_id"]))
     vt = vt.sort_values(["_o", "valley_index"], kind="stable")
     labels, bands = vt["label"].astype(str).to_numpy(), vt["band"].astype(str).to_numpy()
@@ -321,7 +338,8 @@ def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, t
     if not len(order):
         return empty_frame()
     entries = entries.iloc[order].reset_index(drop=True)
-    prep = uncertainty.prepare_inputs(entries, valleys, settings, score_inputs=cuts is not None)
+    prep = uncertainty.prepare_inputs(entries, valleys, settings, score_inputs=cuts is not None,
+                                        ranking_environment_only=True)
     groups = [groups[i] for i in order]
     cut_of = None if cuts is None else [cuts[str(e)] for e in prep.ids]
     n_groups = n_groups[order]
@@ -485,19 +503,15 @@ def shortlist_probability(entries: pd.DataFrame, valleys: pd.DataFrame, settings
     if not len(entries) or n_base < 2 or not kinds:
         return out
     valleys = valleys[valleys["entry_id"].isin(set(entries["entry_id"]))]
-    prep = uncertainty.prepare_inputs(entries, valleys, settings, score_inputs=True)
-    vt = valleys.assign(_o=pd.Index(prep.ids).get_indexer(valleys["entry_id"]))
-    vt = vt.sort_values(["_o", "valley_index"], kind="stable")
-    labels, bands = vt["label"].astype(str).to_numpy(), vt["band"].astype(str).to_numpy()
-    vindex = vt["valley_index"].to_numpy(dtype=np.int64)
+    prep = uncertainty.prepare_inputs(entries, valleys, settings, score_inputs=True, ranking_environment_only=True)
+    active = _has_groups(prep, kinds)
     step = max(1, block_cells // n_base)
     for a in range(0, len(prep.ids), step):
         b = min(a + step, len(prep.ids))
-        active = [len(_entry_groups(prep, e, kinds, labels, bands, vindex)[0]) > 0 for e in range(a, b)]
         zs = [_design(prep, e, [], n_base, halved, seed).a for e in range(a, b)]
         member = _outputs(prep, a, b, zs, table, block_cells, [cuts[str(e)] for e in prep.ids[a:b]],
                           settings["ranking"])["on_shortlist"]
-        out.iloc[a:b] = np.where(active, member.mean(axis=1), np.nan)
+        out.iloc[a:b] = np.where(active[a:b], member.mean(axis=1), np.nan)
     return out
 
 

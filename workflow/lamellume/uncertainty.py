@@ -714,16 +714,22 @@ def propagate_uncertainty(entries: pd.DataFrame, valleys: pd.DataFrame, settings
 # The per-sample model for other designs (variance-based attribution)
 # --------------------------------------------------------------------------- #
 def prepare_inputs(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping,
-                   score_inputs: bool = False) -> _Prepared:
+                   score_inputs: bool = False, ranking_environment_only: bool = False) -> _Prepared:
     """Nominal inputs and input widths of a shard, in the layout :func:`evaluate_draws` takes.
 
     Entries keep their order; valleys are ordered by (entry, valley_index).
     Standard-normal columns of one entry: eps, r0, scissor, then one mass and
     one edge column per valley (see the module docstring). With
     ``score_inputs`` the model also computes the radiative-rate proxy, and
-    :func:`evaluate_draws` returns the inputs of the score as well.
+    :func:`evaluate_draws` returns the inputs of the score as well. With
+    ``ranking_environment_only`` the model is evaluated in the ranking
+    surroundings alone (every criterion and target quantity is taken there;
+    the per-surroundings emission outputs then cover only it).
     """
     prep = _prepare(entries, valleys, settings)
+    if ranking_environment_only:
+        ei = prep.env_index
+        prep = prep._replace(kappa=prep.kappa[ei:ei + 1], env_names=prep.env_names[ei:ei + 1], env_index=0)
     if score_inputs:
         ms = prep.model_settings
         prep = prep._replace(model_settings=dataclasses.replace(ms, stack=ms.stack | {"radiative_rate_0_per_s"}))
