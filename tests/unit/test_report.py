@@ -656,3 +656,13 @@ def test_bound_fraction_is_rounded_never_a_guarantee():
     assert report._bound_words(0.754) == "75 %"
     assert report._bound_words(0.001) == "under 1 %"
     assert report._about(0.754) == "About 75 %" and report._about(0.9995) == "Over 99 %"
+
+
+def test_overview_counts_say_one_candidate_in_the_singular(settings):
+    # three compounds, only the first a candidate
+    ranked = _ranked(["cmp-a", "cmp-b", "cmp-c"], settings)
+    assert int(ranked["meets_all_criteria"].sum()) == 2
+    one = ranked.assign(meets_all_criteria=[True, False, False])
+    page = report.build_html(one, _long(one, settings), _rejects(), MANIFEST, report.empty_changes(), settings)
+    tiles = re.findall(r'<span class="num">(\d+)</span><span class="what">([^<]+)</span>', page)
+    assert ("1", "candidate") in tiles and ("3", "screened") in tiles, tiles

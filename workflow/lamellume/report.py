@@ -634,8 +634,9 @@ def _overview(ranked, rejects, manifest, settings) -> dict:
     lo, hi = sorted(float(v) for v in r["window_nm"])
     packages = manifest.get("packages", {}) or {}
     return {
-        "tiles": [("records read", n_records or n_screened + n_rej), ("screened", n_screened),
-                  ("candidates", n_cand), ("rejected", n_rej)],
+        "tiles": [("record read" if (n_records or n_screened + n_rej) == 1 else "records read",
+                   n_records or n_screened + n_rej), ("screened", n_screened),
+                  ("candidate" if n_cand == 1 else "candidates", n_cand), ("rejected", n_rej)],
         "settings": [
             ("Temperature", f"{float(surv['temperature_k']):g} K"),
             ("Ranked in", f"{environment_label(r['environment'], settings)}, {int(r['target_layers'])} layer(s)"),
