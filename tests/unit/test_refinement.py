@@ -356,10 +356,23 @@ def test_run_attribution_selects_and_caches_membership_by_cut(demo, membership, 
         return counts, io.read_parquet(tmp_path / name)
 
     counts, rows = run("a1.parquet")
-    # selected: p_meets_all or p_on_shortlist in the band
-    expected = set(demo["borderline"]["entry_id"]) | set(membership["chosen"]["entry_id"])
+    # selected: p_meets_all or p_on_shortlist in the band. Not sampled for membership: records
+    # whose p_meets_all lies beyond the band on the side their cut key bounds (against a
+    # non-candidate's key every candidate ranks above, so p_on_shortlist >= p_meets_all; against
+    # a candidate's key p_on_shortlist <= p_meets_all)
+    lo, hi = sorted(settings["refinement"]["band"])
+    p_all = entries.set_index("entry_id")["p_meets_all"]
+    border = set(demo["borderline"]["entry_id"])
+    bounded = {e for e, c in demo["cuts"].items() if e not in border and c is not None
+               and ((c.meets_all and p_all[e] < lo) or (not c.meets_all and p_all[e] > hi))}
+    assert bounded                                  # the demo has such records (its cut is a non-candidate)
+    # the bound agrees with the sampled membership of those records (the fixture samples every one)
+    sampled = membership["p_on"].reindex(sorted(bounded))
+    assert not refinement.borderline(sampled, settings["refinement"]["band"]).any(), sampled
+    expected = border | set(membership["chosen"]["entry_id"])
     assert set(rows["entry_id"]) == expected and counts["borderline"] == len(expected)
-    assert counts["membership_computed"] == len(demo["cuts"]) - len(demo["borderline"])
+    assert counts["membership_bounded"] == len(bounded)
+    assert counts["membership_computed"] == len(demo["cuts"]) - len(border) - len(bounded)
     again, rows2 = run("a2.parquet")
     assert again["computed"] == 0 and again["membership_computed"] == 0
     pd.testing.assert_frame_equal(rows, rows2)

@@ -527,6 +527,16 @@ def run_attribution(entries_path: str, valleys_path: str, uncertainty_path: str,
     prob_path = Path(cache_dir) / "shortlist_probability.parquet"
     if cuts is not None:
         rest = entries[~is_in(entries["entry_id"], chosen)] if chosen else entries
+        # Membership bounded by the verdict: against a candidate's key a compound must meet every
+        # criterion (p_on_shortlist <= p_meets_all); against a non-candidate's key every candidate
+        # ranks above it (p_on_shortlist >= p_meets_all). A record whose p_meets_all already lies
+        # below (above) the band on that side cannot have p_on_shortlist inside it: not sampled.
+        lo, hi = sorted(float(x) for x in ref["band"])
+        cut_meets = rest["entry_id"].map(lambda e: None if cuts[str(e)] is None else cuts[str(e)].meets_all)
+        p_all = rest["p_meets_all"].to_numpy(dtype=float)
+        outside = ((cut_meets == True).to_numpy() & (p_all < lo)) | ((cut_meets == False).to_numpy() & (p_all > hi))  # noqa: E712
+        counts["membership_bounded"] = int(outside.sum())
+        rest = rest[~outside]
         known = pd.DataFrame()
         if len(rest) and prob_path.exists() and \
                 io.parquet_metadata(prob_path) == {**io.parquet_metadata(prob_path), **stamps}:
