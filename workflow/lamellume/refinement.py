@@ -37,6 +37,9 @@ of the sample's own values; its window part is the sample's window indicator
 score). ``p_on_shortlist`` is the fraction of the N base samples of matrix A
 on the shortlist; a compound is attributed when ``p_meets_all`` or
 ``p_on_shortlist`` lies in the band (``refinement.verdicts`` chooses which).
+Membership is not sampled where the verdict bounds it outside the band
+(:func:`lamellume.pipeline.run_attribution`: p_on_shortlist <= p_meets_all
+against a candidate's key, >= against a non-candidate's).
 With ``ranking.order_by: probability`` the order uses a probability that one
 sample does not have, so membership is not attributed (the log says so).
 
