@@ -65,6 +65,20 @@ def membership(demo, settings):
 _zeroed = zero_uncertainty
 
 
+def _only_uncertain(demo, settings, top):
+    """The record of ``top`` (a listed row) with every uncertainty zero but its additive input's
+    (band edge or scissor, 0.1 eV), and 512 base samples."""
+    ent = demo["entries"][demo["entries"]["entry_id"] == top["entry_id"]]
+    val = demo["valleys"][demo["valleys"]["entry_id"] == top["entry_id"]]
+    e, v, s = _zeroed(ent, val, settings)
+    if top["input_kind"] == "scissor":
+        e["scissor_unc_ev"] = 0.1
+    else:
+        v.loc[v["valley_index"] == top["valley_index"], "edge_unc_ev"] = 0.1
+    s["refinement"]["samples"] = 512
+    return e, v, s
+
+
 def _effective(frame, column, default):
     return frame[column].astype(float).fillna(float(default))
 
@@ -77,14 +91,7 @@ def test_one_uncertain_input_carries_the_whole_verdict(demo, settings):
     # output that varies at all; no other group is attributed.
     top = refinement.refinement_list(demo["rows"]).iloc[0]
     assert top["input_kind"] in ("band_edges", "scissor")
-    ent = demo["entries"][demo["entries"]["entry_id"] == top["entry_id"]]
-    val = demo["valleys"][demo["valleys"]["entry_id"] == top["entry_id"]]
-    e, v, s = _zeroed(ent, val, settings)
-    if top["input_kind"] == "scissor":
-        e["scissor_unc_ev"] = 0.1
-    else:
-        v.loc[v["valley_index"] == top["valley_index"], "edge_unc_ev"] = 0.1
-    s["refinement"]["samples"] = 512
+    e, v, s = _only_uncertain(demo, settings, top)
     rows = refinement.attribute(e, v, s, demo["table"])
     assert set(rows["input_group"]) == {top["input_group"]}
     # outputs that vary beyond rounding (an input of a dark pair moves the verdict, not the bright exciton)
@@ -251,14 +258,7 @@ def test_membership_depends_on_one_input_only(demo, membership, settings):
     # and its input are the first of the membership list with an additive input (edge or scissor).
     listed = refinement.refinement_list(membership["rows"], verdicts=["on_shortlist"])
     top = listed[listed["input_kind"].isin(["band_edges", "scissor"])].iloc[0]
-    ent = demo["entries"][demo["entries"]["entry_id"] == top["entry_id"]]
-    val = demo["valleys"][demo["valleys"]["entry_id"] == top["entry_id"]]
-    e, v, s = _zeroed(ent, val, settings)
-    if top["input_kind"] == "scissor":
-        e["scissor_unc_ev"] = 0.1
-    else:
-        v.loc[v["valley_index"] == top["valley_index"], "edge_unc_ev"] = 0.1
-    s["refinement"]["samples"] = 512
+    e, v, s = _only_uncertain(demo, settings, top)
     rows = refinement.attribute(e, v, s, demo["table"], cuts=demo["cuts"])
     assert set(rows["input_group"]) == {top["input_group"]}
     on = rows[rows["output"] == "on_shortlist"].iloc[0]
