@@ -470,6 +470,23 @@ def run_propagation(entries: str | pd.DataFrame, valleys: str | pd.DataFrame, ta
     return counts
 
 
+def _attribution_keys(frame: pd.DataFrame) -> np.ndarray:
+    """Per-record cache key of the attribution caches: the record's key and its shortlist cut key."""
+    return (record_keys(frame) + "\0" + frame["shortlist_cut"].astype(str)).to_numpy(dtype=object)
+
+
+def _reusable_rows(path: Path, stamps: Mapping, keys: set) -> pd.DataFrame:
+    """Rows of a per-record attribution cache written with ``stamps`` whose key is in ``keys``
+    (column ``_key`` added); no rows when the cache is missing or was written otherwise."""
+    if not path.exists() or io.parquet_metadata(path) != {**io.parquet_metadata(path), **stamps}:
+        return pd.DataFrame()
+    old = io.read_parquet(path)
+    if not len(old):
+        return pd.DataFrame()
+    old = old.assign(_key=_attribution_keys(old))
+    return old[is_in(old["_key"], keys)]
+
+
 def run_attribution(entries_path: str, valleys_path: str, uncertainty_path: str, table_path: str,
                     settings: Mapping, cache_dir: str, output: str, ranked_path: str | None = None) -> dict[str, int]:
     """Variance-based attribution of one shard's borderline verdicts, re-computing only changed records.
@@ -507,8 +524,7 @@ def run_attribution(entries_path: str, valleys_path: str, uncertainty_path: str,
         entries = entries.assign(shortlist_cut=[refinement.cut_text(cuts[str(e)]) for e in entries["entry_id"]])
     else:
         entries = entries.assign(shortlist_cut="")
-    keys = record_keys(entries) + "\0" + entries["shortlist_cut"].astype(str)
-    entries = entries.assign(_key=keys.to_numpy(dtype=object))
+    entries = entries.assign(_key=_attribution_keys(entries))
     chosen = set(entries["entry_id"][refinement.borderline(entries["p_meets_all"], ref["band"])]) \
         if "meets_all" in verdicts else set()
 
@@ -527,23 +543,12 @@ def run_attribution(entries_path: str, valleys_path: str, uncertainty_path: str,
     prob_path = Path(cache_dir) / "shortlist_probability.parquet"
     if cuts is not None:
         rest = entries[~is_in(entries["entry_id"], chosen)] if chosen else entries
-        # Membership bounded by the verdict: against a candidate's key a compound must meet every
-        # criterion (p_on_shortlist <= p_meets_all); against a non-candidate's key every candidate
-        # ranks above it (p_on_shortlist >= p_meets_all). A record whose p_meets_all already lies
-        # below (above) the band on that side cannot have p_on_shortlist inside it: not sampled.
-        lo, hi = sorted(float(x) for x in ref["band"])
-        cut_meets = rest["entry_id"].map(lambda e: None if cuts[str(e)] is None else cuts[str(e)].meets_all)
-        p_all = rest["p_meets_all"].to_numpy(dtype=float)
-        outside = ((cut_meets == True).to_numpy() & (p_all < lo)) | ((cut_meets == False).to_numpy() & (p_all > hi))  # noqa: E712
+        outside = refinement.membership_decided(
+            rest["p_meets_all"], [None if cuts[str(e)] is None else cuts[str(e)].meets_all for e in rest["entry_id"]],
+            ref["band"])
         counts["membership_bounded"] = int(outside.sum())
         rest = rest[~outside]
-        known = pd.DataFrame()
-        if len(rest) and prob_path.exists() and \
-                io.parquet_metadata(prob_path) == {**io.parquet_metadata(prob_path), **stamps}:
-            old = io.read_parquet(prob_path)
-            if len(old):
-                old = old.assign(_key=(record_keys(old) + "\0" + old["shortlist_cut"].astype(str)).to_numpy(dtype=object))
-                known = old[is_in(old["_key"], set(rest["_key"]))]
+        known = _reusable_rows(prob_path, stamps, set(rest["_key"])) if len(rest) else pd.DataFrame()
         todo = rest[~is_in(rest["_key"], set(known["_key"]))] if len(known) else rest
         if len(todo):
             v, t = load()
@@ -563,12 +568,8 @@ def run_attribution(entries_path: str, valleys_path: str, uncertainty_path: str,
 
     entries = entries[is_in(entries["entry_id"], chosen)] if chosen else entries.iloc[:0]
     cache_path = Path(cache_dir) / "attribution.parquet"
-    reused = pd.DataFrame()
-    if len(entries) and cache_path.exists() and \
-            io.parquet_metadata(cache_path) == {**io.parquet_metadata(cache_path), **stamps}:
-        old = io.read_parquet(cache_path)
-        if len(old):
-            reused = old[is_in(record_keys(old) + "\0" + old["shortlist_cut"].astype(str), set(entries["_key"]))]
+    reused = _reusable_rows(cache_path, stamps, set(entries["_key"])).drop(columns="_key", errors="ignore") \
+        if len(entries) else pd.DataFrame()
     done = set(reused["entry_id"]) if len(reused) else set()
     todo = entries[~is_in(entries["entry_id"], done)] if done else entries
     if len(todo):

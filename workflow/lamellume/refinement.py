@@ -38,8 +38,8 @@ score). ``p_on_shortlist`` is the fraction of the N base samples of matrix A
 on the shortlist; a compound is attributed when ``p_meets_all`` or
 ``p_on_shortlist`` lies in the band (``refinement.verdicts`` chooses which).
 Membership is not sampled where the verdict bounds it outside the band
-(:func:`lamellume.pipeline.run_attribution`: p_on_shortlist <= p_meets_all
-against a candidate's key, >= against a non-candidate's).
+(:func:`membership_decided`: p_on_shortlist <= p_meets_all against a
+candidate's key, >= against a non-candidate's).
 With ``ranking.order_by: probability`` the order uses a probability that one
 sample does not have, so membership is not attributed (the log says so).
 
@@ -79,7 +79,7 @@ import pandas as pd
 from lamellume import attribution, keldysh, ranking, tables, uncertainty
 
 __all__ = ["GROUP_KINDS", "OUTPUTS", "VERDICTS", "COLUMNS", "LIST_COLUMNS", "PROBABILITY_COLUMNS", "UNITS",
-           "DESCRIPTIONS", "ShortlistCut", "ShortlistCuts", "shortlist_cuts", "sample_score", "on_shortlist",
+           "DESCRIPTIONS", "ShortlistCut", "ShortlistCuts", "shortlist_cuts", "membership_decided", "sample_score", "on_shortlist",
            "attribution_seed_sequence", "borderline", "empty_frame", "display_frame", "attribute",
            "shortlist_probability", "refinement_list", "plain_words"]
 
@@ -190,6 +190,35 @@ def cut_text(cut: ShortlistCut | None) -> str:
     return "none" if cut is None else cut.text()
 
 
+def membership_decided(p_meets_all, cut_candidate, band) -> np.ndarray:
+    """Records whose shortlist membership lies outside ``band`` by their verdict alone.
+
+    Against a candidate's key a compound must meet every criterion, so
+    p_on_shortlist <= p_meets_all; against a non-candidate's key every
+    candidate ranks above it, so p_on_shortlist >= p_meets_all. A record whose
+    ``p_meets_all`` lies beyond the band on the side its cut bounds cannot have
+    ``p_on_shortlist`` inside it and need not be sampled.
+
+    Parameters
+    ----------
+    p_meets_all : array_like
+        Probability of meeting every criterion (NaN: never decided).
+    cut_candidate : array_like of object
+        Per record: True (its cut key is a candidate's), False (a non-candidate's)
+        or None (no cut: always on the shortlist; not decided here).
+    band : pair of float
+        The refinement band.
+
+    References
+    ----------
+    Common practice (P(A and B) <= P(A) <= P(A or B)).
+    """
+    lo, hi = sorted(float(x) for x in band)
+    p = np.asarray(p_meets_all, dtype=float)
+    cut = np.asarray(cut_candidate, dtype=object)
+    return ((cut == True) & (p < lo)) | ((cut == False) & (p > hi))  # noqa: E712 (None stays undecided)
+
+
 def sample_score(values: Mapping[str, np.ndarray], ranking_settings: Mapping) -> np.ndarray:
     """The score of each sample: :func:`lamellume.ranking.score_parts` and
     :func:`~lamellume.ranking.weighted_score` of the sample's own values (window part: the
@@ -240,21 +269,34 @@ def empty_frame() -> pd.DataFrame:
     return _typed(None, COLUMNS)
 
 
-def _entry_groups(prep, e: int, kinds, labels, bands, vindex) -> tuple[list, list, list, list]:
-    """Active groups of entry e: column lists, display names, kinds, valley indices (-1: none)."""
+#: Per-record groups: kind -> the draw columns of a record with k valleys.
+_RECORD_COLUMNS = {"dielectric": lambda k: [0], "screening_length": lambda k: [1], "scissor": lambda k: [2],
+                   "model_error": lambda k: [3 + 2 * k, 4 + 2 * k]}
+
+
+def _group_sigmas(prep) -> dict[str, np.ndarray]:
+    """Standard uncertainty behind each group kind: per record for :data:`_RECORD_COLUMNS`
+    kinds, per valley for ``mass`` and ``band_edges`` (a group with 0 carries nothing)."""
+    n = len(prep.ids)
+    return {"dielectric": np.asarray(prep.sig_eps, dtype=float), "screening_length": np.asarray(prep.sig_r0, dtype=float),
+            "scissor": np.asarray(prep.sig_scissor, dtype=float),
+            "model_error": np.full(n, max(prep.sig_model_layers, prep.sig_model_bulk)),
+            "mass": np.asarray(prep.sig_mass, dtype=float), "band_edges": np.asarray(prep.sig_edge, dtype=float)}
+
+
+def _entry_groups(prep, e: int, kinds, labels, bands, vindex, sigmas) -> tuple[list, list, list, list]:
+    """Active groups of entry e: column lists, display names, kinds, valley indices (-1: none);
+    ``sigmas`` from :func:`_group_sigmas`."""
     v0, v1 = int(prep.vstart[e]), int(prep.vstart[e + 1])
     k = v1 - v0
     cols, names, kind_of, valley = [], [], [], []
-    single = {"dielectric": ([0], prep.sig_eps[e]), "screening_length": ([1], prep.sig_r0[e]),
-              "scissor": ([2], prep.sig_scissor[e]),
-              "model_error": ([3 + 2 * k, 4 + 2 * k], max(prep.sig_model_layers, prep.sig_model_bulk))}
     for kind in kinds:
-        if kind in single:
-            col, sig = single[kind]
-            if sig > 0:
-                cols.append(col), names.append(GROUP_KINDS[kind][0]), kind_of.append(kind), valley.append(-1)
+        sig = sigmas[kind]
+        if kind in _RECORD_COLUMNS:
+            if sig[e] > 0:
+                cols.append(_RECORD_COLUMNS[kind](k)), names.append(GROUP_KINDS[kind][0]), kind_of.append(kind)
+                valley.append(-1)
             continue
-        sig = prep.sig_mass if kind == "mass" else prep.sig_edge
         base = 3 if kind == "mass" else 3 + k
         for j in range(k):
             if sig[v0 + j] > 0:
@@ -269,15 +311,13 @@ def _has_groups(prep, kinds) -> np.ndarray:
     """Per entry: whether any input group of ``kinds`` is uncertain (as :func:`_entry_groups` finds them)."""
     n = len(prep.ids)
     out = np.zeros(n, dtype=bool)
-    single = {"dielectric": prep.sig_eps, "screening_length": prep.sig_r0, "scissor": prep.sig_scissor,
-              "model_error": np.full(n, max(prep.sig_model_layers, prep.sig_model_bulk))}
+    sigmas = _group_sigmas(prep)
     owner = np.repeat(np.arange(n), np.diff(prep.vstart))
     for kind in kinds:
-        if kind in single:
-            out |= np.asarray(single[kind], dtype=float) > 0
+        if kind in _RECORD_COLUMNS:
+            out |= sigmas[kind] > 0
         else:
-            sig = np.asarray(prep.sig_mass if kind == "mass" else prep.sig_edge, dtype=float)
-            out |= np.bincount(owner, weights=(sig > 0).astype(float), minlength=n) > 0
+            out |= np.bincount(owner, weights=(sigmas[kind] > 0).astype(float), minlength=n) > 0
     return out
 
 
@@ -332,7 +372,8 @@ def attribute(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping, t
     vt = vt.sort_values(["_o", "valley_index"], kind="stable")
     labels, bands = vt["label"].astype(str).to_numpy(), vt["band"].astype(str).to_numpy()
     vindex = vt["valley_index"].to_numpy(dtype=np.int64)
-    groups = [_entry_groups(prep, e, kinds, labels, bands, vindex) for e in range(len(prep.ids))]
+    sigmas = _group_sigmas(prep)
+    groups = [_entry_groups(prep, e, kinds, labels, bands, vindex, sigmas) for e in range(len(prep.ids))]
     n_groups = np.array([len(g[0]) for g in groups])
 
     # entries with the same number of groups evaluate together: reorder so they are contiguous
