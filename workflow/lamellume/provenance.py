@@ -158,6 +158,25 @@ def code_version(entry: str, library: Path = io.LIBRARY_DIR) -> str:
     return io.canonical_json_hash(parts)[:16]
 
 
+def keldysh_table_build(library: Path = io.LIBRARY_DIR) -> dict:
+    """What decides the numbers of the Rytova-Keldysh table (``keldysh.build_table()`` on its
+    default grid): the source of every library module the build can run (the import closure of
+    ``keldysh``, found as every rule's code inputs are) and the versions of numpy and scipy,
+    whose LAPACK bisection and spline fit compute it. The number of worker processes is left
+    out: the grid points are solved apart, so it never changes a value.
+
+    Returns ``{"key": <hex digest of the rest>, "modules": [...], "numpy": ..., "scipy": ...}``.
+    """
+    from importlib import metadata
+
+    sources = _sources(Path(library))
+    modules = sorted(stage_modules("keldysh", library))
+    parts = {"modules": [f"{m}.py" for m in modules], "numpy": metadata.version("numpy"),
+             "scipy": metadata.version("scipy")}
+    key = io.canonical_json_hash({**parts, "sources": {m: sources[m] for m in modules}})
+    return {"key": key, **parts}
+
+
 def adapter_files(adapter: str | Path, library: Path = io.LIBRARY_DIR) -> list[str]:
     """Source files behind an adapter script: itself, the sibling helpers it imports, every
     library module in their import closure, the data files those modules declare

@@ -67,6 +67,11 @@ def adapter(name, inputs=(), outputs=(), wildcards=()):
     return " ".join(words)
 
 
+def shipped_data(name):
+    """A data file shipped with the workflow (workflow/data/<name>), e.g. the Keldysh table."""
+    return str(Path(workflow.basedir) / "workflow" / "data" / name)
+
+
 def campaign_dir():
     """Campaign folder (absolute when given relative to the working directory)."""
     return Path(config["campaign"])

@@ -1,9 +1,12 @@
-# Stage 0: the Rytova-Keldysh reduced binding table, built once and cached.
+# Stage 0: the Rytova-Keldysh reduced binding table: the shipped one when it matches the code
+# and libraries at hand (see the adapter), else built here once and cached.
 
 
 rule keldysh_table:
     input:
         code=code_files("keldysh_table"),
+        shipped=shipped_data("keldysh_table.npz"),
+        shipped_build=shipped_data("keldysh_table.json"),
     output:
         table="results/cache/keldysh_table.npz",
     log:
@@ -17,6 +20,6 @@ rule keldysh_table:
     shell:
         adapter(
             "keldysh_table",
-            inputs=(),
+            inputs=("shipped", "shipped_build"),
             outputs=("table",),
         )
