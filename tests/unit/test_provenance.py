@@ -44,3 +44,39 @@ def test_closure_follows_imports_transitively_and_ignores_names():
 def test_every_stage_includes_the_package_init():
     for module in provenance.library_modules():
         assert "__init__" in provenance.stage_modules(module)
+
+
+def test_scan_memo_answers_as_a_parse_and_follows_edits(tmp_path, monkeypatch):
+    """The import scans kept in the library's __pycache__ give the same graph as parsing, are
+    used only for the text they were made from, and a damaged memo only means parsing."""
+    import shutil
+
+    from lamellume import io
+
+    monkeypatch.setattr(provenance.sys, "dont_write_bytecode", False)
+    library = tmp_path / "lamellume"
+    shutil.copytree(io.LIBRARY_DIR, library, ignore=shutil.ignore_patterns("__pycache__"))
+    shutil.copytree(io.SCHEMA_DIR, tmp_path / "schemas")
+    memo = library / "__pycache__" / provenance.SCAN_MEMO
+
+    def fresh(parse: bool):
+        """Graph and version as a new process sees them (with or without the parses of this one)."""
+        provenance._sources.cache_clear()
+        provenance._imported_modules.cache_clear()
+        if parse:
+            provenance._SCANNED.clear()
+        return provenance.stage_modules("keldysh", library), provenance.code_version("pipeline", library)
+
+    parsed = fresh(parse=True)
+    assert memo.is_file()
+    with monkeypatch.context() as m:  # the second time from the memo alone: nothing parsed
+        m.setattr(provenance.ast, "parse", lambda *a, **k: pytest.fail("parsed despite the memo"))
+        assert fresh(parse=True) == parsed
+    with open(library / "keldysh.py", "a") as fh:  # an edit that adds an import: seen at once
+        fh.write("\nfrom lamellume import report  # noqa\n")
+    modules, version = fresh(parse=False)
+    assert "report" in modules and version != parsed[1]
+    memo.write_text("{not json")  # damaged: parsed again, same answer
+    assert fresh(parse=True) == (modules, version)
+    provenance._sources.cache_clear()
+    provenance._imported_modules.cache_clear()

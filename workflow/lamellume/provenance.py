@@ -23,6 +23,8 @@ from __future__ import annotations
 
 import ast
 import functools
+import sys
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Iterable, Mapping
 
@@ -31,26 +33,34 @@ from lamellume import io
 PACKAGE = "lamellume"
 
 
-@functools.lru_cache(maxsize=None)
-def _parse(source: str) -> ast.Module:
-    """Syntax tree of a source (parsed once per process: every code version and every
-    rule's code input walks the same library files)."""
-    return ast.parse(source)
+#: Version of what :func:`_scan` records (bump it when the scan changes): part of the memo's key.
+SCAN_FORMAT = 1
+
+#: File of the scan memo inside a library folder's ``__pycache__`` (see :func:`_library_scans`).
+SCAN_MEMO = "lamellume-imports.json"
 
 
-def imported_modules(source: str, local: Iterable[str] = ()) -> set[str]:
-    """Names of the ``lamellume`` modules (and of the ``local`` top-level modules) a source imports.
+@dataclass(frozen=True)
+class Scan:
+    """What the import graph needs of one source: its import statements and declared data files.
 
-    Parameters
-    ----------
-    source : Python source text.
-    local : names of top-level modules living beside the source (adapter helpers such as
-        ``adapter_args``); imports of them are reported as ``"local:<name>"``.
-
-    Returns module names without the package prefix (``"io"``, ``"screen"``); importing the
-    package itself is ``"__init__"``. Every import statement counts, wherever it sits.
+    ``imports`` holds one ``(module, level, names)`` per import statement anywhere in the
+    source: ``import a.b`` gives ``("a.b", 0, None)``, ``from ..a import b, c`` gives
+    ``("a", 2, ("b", "c"))``. ``data_files`` is the module-level ``DATA_FILES`` tuple.
     """
-    return set(_imported_modules(source, frozenset(local)))
+
+    imports: tuple[tuple[str, int, tuple[str, ...] | None], ...]
+    data_files: tuple[str, ...]
+
+    def to_json(self) -> dict:
+        return {"imports": [[m, level, list(names) if names is not None else None] for m, level, names in self.imports],
+                "data_files": list(self.data_files)}
+
+    @classmethod
+    def from_json(cls, entry: dict) -> "Scan":
+        imports = tuple((str(m), int(level), tuple(str(n) for n in names) if names is not None else None)
+                        for m, level, names in entry["imports"])
+        return cls(imports, tuple(str(name) for name in entry["data_files"]))
 
 
 def _statements(tree: ast.AST) -> Iterable[ast.AST]:
@@ -68,46 +78,78 @@ def _statements(tree: ast.AST) -> Iterable[ast.AST]:
                      if isinstance(child, (ast.stmt, ast.excepthandler, ast.match_case)))
 
 
+#: Scans by source text: filled by :func:`_scan` and, from the on-disk memo, by :func:`_library_scans`.
+_SCANNED: dict[str, Scan] = {}
+
+
+def _scan(source: str) -> Scan:
+    """The :class:`Scan` of a source (parsed once per process unless the memo holds it)."""
+    scan = _SCANNED.get(source)
+    if scan is None:
+        tree = ast.parse(source)
+        imports = []
+        for node in _statements(tree):
+            if isinstance(node, ast.Import):
+                imports += [(alias.name, 0, None) for alias in node.names]
+            elif isinstance(node, ast.ImportFrom):
+                imports.append((node.module or "", node.level, tuple(alias.name for alias in node.names)))
+        data_files: tuple[str, ...] = ()
+        for node in tree.body:
+            if isinstance(node, ast.Assign) and any(getattr(t, "id", None) == "DATA_FILES" for t in node.targets):
+                data_files = tuple(str(name) for name in ast.literal_eval(node.value))
+                break
+        scan = _SCANNED[source] = Scan(tuple(imports), data_files)
+    return scan
+
+
+def imported_modules(source: str, local: Iterable[str] = ()) -> set[str]:
+    """Names of the ``lamellume`` modules (and of the ``local`` top-level modules) a source imports.
+
+    Parameters
+    ----------
+    source : Python source text.
+    local : names of top-level modules living beside the source (adapter helpers such as
+        ``adapter_args``); imports of them are reported as ``"local:<name>"``.
+
+    Returns module names without the package prefix (``"io"``, ``"screen"``); importing the
+    package itself is ``"__init__"``. Every import statement counts, wherever it sits.
+    """
+    return set(_imported_modules(source, frozenset(local)))
+
+
 @functools.lru_cache(maxsize=None)
 def _imported_modules(source: str, local: frozenset[str]) -> frozenset[str]:
     found: set[str] = set()
-    for node in _statements(_parse(source)):
-        if isinstance(node, ast.Import):
-            for alias in node.names:
-                parts = alias.name.split(".")
-                if parts[0] == PACKAGE:
-                    found.add("__init__")
-                    if len(parts) > 1:
-                        found.add(parts[1])
-                elif alias.name in local:
-                    found.add(f"local:{alias.name}")
-        elif isinstance(node, ast.ImportFrom):
-            module = node.module or ""
-            parts = module.split(".") if module else []
-            if node.level:  # relative import inside the package
-                found.add("__init__")
-                if parts:
-                    found.add(parts[0])
-                else:
-                    found.update(alias.name for alias in node.names)
-            elif parts and parts[0] == PACKAGE:
+    for module, level, names in _scan(source).imports:
+        parts = module.split(".") if module else []
+        if names is None:  # import a.b.c
+            if parts[0] == PACKAGE:
                 found.add("__init__")
                 if len(parts) > 1:
                     found.add(parts[1])
-                else:  # from lamellume import a, b
-                    found.update(alias.name for alias in node.names)
             elif module in local:
                 found.add(f"local:{module}")
+        elif level:  # relative import inside the package
+            found.add("__init__")
+            if parts:
+                found.add(parts[0])
+            else:
+                found.update(names)
+        elif parts and parts[0] == PACKAGE:
+            found.add("__init__")
+            if len(parts) > 1:
+                found.add(parts[1])
+            else:  # from lamellume import a, b
+                found.update(names)
+        elif module in local:
+            found.add(f"local:{module}")
     return frozenset(found)
 
 
 def declared_data_files(source: str) -> list[str]:
     """The module-level ``DATA_FILES`` tuple of a source (files the module reads at run time,
     relative to the library folder, e.g. the page's templates), read without importing it."""
-    for node in _parse(source).body:
-        if isinstance(node, ast.Assign) and any(getattr(t, "id", None) == "DATA_FILES" for t in node.targets):
-            return [str(name) for name in ast.literal_eval(node.value)]
-    return []
+    return list(_scan(source).data_files)
 
 
 def module_closure(entry: str, sources: Mapping[str, str], local: Iterable[str] = ()) -> frozenset[str]:
@@ -130,7 +172,37 @@ def module_closure(entry: str, sources: Mapping[str, str], local: Iterable[str] 
 
 @functools.cache
 def _sources(library: Path) -> dict[str, str]:
-    return io.library_sources(library)
+    sources = io.library_sources(library)
+    _library_scans(library, sources)
+    return sources
+
+
+def _library_scans(library: Path, sources: Mapping[str, str]) -> None:
+    """Fill the scans of a library's modules from their memo, keyed by content.
+
+    Parsing the library costs about 0.35 s CPU, paid by Snakemake on every run (the rules'
+    code inputs) and by every job that stamps a code version. The scans are therefore
+    kept, as Python keeps bytecode, in the library's ``__pycache__`` folder
+    (:data:`SCAN_MEMO`): one entry per module, keyed by a SHA-256 of the scan format and
+    the module's text, so an entry is used only for the very text it was made from. The
+    memo is rewritten when a module was parsed (not when Python is told not to write
+    bytecode, nor where the folder is read-only); a missing or unreadable memo means
+    parsing, never a different answer.
+    """
+    memo_path = Path(library) / "__pycache__" / SCAN_MEMO
+    memo = io.read_json_or_none(memo_path)
+    entries = memo.get("entries", {}) if isinstance(memo, dict) else {}
+    kept = {}
+    for text in sources.values():
+        key = io.sha256_bytes(f"{SCAN_FORMAT}\0{text}".encode("utf-8"))
+        if text not in _SCANNED and key in entries:
+            try:
+                _SCANNED[text] = Scan.from_json(entries[key])
+            except (KeyError, TypeError, ValueError):  # a damaged entry: parsed instead
+                pass
+        kept[key] = _scan(text).to_json()
+    if kept != entries and not sys.dont_write_bytecode:
+        io.write_json_quietly({"format": SCAN_FORMAT, "entries": kept}, memo_path)
 
 
 def library_modules(library: Path = io.LIBRARY_DIR) -> list[str]:
