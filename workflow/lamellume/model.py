@@ -170,7 +170,10 @@ class ModelSettings:
 
     ``stack`` and ``bulk`` name the quantities to compute (default: all of
     :data:`STACK_QUANTITIES` / :data:`BULK_QUANTITIES`); ``principal_masses``
-    adds the principal masses and angle of the bright pair.
+    adds the principal masses and angle of the bright pair; ``indirect_gap``
+    the gap character's indirect gap, direct margin and extrema labels
+    (:func:`lamellume.layers.gap_character` ``indirect``; the dark pair needs
+    them whatever this says).
     """
 
     few_layer_r0_scaling: bool = True
@@ -178,6 +181,7 @@ class ModelSettings:
     stack: frozenset = STACK_QUANTITIES
     bulk: frozenset = BULK_QUANTITIES
     principal_masses: bool = True
+    indirect_gap: bool = True
 
     @classmethod
     def from_config(cls, settings, **wanted) -> "ModelSettings":
@@ -209,7 +213,8 @@ class ModelResult:
 
     ``thermal_shift_ev`` (n,): change of every gap from the calculation's
     temperature to the operating one (0 where no thermal form is given or no
-    temperature was asked for). ``gap``: the :class:`lamellume.layers.GapCharacter` (n, L); ``pairs``:
+    temperature was asked for). ``gap``: the :class:`lamellume.layers.GapCharacter` (n, L; its
+    indirect fields None unless ``ModelSettings.indirect_gap``); ``pairs``:
     :class:`PairMasses` per pair name of :data:`PAIRS`; ``r0_monolayer_angstrom``
     (n,); ``stack``: (n, F, E) arrays of the few-layer counts; ``bulk``: (n,)
     arrays of the bulk crystal.
@@ -328,10 +333,11 @@ def evaluate(inputs: ModelInputs, settings: ModelSettings, table: keldysh.Keldys
         # applied where the scissor is, so every later step sees gaps at the operating temperature.
         thermal = gapshift.thermal_gap_change_ev(inputs.gap_thermal, inputs.temperature_k)
         inputs = replace(inputs, scissor_ev=np.asarray(inputs.scissor_ev, dtype=float) + thermal, gap_thermal=None)
-    gap = layer_model.gap_character(inputs.owner, inputs.label_code, inputs.is_conduction, inputs.edges_ev,
-                                    scissor_ev=inputs.scissor_ev, n_compounds=n)
-    vt = valley_table(inputs)
     want_dark = "dark_binding_ev" in settings.stack or "dark_binding_ev" in settings.bulk
+    gap = layer_model.gap_character(inputs.owner, inputs.label_code, inputs.is_conduction, inputs.edges_ev,
+                                    scissor_ev=inputs.scissor_ev, n_compounds=n,
+                                    indirect=settings.indirect_gap or want_dark)
+    vt = valley_table(inputs)
     pairs = {"bright": pair_masses(vt, gap.direct_label, gap.direct_label, principal=settings.principal_masses,
                                    perpendicular=bool(settings.bulk & _NEEDS_BULK_MODEL))}
     if want_dark:
