@@ -382,9 +382,12 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
         lev = excitons.lowest_excitons(c, energy, pr.bright, n)
         pick = np.maximum(lev.bright_pair, 0)
         found = lev.bright_pair >= 0
-        # centre-of-mass masses of the selected pairs only (the weights and the bright mass need no other)
-        total = {key: excitons.pair_total_mass_me(pr, inputs.inv_mass, np.maximum(idx, 0)) if len(c)
-                 else np.full(idx.shape, np.nan) for key, idx in (("bright", lev.bright_pair), ("dark", lev.dark_pair))}
+        # centre-of-mass masses of the selected pairs only (the weights and the bright mass need no other),
+        # the bright and the dark ones in one call
+        both = np.stack([lev.bright_pair, lev.dark_pair])
+        both = excitons.pair_total_mass_me(pr, inputs.inv_mass, np.maximum(both, 0)) if len(c) \
+            else np.full(both.shape, np.nan)
+        total = {"bright": both[0], "dark": both[1]}
         out["bright_mass_me"] = np.where(found, total["bright"], np.nan)
         if rate is None:
             out["radiative_rate_0_per_s"] = np.full(lev.bright_ev.shape, np.nan)
@@ -422,10 +425,17 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
         * f_lay[c][:, None, None]
     # Full compensation: the quasiparticle gap shrinks with the surroundings' screening exactly as the
     # binding falls, so the bright exciton stays where it is in the surroundings the edges belong to.
+    # Where those surroundings are configured ones (suspended, as a rule) their binding is eb's, the
+    # same function of the same numbers; only the others are looked up again.
     kap_ref = np.broadcast_to(np.asarray(inputs.edge_kappa, dtype=float), (n,))[c]
-    eb_ref = keldysh.keldysh_binding_ev(np.broadcast_to(mu[:, None], shape[:2]), r0[:, :, 0],
-                                        np.broadcast_to(kap_ref[:, None], shape[:2]), table, state="1s") \
-        * f_lay[c][:, None]
+    same = kap_ref[:, None] == kappa[None, :]
+    eb_ref = eb[np.arange(len(c)), :, np.argmax(same, axis=1)] if kappa.size else np.empty(shape[:2])
+    other = ~same.any(axis=1)
+    if other.any():
+        eb_ref[other] = keldysh.keldysh_binding_ev(
+            np.broadcast_to(mu[other][:, None], (int(other.sum()), nl.size)), r0[other][:, :, 0],
+            np.broadcast_to(kap_ref[other][:, None], (int(other.sum()), nl.size)), table, state="1s") \
+            * f_lay[c][other][:, None]
     rate = None
     if settings.stack & {"radiative_rate_0_per_s"}:
         # Radiative-rate proxy of every pair's exciton (lamellume.brightness): Kane energy of the
