@@ -419,9 +419,8 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     nl = lay[:-1].astype(float)
     scale = nl if settings.few_layer_r0_scaling else np.ones_like(nl)
     shape = (len(c), nl.size, kappa.size)
-    r0 = np.broadcast_to(r0_1[c][:, None, None] * scale[None, :, None], shape)
-    eb = keldysh.keldysh_binding_ev(np.broadcast_to(mu[:, None, None], shape), r0,
-                                    np.broadcast_to(kappa[None, None, :], shape), table, state="1s") \
+    r0 = r0_1[c][:, None, None] * scale[None, :, None]   # (P, F, 1): the arrays broadcast to shape in the call
+    eb = keldysh.keldysh_binding_ev(mu[:, None, None], r0, kappa[None, None, :], table, state="1s") \
         * f_lay[c][:, None, None]
     # Full compensation: the quasiparticle gap shrinks with the surroundings' screening exactly as the
     # binding falls, so the bright exciton stays where it is in the surroundings the edges belong to.
@@ -440,8 +439,7 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     if settings.stack & {"radiative_rate_0_per_s"}:
         # Radiative-rate proxy of every pair's exciton (lamellume.brightness): Kane energy of the
         # pair's gap and reduced mass, |phi(0)|^2 from the Rytova-Keldysh rms radius, index sqrt(kappa).
-        radius = keldysh.keldysh_radius_angstrom(np.broadcast_to(mu[:, None, None], shape), r0,
-                                                 np.broadcast_to(kappa[None, None, :], shape), table, state="1s")
+        radius = keldysh.keldysh_radius_angstrom(mu[:, None, None], r0, kappa[None, None, :], table, state="1s")
         with np.errstate(invalid="ignore", divide="ignore"):
             rate = brightness.intrinsic_rate_per_s(
                 brightness.kane_energy_ev(gaps[:, :-1, None], mu[:, None, None]), gaps[:, :-1, None] - eb,
@@ -520,7 +518,8 @@ def _stack(inputs: ModelInputs, settings: ModelSettings, table, gap, pairs, r0_1
     if want("kappa"):
         out["kappa"] = kap
     if want("binding_ev") or want("optical_gap_ev") or want("emission_nm"):
-        out["binding_ev"] = keldysh.keldysh_binding_ev(mu, r0, kap, table, state="1s") \
+        out["binding_ev"] = keldysh.keldysh_binding_ev(pairs["bright"].mu_me[:, :-1, None], r0_1[:, None, None]
+                                                       * scale[None, :, None], kappa[None, None, :], table, state="1s") \
             * np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (inputs.n_compounds,))[:, None, None]
     for state in ("2s", "3s"):
         if want(f"binding_{state}_ev"):
