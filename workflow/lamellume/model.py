@@ -474,7 +474,10 @@ def _bulk(inputs: ModelInputs, settings: ModelSettings, gap, pairs) -> dict[str,
     want = settings.bulk.__contains__
     eps_bulk = np.asarray(inputs.eps_bulk, dtype=float)
     mu = pairs["bright"].mu_me[:, -1]
-    out: dict[str, np.ndarray] = {"bulk_binding_ev": hydrogenic.binding_3d_ev(mu, eps_bulk)}
+    # the bulk model's own error (binding_factor_bulk, 1 for the point estimate) on the 3D hydrogenic
+    # binding too: it is the bulk binding the Monte Carlo reports (bulk_binding_ev_p16/_p50/_p84)
+    out: dict[str, np.ndarray] = {"bulk_binding_ev": hydrogenic.binding_3d_ev(mu, eps_bulk)
+                                  * inputs.binding_factor_bulk}
     if settings.bulk & _NEEDS_BULK_MODEL:
         mperp = pairs["bright"].mu_perp_me
         mperp = np.full(mu.shape, np.nan) if mperp is None else mperp[:, -1]
