@@ -557,8 +557,11 @@ def test_brightness_words_explain_each_verdict(settings, row, words):
 
 def test_methods_describe_the_exciton_level_verdict_and_model_error(settings):
     page = _page(settings)
+    # issue 17 "Done when": the page's method section describes the exciton-level verdict, the 3D bulk
+    # survival, the radius convention, the thermal shift and the model error
     for words in ("Which exciton is lowest", "Thermal bright fraction", "Model error", "full compensation",
-                  "emission is at the calculation"):
+                  "emission is at the calculation", "Exciton radius (one convention)",
+                  "d = 3 with a volume density", "Edwards–Sienko", "Varshni", "O'Donnell and Chen"):
         assert words in page, words
 def _refinement_rows(ids):
     from lamellume import refinement

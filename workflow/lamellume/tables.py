@@ -476,7 +476,8 @@ MC_QUANTITIES = {
     "target_binding_ev": "Rytova-Keldysh binding at the target layer count in the ranking environment",
     "target_optical_gap_ev": "optical gap (direct gap - binding) at the target layer count",
     "target_emission_nm": "emission wavelength at the target layer count",
-    "bulk_binding_ev": "bulk 3D hydrogenic binding (geometric-mean dielectric constant)",
+    "bulk_binding_ev": "bulk 3D hydrogenic binding (geometric-mean dielectric constant) with the bulk model's own "
+                       "error (excitons.model_rel_unc_bulk)",
 }
 
 #: Families of columns: regular expression -> (dtype, unit, description with {groups}).
