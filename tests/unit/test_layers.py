@@ -320,6 +320,23 @@ def test_batch_equals_one_compound_at_a_time(seed):
             g.is_direct[ok], g.direct_gap_ev[ok] <= g.fundamental_gap_ev[ok] + 1e-9)
 
 
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_without_indirect_fields_the_direct_ones_are_unchanged(seed):
+    # the Monte Carlo's indirect=False: the fields it keeps against the brute-force search
+    # (independent reference, _brute_force) and equal to those of the full call
+    owner, label, cond, edge, scissor = _random_campaign(seed)
+    n_comp = scissor.size
+    full = L.gap_character(owner, label, cond, edge, scissor_ev=scissor, n_compounds=n_comp)
+    part = L.gap_character(owner, label, cond, edge, scissor_ev=scissor, n_compounds=n_comp, indirect=False)
+    for name in ("vbm_label", "cbm_label", "indirect_gap_ev", "direct_margin_ev"):
+        assert getattr(part, name) is None, name
+    for name in ("vbm_ev", "cbm_ev", "fundamental_gap_ev", "is_direct", "direct_gap_ev", "direct_label", "complete"):
+        np.testing.assert_array_equal(getattr(part, name), getattr(full, name), err_msg=name)
+    ref = _brute_force(owner, label, cond, edge, scissor, n_comp)
+    np.testing.assert_allclose(part.fundamental_gap_ev, ref["fund"], atol=1e-13)
+    np.testing.assert_allclose(part.direct_gap_ev, ref["direct"], atol=1e-13)
+
+
 @pytest.mark.parametrize("shift_ev", [-3.0, 0.37, 10.0])
 def test_character_invariant_under_common_energy_shift(shift_ev):
     # physics: only energy differences matter (common practice)

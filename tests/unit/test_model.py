@@ -106,6 +106,17 @@ def test_exciton_level_in_the_2d_hydrogen_limit(table):
     np.testing.assert_allclose(res.bulk["dark_weight"], [2 * 3.5 ** 1.5])
 
 
+@pytest.mark.parametrize("edge_kappa", [2.0, 3.0])
+def test_compensated_gap_keeps_the_exciton_of_the_edges_surroundings(table, edge_kappa):
+    # Full compensation: in every surroundings the compensated optical gap is the bright exciton of the
+    # surroundings the edges belong to; r0 -> 0 gives 2D hydrogen there, E_b = 4 Ry mu / kappa^2 (Yang et
+    # al., Phys. Rev. A 43, 1186 (1991)), mu = 0.25 (by hand). kappa 2.0 is one of the configured
+    # surroundings, 3.0 is not (both ways of finding the reference binding).
+    res = model.evaluate(replace(_three_valley_inputs(1e-6), edge_kappa=edge_kappa), model.ModelSettings(), table)
+    expected = 2.0 - 4 * RY_EV * 0.25 / edge_kappa**2
+    np.testing.assert_allclose(res.stack["optical_gap_compensated_ev"][0, 0], [expected, expected], rtol=1e-5)
+
+
 def test_binding_factor_scales_every_layer_binding(table):
     base = model.evaluate(_three_valley_inputs(30.0), model.ModelSettings(), table)
     scaled = model.evaluate(_three_valley_inputs(30.0, factor=1.2), model.ModelSettings(), table)

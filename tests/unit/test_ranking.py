@@ -197,3 +197,26 @@ def test_ranks_above_follows_the_order_rank_sorts_by():
                                              ordered["entry_id"].iloc[i], bool(other.iloc[1]), float(other.iloc[2]),
                                              other.iloc[0]) for i in range(n)])
         np.testing.assert_array_equal(mine, np.arange(n) < j)
+
+
+def test_brightness_proxy_breaks_ties_but_never_gates():
+    # Issue 18: the radiative-rate proxy is a tie-breaker in the score, not a criterion. Two compounds
+    # alike but for their intrinsic rate (2e12 and 2e9 s^-1): both meet every criterion, the brighter
+    # ranks first, and the score differs by the brightness weight times the part difference, where each
+    # part is log10(proxy / 1e8 s^-1) / 2 clipped to [0, 1] (README "How compounds are ranked").
+    settings = {**SETTINGS, "ranking": {**SETTINGS["ranking"],
+                                        "weights": {"binding": 0.3, "margin": 0.3, "window": 0.3, "brightness": 0.1}}}
+    long, wide = tables([("dim", "direct", 0.2, 0.1, 750.0), ("lit", "direct", 0.2, 0.1, 750.0)])
+    long.loc[long["entry_id"] == "dim", "radiative_rate_0_per_s"] = 2.0e9
+    long = ranking.add_survival(long, wide, settings)
+    r = ranking.rank(long, wide, settings)
+    assert list(r["entry_id"]) == ["lit", "dim"] and r["meets_all_criteria"].all()
+    proxy = r.set_index("entry_id")["target_brightness_proxy_per_s"]
+    assert proxy["lit"] / proxy["dim"] == pytest.approx(1000.0, rel=1e-12)   # linear in Gamma_0 (Andreani 1991)
+    part = np.clip(np.log10(proxy / 1e8) / 2.0, 0.0, 1.0)
+    s = r.set_index("entry_id")["score"]
+    assert s["lit"] - s["dim"] == pytest.approx(0.1 * (part["lit"] - part["dim"]), rel=1e-9)
+    # a vanishing proxy only zeroes its part: every criterion still holds
+    long.loc[:, "radiative_rate_0_per_s"] = 1.0
+    r = ranking.rank(ranking.add_survival(long, wide, settings), wide, settings)
+    assert r["meets_all_criteria"].all() and (r["score_brightness"] == 0.0).all()

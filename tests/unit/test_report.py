@@ -557,8 +557,11 @@ def test_brightness_words_explain_each_verdict(settings, row, words):
 
 def test_methods_describe_the_exciton_level_verdict_and_model_error(settings):
     page = _page(settings)
+    # issue 17 "Done when": the page's method section describes the exciton-level verdict, the 3D bulk
+    # survival, the radius convention, the thermal shift and the model error
     for words in ("Which exciton is lowest", "Thermal bright fraction", "Model error", "full compensation",
-                  "emission is at the calculation"):
+                  "emission is at the calculation", "Exciton radius (one convention)",
+                  "d = 3 with a volume density", "Edwards–Sienko", "Varshni", "O'Donnell and Chen"):
         assert words in page, words
 def _refinement_rows(ids):
     from lamellume import refinement
@@ -666,3 +669,47 @@ def test_overview_counts_say_one_candidate_in_the_singular(settings):
     page = report.build_html(one, _long(one, settings), _rejects(), MANIFEST, report.empty_changes(), settings)
     tiles = re.findall(r'<span class="num">(\d+)</span><span class="what">([^<]+)</span>', page)
     assert ("1", "candidate") in tiles and ("3", "screened") in tiles, tiles
+
+
+def test_overview_says_why_each_threshold(settings):
+    # Issue 18: the page gives each criterion's reason in the experiment's terms, from the configured values.
+    page = _page(settings)
+    overview = page[page.index('<section id="overview"'):page.index('<section id="recompute"')]
+    # 50 meV at 300 K: 0.05 eV / kT = 1.93 kT, exp(-1.93) = 14 % (Boltzmann; scipy.constants)
+    x = 0.05 * sc.e / (sc.k * 300.0)
+    assert f"about {x:.1f} kT at 300 K" in overview and f"about {np.exp(-x) * 100:.0f} %" in overview
+    assert "exciton-plasma (Saha) crossover" in overview
+    # 550-1000 nm: above the 532 nm green line (common practice), below silicon's cut-off
+    # hc / 1.12 eV = 1107 nm (silicon gap 1.12 eV at 300 K, Sze's handbook; scipy.constants)
+    cutoff = sc.h * sc.c / (1.12 * sc.e) * 1e9
+    assert "green (532 nm)" in overview and f"about {round(cutoff, -2):.0f} nm" in overview
+    assert "within a silicon detector" in overview
+    telecom = {**settings, "ranking": {**settings["ranking"], "window_nm": [1200, 1600]}}
+    page = _page(telecom)
+    assert "beyond a silicon detector" in page[page.index('<section id="overview"'):]
+
+
+def test_methods_state_the_brightness_proxy_and_cautions_what_the_model_leaves_out(settings):
+    # Issue 18: the proxy's published steps and assumptions on the page; the cautions name what the
+    # model does not include (strain, charged excitons, defects, spin or parity selection).
+    page = _page(settings)
+    methods = page[page.index('<section id="methods"'):page.index('<section id="cautions"')]
+    for words in ("Brightness proxy", "Kane 1957", "Andreani, Tassone and Bassani 1991", "Assumed: in-plane dipole",
+                  "no non-radiative decay", "Solid State Commun. 77, 641 (1991)"):
+        assert words in methods, words
+    # the brightness part as README "How compounds are ranked" defines it: log10(proxy / 1e8 s^-1) / 2
+    assert "(proxy / 10<sup>8</sup> s<sup>\u22121</sup>) / 2, 0, 1)" in methods
+    cautions = page[page.index('<section id="cautions"'):]
+    for words in ("strain", "charged excitons (trions)", "defect", "spin or parity selection", "non-radiative"):
+        assert words in cautions, words
+
+
+def test_card_states_the_brightness_proxy_as_a_model_estimate(settings):
+    # Issue 18: the card gives the compound's radiative-rate proxy (thermal rate x bright fraction) and the
+    # intrinsic lifetime 1 / Gamma_0: 1 / 5e12 s^-1 = 0.2 ps (by hand), as an estimate, not a lifetime.
+    row = {"entry_id": "x", "target_brightness_proxy_per_s": 2.06e9, "target_radiative_rate_0_per_s": 5.0e12}
+    text = " ".join(report._reasons(row, settings))
+    assert "about 2.1e+09 s\u207b\u00b9" in text and "0.2 ps" in text
+    assert "model estimate" in text and "not a measured lifetime" in text
+    without = " ".join(report._reasons({"entry_id": "x"}, settings))
+    assert "Brightness proxy" not in without

@@ -185,3 +185,18 @@ def test_survival_columns_keep_2d_and_3d_apart():
     s = _saha_3d_si_per_cm3(0.05, 0.25, 300.0)
     x = brentq(lambda x: 1e17 * (1 - x) ** 2 - s * x, 0.0, 1.0, xtol=1e-300, rtol=1e-15)
     np.testing.assert_allclose(cols["bound_fraction_3d"][2], x, rtol=1e-7)
+
+
+@pytest.mark.parametrize("density, percent", [(1e12, 77), (1e10, 12)])
+def test_three_kt_bound_fractions_quoted_in_the_config_docs(density, percent):
+    # The reason given for ranking.min_binding_over_kt (schema and config/README.md): a binding of 3 kT
+    # keeps about 77 % of pairs bound at 1e12 cm^-2 and 300 K (reduced mass 0.25 m_e) but about 12 % at
+    # 1e10 cm^-2. Independent: the 2D Saha law n (1 - x)^2 = S x solved in SI with scipy.constants and
+    # brentq (Saha balance; S = mu m_e kT / (2 pi hbar^2) exp(-E_b / kT)).
+    from scipy import constants as c
+
+    kt_j = c.k * 300.0
+    s = 0.25 * c.m_e * kt_j / (2 * np.pi * c.hbar**2) * np.exp(-3.0) * 1e-4
+    x = brentq(lambda v: density * (1 - v) ** 2 - s * v, 0.0, 1.0, xtol=1e-15)
+    assert round(100 * x) == percent
+    np.testing.assert_allclose(bound_fraction_2d(3 * kt_j / c.e, 0.25, 300.0, density), x, rtol=1e-6)

@@ -347,9 +347,11 @@ def test_eps_stays_at_least_one(settings, table):
 
 
 def test_model_error_alone_spreads_the_binding(settings, table):
-    # Only the binding model's own error: every input uncertainty zero. The target binding is the
-    # nominal one times a median-1 log-normal factor with relative std u, so its coefficient of
-    # variation is u (Johnson, Kotz and Balakrishnan (1994), ch. 14: CV = sqrt(exp(sigma^2) - 1)).
+    # Only the binding models' own error: every input uncertainty zero. The target (Rytova-Keldysh)
+    # binding is the nominal one times a median-1 log-normal factor with relative std u_layers, the
+    # bulk binding the nominal one times an independent factor with u_bulk, so their coefficients of
+    # variation are u_layers and u_bulk (Johnson, Kotz and Balakrishnan (1994), ch. 14:
+    # CV = sqrt(exp(sigma^2) - 1)) and their medians the nominal values.
     entries, valleys = _synthetic(["model-err"], m_e=0.4, m_h=0.6, r0=30.0)
     for col in ("eps_rel_unc", "r0_rel_unc"):
         entries[col] = 0.0
@@ -357,11 +359,21 @@ def test_model_error_alone_spreads_the_binding(settings, table):
     valleys["edge_unc_ev"] = 0.0
     s = copy.deepcopy(settings)
     s["uncertainty"].update(ZERO_DEFAULTS)
-    s["excitons"].update({"model_rel_unc_layers": 0.1, "model_rel_unc_bulk": 0.0})
+    s["excitons"].update(NO_MODEL_ERROR)
+    flat = U.propagate_samples(entries, valleys, s, table, samples=50, seed=3)
+    assert np.ptp(flat["target_binding_ev"][0]) == 0.0 and np.ptp(flat["bulk_binding_ev"][0]) == 0.0
+    # without model error the bulk binding is the 3D hydrogenic one, Ry mu / eps^2 (mu = 0.24 by hand;
+    # Ry from scipy.constants, CODATA, not through lamellume.units)
+    from scipy import constants as sc
+    ry_ev = sc.value("Rydberg constant times hc in eV")
+    np.testing.assert_allclose(flat["bulk_binding_ev"][0, 0], ry_ev * 0.24 / 10.0**2, rtol=1e-12)
+    s["excitons"].update({"model_rel_unc_layers": 0.1, "model_rel_unc_bulk": 0.2})
     out = U.propagate_samples(entries, valleys, s, table, samples=40_000, seed=3)
-    eb = out["target_binding_ev"][0]
+    eb, bulk = out["target_binding_ev"][0], out["bulk_binding_ev"][0]
     assert np.std(eb) / np.mean(eb) == pytest.approx(0.1, rel=0.03)
-    assert np.median(eb) == pytest.approx(np.median(out["target_binding_ev"][0]), rel=1e-12)
-    s["excitons"]["model_rel_unc_layers"] = 0.0
-    flat = U.propagate_samples(entries, valleys, s, table, samples=50, seed=3)["target_binding_ev"][0]
-    assert np.ptp(flat) == 0.0
+    assert np.std(bulk) / np.mean(bulk) == pytest.approx(0.2, rel=0.03)
+    # medians: standard error of a sample median 1.25 sigma / sqrt(N), about 6e-4 and 1.2e-3 here
+    assert np.median(eb) == pytest.approx(flat["target_binding_ev"][0, 0], rel=4e-3)
+    assert np.median(bulk) == pytest.approx(flat["bulk_binding_ev"][0, 0], rel=7e-3)
+    # two independent factors: sample correlation within 4 standard errors (1 / sqrt(N)) of zero
+    assert abs(np.corrcoef(np.log(eb), np.log(bulk))[0, 1]) < 4 / np.sqrt(40_000)

@@ -314,13 +314,15 @@ def pair_total_mass_me(pairs: Pairs, inverse_mass, index=None):
         need = np.zeros(cond.shape, dtype=bool)
         need[index] = True
         sel = np.flatnonzero(need)
-        at = np.cumsum(need) - 1
-        return pair_total_mass_me(Pairs(*(np.asarray(f)[sel] for f in pairs)), w)[at[index]]
+        at = np.empty(cond.shape, dtype=np.intp)
+        at[sel] = np.arange(sel.size)
+        cond, val = cond[sel], val[sel]
     # each valley's mass tensor is inverted where a pair needs it (the same numbers as inverting all first)
     total = _mass_tensor(w[cond]) + _mass_tensor(w[val])
     det = total[:, 0, 0] * total[:, 1, 1] - total[:, 0, 1] * total[:, 1, 0]
     with np.errstate(invalid="ignore"):
-        return np.sqrt(det)
+        mass = np.sqrt(det)
+    return mass if index is None else mass[at[index]]
 
 
 def _mass_tensor(w):

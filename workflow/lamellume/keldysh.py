@@ -892,8 +892,11 @@ def keldysh_binding_ev(mu_me, r0_angstrom, kappa, table, state="1s"):
     .. [1] L. V. Keldysh, JETP Lett. 29, 658 (1979).
     .. [2] P. Cudazzo, I. V. Tokatly, A. Rubio, Phys. Rev. B 84, 085406 (2011).
     """
-    s, e_star, _ = _state_scales(mu_me, r0_angstrom, kappa)
-    return e_star * table.binding_ratio(s, state)
+    mu = np.asarray(mu_me, dtype=float)
+    kap = np.asarray(kappa, dtype=float)
+    # the scales of _state_scales without the length scale (not needed here); arrays broadcast late, so
+    # products of the compact inputs are formed once and only the last operation runs over every point
+    return RYDBERG_EV * mu / kap**2 * table.binding_ratio(screening_parameter(mu, r0_angstrom, kap), state)
 
 
 def keldysh_radius_angstrom(mu_me, r0_angstrom, kappa, table, state="1s"):

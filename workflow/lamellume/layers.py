@@ -345,7 +345,7 @@ def _first_index(mask, c_start, n_groups):
 
 
 def gap_character(owner, label_code, is_conduction, edge_ev, scissor_ev=None,
-                  n_compounds: int | None = None) -> GapCharacter:
+                  n_compounds: int | None = None, indirect: bool = True) -> GapCharacter:
     """Band-gap extrema and direct/indirect character per compound and layer count.
 
     Valleys are grouped by (compound, label); per group the highest valence and
@@ -385,6 +385,11 @@ def gap_character(owner, label_code, is_conduction, edge_ev, scissor_ev=None,
     n_compounds : int, optional
         Number of compounds (default ``owner.max() + 1``); compounds without
         valleys get NaN rows.
+    indirect : bool, optional
+        Also the lowest indirect gap, the direct margin and the extrema labels
+        (default). False leaves ``vbm_label``, ``cbm_label``,
+        ``indirect_gap_ev`` and ``direct_margin_ev`` None (the Monte Carlo
+        reads none of them); every other field is the same either way.
 
     Returns
     -------
@@ -461,6 +466,29 @@ def gap_character(owner, label_code, is_conduction, edge_ev, scissor_ev=None,
 
     v1 = np.maximum.reduceat(v_g, c_start, axis=0)
     c1 = np.minimum.reduceat(c_g, c_start, axis=0)
+    tol = DEGENERACY_TOL_EV
+    with np.errstate(invalid="ignore"):
+        d_g = c_g - v_g  # +inf where either band is absent at that label
+    dmin = np.minimum.reduceat(d_g, c_start, axis=0)
+    d_lab = g_label_ext[_first_index(np.isfinite(d_g) & (d_g <= dmin[g2c] + tol),
+                                     c_start, n_g)]
+    comp_ok = np.isfinite(v1) & np.isfinite(c1)
+    fgap = c1 - v1
+    direct = comp_ok & np.isfinite(dmin) & (dmin <= fgap + tol)
+
+    def fin(a):
+        return np.where(np.isfinite(a) & comp_ok, a, np.nan)
+
+    vbm[comp] = np.where(np.isfinite(v1), v1, np.nan)
+    cbm[comp] = np.where(np.isfinite(c1), c1, np.nan)
+    fund[comp] = fin(fgap)
+    dgap[comp] = fin(dmin)
+    dlab[comp] = np.where(np.isfinite(dmin) & comp_ok, d_lab, NO_LABEL)
+    is_direct[comp] = direct
+    complete[comp] = comp_ok
+    if not indirect:
+        return GapCharacter(vbm, None, cbm, None, fund, is_direct, dgap, dlab, None, None, complete)
+
     # best labels (smallest code on exact ties) for the indirect search
     lv1 = g_label_ext[_first_index(v_g == v1[g2c], c_start, n_g)]
     lc1 = g_label_ext[_first_index(c_g == c1[g2c], c_start, n_g)]
@@ -470,38 +498,17 @@ def gap_character(owner, label_code, is_conduction, edge_ev, scissor_ev=None,
                              c_start, axis=0)
     with np.errstate(invalid="ignore"):
         ind = np.where(lv1 != lc1, c1 - v1, np.minimum(c1 - v2, c2 - v1))
-        d_g = c_g - v_g  # +inf where either band is absent at that label
-    dmin = np.minimum.reduceat(d_g, c_start, axis=0)
-    tol = DEGENERACY_TOL_EV
-    d_lab = g_label_ext[_first_index(np.isfinite(d_g) & (d_g <= dmin[g2c] + tol),
-                                     c_start, n_g)]
+        marg = ind - dmin  # inf - finite = inf; finite - inf = -inf
     v_lab = g_label_ext[_first_index(np.isfinite(v_g) & (v_g >= v1[g2c] - tol),
                                      c_start, n_g)]
     c_lab = g_label_ext[_first_index(np.isfinite(c_g) & (c_g <= c1[g2c] + tol),
                                      c_start, n_g)]
-
-    comp_ok = np.isfinite(v1) & np.isfinite(c1)
-    fgap = c1 - v1
-    direct = comp_ok & np.isfinite(dmin) & (dmin <= fgap + tol)
-    with np.errstate(invalid="ignore"):
-        marg = ind - dmin  # inf - finite = inf; finite - inf = -inf
     v_lab = np.where(direct, d_lab, v_lab)
     c_lab = np.where(direct, d_lab, c_lab)
-
-    def fin(a):
-        return np.where(np.isfinite(a) & comp_ok, a, np.nan)
-
-    vbm[comp] = np.where(np.isfinite(v1), v1, np.nan)
-    cbm[comp] = np.where(np.isfinite(c1), c1, np.nan)
     vlab[comp] = np.where(np.isfinite(v1), v_lab, NO_LABEL)
     clab[comp] = np.where(np.isfinite(c1), c_lab, NO_LABEL)
-    fund[comp] = fin(fgap)
-    dgap[comp] = fin(dmin)
-    dlab[comp] = np.where(np.isfinite(dmin) & comp_ok, d_lab, NO_LABEL)
     igap[comp] = fin(ind)
     margin[comp] = np.where(comp_ok, marg, np.nan)
-    is_direct[comp] = direct
-    complete[comp] = comp_ok
     return GapCharacter(vbm, vlab, cbm, clab, fund, is_direct, dgap, dlab, igap,
                         margin, complete)
 

@@ -170,7 +170,10 @@ class ModelSettings:
 
     ``stack`` and ``bulk`` name the quantities to compute (default: all of
     :data:`STACK_QUANTITIES` / :data:`BULK_QUANTITIES`); ``principal_masses``
-    adds the principal masses and angle of the bright pair.
+    adds the principal masses and angle of the bright pair; ``indirect_gap``
+    the gap character's indirect gap, direct margin and extrema labels
+    (:func:`lamellume.layers.gap_character` ``indirect``; the dark pair needs
+    them whatever this says).
     """
 
     few_layer_r0_scaling: bool = True
@@ -178,6 +181,7 @@ class ModelSettings:
     stack: frozenset = STACK_QUANTITIES
     bulk: frozenset = BULK_QUANTITIES
     principal_masses: bool = True
+    indirect_gap: bool = True
 
     @classmethod
     def from_config(cls, settings, **wanted) -> "ModelSettings":
@@ -209,7 +213,8 @@ class ModelResult:
 
     ``thermal_shift_ev`` (n,): change of every gap from the calculation's
     temperature to the operating one (0 where no thermal form is given or no
-    temperature was asked for). ``gap``: the :class:`lamellume.layers.GapCharacter` (n, L); ``pairs``:
+    temperature was asked for). ``gap``: the :class:`lamellume.layers.GapCharacter` (n, L; its
+    indirect fields None unless ``ModelSettings.indirect_gap``); ``pairs``:
     :class:`PairMasses` per pair name of :data:`PAIRS`; ``r0_monolayer_angstrom``
     (n,); ``stack``: (n, F, E) arrays of the few-layer counts; ``bulk``: (n,)
     arrays of the bulk crystal.
@@ -328,10 +333,11 @@ def evaluate(inputs: ModelInputs, settings: ModelSettings, table: keldysh.Keldys
         # applied where the scissor is, so every later step sees gaps at the operating temperature.
         thermal = gapshift.thermal_gap_change_ev(inputs.gap_thermal, inputs.temperature_k)
         inputs = replace(inputs, scissor_ev=np.asarray(inputs.scissor_ev, dtype=float) + thermal, gap_thermal=None)
-    gap = layer_model.gap_character(inputs.owner, inputs.label_code, inputs.is_conduction, inputs.edges_ev,
-                                    scissor_ev=inputs.scissor_ev, n_compounds=n)
-    vt = valley_table(inputs)
     want_dark = "dark_binding_ev" in settings.stack or "dark_binding_ev" in settings.bulk
+    gap = layer_model.gap_character(inputs.owner, inputs.label_code, inputs.is_conduction, inputs.edges_ev,
+                                    scissor_ev=inputs.scissor_ev, n_compounds=n,
+                                    indirect=settings.indirect_gap or want_dark)
+    vt = valley_table(inputs)
     pairs = {"bright": pair_masses(vt, gap.direct_label, gap.direct_label, principal=settings.principal_masses,
                                    perpendicular=bool(settings.bulk & _NEEDS_BULK_MODEL))}
     if want_dark:
@@ -376,9 +382,12 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
         lev = excitons.lowest_excitons(c, energy, pr.bright, n)
         pick = np.maximum(lev.bright_pair, 0)
         found = lev.bright_pair >= 0
-        # centre-of-mass masses of the selected pairs only (the weights and the bright mass need no other)
-        total = {key: excitons.pair_total_mass_me(pr, inputs.inv_mass, np.maximum(idx, 0)) if len(c)
-                 else np.full(idx.shape, np.nan) for key, idx in (("bright", lev.bright_pair), ("dark", lev.dark_pair))}
+        # centre-of-mass masses of the selected pairs only (the weights and the bright mass need no other),
+        # the bright and the dark ones in one call
+        both = np.stack([lev.bright_pair, lev.dark_pair])
+        both = excitons.pair_total_mass_me(pr, inputs.inv_mass, np.maximum(both, 0)) if len(c) \
+            else np.full(both.shape, np.nan)
+        total = {"bright": both[0], "dark": both[1]}
         out["bright_mass_me"] = np.where(found, total["bright"], np.nan)
         if rate is None:
             out["radiative_rate_0_per_s"] = np.full(lev.bright_ev.shape, np.nan)
@@ -410,22 +419,27 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     nl = lay[:-1].astype(float)
     scale = nl if settings.few_layer_r0_scaling else np.ones_like(nl)
     shape = (len(c), nl.size, kappa.size)
-    r0 = np.broadcast_to(r0_1[c][:, None, None] * scale[None, :, None], shape)
-    eb = keldysh.keldysh_binding_ev(np.broadcast_to(mu[:, None, None], shape), r0,
-                                    np.broadcast_to(kappa[None, None, :], shape), table, state="1s") \
+    r0 = r0_1[c][:, None, None] * scale[None, :, None]   # (P, F, 1): the arrays broadcast to shape in the call
+    eb = keldysh.keldysh_binding_ev(mu[:, None, None], r0, kappa[None, None, :], table, state="1s") \
         * f_lay[c][:, None, None]
     # Full compensation: the quasiparticle gap shrinks with the surroundings' screening exactly as the
     # binding falls, so the bright exciton stays where it is in the surroundings the edges belong to.
+    # Where those surroundings are configured ones (suspended, as a rule) their binding is eb's, the
+    # same function of the same numbers; only the others are looked up again.
     kap_ref = np.broadcast_to(np.asarray(inputs.edge_kappa, dtype=float), (n,))[c]
-    eb_ref = keldysh.keldysh_binding_ev(np.broadcast_to(mu[:, None], shape[:2]), r0[:, :, 0],
-                                        np.broadcast_to(kap_ref[:, None], shape[:2]), table, state="1s") \
-        * f_lay[c][:, None]
+    same = kap_ref[:, None] == kappa[None, :]
+    eb_ref = eb[np.arange(len(c)), :, np.argmax(same, axis=1)] if kappa.size else np.empty(shape[:2])
+    other = ~same.any(axis=1)
+    if other.any():
+        eb_ref[other] = keldysh.keldysh_binding_ev(
+            np.broadcast_to(mu[other][:, None], (int(other.sum()), nl.size)), r0[other][:, :, 0],
+            np.broadcast_to(kap_ref[other][:, None], (int(other.sum()), nl.size)), table, state="1s") \
+            * f_lay[c][other][:, None]
     rate = None
     if settings.stack & {"radiative_rate_0_per_s"}:
         # Radiative-rate proxy of every pair's exciton (lamellume.brightness): Kane energy of the
         # pair's gap and reduced mass, |phi(0)|^2 from the Rytova-Keldysh rms radius, index sqrt(kappa).
-        radius = keldysh.keldysh_radius_angstrom(np.broadcast_to(mu[:, None, None], shape), r0,
-                                                 np.broadcast_to(kappa[None, None, :], shape), table, state="1s")
+        radius = keldysh.keldysh_radius_angstrom(mu[:, None, None], r0, kappa[None, None, :], table, state="1s")
         with np.errstate(invalid="ignore", divide="ignore"):
             rate = brightness.intrinsic_rate_per_s(
                 brightness.kane_energy_ev(gaps[:, :-1, None], mu[:, None, None]), gaps[:, :-1, None] - eb,
@@ -460,7 +474,10 @@ def _bulk(inputs: ModelInputs, settings: ModelSettings, gap, pairs) -> dict[str,
     want = settings.bulk.__contains__
     eps_bulk = np.asarray(inputs.eps_bulk, dtype=float)
     mu = pairs["bright"].mu_me[:, -1]
-    out: dict[str, np.ndarray] = {"bulk_binding_ev": hydrogenic.binding_3d_ev(mu, eps_bulk)}
+    # the bulk model's own error (binding_factor_bulk, 1 for the point estimate) on the 3D hydrogenic
+    # binding too: it is the bulk binding the Monte Carlo reports (bulk_binding_ev_p16/_p50/_p84)
+    out: dict[str, np.ndarray] = {"bulk_binding_ev": hydrogenic.binding_3d_ev(mu, eps_bulk)
+                                  * inputs.binding_factor_bulk}
     if settings.bulk & _NEEDS_BULK_MODEL:
         mperp = pairs["bright"].mu_perp_me
         mperp = np.full(mu.shape, np.nan) if mperp is None else mperp[:, -1]
@@ -504,7 +521,8 @@ def _stack(inputs: ModelInputs, settings: ModelSettings, table, gap, pairs, r0_1
     if want("kappa"):
         out["kappa"] = kap
     if want("binding_ev") or want("optical_gap_ev") or want("emission_nm"):
-        out["binding_ev"] = keldysh.keldysh_binding_ev(mu, r0, kap, table, state="1s") \
+        out["binding_ev"] = keldysh.keldysh_binding_ev(pairs["bright"].mu_me[:, :-1, None], r0_1[:, None, None]
+                                                       * scale[None, :, None], kappa[None, None, :], table, state="1s") \
             * np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (inputs.n_compounds,))[:, None, None]
     for state in ("2s", "3s"):
         if want(f"binding_{state}_ev"):

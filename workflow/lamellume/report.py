@@ -399,6 +399,48 @@ def _criteria_words(settings: Mapping) -> list[tuple[str, str, str]]:
     return words
 
 
+#: Green laser line (frequency-doubled Nd:YAG), nm: the usual excitation for visible emitters (common practice).
+GREEN_LASER_NM = 532.0
+#: Silicon's indirect band gap at 300 K, eV (Sze, Physics of Semiconductor Devices, handbook value 1.12 eV):
+#: a silicon detector sees nothing beyond hc / E_g (about 1100 nm).
+SILICON_GAP_EV = 1.12
+
+
+def _criteria_reasons(settings: Mapping) -> dict[str, str]:
+    """Why each configured threshold matters to the experiment, from its configured value (one line each)."""
+    r = settings["ranking"]
+    t_k = float(settings["survival"]["temperature_k"])
+    kt_ev = float(units.thermal_energy_ev(t_k))
+    margin_kt = float(r["min_direct_margin_ev"]) / kt_ev
+    need_bound = float(r.get("min_bound_fraction", 0.0))
+    lo, hi = sorted(float(v) for v in r["window_nm"])
+    silicon_nm = round(float(units.wavelength_nm_from_energy_ev(SILICON_GAP_EV)), -2)
+    window = [f"starts above green ({GREEN_LASER_NM:g} nm) laser excitation, which a long-pass filter then blocks"
+              if lo > GREEN_LASER_NM else
+              f"starts at or below green ({GREEN_LASER_NM:g} nm) excitation: excite at a shorter wavelength"]
+    window.append(f"ends within a silicon detector's range (silicon absorbs up to about {silicon_nm:.0f} nm)"
+                  if hi <= silicon_nm else
+                  f"reaches beyond a silicon detector's range (about {silicon_nm:.0f} nm): an infrared "
+                  "(e.g. InGaAs) detector is needed")
+    return {
+        "pass_direct": ("a dark lowest exciton collects the excitons and quenches the emission" if r["require_direct"]
+                        else "a verdict the record cannot support is not planned for"),
+        "pass_margin": (f"about {margin_kt:.1f} kT at {t_k:g} K: the lowest dark exciton then holds at most about "
+                        f"{math.exp(-margin_kt) * 100:.0f} % as many excitons as the bright one, times their weight "
+                        "ratio (Boltzmann)" if margin_kt > 0 else
+                        "0: any order with the bright exciton lowest passes"),
+        "pass_binding": ("no bound fraction is required (a binding floor in kT, if set, is a configured choice)"
+                         if need_bound <= 0 else
+                         (f"{need_bound * 100:g} % bound is the exciton-plasma (Saha) crossover: above it most "
+                          "photo-excited pairs are excitons" if abs(need_bound - 0.5) < 1e-12 else
+                          f"{need_bound * 100:g} % is a configured choice (50 % is the exciton-plasma (Saha) "
+                          "crossover)")
+                         + "; continuous-wave excitation gives lower densities, where fewer pairs are bound"),
+        "pass_window": "the window " + ", and ".join(window),
+        "pass_bright_fraction": "only excitons in the bright state emit",
+    }
+
+
 def _pair_kind(pair: str) -> str:
     """'spin-dark' when both sides of a pair text ('K(up)->K(down)') sit at one label, else 'momentum-dark'."""
     if "->" not in pair:
@@ -470,6 +512,14 @@ def _reasons(row: Mapping, settings: Mapping) -> list[str]:
                f"{_fmt(row.get('target_binding_over_kt'), 1)} kT at {t_k:g} K"
                + (f"; {_about(bound).lower()} of the pairs bound at {density:.3g} cm\u207b\u00b2 (Saha estimate)."
                   if math.isfinite(bound) else "."))
+    proxy = _num(row.get("target_brightness_proxy_per_s"))
+    gamma0 = _num(row.get("target_radiative_rate_0_per_s"))
+    if math.isfinite(proxy) and proxy > 0:
+        out.append(f"Brightness proxy: about {proxy:.2g} s\u207b\u00b9 (radiative rate averaged over the excitons at "
+                   f"{t_k:g} K, times the bright fraction"
+                   + (f"; intrinsic radiative lifetime {1e12 / gamma0:.2g} ps at zero momentum"
+                      if math.isfinite(gamma0) and gamma0 > 0 else "")
+                   + "): a model estimate for comparing compounds, not a measured lifetime.")
     lam = _num(row.get("target_emission_nm"))
     lam_full = _num(row.get("target_emission_compensated_nm"))
     inside = lo <= lam <= hi and (not math.isfinite(lam_full) or lo <= lam_full <= hi)
@@ -649,7 +699,8 @@ def _overview(ranked, rejects, manifest, settings) -> dict:
             ("Surroundings screened", ", ".join(_env_with_constants(name, settings)
                                                 for name in settings.get("environments", {}))),
         ],
-        "criteria": [sentence for _, _, sentence in _criteria_words(settings)],
+        "criteria": [f"{sentence} \u2014 why: {_criteria_reasons(settings)[key]}"
+                     for key, _, sentence in _criteria_words(settings)],
         "provenance": [
             ("Config hash", _text(manifest.get("config_hash", ""))),
             ("Code version", _text(manifest.get("code_version", ""))),
@@ -849,6 +900,8 @@ def _methods(settings: Mapping) -> dict:
             "density": f"{float(settings['survival']['pair_density_per_cm2']):.3g}",
             "bound_decades": f"{ranking.BOUND_DECADES:g}",
             "margin_full": f"{ranking.MARGIN_FULL_EV * MEV_PER_EV:g}",
+            "bright_floor_exp": f"{math.log10(ranking.BRIGHTNESS_FLOOR_PER_S):g}",
+            "bright_decades": f"{ranking.BRIGHTNESS_DECADES:g}",
             "window_lo": f"{lo:g}", "window_hi": f"{hi:g}",
             "w_binding": f"{float(w.get('binding', 0)):g}", "w_margin": f"{float(w.get('margin', 0)):g}",
             "w_window": f"{float(w.get('window', 0)):g}", "w_brightness": f"{float(w.get('brightness', 0)):g}",

@@ -225,7 +225,8 @@ def settings_table(settings: Mapping, stamps: Mapping[str, str]) -> pd.DataFrame
         ("ordered by", str(r.get("order_by", "score")), "",
          "candidates first, then by score (or by the probability all criteria met)"),
         ("Monte Carlo samples", str(int(settings.get("uncertainty", {}).get("samples", 0))), "1",
-         "samples per compound behind the 16 % / 84 % columns and the probability (0: none)"),
+         "samples per compound behind the 16 % / 84 % columns and the probability, given the input "
+         "uncertainties (0: none)"),
         ("config hash", stamps.get("config_hash", ""), "", "hash of the whole config (also in every table row)"),
         ("code version", stamps.get("code_version", ""), "", "content hash of the library that computed the run"),
         ("git", stamps.get("git", ""), "", "git describe of the workflow checkout ('unknown' outside git)"),

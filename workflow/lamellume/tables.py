@@ -351,11 +351,11 @@ _WIDE = [
 
 _UNCERTAINTY = [
     ("p_gap_direct", F, "1", "probability that the band gap is direct at the target layer count"),
-    ("p_meets_all", F, "1", "probability that every ranking criterion is met"),
-    ("p_pass_direct", F, "1", "probability that the brightness criterion is met (the lowest exciton at the target is bright)"),
-    ("p_pass_margin", F, "1", "probability that the exciton-level (dark - bright) margin criterion is met"),
-    ("p_pass_binding", F, "1", "probability that the bound criterion (bound fraction, binding/kT) is met"),
-    ("p_pass_window", F, "1", "probability that the emission lies in the target window"),
+    ("p_meets_all", F, "1", "probability that every ranking criterion is met given the input uncertainties (Monte Carlo; a model estimate)"),
+    ("p_pass_direct", F, "1", "probability that the brightness criterion is met (the lowest exciton at the target is bright) given the input uncertainties (Monte Carlo; a model estimate)"),
+    ("p_pass_margin", F, "1", "probability that the exciton-level (dark - bright) margin criterion is met given the input uncertainties (Monte Carlo; a model estimate)"),
+    ("p_pass_binding", F, "1", "probability that the bound criterion (bound fraction, binding/kT) is met given the input uncertainties (Monte Carlo; a model estimate)"),
+    ("p_pass_window", F, "1", "probability that the emission lies in the target window given the input uncertainties (Monte Carlo; a model estimate)"),
     ("n_samples", "int32", "1", "Monte Carlo samples per compound (0 = propagation disabled)"),
     ("seed", "int64", "1", "campaign seed; each compound's stream also depends on its identifier"),
 ]
@@ -450,7 +450,8 @@ _SHORTLIST = [
     ("Bright fraction", F, "1", "thermal share of excitons in the bright state at the temperature of the row"),
     ("Direct-indirect band-gap margin (meV)", F, "meV", "indirect minus direct band gap: > 0 direct"),
     ("Score (0-1)", F, "1", "the ranking score; its definition is the 'score definition' row of the settings sheet"),
-    ("Probability all criteria met", F, "1", "share of Monte Carlo samples meeting every criterion (empty without)"),
+    ("Probability all criteria met", F, "1", "chance that every criterion holds given the input uncertainties: share of Monte Carlo samples meeting "
+     "every criterion (a model estimate; empty without)"),
 ]
 
 #: results/shortlist_settings.csv: the settings and stamps of the run, one row each.
@@ -475,7 +476,8 @@ MC_QUANTITIES = {
     "target_binding_ev": "Rytova-Keldysh binding at the target layer count in the ranking environment",
     "target_optical_gap_ev": "optical gap (direct gap - binding) at the target layer count",
     "target_emission_nm": "emission wavelength at the target layer count",
-    "bulk_binding_ev": "bulk 3D hydrogenic binding (geometric-mean dielectric constant)",
+    "bulk_binding_ev": "bulk 3D hydrogenic binding (geometric-mean dielectric constant) with the bulk model's own "
+                       "error (excitons.model_rel_unc_bulk)",
 }
 
 #: Families of columns: regular expression -> (dtype, unit, description with {groups}).

@@ -420,7 +420,7 @@ def _prepare(entries: pd.DataFrame, valleys: pd.DataFrame, settings: Mapping) ->
         layers=np.array([target, layer_model.BULK]), kappa=np.asarray(kappa, dtype=float), env_names=env_names,
         env_index=env_names.index(rk["environment"]),
         model_settings=model.ModelSettings.from_config(settings, stack=_STACK_WANTED, bulk=_BULK_WANTED,
-                                                       principal_masses=False),
+                                                       principal_masses=False, indirect_gap=False),
         temperature_k=float(settings["survival"]["temperature_k"]), ranking=rk,
         pair_density_per_cm2=float(settings["survival"]["pair_density_per_cm2"]),
         **dict(zip(("degeneracy", "spin_split", "edge_spin"), screen.exciton_inputs(vt).values())),
