@@ -66,6 +66,7 @@ from typing import NamedTuple
 import numpy as np
 from scipy import special
 
+from lamellume import masses
 from lamellume.units import thermal_energy_ev
 
 __all__ = [
@@ -257,7 +258,9 @@ def pair_gaps_ev(pairs: Pairs, edge_ev, scissor_ev=None):
     shift = np.zeros(pairs.compound.shape) if scissor_ev is None else \
         np.asarray(scissor_ev, dtype=float)[pairs.compound]
     extra = shift + pairs.conduction_offset_ev + pairs.valence_offset_ev
-    return e[pairs.conduction] - e[pairs.valence] + extra.reshape(extra.shape + (1,) * (e.ndim - 1))
+    # np.take along the first axis: the rows of fancy indexing, faster for rows of several numbers
+    return np.take(e, pairs.conduction, axis=0) - np.take(e, pairs.valence, axis=0) \
+        + extra.reshape(extra.shape + (1,) * (e.ndim - 1))
 
 
 def pair_inverse_mass(pairs: Pairs, inverse_mass):
@@ -278,7 +281,7 @@ def pair_inverse_mass(pairs: Pairs, inverse_mass):
     Ashcroft and Mermin, *Solid State Physics* (1976), ch. 12 (reduced mass).
     """
     w = np.asarray(inverse_mass, dtype=float)
-    return w[pairs.conduction] + w[pairs.valence]
+    return np.take(w, pairs.conduction, axis=0) + np.take(w, pairs.valence, axis=0)
 
 
 def pair_total_mass_me(pairs: Pairs, inverse_mass, index=None):
@@ -318,7 +321,7 @@ def pair_total_mass_me(pairs: Pairs, inverse_mass, index=None):
         at[sel] = np.arange(sel.size)
         cond, val = cond[sel], val[sel]
     # each valley's mass tensor is inverted where a pair needs it (the same numbers as inverting all first)
-    total = _mass_tensor(w[cond]) + _mass_tensor(w[val])
+    total = _mass_tensor(np.take(w, cond, axis=0)) + _mass_tensor(np.take(w, val, axis=0))
     det = total[:, 0, 0] * total[:, 1, 1] - total[:, 0, 1] * total[:, 1, 0]
     with np.errstate(invalid="ignore"):
         mass = np.sqrt(det)
@@ -328,7 +331,7 @@ def pair_total_mass_me(pairs: Pairs, inverse_mass, index=None):
 def _mass_tensor(w):
     """Mass tensors (k, 2, 2) of inverse-mass tensors ``w``, m_e; NaN where a tensor is not finite."""
     m = np.full(w.shape, np.nan)
-    good = np.all(np.isfinite(w), axis=(1, 2))
+    good = masses.finite_tensor(w)
     if good.all():
         good = slice(None)
     if w[good].size:  # 2x2 inverse written out (numpy.linalg.inv costs ~10x as much for many tiny matrices)

@@ -281,8 +281,10 @@ def valley_table(inputs: ModelInputs) -> ValleyTable:
 
 def _pick(table: np.ndarray, labels: np.ndarray) -> np.ndarray:
     """table[c, labels[c, j]] for every compound c and column j; NaN where NO_LABEL."""
-    rows = np.arange(table.shape[0])[:, None]
-    out = table[rows, np.where(labels < 0, 0, labels)]
+    n, k = table.shape[:2]
+    # np.take of the flattened (compound, label) axis: the rows of fancy indexing, faster
+    out = np.take(table.reshape((n * k,) + table.shape[2:]), np.arange(n)[:, None] * k + np.where(labels < 0, 0, labels),
+                  axis=0)
     out[labels < 0] = np.nan
     return out
 
@@ -297,7 +299,7 @@ def pair_masses(table: ValleyTable, valence_label: np.ndarray, conduction_label:
     (:func:`lamellume.masses.inplane_average_mass_me`).
     """
     w = _pick(table.inv_mass[1], conduction_label) + _pick(table.inv_mass[0], valence_label)
-    good = np.all(np.isfinite(w), axis=(-2, -1))
+    good = masses.finite_tensor(w)
     mu = np.where(good, masses.inplane_average_mass_me(w), np.nan)
     small = large = angle = perp = None
     if principal:
@@ -370,7 +372,7 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     c = pr.compound
     gaps = excitons.pair_gaps_ev(pr, inputs.edges_ev, inputs.scissor_ev)          # (P, L)
     w = excitons.pair_inverse_mass(pr, inputs.inv_mass)
-    good = np.all(np.isfinite(w), axis=(1, 2))
+    good = masses.finite_tensor(w)
     with np.errstate(invalid="ignore", divide="ignore"):
         mu = np.where(good, masses.inplane_average_mass_me(w), np.nan)
     deg = excitons.pair_degeneracy(pr, np.ones(len(inputs.owner)) if inputs.degeneracy is None
