@@ -234,6 +234,44 @@ def valley_pairs(owner, label_code, is_conduction, spin_split_ev=None, edge_spin
     return Pairs(*(np.asarray(f)[order] for f in fields))
 
 
+def repeat_pairs(pairs: Pairs, valley_start, n_repeats: int) -> Pairs:
+    """The pairs of :func:`valley_pairs` for every compound repeated ``n_repeats`` times.
+
+    For valleys listed compound by compound (``valley_start``: offsets, shape
+    (n_compounds + 1,)), repeating each compound's valleys ``n_repeats`` times
+    in a row (compound c, repeat r -> compound ``c * n_repeats + r``, its
+    valleys in the same order) gives arrays whose :func:`valley_pairs` are
+    these: the same rows in the same order, without building them again. The
+    Monte Carlo's samples of a record are such repeats.
+
+    Parameters
+    ----------
+    pairs : Pairs
+        :func:`valley_pairs` of the compounds (sorted by compound).
+    valley_start : array_like of int, shape (n_compounds + 1,)
+        First valley of each compound, and the number of valleys last.
+    n_repeats : int
+
+    Returns
+    -------
+    Pairs
+    """
+    start = np.asarray(valley_start, dtype=np.int64)
+    n = start.size - 1
+    k = np.diff(start)                                  # valleys per compound
+    per = np.bincount(pairs.compound, minlength=n)      # pairs per compound
+    first_pair = np.cumsum(per) - per
+    rows = per * n_repeats
+    src_c = np.repeat(np.arange(n), rows)
+    j = np.arange(src_c.size) - np.repeat(np.cumsum(rows) - rows, rows)
+    per_c = per[src_c]                                  # > 0 on every row
+    r = j // per_c
+    src = first_pair[src_c] + j % per_c
+    shift = start[src_c] * (n_repeats - 1) + r * k[src_c]   # valley v of compound c -> v + shift
+    return Pairs(pairs.compound[src] * n_repeats + r, pairs.valence[src] + shift, pairs.conduction[src] + shift,
+                 *(np.asarray(f)[src] for f in pairs[3:]))
+
+
 def pair_gaps_ev(pairs: Pairs, edge_ev, scissor_ev=None):
     """Pair gap ``E_c + scissor + offset_c - (E_v - offset_v)`` in eV.
 

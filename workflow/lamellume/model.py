@@ -118,6 +118,11 @@ class ModelInputs:
         Valley degeneracy (symmetry-equivalent points of the label; None: 1).
     spin_split_ev, edge_spin : (V,) or None
         Spin sub-bands (:func:`lamellume.excitons.spin_subbands`; None: not given).
+    valley_pairs : lamellume.excitons.Pairs or None
+        :func:`lamellume.excitons.valley_pairs` of owner, label_code,
+        is_conduction and the spin sub-bands, when the caller has them already
+        (the Monte Carlo builds them once per record and repeats them per
+        sample, :func:`lamellume.excitons.repeat_pairs`); None: built here.
     binding_factor_layers, binding_factor_bulk : (n,) or float
         Factor on every Rytova-Keldysh (layers) or bulk 3D binding: the binding
         model's own error, sampled by the Monte Carlo (1 for the point estimate).
@@ -153,6 +158,7 @@ class ModelInputs:
     degeneracy: np.ndarray | None = None
     spin_split_ev: np.ndarray | None = None
     edge_spin: np.ndarray | None = None
+    valley_pairs: excitons.Pairs | None = None
     binding_factor_layers: np.ndarray | float = 1.0
     binding_factor_bulk: np.ndarray | float = 1.0
     edge_kappa: np.ndarray | float = 1.0
@@ -367,8 +373,10 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     dicts gain :data:`EXCITON_QUANTITIES`.
     """
     n = inputs.n_compounds
-    pr = excitons.valley_pairs(inputs.owner, inputs.label_code, inputs.is_conduction,
-                               inputs.spin_split_ev, inputs.edge_spin)
+    pr = inputs.valley_pairs
+    if pr is None:
+        pr = excitons.valley_pairs(inputs.owner, inputs.label_code, inputs.is_conduction,
+                                   inputs.spin_split_ev, inputs.edge_spin)
     c = pr.compound
     gaps = excitons.pair_gaps_ev(pr, inputs.edges_ev, inputs.scissor_ev)          # (P, L)
     w = excitons.pair_inverse_mass(pr, inputs.inv_mass)
