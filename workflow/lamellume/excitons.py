@@ -423,8 +423,19 @@ class ExcitonLevels(NamedTuple):
     verdict: np.ndarray
 
 
-def _segment_min(values, index, compound, n_compounds):
-    """Per compound: minimum of ``values`` over its pairs and the first pair attaining it."""
+def _runs(compound):
+    """(first row, compound, rows) of each run of equal compounds when ``compound`` is sorted, else None."""
+    if not np.all(compound[1:] >= compound[:-1]):
+        return None
+    start = np.flatnonzero(np.concatenate([[True], compound[1:] != compound[:-1]]))
+    return start, compound[start], np.diff(np.append(start, len(compound)))
+
+
+def _segment_min(values, index, compound, n_compounds, runs=False):
+    """Per compound: minimum of ``values`` over its pairs and the first pair attaining it.
+
+    ``runs``: :func:`_runs` of ``compound`` when the caller has it (False: found here).
+    """
     shape = (n_compounds,) + values.shape[1:]
     best = np.full(shape, np.inf)
     arg = np.full(shape, NO_PAIR, dtype=np.int64)
@@ -433,15 +444,17 @@ def _segment_min(values, index, compound, n_compounds):
     big = np.iinfo(np.int64).max
     index = index.reshape((-1,) + (1,) * (values.ndim - 1))
     first = np.full(shape, big, dtype=np.int64)
-    if np.all(compound[1:] >= compound[:-1]):
+    if runs is False:
+        runs = _runs(compound)
+    if runs is not None:
         # pairs sorted by compound (as valley_pairs makes them): one reduction per contiguous segment,
         # several times faster than the unbuffered ufunc.at scatter; the same minima and first indices
-        start = np.flatnonzero(np.concatenate([[True], compound[1:] != compound[:-1]]))
-        seg = compound[start]
+        start, seg, length = runs
+        rows = slice(None) if seg.size == n_compounds else seg   # seg is sorted and unique
         seg_best = np.minimum.reduceat(values, start, axis=0)
-        best[seg] = seg_best
-        hit = np.isfinite(values) & (values == np.repeat(seg_best, np.diff(np.append(start, len(compound))), axis=0))
-        first[seg] = np.minimum.reduceat(np.where(hit, index, big), start, axis=0)
+        best[rows] = seg_best
+        hit = np.isfinite(values) & (values == np.repeat(seg_best, length, axis=0))
+        first[rows] = np.minimum.reduceat(np.where(hit, index, big), start, axis=0)
     else:
         np.minimum.at(best, compound, values)
         hit = np.isfinite(values) & (values == best[compound])
@@ -478,8 +491,9 @@ def lowest_excitons(compound, exciton_ev, bright, n_compounds: int) -> ExcitonLe
     b = np.asarray(bright, dtype=bool).reshape((-1,) + (1,) * (e.ndim - 1))
     e_ok = np.where(np.isfinite(e), e, np.inf)
     idx = np.arange(comp.size)
-    eb, ib = _segment_min(np.where(b, e_ok, np.inf), idx, comp, n_compounds)
-    ed, idk = _segment_min(np.where(~b, e_ok, np.inf), idx, comp, n_compounds)
+    runs = _runs(comp) if comp.size else None   # once for the bright and the dark search
+    eb, ib = _segment_min(np.where(b, e_ok, np.inf), idx, comp, n_compounds, runs)
+    ed, idk = _segment_min(np.where(~b, e_ok, np.inf), idx, comp, n_compounds, runs)
     eb = np.where(np.isfinite(eb), eb, np.nan)
     ed = np.where(np.isfinite(ed), ed, np.nan)
     return ExcitonLevels(eb, ib, ed, idk, ed - eb, brightness_verdict(eb, ed))

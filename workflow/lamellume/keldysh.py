@@ -740,10 +740,12 @@ def _piece_index(lookup, x):
     # fresh (large temporaries cost more than the arithmetic); np.take: fancy indexing, faster
     t = np.subtract(x, start, out=np.empty(x.shape))
     t *= inv_width
-    j = np.clip(t.astype(np.intp), 0, at_left.size - 1)
+    j = t.astype(np.intp)
+    np.clip(j, 0, at_left.size - 1, out=j)
     k = np.take(at_left, j)
-    k = k + (x >= np.take(padded, k + 1))
-    return k - (x < np.take(padded, k))
+    k += x >= np.take(padded, k + 1)
+    k -= x < np.take(padded, k)
+    return k
 
 
 def _evaluate_pieces(breaks, coefs, x, lookup=None):
@@ -753,7 +755,8 @@ def _evaluate_pieces(breaks, coefs, x, lookup=None):
     the result is the same.
     """
     k = np.searchsorted(breaks, x, side="right") if lookup is None else _piece_index(lookup, x)
-    i = np.clip(k - 1, 0, breaks.size - 2)
+    k -= 1   # a fresh array (or a number): the piece index
+    i = np.clip(k, 0, breaks.size - 2, out=k if isinstance(k, np.ndarray) and k.ndim else None)
     dx = x - np.take(breaks, i)
     out = np.asarray(np.take(coefs[0], i), dtype=float)   # a fresh array, updated in place below
     for m in range(1, coefs.shape[0]):
