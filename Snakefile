@@ -30,3 +30,6 @@ onstart:
 
 onsuccess:
     print(run_summary())
+
+
+summary_when_nothing_to_do()

@@ -367,6 +367,7 @@ def test_cards_plan_the_first_experiment(driver, run):
         assert "16\u201384 %" in card["emission"]
         assert "reflectance" in card["text"].lower() and "cooling" in card["text"]
         assert "Mott estimate" in card["text"] and "cm\u207b\u00b2" in card["text"]
+        assert "Brightness proxy: about" in card["text"] and "s\u207b\u00b9" in card["text"]
     body = driver.execute_script("return document.body.innerText")
     assert "Emits at" not in body and "100 % of pairs" not in body
     assert "given the input uncertainties" in body

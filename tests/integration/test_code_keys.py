@@ -7,10 +7,11 @@ Cache keys and rule code inputs are derived from the import graph
   jobs' ``PYTHONPATH`` writes down, as the job leaves, every ``lamellume`` module
   and adapter helper the process actually loaded. Each of those files must be
   among the code inputs Snakemake holds for the job's rule;
-* for every library module the shard job loaded, a copy of the library where that
-  module differs by one comment gives a different shard code version (the
-  ``code_version`` stamp that keys the per-record caches), and a module outside
-  the shard stage's import graph leaves it alone.
+* for every library module a job with a per-record cache loaded (the shard, the
+  attribution and the import jobs), a copy of the library where that module
+  differs by one comment gives a different code version (the ``code_version``
+  stamp that keys those caches), and a module outside the stage's import graph
+  leaves it alone.
 """
 
 from __future__ import annotations
@@ -111,14 +112,22 @@ def test_structure_analysis_was_exercised(traces):
     assert any(p.endswith("structure.py") for p in shard["files"])
 
 
-def test_any_change_to_a_module_the_shard_loads_changes_its_cache_key(traces, tmp_path):
-    shard = next(t for t in traces if Path(t["script"]).stem == "screen_shard")
-    loaded = {Path(p).stem for p in shard["files"] if Path(p).parent.resolve() == LIBRARY.resolve()}
+#: Jobs with per-record caches and the library module whose import graph keys them: the shard
+#: job's screen and propagation caches and the attribution job's cache (pipeline.stage_code_version),
+#: the import job's per-compound cache (importer.run_import).
+CACHED_JOBS = [("screen_shard", "pipeline"), ("attribute_shard", "pipeline"), ("import_calculations", "importer")]
+
+
+@pytest.mark.parametrize("adapter, entry", CACHED_JOBS)
+def test_any_change_to_a_module_a_cached_job_loads_changes_its_cache_key(traces, tmp_path, adapter, entry):
+    job = next(t for t in traces if Path(t["script"]).stem == adapter)
+    loaded = {Path(p).stem for p in job["files"] if Path(p).parent.resolve() == LIBRARY.resolve()}
+    assert entry in loaded
     base = tmp_path / "base" / "lamellume"
     shutil.copytree(LIBRARY, base, ignore=shutil.ignore_patterns("__pycache__"))
     shutil.copytree(REPO / "workflow" / "schemas", base.parent / "schemas")
-    reference = provenance.code_version("pipeline", base)
-    assert reference == provenance.code_version("pipeline", LIBRARY)
+    reference = provenance.code_version(entry, base)
+    assert reference == provenance.code_version(entry, LIBRARY)
     unchanged = []
     for module in sorted(p.stem for p in LIBRARY.glob("*.py")):
         copy = tmp_path / module / "lamellume"
@@ -126,9 +135,9 @@ def test_any_change_to_a_module_the_shard_loads_changes_its_cache_key(traces, tm
         shutil.copytree(base.parent / "schemas", copy.parent / "schemas")
         path = copy / f"{module}.py"
         path.write_text(path.read_text() + "\n# one more comment\n")
-        if provenance.code_version("pipeline", copy) == reference:
+        if provenance.code_version(entry, copy) == reference:
             unchanged.append(module)
-    assert not loaded & set(unchanged), f"modules the shard job loads but its key ignores: {loaded & set(unchanged)}"
+    assert not loaded & set(unchanged), f"modules the {adapter} job loads but its key ignores: {loaded & set(unchanged)}"
     # The key is not the whole library: the page and the shard listing are outside the shard stage.
     assert {"report"} <= set(unchanged), unchanged
 

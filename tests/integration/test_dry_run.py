@@ -85,7 +85,7 @@ def dry_run_beside_a_real_run(work: Path, configfile: str, attempts: int = 3) ->
     calls (it removes a job's outputs before running the job). That is Snakemake's planning
     race, not ours, and the dry run writes nothing it could leave half-done, so it is
     retried; any other failure, or the race three times running, fails the test.
-    DEVELOPERS.md "Snakemake workarounds" and docs/troubleshooting.md say the same.
+    README.md, "Troubleshooting", says the same.
     """
     for _ in range(attempts):
         dry = snakemake(work, configfile, "-n")

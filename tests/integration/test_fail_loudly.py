@@ -9,7 +9,8 @@ Through Snakemake's command line, in a working folder that holds a finished run:
   job that writes the final tables, the shortlist, the page or the history: those
   stay byte for byte as the previous run left them;
 * a successful run ends with the console summary (records read, screened,
-  rejected with the rejects CSV and the first reasons, candidates, the page).
+  rejected with the rejects CSV and the first reasons, candidates, the page), a run
+  with nothing to do too (after Snakemake's "Nothing to be done"), a dry run never.
 """
 
 from __future__ import annotations
@@ -69,6 +70,20 @@ def test_a_successful_run_ends_with_the_console_summary(finished):
     assert "    broken-" in text  # a reason names its file
     assert "summary page: results/summary.html" in text
     assert f"results/ is {work.resolve() / 'results'}" in text  # where they are, whatever --directory said
+
+
+def test_a_run_with_nothing_to_do_ends_with_the_summary_too(finished):
+    # Snakemake skips its onsuccess hook when everything is up to date; the summary still ends the run
+    work, first = finished
+    res = snakemake(work)
+    text = res.stdout + res.stderr
+    assert res.returncode == 0 and "Nothing to be done" in text, text[-3000:]
+    # the run ends with the same summary lines as the run that made the results (Snakemake's own
+    # messages go to stderr, the summary to stdout)
+    summary = first.stdout[first.stdout.index("lamellume: 11 record files read"):]
+    assert res.stdout.rstrip().endswith(summary.rstrip()), (summary, res.stdout[-3000:])
+    dry = snakemake(work, "-n")
+    assert dry.returncode == 0 and "record files read" not in dry.stdout + dry.stderr  # a dry run: no summary
 
 
 def test_validating_another_campaign_does_not_repeat_the_last_screens_counts(finished):

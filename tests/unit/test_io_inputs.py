@@ -93,6 +93,18 @@ def test_read_is_bounded_by_bytes_read(tmp_path):
     assert reason is None and len(data) == 5000 == size
 
 
+def test_read_is_bounded_by_bytes_read_when_the_file_reports_no_size(tmp_path):
+    # A file that reports a smaller size than it holds: files under /proc are regular files
+    # that report size 0 (proc(5), Linux man-pages; common practice). The cap counts bytes read.
+    link = tmp_path / "x.json"
+    link.symlink_to("/proc/self/status")
+    assert os.stat(link).st_size == 0
+    data, reason, size = io.read_limited(link, 100)
+    assert data is None and size == 101 and "has more bytes than it reports" in reason
+    raw = io.read_record(link)
+    assert raw.data is None and raw.error_field == "(file)" and "invalid JSON" in raw.error  # read, not "empty"
+
+
 @pytest.mark.parametrize("text, field", [
     ('{"a": 1, "a": 2}', "a"),
     ('{"v": [{"m": {"x": 1, "y": 2, "x": 3}}]}', "v[0].m.x"),

@@ -5,8 +5,11 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import Phase, given, settings
+from hypothesis import strategies as st
 
 from lamellume import io, keldysh, pipeline
 
@@ -305,3 +308,67 @@ def test_validate_campaign_reports_the_screens_rejects_without_screening(tmp_pat
     assert "bad-mass.json: valleys[0].mass.isotropic_me:" in report
     assert "[record breaks the input contract (schema or physical checks)]" in report
     assert "contract]" not in report and "[read]" not in report  # stage names in plain words
+
+
+# ---------------------------------------------------------------------------------------------
+# No screened row carries a negative gap, whatever edges a record gives (issue 12, item 4)
+# ---------------------------------------------------------------------------------------------
+
+#: Layer counts of SETTINGS (max_layers 4) beyond the required "1" and "bulk".
+_OPTIONAL_LAYERS = ("2", "3", "4")
+_VB_EDGE = st.floats(-6.6, -5.0).map(lambda x: round(x, 3))
+_CB_EDGE = st.floats(-5.8, -3.5).map(lambda x: round(x, 3))
+_ANY_EDGE = st.floats(-6.6, -3.0).map(lambda x: round(x, 3))
+
+
+@st.composite
+def _gap_record(draw, ident: str) -> dict:
+    """The fixture record with random edges: "1" and "bulk" in every valley, 2..4 in some only."""
+    record = json.loads((Path(__file__).parent / "data" / "record_valid.json").read_text())
+    record["id"] = ident
+    record["scissor_ev"] = draw(st.sampled_from([0.0, 0.3, -0.3]))
+    for valley in record["valleys"]:
+        edge = _VB_EDGE if valley["band"] == "valence" else _CB_EDGE
+        valley["edge_ev"] = {"1": draw(edge), "bulk": draw(edge)}
+        # an optional count anywhere in either band's range: one band's edge there may cross the
+        # other band's modelled edge (the case of issue 12: valence "2": -3.0)
+        for key in draw(st.lists(st.sampled_from(_OPTIONAL_LAYERS), unique=True, max_size=3)):
+            valley["edge_ev"][key] = draw(_ANY_EDGE)
+    return record
+
+
+def _given_gaps(record: dict) -> dict[str, float]:
+    """CBM + scissor - VBM at each layer count that every valley gives (plain arithmetic on the
+    inputs: the definition of the fundamental gap, CBM - VBM; common practice)."""
+    valleys = record["valleys"]
+    shared = set.intersection(*(set(v["edge_ev"]) for v in valleys))
+    return {k: min(v["edge_ev"][k] for v in valleys if v["band"] == "conduction") + record["scissor_ev"]
+            - max(v["edge_ev"][k] for v in valleys if v["band"] == "valence") for k in shared}
+
+
+@settings(max_examples=6, deadline=None, derandomize=True, database=None,
+          phases=[Phase.explicit, Phase.generate])  # no shrinking: each example screens a campaign
+@given(records=st.tuples(*(_gap_record(f"g-{i}") for i in range(8))))
+def test_no_screened_row_carries_a_negative_gap(records, table_path, tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("gaps")
+    entries = tmp / "campaign" / "entries"
+    entries.mkdir(parents=True)
+    for record in records:
+        (entries / f"{record['id']}.json").write_text(json.dumps(record))
+    _, tables = _run(tmp, entries, table_path)
+    long, rejects = tables["long"], tables["rejects"]
+    screened = set(tables["wide"]["entry_id"])
+    assert screened | set(rejects["entry_id"]) == {r["id"] for r in records}  # nothing dropped silently
+    # the invariant: every row of a screened compound has a positive fundamental and direct gap
+    assert (long["fundamental_gap_ev"] > 0).all() and (long["direct_gap_ev"] > 0).all()
+    for record in records:
+        gaps = _given_gaps(record)
+        if any(g <= 0 for g in gaps.values()):  # the inputs themselves show no gap: rejected
+            assert record["id"] not in screened
+            rows = rejects[rejects["entry_id"] == record["id"]]
+            assert rows["stage"].isin(["contract", "normalise"]).all() and rows["reason"].str.contains("no gap").all()
+        if record["id"] in screened:  # where every valley gives the edge, the gap is the inputs'
+            rows = long[long["entry_id"] == record["id"]]
+            for key, gap in gaps.items():
+                at = rows[rows["layers"] == (0 if key == "bulk" else int(key))]["fundamental_gap_ev"]
+                np.testing.assert_allclose(at, gap, rtol=0, atol=1e-9)

@@ -702,3 +702,14 @@ def test_methods_state_the_brightness_proxy_and_cautions_what_the_model_leaves_o
     cautions = page[page.index('<section id="cautions"'):]
     for words in ("strain", "charged excitons (trions)", "defect", "spin or parity selection", "non-radiative"):
         assert words in cautions, words
+
+
+def test_card_states_the_brightness_proxy_as_a_model_estimate(settings):
+    # Issue 18: the card gives the compound's radiative-rate proxy (thermal rate x bright fraction) and the
+    # intrinsic lifetime 1 / Gamma_0: 1 / 5e12 s^-1 = 0.2 ps (by hand), as an estimate, not a lifetime.
+    row = {"entry_id": "x", "target_brightness_proxy_per_s": 2.06e9, "target_radiative_rate_0_per_s": 5.0e12}
+    text = " ".join(report._reasons(row, settings))
+    assert "about 2.1e+09 s\u207b\u00b9" in text and "0.2 ps" in text
+    assert "model estimate" in text and "not a measured lifetime" in text
+    without = " ".join(report._reasons({"entry_id": "x"}, settings))
+    assert "Brightness proxy" not in without

@@ -512,6 +512,14 @@ def _reasons(row: Mapping, settings: Mapping) -> list[str]:
                f"{_fmt(row.get('target_binding_over_kt'), 1)} kT at {t_k:g} K"
                + (f"; {_about(bound).lower()} of the pairs bound at {density:.3g} cm\u207b\u00b2 (Saha estimate)."
                   if math.isfinite(bound) else "."))
+    proxy = _num(row.get("target_brightness_proxy_per_s"))
+    gamma0 = _num(row.get("target_radiative_rate_0_per_s"))
+    if math.isfinite(proxy) and proxy > 0:
+        out.append(f"Brightness proxy: about {proxy:.2g} s\u207b\u00b9 (radiative rate averaged over the excitons at "
+                   f"{t_k:g} K, times the bright fraction"
+                   + (f"; intrinsic radiative lifetime {1e12 / gamma0:.2g} ps at zero momentum"
+                      if math.isfinite(gamma0) and gamma0 > 0 else "")
+                   + "): a model estimate for comparing compounds, not a measured lifetime.")
     lam = _num(row.get("target_emission_nm"))
     lam_full = _num(row.get("target_emission_compensated_nm"))
     inside = lo <= lam <= hi and (not math.isfinite(lam_full) or lo <= lam_full <= hi)

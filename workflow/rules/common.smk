@@ -1,6 +1,7 @@
 # Helper functions, config validation and wildcard constraints. No rules here.
 import ast
 import functools
+import os
 import shlex
 import sys
 from pathlib import Path
@@ -132,6 +133,38 @@ def run_summary():
                  "(its settings: results/shortlist_settings.csv)")
     lines.append(f"  results/ is {Path('results').resolve()} (the working directory's)")
     return "\n".join(lines)
+
+
+def summary_when_nothing_to_do():
+    """Print :func:`run_summary` at the end of a real run that found everything up to date.
+
+    Snakemake returns before its ``onsuccess`` hook when there is nothing to do, so the
+    run would end with its "Nothing to be done" line alone. A logging handler notes that
+    line and an ``atexit`` hook prints the summary (main process only, never in a dry
+    run): every run ends with the summary. DEVELOPERS.md, "State outside the DAG, and why".
+    """
+    import atexit
+    import logging
+
+    seen, workdir = [], os.getcwd()  # the working directory (Snakemake leaves it before the exit)
+
+    class NothingToDo(logging.Handler):
+        def emit(self, record):
+            if str(record.msg).startswith("Nothing to be done"):
+                seen.append(True)
+
+    def at_exit():
+        if seen and not workflow.dryrun:
+            back = os.getcwd()
+            os.chdir(workdir)
+            try:
+                print(run_summary(), flush=True)
+            finally:
+                os.chdir(back)
+
+    if workflow.is_main_process:
+        logging.getLogger("snakemake").addHandler(NothingToDo())
+        atexit.register(at_exit)
 
 
 def shard_names():
