@@ -189,3 +189,27 @@ def test_record_fields_reach_the_valley_table(record):
     entry = ingest.typed_frame([norm.entry], ingest.ENTRY_COLUMNS).iloc[0]
     assert (entry["edge_eps_bottom"], entry["edge_method"], entry["gap_t_form"]) == (3.9, "gw", "varshni")
     assert entry["gap_t_reference_k"] == 0.0 and entry["gap_t_beta_k"] == 200.0
+
+
+@pytest.mark.parametrize("n_repeats", [1, 3])
+def test_repeated_pairs_are_those_of_the_repeated_valleys(n_repeats):
+    # The Monte Carlo's shortcut: the pairs of compounds repeated per sample equal valley_pairs of the
+    # repeated valley arrays themselves (the independent path), row for row; a compound without valleys,
+    # one without a conduction valley and spin sub-bands are included.
+    rng = np.random.default_rng(3)
+    counts = np.array([3, 0, 4, 1, 2, 5])
+    owner = np.repeat(np.arange(counts.size), counts)
+    label = rng.integers(0, 3, owner.size)
+    cond = rng.random(owner.size) < 0.5
+    cond[owner == 3] = False
+    split = np.where(rng.random(owner.size) < 0.4, rng.uniform(0.0, 0.3, owner.size), np.nan)
+    spin = rng.integers(-1, 2, owner.size)
+    start = np.concatenate([[0], np.cumsum(counts)])
+    rep = np.concatenate([np.tile(np.arange(start[c], start[c + 1]), n_repeats) for c in range(counts.size)])
+    rep_owner = np.concatenate([np.repeat(np.arange(n_repeats) + c * n_repeats, counts[c])
+                                for c in range(counts.size)])
+    direct = X.valley_pairs(rep_owner, label[rep], cond[rep], split[rep], spin[rep])
+    repeated = X.repeat_pairs(X.valley_pairs(owner, label, cond, split, spin), start, n_repeats)
+    assert len(direct.compound) > 0
+    for name, a, b in zip(X.Pairs._fields, direct, repeated):
+        np.testing.assert_array_equal(a, b, err_msg=name)

@@ -5,6 +5,7 @@ import pytest
 
 from lamellume.hydrogenic import binding_2d_anisotropic, binding_2d_ev
 from lamellume.masses import (
+    finite_tensor,
     harmonic_mean_mass_me,
     inplane_average_mass_me,
     inverse_mass_tensor_2d_from_principal,
@@ -130,3 +131,13 @@ def test_validate_masses():
     assert "non-finite" in reasons[5]
     assert validate_masses(np.array([np.nan, 0.4]), allow_missing=True) == [None, None]
     assert validate_masses(np.array([np.inf]), allow_missing=True)[0] is not None
+
+
+def test_finite_tensor_matches_numpy_over_the_last_two_axes():
+    # reference: numpy's own reduction np.all(np.isfinite(t), axis=(-2, -1)) (general-purpose library)
+    rng = np.random.default_rng(5)
+    t = rng.normal(size=(7, 3, 2, 2))
+    for bad in (np.nan, np.inf, -np.inf):
+        t[rng.random(t.shape) < 0.05] = bad
+    np.testing.assert_array_equal(finite_tensor(t), np.all(np.isfinite(t), axis=(-2, -1)))
+    assert finite_tensor(np.eye(2)) and not finite_tensor(np.array([[1.0, np.nan], [0.0, 1.0]]))

@@ -7,6 +7,7 @@ diag(10, 10, 5), r0 = 40 Angstrom, scissor 0.5 eV.
 
 from __future__ import annotations
 
+import json
 import math
 
 import numpy as np
@@ -198,3 +199,33 @@ def test_empty_screen_has_columns(table):
     long, wide = screen.screen_entries(e, v, SETTINGS, table)
     assert len(long) == 0 and len(wide) == 0
     assert "binding_ev" in long.columns and "bulk_binding_ev" in wide.columns
+
+
+def test_spin_sub_bands_and_validity_flag_reach_the_long_table(record, table):
+    # Spin sub-bands (issue 17 item 2): the K conduction edge has spin down, its split-off sub-band (spin
+    # up) lies 30 meV higher; the K valence edge has spin up. The edge pair K(up)->K(down) is spin-dark and
+    # the lowest bright exciton is K(up)->K(up), 30 meV higher with the same masses, so the same binding
+    # (selection rule: Yu and Cardona, Fundamentals of Semiconductors, secs. 6.3-6.4; by hand).
+    # Bindings from the direct radial solve keldysh.solve_levels_ev (as in the test above).
+    plain, _ = _screen(record, table)
+    spin = json.loads(json.dumps(record))
+    spin["valleys"][0].update(spin_split_ev=0.15, edge_spin="up")
+    spin["valleys"][2].update(spin_split_ev=0.03, edge_spin="down")
+    e, v = frames(spin)
+    strict = {**SETTINGS, "excitons": {**SETTINGS["excitons"], "max_binding_fraction": 0.2}}
+    long, _ = screen.screen_entries(e, v, strict, table)
+    assert long["spin_given"].all() and not plain["spin_given"].any()
+    for env, kappa, beyond in (("suspended", 1.0, True), ("hbn", 4.5, False)):
+        eb = float(np.asarray(keldysh.solve_levels_ev(0.25, 40.0, kappa)[0]).ravel()[0])
+        row = long[(long["layers"] == 1) & (long["environment"] == env)].iloc[0]
+        before = plain[(plain["layers"] == 1) & (plain["environment"] == env)].iloc[0]
+        # without spin data the same-label K pair is bright: nothing else changes
+        assert before["brightness"] == "bright" and before["bright_pair"] == "K->K"
+        np.testing.assert_allclose(before["bright_exciton_ev"], 2.3 - eb, rtol=1e-5)
+        assert (row["brightness"], row["bright_pair"], row["dark_pair"]) == ("dark", "K(up)->K(up)", "K(up)->K(down)")
+        np.testing.assert_allclose(row["bright_exciton_ev"], 2.3 + 0.03 - eb, rtol=1e-5)
+        np.testing.assert_allclose(row["dark_exciton_ev"], 2.3 - eb, rtol=1e-5)
+        np.testing.assert_allclose(row["exciton_margin_ev"], -0.03, atol=1e-9)
+        # validity flag: binding above 0.2 of the 2.3 eV direct gap (0.57 / 2.3 suspended, 0.19 / 2.3 in hBN)
+        assert eb / 2.3 > 0.2 if beyond else eb / 2.3 < 0.2
+        assert bool(row["binding_beyond_validity"]) is beyond

@@ -66,6 +66,7 @@ from typing import NamedTuple
 import numpy as np
 from scipy import special
 
+from lamellume import masses
 from lamellume.units import thermal_energy_ev
 
 __all__ = [
@@ -233,6 +234,44 @@ def valley_pairs(owner, label_code, is_conduction, spin_split_ev=None, edge_spin
     return Pairs(*(np.asarray(f)[order] for f in fields))
 
 
+def repeat_pairs(pairs: Pairs, valley_start, n_repeats: int) -> Pairs:
+    """The pairs of :func:`valley_pairs` for every compound repeated ``n_repeats`` times.
+
+    For valleys listed compound by compound (``valley_start``: offsets, shape
+    (n_compounds + 1,)), repeating each compound's valleys ``n_repeats`` times
+    in a row (compound c, repeat r -> compound ``c * n_repeats + r``, its
+    valleys in the same order) gives arrays whose :func:`valley_pairs` are
+    these: the same rows in the same order, without building them again. The
+    Monte Carlo's samples of a record are such repeats.
+
+    Parameters
+    ----------
+    pairs : Pairs
+        :func:`valley_pairs` of the compounds (sorted by compound).
+    valley_start : array_like of int, shape (n_compounds + 1,)
+        First valley of each compound, and the number of valleys last.
+    n_repeats : int
+
+    Returns
+    -------
+    Pairs
+    """
+    start = np.asarray(valley_start, dtype=np.int64)
+    n = start.size - 1
+    k = np.diff(start)                                  # valleys per compound
+    per = np.bincount(pairs.compound, minlength=n)      # pairs per compound
+    first_pair = np.cumsum(per) - per
+    rows = per * n_repeats
+    src_c = np.repeat(np.arange(n), rows)
+    j = np.arange(src_c.size) - np.repeat(np.cumsum(rows) - rows, rows)
+    per_c = per[src_c]                                  # > 0 on every row
+    r = j // per_c
+    src = first_pair[src_c] + j % per_c
+    shift = start[src_c] * (n_repeats - 1) + r * k[src_c]   # valley v of compound c -> v + shift
+    return Pairs(pairs.compound[src] * n_repeats + r, pairs.valence[src] + shift, pairs.conduction[src] + shift,
+                 *(np.asarray(f)[src] for f in pairs[3:]))
+
+
 def pair_gaps_ev(pairs: Pairs, edge_ev, scissor_ev=None):
     """Pair gap ``E_c + scissor + offset_c - (E_v - offset_v)`` in eV.
 
@@ -257,7 +296,9 @@ def pair_gaps_ev(pairs: Pairs, edge_ev, scissor_ev=None):
     shift = np.zeros(pairs.compound.shape) if scissor_ev is None else \
         np.asarray(scissor_ev, dtype=float)[pairs.compound]
     extra = shift + pairs.conduction_offset_ev + pairs.valence_offset_ev
-    return e[pairs.conduction] - e[pairs.valence] + extra.reshape(extra.shape + (1,) * (e.ndim - 1))
+    # np.take along the first axis: the rows of fancy indexing, faster for rows of several numbers
+    return np.take(e, pairs.conduction, axis=0) - np.take(e, pairs.valence, axis=0) \
+        + extra.reshape(extra.shape + (1,) * (e.ndim - 1))
 
 
 def pair_inverse_mass(pairs: Pairs, inverse_mass):
@@ -278,7 +319,7 @@ def pair_inverse_mass(pairs: Pairs, inverse_mass):
     Ashcroft and Mermin, *Solid State Physics* (1976), ch. 12 (reduced mass).
     """
     w = np.asarray(inverse_mass, dtype=float)
-    return w[pairs.conduction] + w[pairs.valence]
+    return np.take(w, pairs.conduction, axis=0) + np.take(w, pairs.valence, axis=0)
 
 
 def pair_total_mass_me(pairs: Pairs, inverse_mass, index=None):
@@ -318,7 +359,7 @@ def pair_total_mass_me(pairs: Pairs, inverse_mass, index=None):
         at[sel] = np.arange(sel.size)
         cond, val = cond[sel], val[sel]
     # each valley's mass tensor is inverted where a pair needs it (the same numbers as inverting all first)
-    total = _mass_tensor(w[cond]) + _mass_tensor(w[val])
+    total = _mass_tensor(np.take(w, cond, axis=0)) + _mass_tensor(np.take(w, val, axis=0))
     det = total[:, 0, 0] * total[:, 1, 1] - total[:, 0, 1] * total[:, 1, 0]
     with np.errstate(invalid="ignore"):
         mass = np.sqrt(det)
@@ -328,7 +369,7 @@ def pair_total_mass_me(pairs: Pairs, inverse_mass, index=None):
 def _mass_tensor(w):
     """Mass tensors (k, 2, 2) of inverse-mass tensors ``w``, m_e; NaN where a tensor is not finite."""
     m = np.full(w.shape, np.nan)
-    good = np.all(np.isfinite(w), axis=(1, 2))
+    good = masses.finite_tensor(w)
     if good.all():
         good = slice(None)
     if w[good].size:  # 2x2 inverse written out (numpy.linalg.inv costs ~10x as much for many tiny matrices)
@@ -382,8 +423,19 @@ class ExcitonLevels(NamedTuple):
     verdict: np.ndarray
 
 
-def _segment_min(values, index, compound, n_compounds):
-    """Per compound: minimum of ``values`` over its pairs and the first pair attaining it."""
+def _runs(compound):
+    """(first row, compound, rows) of each run of equal compounds when ``compound`` is sorted, else None."""
+    if not np.all(compound[1:] >= compound[:-1]):
+        return None
+    start = np.flatnonzero(np.concatenate([[True], compound[1:] != compound[:-1]]))
+    return start, compound[start], np.diff(np.append(start, len(compound)))
+
+
+def _segment_min(values, index, compound, n_compounds, runs=False):
+    """Per compound: minimum of ``values`` over its pairs and the first pair attaining it.
+
+    ``runs``: :func:`_runs` of ``compound`` when the caller has it (False: found here).
+    """
     shape = (n_compounds,) + values.shape[1:]
     best = np.full(shape, np.inf)
     arg = np.full(shape, NO_PAIR, dtype=np.int64)
@@ -392,15 +444,17 @@ def _segment_min(values, index, compound, n_compounds):
     big = np.iinfo(np.int64).max
     index = index.reshape((-1,) + (1,) * (values.ndim - 1))
     first = np.full(shape, big, dtype=np.int64)
-    if np.all(compound[1:] >= compound[:-1]):
+    if runs is False:
+        runs = _runs(compound)
+    if runs is not None:
         # pairs sorted by compound (as valley_pairs makes them): one reduction per contiguous segment,
         # several times faster than the unbuffered ufunc.at scatter; the same minima and first indices
-        start = np.flatnonzero(np.concatenate([[True], compound[1:] != compound[:-1]]))
-        seg = compound[start]
+        start, seg, length = runs
+        rows = slice(None) if seg.size == n_compounds else seg   # seg is sorted and unique
         seg_best = np.minimum.reduceat(values, start, axis=0)
-        best[seg] = seg_best
-        hit = np.isfinite(values) & (values == np.repeat(seg_best, np.diff(np.append(start, len(compound))), axis=0))
-        first[seg] = np.minimum.reduceat(np.where(hit, index, big), start, axis=0)
+        best[rows] = seg_best
+        hit = np.isfinite(values) & (values == np.repeat(seg_best, length, axis=0))
+        first[rows] = np.minimum.reduceat(np.where(hit, index, big), start, axis=0)
     else:
         np.minimum.at(best, compound, values)
         hit = np.isfinite(values) & (values == best[compound])
@@ -437,8 +491,9 @@ def lowest_excitons(compound, exciton_ev, bright, n_compounds: int) -> ExcitonLe
     b = np.asarray(bright, dtype=bool).reshape((-1,) + (1,) * (e.ndim - 1))
     e_ok = np.where(np.isfinite(e), e, np.inf)
     idx = np.arange(comp.size)
-    eb, ib = _segment_min(np.where(b, e_ok, np.inf), idx, comp, n_compounds)
-    ed, idk = _segment_min(np.where(~b, e_ok, np.inf), idx, comp, n_compounds)
+    runs = _runs(comp) if comp.size else None   # once for the bright and the dark search
+    eb, ib = _segment_min(np.where(b, e_ok, np.inf), idx, comp, n_compounds, runs)
+    ed, idk = _segment_min(np.where(~b, e_ok, np.inf), idx, comp, n_compounds, runs)
     eb = np.where(np.isfinite(eb), eb, np.nan)
     ed = np.where(np.isfinite(ed), ed, np.nan)
     return ExcitonLevels(eb, ib, ed, idk, ed - eb, brightness_verdict(eb, ed))

@@ -588,7 +588,8 @@ class KeldyshTable:
         high = s > s_max
         if not (low.any() or high.any()):   # every point on the spline (or NaN): no masked copies
             with np.errstate(invalid="ignore"):
-                out = np.exp(_evaluate_pieces(*self._spline_pieces(key), np.log(s), self._lookup(key)))
+                out = _evaluate_pieces(*self._spline_pieces(key), np.log(s), self._lookup(key))
+                np.exp(out, out=out)   # in place: a fresh array
             return out[()] if out.ndim == 0 else out
         out = np.full(s.shape, np.nan)
         mid = (s >= s1) & (s <= s_max)
@@ -734,10 +735,17 @@ def _piece_lookup(breaks):
 def _piece_index(lookup, x):
     """``searchsorted(breaks, x, side="right")`` through the bins of :func:`_piece_lookup` (x not NaN)."""
     start, inv_width, at_left, padded = lookup
-    j = np.clip(((np.asarray(x) - start) * inv_width).astype(np.intp), 0, at_left.size - 1)
-    k = at_left[j]
-    k = k + (x >= padded[k + 1])
-    return k - (x < padded[k])
+    x = np.asarray(x)
+    # the operations of ((x - start) * inv_width).astype(...) etc., in place where the arrays are
+    # fresh (large temporaries cost more than the arithmetic); np.take: fancy indexing, faster
+    t = np.subtract(x, start, out=np.empty(x.shape))
+    t *= inv_width
+    j = t.astype(np.intp)
+    np.clip(j, 0, at_left.size - 1, out=j)
+    k = np.take(at_left, j)
+    k += x >= np.take(padded, k + 1)
+    k -= x < np.take(padded, k)
+    return k
 
 
 def _evaluate_pieces(breaks, coefs, x, lookup=None):
@@ -747,11 +755,13 @@ def _evaluate_pieces(breaks, coefs, x, lookup=None):
     the result is the same.
     """
     k = np.searchsorted(breaks, x, side="right") if lookup is None else _piece_index(lookup, x)
-    i = np.clip(k - 1, 0, breaks.size - 2)
-    dx = x - breaks[i]
-    out = coefs[0, i]
+    k -= 1   # a fresh array (or a number): the piece index
+    i = np.clip(k, 0, breaks.size - 2, out=k if isinstance(k, np.ndarray) and k.ndim else None)
+    dx = x - np.take(breaks, i)
+    out = np.asarray(np.take(coefs[0], i), dtype=float)   # a fresh array, updated in place below
     for m in range(1, coefs.shape[0]):
-        out = out * dx + coefs[m, i]
+        out *= dx   # out * dx + c, the same two roundings
+        out += np.take(coefs[m], i)
     return out
 
 

@@ -118,6 +118,11 @@ class ModelInputs:
         Valley degeneracy (symmetry-equivalent points of the label; None: 1).
     spin_split_ev, edge_spin : (V,) or None
         Spin sub-bands (:func:`lamellume.excitons.spin_subbands`; None: not given).
+    valley_pairs : lamellume.excitons.Pairs or None
+        :func:`lamellume.excitons.valley_pairs` of owner, label_code,
+        is_conduction and the spin sub-bands, when the caller has them already
+        (the Monte Carlo builds them once per record and repeats them per
+        sample, :func:`lamellume.excitons.repeat_pairs`); None: built here.
     binding_factor_layers, binding_factor_bulk : (n,) or float
         Factor on every Rytova-Keldysh (layers) or bulk 3D binding: the binding
         model's own error, sampled by the Monte Carlo (1 for the point estimate).
@@ -153,6 +158,7 @@ class ModelInputs:
     degeneracy: np.ndarray | None = None
     spin_split_ev: np.ndarray | None = None
     edge_spin: np.ndarray | None = None
+    valley_pairs: excitons.Pairs | None = None
     binding_factor_layers: np.ndarray | float = 1.0
     binding_factor_bulk: np.ndarray | float = 1.0
     edge_kappa: np.ndarray | float = 1.0
@@ -281,8 +287,10 @@ def valley_table(inputs: ModelInputs) -> ValleyTable:
 
 def _pick(table: np.ndarray, labels: np.ndarray) -> np.ndarray:
     """table[c, labels[c, j]] for every compound c and column j; NaN where NO_LABEL."""
-    rows = np.arange(table.shape[0])[:, None]
-    out = table[rows, np.where(labels < 0, 0, labels)]
+    n, k = table.shape[:2]
+    # np.take of the flattened (compound, label) axis: the rows of fancy indexing, faster
+    out = np.take(table.reshape((n * k,) + table.shape[2:]), np.arange(n)[:, None] * k + np.where(labels < 0, 0, labels),
+                  axis=0)
     out[labels < 0] = np.nan
     return out
 
@@ -297,7 +305,7 @@ def pair_masses(table: ValleyTable, valence_label: np.ndarray, conduction_label:
     (:func:`lamellume.masses.inplane_average_mass_me`).
     """
     w = _pick(table.inv_mass[1], conduction_label) + _pick(table.inv_mass[0], valence_label)
-    good = np.all(np.isfinite(w), axis=(-2, -1))
+    good = masses.finite_tensor(w)
     mu = np.where(good, masses.inplane_average_mass_me(w), np.nan)
     small = large = angle = perp = None
     if principal:
@@ -365,12 +373,14 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     dicts gain :data:`EXCITON_QUANTITIES`.
     """
     n = inputs.n_compounds
-    pr = excitons.valley_pairs(inputs.owner, inputs.label_code, inputs.is_conduction,
-                               inputs.spin_split_ev, inputs.edge_spin)
+    pr = inputs.valley_pairs
+    if pr is None:
+        pr = excitons.valley_pairs(inputs.owner, inputs.label_code, inputs.is_conduction,
+                                   inputs.spin_split_ev, inputs.edge_spin)
     c = pr.compound
     gaps = excitons.pair_gaps_ev(pr, inputs.edges_ev, inputs.scissor_ev)          # (P, L)
     w = excitons.pair_inverse_mass(pr, inputs.inv_mass)
-    good = np.all(np.isfinite(w), axis=(1, 2))
+    good = masses.finite_tensor(w)
     with np.errstate(invalid="ignore", divide="ignore"):
         mu = np.where(good, masses.inplane_average_mass_me(w), np.nan)
     deg = excitons.pair_degeneracy(pr, np.ones(len(inputs.owner)) if inputs.degeneracy is None
