@@ -33,6 +33,9 @@ import yaml
 ROOT = Path(__file__).resolve().parents[2]
 PWN = ['<script>window.__pwned=1</script>', '<img src=x onerror="window.__pwned=1">']
 HOSTILE_ID = "hostile-0001"
+#: A record whose formula a spreadsheet would run (the page's CSV download must neutralise it).
+SHEET_ID = "sheet-0001"
+SHEET_FORMULA = '=HYPERLINK("http://example.invalid","x")'
 CHROMIUM = os.environ.get("LAMELLUME_CHROMIUM", "/usr/bin/chromium")
 CHROMEDRIVER = os.environ.get("LAMELLUME_CHROMEDRIVER", "/usr/bin/chromedriver")
 
@@ -77,6 +80,8 @@ def run(tmp_path_factory):
     record = json.loads(donor.read_text(encoding="utf-8"))
     record.update(id=HOSTILE_ID, formula="".join(PWN), provenance=" ".join(PWN) + " \u2028 & </script>")
     (entries / f"{HOSTILE_ID}.json").write_text(json.dumps(record, indent=1), encoding="utf-8")
+    sheet = dict(record, id=SHEET_ID, formula=SHEET_FORMULA, provenance="SYNTHETIC: a formula for spreadsheets")
+    (entries / f"{SHEET_ID}.json").write_text(json.dumps(sheet, indent=1), encoding="utf-8")
 
     with open(ROOT / "config" / "config.yaml", encoding="utf-8") as fh:
         config = yaml.safe_load(fh)
@@ -371,3 +376,30 @@ def test_cards_plan_the_first_experiment(driver, run):
     body = driver.execute_script("return document.body.innerText")
     assert "Emits at" not in body and "100 % of pairs" not in body
     assert "given the input uncertainties" in body
+
+
+def test_download_button_writes_a_spreadsheet_safe_csv(driver, run):
+    """The page's "Download shown rows (CSV)" follows the rule of the CSV files (README, "Input
+    contract"): source OWASP "CSV Injection" (a text cell starting with =, +, -, @, tab or
+    carriage return gets a leading single quote; numbers stay numbers)."""
+    import csv
+    import io
+
+    driver.execute_script("var f = document.getElementById('filter'); f.value = '';"
+                          "f.dispatchEvent(new Event('input'));")
+    text = driver.execute_async_script("""
+        const done = arguments[arguments.length - 1];
+        const make = URL.createObjectURL, click = HTMLAnchorElement.prototype.click;
+        HTMLAnchorElement.prototype.click = function () {};  // keep the file: nothing is saved
+        URL.createObjectURL = function (blob) { blob.text().then(done); return make.call(URL, blob); };
+        try { document.getElementById('csv').click(); }
+        finally { URL.createObjectURL = make; HTMLAnchorElement.prototype.click = click; }""")
+    rows = list(csv.DictReader(io.StringIO(text)))
+    assert len(rows) == _visible_rows(driver) == len(run["wide"])
+    sheet = next(r for r in rows if r["compound"] == SHEET_ID)
+    assert sheet["formula"] == "'" + SHEET_FORMULA
+    hostile = next(r for r in rows if r["compound"] == HOSTILE_ID)
+    assert hostile["formula"] == "".join(PWN)  # text that starts otherwise is left as it is
+    wide = run["wide"].set_index("entry_id")
+    for row in rows:  # numbers stay numbers
+        assert float(row["score"]) == pytest.approx(float(wide.loc[row["compound"], "score"]), abs=1e-4)
