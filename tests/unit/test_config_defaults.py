@@ -10,14 +10,10 @@ SCHEMA = json.loads((ROOT / "workflow" / "schemas" / "config.schema.json").read_
 CONFIG = yaml.safe_load((ROOT / "config" / "config.yaml").read_text())
 
 
-def _leaf_defaults(node, path=()):
-    """(path, default) for every schema leaf; objects with named properties are descended."""
-    props = node.get("properties")
-    if node.get("type") == "object" and props:
-        for key, child in props.items():
-            yield from _leaf_defaults(child, path + (key,))
-    else:
-        yield path, node.get("default", KeyError)
+def _leaf_defaults(node):
+    """(path, default) for every schema leaf (:func:`_leaves`); KeyError where none is given."""
+    for path, leaf in _leaves(node):
+        yield path, leaf.get("default", KeyError)
 
 
 def _lookup(config, path):
@@ -52,7 +48,7 @@ MIN_REASON_WORDS = 6
 
 
 def _leaves(node, path=()):
-    """(path, schema node) for every schema leaf, as :func:`_leaf_defaults` walks them."""
+    """(path, schema node) for every schema leaf; objects with named properties are descended."""
     props = node.get("properties")
     if node.get("type") == "object" and props:
         for key, child in props.items():
