@@ -400,6 +400,12 @@ def test_optical_gap_and_emission():
     # E_opt = E_direct - E_b; lambda = hc / E (CODATA via scipy.constants)
     e_opt = L.optical_gap_ev(np.array([2.0, 1.8, np.nan]), 0.5)
     np.testing.assert_allclose(e_opt, [1.5, 1.3, np.nan])
+    # a binding that reaches the direct gap gives no optical gap (issue 12; outside the Wannier-Mott
+    # picture, common practice): equal, larger, and far larger than the 0.08 eV gap
+    np.testing.assert_allclose(L.optical_gap_ev(0.08, np.array([0.03, 0.08, 0.25, 2.98])),
+                               [0.05, np.nan, np.nan, np.nan])
+    np.testing.assert_allclose(L.optical_gap_of_exciton_ev(np.array([[0.05, 0.0], [-0.17, np.nan]])),
+                               [[0.05, np.nan], [np.nan, np.nan]])
     lam = L.emission_wavelength_nm(np.array([[1.5, 0.0], [-1.0, np.nan]]))
     np.testing.assert_allclose(lam[0, 0], HC_EV_NM / 1.5)
     assert np.isnan(lam[0, 1]) and np.isnan(lam[1]).all()

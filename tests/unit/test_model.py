@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from scipy import constants as sc
 
-from lamellume import gapshift, keldysh, model
+from lamellume import excitons, gapshift, keldysh, model
 
 # CODATA via scipy.constants, independent of lamellume.units.
 RY_EV = sc.value("Rydberg constant times hc in eV")
@@ -96,7 +96,10 @@ def test_exciton_level_in_the_2d_hydrogen_limit(table):
     # is direct; kappa = 12: dark 2.1 - 0.162 > bright 2.0 - 0.094 -> bright
     assert res.gap.is_direct[0, 0]
     assert list(res.stack["brightness"][0, 0]) == ["dark", "bright"]
-    np.testing.assert_allclose(res.stack["optical_gap_ev"][0, 0], bright, rtol=1e-5)
+    # optical gap = the lowest bright exciton where its energy is positive: kappa 2 binds beyond the
+    # gap (2.0 - 3.40 < 0), no optical gap there (issue 12; the exciton energy above stays)
+    assert bright[0] < 0 < bright[1]
+    np.testing.assert_allclose(res.stack["optical_gap_ev"][0, 0], [np.nan, bright[1]], rtol=1e-5)
     # bulk: 3D hydrogenic per pair, Ry mu / eps^2 with eps = sqrt(50) (Wannier-Mott)
     np.testing.assert_allclose(res.bulk["bright_exciton_ev"], 2.0 - RY_EV * 0.25 / 50, rtol=1e-12)
     np.testing.assert_allclose(res.bulk["dark_exciton_ev"], 2.1 - RY_EV * (3 / 7) / 50, rtol=1e-12)
@@ -106,15 +109,68 @@ def test_exciton_level_in_the_2d_hydrogen_limit(table):
     np.testing.assert_allclose(res.bulk["dark_weight"], [2 * 3.5 ** 1.5])
 
 
-@pytest.mark.parametrize("edge_kappa", [2.0, 3.0])
+@pytest.mark.parametrize("edge_kappa", [2.0, 12.0, 3.0])
 def test_compensated_gap_keeps_the_exciton_of_the_edges_surroundings(table, edge_kappa):
     # Full compensation: in every surroundings the compensated optical gap is the bright exciton of the
     # surroundings the edges belong to; r0 -> 0 gives 2D hydrogen there, E_b = 4 Ry mu / kappa^2 (Yang et
-    # al., Phys. Rev. A 43, 1186 (1991)), mu = 0.25 (by hand). kappa 2.0 is one of the configured
-    # surroundings, 3.0 is not (both ways of finding the reference binding).
+    # al., Phys. Rev. A 43, 1186 (1991)), mu = 0.25 (by hand). kappa 2.0 and 12.0 are configured
+    # surroundings, 3.0 is not (both ways of finding the reference binding). kappa 2.0 binds beyond the gap
+    # (2.0 - 3.40 eV < 0): no optical gap there (issue 12).
     res = model.evaluate(replace(_three_valley_inputs(1e-6), edge_kappa=edge_kappa), model.ModelSettings(), table)
     expected = 2.0 - 4 * RY_EV * 0.25 / edge_kappa**2
+    if edge_kappa == 2.0:
+        assert expected < 0
+        expected = np.nan
     np.testing.assert_allclose(res.stack["optical_gap_compensated_ev"][0, 0], [expected, expected], rtol=1e-5)
+
+
+def _small_and_wide_gap_inputs() -> model.ModelInputs:
+    """Two compounds, one direct K-K pair each (electron and hole 0.5 m_e), r0 -> 0 (2D hydrogen limit).
+
+    Compound 0: direct gap 0.08 eV, weak screening (every dielectric constant 2). Compound 1: direct gap
+    4.0 eV, eps_par 10, eps_perp 5. Surroundings kappa 2 and 20; band edges of kappa = 2 surroundings.
+    """
+    inv = np.array([np.eye(2) / 0.5] * 4)
+    edges = np.array([[-5.0, -5.0], [-4.92, -4.92], [-5.0, -5.0], [-1.0, -1.0]])
+    return model.ModelInputs(
+        layers=np.array([1, 0]), owner=np.array([0, 0, 1, 1]), label_code=np.zeros(4, dtype=int),
+        is_conduction=np.array([False, True, False, True]), edges_ev=edges, inv_mass=inv,
+        mass_perp_me=np.full(4, np.nan), scissor_ev=np.zeros(2), eps_parallel=np.array([2.0, 10.0]),
+        eps_perpendicular=np.array([2.0, 5.0]), eps_bulk=np.array([2.0, np.sqrt(50.0)]),
+        spacing_angstrom=np.array([6.0, 6.0]), r0_given_angstrom=np.array([1e-6, 1e-6]),
+        kappa=np.array([2.0, 20.0]), edge_kappa=np.array([2.0, 2.0]))
+
+
+def test_no_optical_gap_where_the_binding_reaches_the_direct_gap(table):
+    # Issue 12: no row may carry a negative gap. Hand-computed references, mu = 0.5 x 0.5 / 1.0 = 0.25:
+    # layers, r0 -> 0: 2D hydrogen E_b = 4 Ry mu / kappa^2 (Yang et al., Phys. Rev. A 43, 1186 (1991));
+    # bulk: 3D hydrogen E_b = Ry mu / eps^2 (Wannier-Mott, hydrogen scaled). Ry from scipy.constants (CODATA).
+    #   compound 0 (gap 0.08): kappa 2: E_b = Ry/4 = 3.401 eV > 0.08 -> exciton energy -3.32 eV: no optical gap;
+    #                          kappa 20: E_b = Ry/400 = 0.0340 eV -> optical gap 0.0460 eV, emission hc/E;
+    #                          compensated (edges of kappa 2): 0.08 - 3.401 < 0 in both: none;
+    #                          bulk: E_b = Ry/16 = 0.850 eV > 0.08: none.
+    #   compound 1 (gap 4.0): every value valid: 4 - Ry/4 = 0.599, 4 - Ry/400 = 3.966, bulk 4 - Ry/200 = 3.932.
+    res = model.evaluate(_small_and_wide_gap_inputs(), model.ModelSettings(), table)
+    eb = 4 * RY_EV * 0.25 / np.array([2.0, 20.0]) ** 2
+    exciton = np.array([0.08 - eb, 4.0 - eb])
+    optical = np.array([[np.nan, 0.08 - eb[1]], 4.0 - eb])
+    compensated = np.array([[np.nan, np.nan], [4.0 - eb[0]] * 2])
+    # the exciton energies and the verdict are kept as computed, negative one included (one pair per
+    # compound: no dark competitor, verdict "unknown" everywhere, README "Methods")
+    np.testing.assert_allclose(res.stack["bright_exciton_ev"][:, 0], exciton, rtol=1e-5)
+    assert exciton[0, 0] < 0 and (res.stack["brightness"][:, 0] == "unknown").all()
+    np.testing.assert_allclose(res.stack["optical_gap_ev"][:, 0], optical, rtol=1e-5)
+    np.testing.assert_allclose(res.stack["emission_nm"][:, 0], HC_EV_NM / optical, rtol=1e-5)
+    np.testing.assert_allclose(res.stack["optical_gap_compensated_ev"][:, 0], compensated, rtol=1e-5)
+    np.testing.assert_allclose(res.stack["emission_compensated_nm"][:, 0], HC_EV_NM / compensated, rtol=1e-5)
+    bulk = np.array([np.nan, 4.0 - RY_EV * 0.25 / 50.0])
+    np.testing.assert_allclose(res.bulk["optical_gap_ev"], bulk, rtol=1e-12)
+    np.testing.assert_allclose(res.bulk["emission_nm"], HC_EV_NM / bulk, rtol=1e-12)
+    np.testing.assert_allclose(res.bulk["bright_exciton_ev"], [0.08 - RY_EV * 0.25 / 4.0, bulk[1]], rtol=1e-12)
+    # every emptied value sits in a row flagged outside the effective-mass model (binding above half the
+    # direct gap); the flag is wider: compound 1 at kappa 2 (3.40 > 2.0 eV) is flagged and keeps its gap
+    flagged = excitons.binding_fraction_exceeds(res.stack["binding_ev"][:, 0], 0.08 * np.array([[1], [50]]), 0.5)
+    np.testing.assert_array_equal(flagged, [[True, False], [True, False]])
 
 
 def test_binding_factor_scales_every_layer_binding(table):

@@ -10,6 +10,7 @@ import pandas as pd
 import pytest
 from hypothesis import Phase, given, settings
 from hypothesis import strategies as st
+from scipy import constants as sc
 
 from lamellume import io, keldysh, pipeline
 
@@ -361,6 +362,11 @@ def test_no_screened_row_carries_a_negative_gap(records, table_path, tmp_path_fa
     assert screened | set(rejects["entry_id"]) == {r["id"] for r in records}  # nothing dropped silently
     # the invariant: every row of a screened compound has a positive fundamental and direct gap
     assert (long["fundamental_gap_ev"] > 0).all() and (long["direct_gap_ev"] > 0).all()
+    # and no optical gap at or below zero: empty where the binding reaches the direct gap
+    for col in ("optical_gap_ev", "optical_gap_compensated_ev"):
+        assert not (long[col] <= 0).any(), col
+    for col in [c for c in tables["wide"].columns if "optical_gap" in c]:
+        assert not (tables["wide"][col] <= 0).any(), col
     for record in records:
         gaps = _given_gaps(record)
         if any(g <= 0 for g in gaps.values()):  # the inputs themselves show no gap: rejected
@@ -372,3 +378,73 @@ def test_no_screened_row_carries_a_negative_gap(records, table_path, tmp_path_fa
             for key, gap in gaps.items():
                 at = rows[rows["layers"] == (0 if key == "bulk" else int(key))]["fundamental_gap_ev"]
                 np.testing.assert_allclose(at, gap, rtol=0, atol=1e-9)
+
+
+# ---------------------------------------------------------------------------------------------
+# No written row carries a non-positive optical gap (issue 12: binding beyond the direct gap)
+# ---------------------------------------------------------------------------------------------
+
+def _weak_screening_record(record: dict) -> dict:
+    """The fixture record with a 0.08 eV direct K-K gap at every layer count, every dielectric
+    constant 2 (r0 then estimated from eps_parallel and the spacing) and no out-of-plane masses
+    (bulk: isotropic 3D hydrogen): a binding far above the gap."""
+    rec = json.loads(json.dumps(record))
+    rec.update(id="weak-screening", scissor_ev=0.0)
+    rec["dielectric"] = {"frame": "layer", "electronic": [[2.0, 0.0, 0.0], [0.0, 2.0, 0.0], [0.0, 0.0, 2.0]]}
+    rec.pop("monolayer_screening")
+    edges = {("K", "valence"): -5.0, ("G", "valence"): -6.4, ("K", "conduction"): -4.92, ("Q", "conduction"): -3.8}
+    for valley in rec["valleys"]:
+        e = edges[(valley["label"], valley["band"])]
+        valley["edge_ev"] = {"1": e, "bulk": e}
+        valley["mass"].pop("perpendicular_me", None)
+    return rec
+
+
+def test_no_written_row_carries_a_non_positive_optical_gap(tmp_path, record, table_path):
+    from mc_setup import config_sections
+
+    cfg = config_sections()
+    entries = tmp_path / "campaign" / "entries"
+    entries.mkdir(parents=True)
+    (entries / "fixture-a.json").write_text(json.dumps(dict(record, id="fixture-a")))
+    (entries / "weak-screening.json").write_text(json.dumps(_weak_screening_record(record)))
+    shard = {k: str(tmp_path / "shard" / f"{k}.parquet") for k in (*pipeline.SHARD_TABLES, "uncertainty")}
+    pipeline.run_shard_job(sorted(str(p) for p in entries.glob("*.json")), str(entries.parent), cfg, cfg,
+                           table_path, str(tmp_path / "cache"), shard)
+    final = {k: str(tmp_path / "final" / name) for k, name in
+             (("rejects", "rejects.parquet"), ("rejects_csv", "rejects.csv"), ("wide", "wide.parquet"),
+              ("shortlist", "shortlist.csv"))}
+    pipeline.run_rank({k: [shard[k]] for k in ("rejects", "wide", "uncertainty", "long")}, final, cfg, "test")
+    long, wide = io.read_parquet(shard["long"]), io.read_parquet(final["wide"])
+    unc = io.read_parquet(shard["uncertainty"])
+    assert set(wide["entry_id"]) == {"fixture-a", "weak-screening"}
+    # the invariant: every optical-gap value written (long, wide, Monte Carlo percentiles) is positive or empty
+    for name, frame in (("long", long), ("wide", wide), ("uncertainty", unc)):
+        cols = [c for c in frame.columns if "optical_gap" in c]
+        assert cols, name
+        for col in cols:
+            values = frame[col].to_numpy(dtype=float)
+            assert not (values <= 0).any(), (name, col)
+    # the weak-screening compound: its bulk row by hand, K-K pair mu = 0.5 x 0.5 / 1.0 = 0.25, 3D hydrogen
+    # E_b = Ry mu / eps^2 = 13.6057 x 0.25 / 4 = 0.850 eV (Wannier-Mott, Ry from scipy.constants) > 0.08 eV:
+    # exciton energy -0.770 eV, kept as computed; no optical gap, no emission, row flagged
+    weak = long[long["entry_id"] == "weak-screening"]
+    np.testing.assert_allclose(weak["direct_gap_ev"], 0.08, rtol=0, atol=1e-9)
+    bulk = weak[weak["layers"] == 0]
+    ry_ev = sc.value("Rydberg constant times hc in eV")
+    np.testing.assert_allclose(bulk["bright_exciton_ev"], 0.08 - ry_ev * 0.25 / 4.0, rtol=1e-9)
+    assert bulk["optical_gap_ev"].isna().all() and bulk["binding_beyond_validity"].all()
+    # every row: an empty optical gap exactly where the exciton energy is not positive, those rows
+    # flagged and without emission; the ranked table's target copy follows its row
+    gone = weak["optical_gap_ev"].isna().to_numpy()
+    np.testing.assert_array_equal(gone, (weak["bright_exciton_ev"] <= 0).to_numpy())
+    assert weak.loc[gone, "binding_beyond_validity"].all() and weak.loc[gone, "emission_nm"].isna().all()
+    target = weak[(weak["layers"] == cfg["ranking"]["target_layers"])
+                  & (weak["environment"] == cfg["ranking"]["environment"])]
+    row = wide.set_index("entry_id").loc["weak-screening"]
+    np.testing.assert_array_equal(np.isnan(row["target_optical_gap_ev"]), target["optical_gap_ev"].isna())
+    assert np.isnan(row["target_optical_gap_ev"]) == np.isnan(row["target_emission_nm"])
+    # the neighbouring valid compound keeps every value
+    fine = long[long["entry_id"] == "fixture-a"]
+    assert fine["optical_gap_ev"].notna().all() and fine["emission_nm"].notna().all()
+    assert wide.set_index("entry_id").loc["fixture-a", "target_optical_gap_ev"] > 0

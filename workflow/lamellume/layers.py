@@ -60,6 +60,7 @@ __all__ = [
     "gap_character",
     "layer_crossover",
     "optical_gap_ev",
+    "optical_gap_of_exciton_ev",
     "emission_wavelength_nm",
     "spectral_band",
 ]
@@ -608,7 +609,7 @@ def layer_crossover(is_direct, layers, known=None) -> Crossover:
 # 4. Optical gap and emission
 # --------------------------------------------------------------------------- #
 def optical_gap_ev(direct_gap_ev, binding_ev):
-    """Optical (excitonic) gap ``E_opt = E_direct - E_b`` in eV.
+    """Optical (excitonic) gap ``E_opt = E_direct - E_b`` in eV, NaN where not positive.
 
     Parameters
     ----------
@@ -621,14 +622,42 @@ def optical_gap_ev(direct_gap_ev, binding_ev):
     Returns
     -------
     numpy.ndarray
-        Optical gap in eV; NaN propagates.
+        Optical gap in eV (:func:`optical_gap_of_exciton_ev` of the difference):
+        NaN where the binding reaches the direct gap; NaN propagates.
 
     References
     ----------
     P. Y. Yu and M. Cardona, *Fundamentals of Semiconductors*, 4th ed. (2010),
     sec. 6.3 (excitons).
     """
-    return np.asarray(direct_gap_ev, dtype=float) - np.asarray(binding_ev, dtype=float)
+    return optical_gap_of_exciton_ev(np.asarray(direct_gap_ev, dtype=float) - np.asarray(binding_ev, dtype=float))
+
+
+def optical_gap_of_exciton_ev(exciton_ev):
+    """Optical gap given by a model exciton energy: the energy where positive, else NaN.
+
+    The one rule for every optical-gap value of the screen and the Monte Carlo:
+    an exciton energy ``E_gap - E_b <= 0`` means a binding that reaches the
+    (pair's) direct gap, outside the effective-mass (Wannier-Mott) model, which
+    then gives no optical gap (common practice: the Wannier-Mott picture needs
+    a binding well below the gap; such rows are also flagged
+    ``binding_beyond_validity``). The exciton energies themselves
+    (``bright_exciton_ev``, ``dark_exciton_ev``) and the brightness verdict are
+    left as computed.
+
+    Parameters
+    ----------
+    exciton_ev : float or array_like
+        Exciton energy (pair gap minus binding) in eV.
+
+    Returns
+    -------
+    numpy.ndarray
+        The energy in eV where positive; NaN elsewhere (NaN included).
+    """
+    e = np.asarray(exciton_ev, dtype=float)
+    with np.errstate(invalid="ignore"):
+        return np.where(e > 0, e, np.nan)
 
 
 def emission_wavelength_nm(energy_ev):

@@ -369,8 +369,10 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     included) binds with its own reduced mass: Rytova-Keldysh for layers, the
     bulk model for bulk (anisotropic 3D where both out-of-plane masses are
     given, else 3D hydrogenic with sqrt(eps_par eps_perp)). The lowest bright
-    exciton becomes ``optical_gap_ev`` (and the emission); the stack and bulk
-    dicts gain :data:`EXCITON_QUANTITIES`.
+    exciton becomes ``optical_gap_ev`` (and the emission) where its energy is
+    positive (:func:`lamellume.layers.optical_gap_of_exciton_ev`; NaN where the
+    binding reaches the pair's direct gap); the stack and bulk dicts gain
+    :data:`EXCITON_QUANTITIES`.
     """
     n = inputs.n_compounds
     pr = inputs.valley_pairs
@@ -405,13 +407,16 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
             sel = rate[pick, np.arange(pick.shape[1])[None, :, None], np.arange(pick.shape[2])[None, None, :]] \
                 if len(rate) else np.full(pick.shape, np.nan)
             out["radiative_rate_0_per_s"] = np.where(found, sel, np.nan)
+        # the optical gaps: the lowest bright exciton's energy where positive (layers.optical_gap_of_exciton_ev:
+        # a binding that reaches the pair's direct gap gives none); the exciton energies stay as computed
         if compensated is None:
-            out["optical_gap_compensated_ev"] = lev.bright_ev
+            out["optical_gap_compensated_ev"] = layer_model.optical_gap_of_exciton_ev(lev.bright_ev)
         else:
             pick = np.maximum(lev.bright_pair, 0)
             sel = compensated[pick, np.arange(pick.shape[1])[None, :, None]] if len(compensated) else \
                 np.full(pick.shape, np.nan)
-            out["optical_gap_compensated_ev"] = np.where(lev.bright_pair >= 0, sel, np.nan)
+            out["optical_gap_compensated_ev"] = layer_model.optical_gap_of_exciton_ev(
+                np.where(lev.bright_pair >= 0, sel, np.nan))
         out["emission_compensated_nm"] = layer_model.emission_wavelength_nm(out["optical_gap_compensated_ev"])
         for key, idx in (("bright", lev.bright_pair), ("dark", lev.dark_pair)):
             weight = excitons.state_weight(deg[np.maximum(idx, 0)], total[key], dimension) if len(c) else np.nan
@@ -419,10 +424,11 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
             out[f"{key}_pair_index"] = idx
         out["bright_exciton_ev"], out["dark_exciton_ev"] = lev.bright_ev, lev.dark_ev
         out["exciton_margin_ev"], out["brightness"] = lev.margin_ev, lev.verdict
+        optical = layer_model.optical_gap_of_exciton_ev(lev.bright_ev)
         if "optical_gap_ev" in out:
-            out["optical_gap_ev"] = lev.bright_ev
+            out["optical_gap_ev"] = optical
         if "emission_nm" in out:
-            out["emission_nm"] = layer_model.emission_wavelength_nm(lev.bright_ev)
+            out["emission_nm"] = layer_model.emission_wavelength_nm(optical)
 
     kappa = np.asarray(inputs.kappa, dtype=float)
     lay = np.asarray(inputs.layers)

@@ -231,12 +231,15 @@ _LONG = [
      "binding above excitons.max_binding_fraction of the direct gap: outside the effective-mass model's validity"),
     ("spin_given", B, NO_UNIT, "the record gives spin sub-bands (without them every same-label pair counts as bright)"),
     ("optical_gap_ev", F, "eV", "lowest bright exciton energy (equals bright_exciton_ev; direct gap - binding_ev "
-     "unless spin sub-bands or another same-label pair decide)"),
+     "unless spin sub-bands or another same-label pair decide); empty where that energy is not positive, i.e. the "
+     "binding reaches the direct gap (outside the effective-mass model, see binding_beyond_validity; "
+     "bright_exciton_ev and brightness keep their values)"),
     ("emission_nm", F, "nm", "vacuum wavelength of the lowest bright exciton (band edges as given: no gap shift)"),
     ("optical_gap_compensated_ev", F, "eV",
      "other end of the optical-gap bracket: lowest bright exciton if the quasiparticle gap shrank with the "
      "surroundings' screening exactly as the binding falls (full compensation; the optical gap of the record's "
-     "band_edge_origin surroundings)"),
+     "band_edge_origin surroundings); empty where that energy is not positive (the binding in those surroundings "
+     "reaches the direct gap, see binding_beyond_validity)"),
     ("emission_compensated_nm", F, "nm", "vacuum wavelength at optical_gap_compensated_ev"),
     ("emission_band", S, NO_UNIT, "named spectral band of the emission (config emission_bands)"),
     ("mott_density_per_cm2", F, "cm^-2",
@@ -291,7 +294,8 @@ _WIDE = [
     ("bulk_binding_aniso_ev", F, "eV", "anisotropic 3D variational binding"),
     ("quasi2d_binding_ev", F, "eV", "2D hydrogenic binding with the bulk constant (4x bulk)"),
     ("quasi2d_radius_angstrom", F, "Angstrom", "2D Bohr radius (1s decay length) with the bulk constant"),
-    ("bulk_optical_gap_ev", F, "eV", "bulk direct gap - bulk binding"),
+    ("bulk_optical_gap_ev", F, "eV", "lowest bright bulk exciton energy (bulk direct gap - bulk binding); empty "
+     "where the binding reaches the direct gap (see the bulk row's binding_beyond_validity)"),
     ("gap_temperature_k", F, "K",
      "temperature every gap, optical gap and wavelength of this compound refers to: the operating temperature "
      "when the record gives gap_temperature; empty: the calculation's temperature (no thermal shift given)"),
@@ -303,7 +307,8 @@ _WIDE = [
     ("rank_environment", S, NO_UNIT, "surroundings the ranking uses (config ranking.environment)"),
     ("rank_layers", "int64", "1", "layer count the ranking uses (config ranking.target_layers)"),
     ("target_gap_character", S, NO_UNIT, "gap character at the target layer count"),
-    ("target_optical_gap_ev", F, "eV", "bright exciton energy at the target layer count in the ranking environment"),
+    ("target_optical_gap_ev", F, "eV", "bright exciton energy at the target layer count in the ranking environment;"
+     " empty where the binding reaches the direct gap (see binding_beyond_validity)"),
     ("target_emission_nm", F, "nm", "emission wavelength at the target layer count in the ranking environment"),
     ("target_emission_band", S, NO_UNIT, "spectral band of the target emission"),
     ("target_binding_ev", F, "eV", "Rytova-Keldysh binding at the target layer count in the ranking environment"),
@@ -325,7 +330,8 @@ _WIDE = [
     ("target_mott_density_per_cm2", F, "cm^-2", "2D Mott density estimate at the target (pump below it)"),
     ("target_binding_beyond_validity", B, NO_UNIT, "target binding outside the effective-mass model's validity"),
     ("target_spin_given", B, NO_UNIT, "the record gives spin sub-bands"),
-    ("target_optical_gap_compensated_ev", F, "eV", "full-compensation end of the optical-gap bracket at the target"),
+    ("target_optical_gap_compensated_ev", F, "eV", "full-compensation end of the optical-gap bracket at the target;"
+     " empty where the binding reaches the direct gap (see binding_beyond_validity)"),
     ("target_emission_compensated_nm", F, "nm", "full-compensation end of the emission bracket at the target"),
     ("pass_direct", B, NO_UNIT, "criterion: the lowest exciton at the target is bright (exciton level; 'unknown' "
      "fails), or its verdict is known if require_direct is false"),
@@ -474,7 +480,8 @@ COLUMNS: dict[str, Column] = _declare(_STAMPS + _ENTRY + _VALLEY + _REJECT + _LO
 PERCENTILES = (16, 50, 84)
 MC_QUANTITIES = {
     "target_binding_ev": "Rytova-Keldysh binding at the target layer count in the ranking environment",
-    "target_optical_gap_ev": "optical gap (direct gap - binding) at the target layer count",
+    "target_optical_gap_ev": "optical gap (direct gap - binding) at the target layer count; samples where the binding "
+                             "reaches the direct gap give none and are left out",
     "target_emission_nm": "emission wavelength at the target layer count",
     "bulk_binding_ev": "bulk 3D hydrogenic binding (geometric-mean dielectric constant) with the bulk model's own "
                        "error (excitons.model_rel_unc_bulk)",
@@ -485,7 +492,8 @@ PATTERNS: dict[str, tuple[str, str, str]] = {
     r"edge_(?P<n>\d+)l_ev": (F, "eV", "band edge of the valley at {n} layer(s) (NaN if not given)"),
     r"edge_bulk_ev": (F, "eV", "band edge of the valley in the bulk crystal"),
     r"binding_1l_ev__(?P<env>.+)": (F, "eV", "monolayer Rytova-Keldysh binding in environment {env}"),
-    r"optical_gap_1l_ev__(?P<env>.+)": (F, "eV", "monolayer bright exciton energy in environment {env}"),
+    r"optical_gap_1l_ev__(?P<env>.+)": (F, "eV", "monolayer bright exciton energy in environment {env};"
+                                                 " empty where the binding reaches the direct gap"),
     r"emission_1l_nm__(?P<env>.+)": (F, "nm", "monolayer emission wavelength in environment {env}"),
     r"emission_nm_p(?P<p>\d+)__(?P<env>.+)": (
         F, "nm", "{p}th percentile (Monte Carlo) of the emission wavelength at the target layer count in "
