@@ -22,6 +22,7 @@ from lamellume import io
 
 log = logging.getLogger("lamellume")
 
+
 def repeated_text(text: str, n: int):
     """Arrow ``large_string`` array of ``n`` copies of ``text``, assembled from its buffers:
     ``pa.array`` of Python strings makes pyarrow import pandas (0.5 s CPU in a job that

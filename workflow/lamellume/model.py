@@ -412,11 +412,9 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
         if compensated is None:
             out["optical_gap_compensated_ev"] = layer_model.optical_gap_of_exciton_ev(lev.bright_ev)
         else:
-            pick = np.maximum(lev.bright_pair, 0)
             sel = compensated[pick, np.arange(pick.shape[1])[None, :, None]] if len(compensated) else \
                 np.full(pick.shape, np.nan)
-            out["optical_gap_compensated_ev"] = layer_model.optical_gap_of_exciton_ev(
-                np.where(lev.bright_pair >= 0, sel, np.nan))
+            out["optical_gap_compensated_ev"] = layer_model.optical_gap_of_exciton_ev(np.where(found, sel, np.nan))
         out["emission_compensated_nm"] = layer_model.emission_wavelength_nm(out["optical_gap_compensated_ev"])
         for key, idx in (("bright", lev.bright_pair), ("dark", lev.dark_pair)):
             weight = excitons.state_weight(deg[np.maximum(idx, 0)], total[key], dimension) if len(c) else np.nan
@@ -528,17 +526,19 @@ def _stack(inputs: ModelInputs, settings: ModelSettings, table, gap, pairs, r0_1
     nl = lay[:-1].astype(float)
     scale = nl if settings.few_layer_r0_scaling else np.ones_like(nl)
     shape = (inputs.n_compounds, nl.size, kappa.size)
-    r0 = r0_1[:, None, None] * scale[None, :, None] * np.ones((1, 1, kappa.size))
+    r0_c = r0_1[:, None, None] * scale[None, :, None]            # (n, F, 1)
+    mu_c = pairs["bright"].mu_me[:, :-1, None]                    # (n, F, 1)
+    r0 = r0_c * np.ones((1, 1, kappa.size))
     kap = np.broadcast_to(kappa[None, None, :], shape)
-    mu = np.broadcast_to(pairs["bright"].mu_me[:, :-1, None], shape)
+    mu = np.broadcast_to(mu_c, shape)
     out: dict[str, np.ndarray] = {}
     if want("r0_angstrom"):
         out["r0_angstrom"] = r0
     if want("kappa"):
         out["kappa"] = kap
     if want("binding_ev") or want("optical_gap_ev") or want("emission_nm"):
-        out["binding_ev"] = keldysh.keldysh_binding_ev(pairs["bright"].mu_me[:, :-1, None], r0_1[:, None, None]
-                                                       * scale[None, :, None], kappa[None, None, :], table, state="1s") \
+        # the compact arrays: they broadcast in the look-up's last operation
+        out["binding_ev"] = keldysh.keldysh_binding_ev(mu_c, r0_c, kappa[None, None, :], table, state="1s") \
             * np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (inputs.n_compounds,))[:, None, None]
     for state in ("2s", "3s"):
         if want(f"binding_{state}_ev"):

@@ -122,25 +122,12 @@ def _imported_modules(source: str, local: frozenset[str]) -> frozenset[str]:
     found: set[str] = set()
     for module, level, names in _scan(source).imports:
         parts = module.split(".") if module else []
-        if names is None:  # import a.b.c
-            if parts[0] == PACKAGE:
-                found.add("__init__")
-                if len(parts) > 1:
-                    found.add(parts[1])
-            elif module in local:
-                found.add(f"local:{module}")
-        elif level:  # relative import inside the package
+        if level:  # relative import inside the package: from .a import b / from . import a, b
             found.add("__init__")
-            if parts:
-                found.add(parts[0])
-            else:
-                found.update(names)
-        elif parts and parts[0] == PACKAGE:
+            found.update(parts[:1] or names)
+        elif parts and parts[0] == PACKAGE:  # import lamellume.a / from lamellume(.a) import ...
             found.add("__init__")
-            if len(parts) > 1:
-                found.add(parts[1])
-            else:  # from lamellume import a, b
-                found.update(names)
+            found.update(parts[1:2] or (() if names is None else names))
         elif module in local:
             found.add(f"local:{module}")
     return frozenset(found)
