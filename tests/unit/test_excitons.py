@@ -116,6 +116,25 @@ def test_lowest_over_trailing_axes():
     assert lev.verdict[0].tolist() == [["dark", "bright"], ["bright", "bright"]]
 
 
+@pytest.mark.parametrize("compound, n_compounds", [
+    ([0, 0, 0, 1, 2, 2, 2, 2, 3, 3], 5),      # unequal runs, compound 4 has no pair
+    ([0, 0, 1, 1, 2, 2, 3, 3, 4, 4], 5),      # every compound two pairs (the Monte Carlo's repeats)
+    ([1, 1, 1, 1, 1, 3, 3, 3, 3, 3], 4),      # compounds 0 and 2 have no pair
+])
+def test_segment_minimum_sorted_path_equals_scatter_path(compound, n_compounds):
+    # pairs sorted by compound take the per-segment path; runs=None forces the general ufunc.at scatter,
+    # an independent second code path: same minima, same first rows on ties, NO_PAIR where all inf
+    inf = np.inf
+    values = np.array([[1.0, inf], [0.5, inf], [0.5, 2.0], [inf, inf], [3.0, -1.0],
+                       [3.0, -1.0], [inf, 2.5], [-0.0, 0.0], [0.0, -0.0], [0.0, 4.0]])
+    compound = np.array(compound)
+    fast = X._segment_min(values, compound, n_compounds)
+    general = X._segment_min(values, compound, n_compounds, runs=None)
+    for got, ref in zip(fast, general):
+        np.testing.assert_array_equal(got, ref)
+    assert np.all(fast[1][~np.isfinite(fast[0])] == X.NO_PAIR)
+
+
 def test_total_mass_isotropic_and_rotated():
     # isotropic: M = m_e + m_h (by hand)
     inv = np.array([np.eye(2) / 0.6, np.eye(2) / 0.5])
