@@ -243,8 +243,10 @@ PAIRS = {
 
 
 class ValleyTable(NamedTuple):
-    """Per (band, compound, label) inverse-mass tensors (2, n, K, 2, 2) and out-of-plane masses (2, n, K)."""
+    """Valley index by (band: 0 valence, 1 conduction; compound; label code), (2, n, K), -1 where the
+    compound has no such valley; and the valleys' inverse-mass tensors (V, 2, 2) and out-of-plane masses (V,)."""
 
+    valley: np.ndarray
     inv_mass: np.ndarray
     mass_perp_me: np.ndarray
 
@@ -278,20 +280,22 @@ def valley_table(inputs: ModelInputs) -> ValleyTable:
     code = np.asarray(inputs.label_code)
     n_labels = int(code.max()) + 1 if code.size else 1
     band = np.asarray(inputs.is_conduction, dtype=bool).astype(int)
-    inv = np.full((2, n, n_labels, 2, 2), np.nan)
-    perp = np.full((2, n, n_labels), np.nan)
-    inv[band, inputs.owner, code] = inputs.inv_mass
-    perp[band, inputs.owner, code] = inputs.mass_perp_me
-    return ValleyTable(inv, perp)
+    valley = np.full((2, n, n_labels), -1, dtype=np.int64)
+    valley[band, inputs.owner, code] = np.arange(code.size)
+    return ValleyTable(valley, np.asarray(inputs.inv_mass, dtype=float), np.asarray(inputs.mass_perp_me, dtype=float))
 
 
-def _pick(table: np.ndarray, labels: np.ndarray) -> np.ndarray:
-    """table[c, labels[c, j]] for every compound c and column j; NaN where NO_LABEL."""
-    n, k = table.shape[:2]
-    # np.take of the flattened (compound, label) axis: the rows of fancy indexing, faster
-    out = np.take(table.reshape((n * k,) + table.shape[2:]), np.arange(n)[:, None] * k + np.where(labels < 0, 0, labels),
-                  axis=0)
-    out[labels < 0] = np.nan
+def _pick(table: ValleyTable, band: int, labels: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """values[valley of (band, c, labels[c, j])] for every compound c and column j; NaN where there is none."""
+    index = table.valley[band]
+    n, k = index.shape
+    # np.take of the flattened (compound, label) axis, then of the valleys' rows: the rows of fancy indexing, faster
+    at = np.take(index.reshape(-1), np.arange(n)[:, None] * k + np.where(labels < 0, 0, labels))
+    at[labels < 0] = -1
+    if not len(values):
+        return np.full(at.shape + values.shape[1:], np.nan)
+    out = np.take(values, np.maximum(at, 0), axis=0)
+    out[at < 0] = np.nan
     return out
 
 
@@ -304,7 +308,7 @@ def pair_masses(table: ValleyTable, valence_label: np.ndarray, conduction_label:
     average is the geometric mean of the principal reduced masses
     (:func:`lamellume.masses.inplane_average_mass_me`).
     """
-    w = _pick(table.inv_mass[1], conduction_label) + _pick(table.inv_mass[0], valence_label)
+    w = _pick(table, 1, conduction_label, table.inv_mass) + _pick(table, 0, valence_label, table.inv_mass)
     good = masses.finite_tensor(w)
     mu = np.where(good, masses.inplane_average_mass_me(w), np.nan)
     small = large = angle = perp = None
@@ -312,8 +316,8 @@ def pair_masses(table: ValleyTable, valence_label: np.ndarray, conduction_label:
         with np.errstate(invalid="ignore", divide="ignore"):
             small, large, angle = (np.where(good, a, np.nan) for a in masses.principal_masses(w))
     if perpendicular:
-        perp = masses.reduced_mass_perpendicular(_pick(table.mass_perp_me[1], conduction_label),
-                                                 _pick(table.mass_perp_me[0], valence_label))
+        perp = masses.reduced_mass_perpendicular(_pick(table, 1, conduction_label, table.mass_perp_me),
+                                                 _pick(table, 0, valence_label, table.mass_perp_me))
     return PairMasses(valence_label, conduction_label, mu, small, large, angle, perp)
 
 
