@@ -394,7 +394,7 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     f_lay = np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (n,))
     f_bulk = np.broadcast_to(np.asarray(inputs.binding_factor_bulk, dtype=float), (n,))
 
-    def fill(out: dict, energy, dimension, compensated=None, rate=None):
+    def fill(out: dict, wanted: frozenset, energy, dimension, compensated=None, rate=None):
         lev = excitons.lowest_excitons(c, energy, pr.bright, n)
         pick = np.maximum(lev.bright_pair, 0)
         found = lev.bright_pair >= 0
@@ -426,11 +426,10 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
             out[f"{key}_pair_index"] = idx
         out["bright_exciton_ev"], out["dark_exciton_ev"] = lev.bright_ev, lev.dark_ev
         out["exciton_margin_ev"], out["brightness"] = lev.margin_ev, lev.verdict
-        optical = layer_model.optical_gap_of_exciton_ev(lev.bright_ev)
-        if "optical_gap_ev" in out:
-            out["optical_gap_ev"] = optical
-        if "emission_nm" in out:
-            out["emission_nm"] = layer_model.emission_wavelength_nm(optical)
+        if wanted & {"optical_gap_ev", "emission_nm"}:
+            out["optical_gap_ev"] = layer_model.optical_gap_of_exciton_ev(lev.bright_ev)
+        if "emission_nm" in wanted:
+            out["emission_nm"] = layer_model.emission_wavelength_nm(out["optical_gap_ev"])
 
     kappa = np.asarray(inputs.kappa, dtype=float)
     lay = np.asarray(inputs.layers)
@@ -464,7 +463,7 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
                 brightness.origin_density_2d_per_angstrom2(brightness.decay_length_from_rms_angstrom(radius)),
                 np.sqrt(kappa)[None, None, :])
     if settings.stack & _EXCITON_TRIGGERS:
-        fill(result.stack, gaps[:, :-1, None] - eb, 2, gaps[:, :-1] - eb_ref, rate)
+        fill(result.stack, settings.stack, gaps[:, :-1, None] - eb, 2, gaps[:, :-1] - eb_ref, rate)
     if settings.bulk & _EXCITON_TRIGGERS:
         eps_bulk = np.asarray(inputs.eps_bulk, dtype=float)[c]
         eb_b = hydrogenic.binding_3d_ev(mu, eps_bulk)
@@ -475,7 +474,7 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
             eb_b[has] = hydrogenic.binding_3d_anisotropic(
                 mu[has], mperp[has], np.asarray(inputs.eps_parallel, dtype=float)[c][has],
                 np.asarray(inputs.eps_perpendicular, dtype=float)[c][has]).binding_ev
-        fill(result.bulk, gaps[:, -1] - eb_b * f_bulk[c], 3)
+        fill(result.bulk, settings.bulk, gaps[:, -1] - eb_b * f_bulk[c], 3)
     return pr
 
 
@@ -515,10 +514,7 @@ def _bulk(inputs: ModelInputs, settings: ModelSettings, gap, pairs) -> dict[str,
     if want("dark_binding_ev"):
         out["dark_binding_ev"] = np.where(gap.is_direct[:, -1], np.nan,
                                           hydrogenic.binding_3d_ev(pairs["dark"].mu_me[:, -1], eps_bulk))
-    if want("optical_gap_ev") or want("emission_nm"):
-        out["optical_gap_ev"] = layer_model.optical_gap_ev(gap.direct_gap_ev[:, -1], out["binding_ev"])
-    if want("emission_nm"):
-        out["emission_nm"] = layer_model.emission_wavelength_nm(out["optical_gap_ev"])
+    # optical_gap_ev and emission_nm: the lowest bright exciton's (_exciton_level)
     return out
 
 
@@ -532,15 +528,15 @@ def _stack(inputs: ModelInputs, settings: ModelSettings, table, gap, pairs, r0_1
     shape = (inputs.n_compounds, nl.size, kappa.size)
     r0_c = r0_1[:, None, None] * scale[None, :, None]            # (n, F, 1)
     mu_c = pairs["bright"].mu_me[:, :-1, None]                    # (n, F, 1)
-    r0 = r0_c * np.ones((1, 1, kappa.size))
+    r0 = np.broadcast_to(r0_c, shape)
     kap = np.broadcast_to(kappa[None, None, :], shape)
     mu = np.broadcast_to(mu_c, shape)
     out: dict[str, np.ndarray] = {}
     if want("r0_angstrom"):
-        out["r0_angstrom"] = r0
+        out["r0_angstrom"] = r0_c * np.ones((1, 1, kappa.size))
     if want("kappa"):
         out["kappa"] = kap
-    if want("binding_ev") or want("optical_gap_ev") or want("emission_nm"):
+    if want("binding_ev"):
         # the compact arrays: they broadcast in the look-up's last operation
         out["binding_ev"] = keldysh.keldysh_binding_ev(mu_c, r0_c, kappa[None, None, :], table, state="1s") \
             * np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (inputs.n_compounds,))[:, None, None]
@@ -559,9 +555,5 @@ def _stack(inputs: ModelInputs, settings: ModelSettings, table, gap, pairs, r0_1
         mu_dark = np.broadcast_to(pairs["dark"].mu_me[:, :-1, None], shape)
         eb_dark = keldysh.keldysh_binding_ev(mu_dark, r0, kap, table, state="1s")
         out["dark_binding_ev"] = np.where(np.broadcast_to(gap.is_direct[:, :-1, None], shape), np.nan, eb_dark)
-    if want("optical_gap_ev") or want("emission_nm"):
-        out["optical_gap_ev"] = layer_model.optical_gap_ev(
-            np.broadcast_to(gap.direct_gap_ev[:, :-1, None], shape), out["binding_ev"])
-    if want("emission_nm"):
-        out["emission_nm"] = layer_model.emission_wavelength_nm(out["optical_gap_ev"])
+    # optical_gap_ev and emission_nm: the lowest bright exciton's (_exciton_level)
     return out
