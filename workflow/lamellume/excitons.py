@@ -460,7 +460,7 @@ def _segment_min(values, compound, n_compounds, runs=False):
     return best, np.where(np.isfinite(best), first, NO_PAIR)
 
 
-def lowest_excitons(compound, exciton_ev, bright, n_compounds: int) -> ExcitonLevels:
+def lowest_excitons(compound, exciton_ev, bright, n_compounds: int, dark: bool = True) -> ExcitonLevels:
     """Lowest bright and lowest dark exciton of every compound.
 
     Parameters
@@ -473,6 +473,10 @@ def lowest_excitons(compound, exciton_ev, bright, n_compounds: int) -> ExcitonLe
     bright : array_like of bool, shape (n_pairs,)
         Whether each pair's exciton is bright (:attr:`Pairs.bright`).
     n_compounds : int
+    dark : bool, optional
+        Also search the dark pairs (default). False: only the lowest bright
+        exciton; the dark fields are then those of a compound without a dark
+        pair (NaN energies, NO_PAIR, verdict "unknown").
 
     Returns
     -------
@@ -489,9 +493,12 @@ def lowest_excitons(compound, exciton_ev, bright, n_compounds: int) -> ExcitonLe
     e_ok = np.where(np.isfinite(e), e, np.inf)
     runs = _runs(comp) if comp.size else None   # once for the bright and the dark search
     eb, ib = _segment_min(np.where(b, e_ok, np.inf), comp, n_compounds, runs)
-    ed, idk = _segment_min(np.where(~b, e_ok, np.inf), comp, n_compounds, runs)
     eb = np.where(np.isfinite(eb), eb, np.nan)
-    ed = np.where(np.isfinite(ed), ed, np.nan)
+    if dark:
+        ed, idk = _segment_min(np.where(~b, e_ok, np.inf), comp, n_compounds, runs)
+        ed = np.where(np.isfinite(ed), ed, np.nan)
+    else:
+        ed, idk = np.full(eb.shape, np.nan), np.full(eb.shape, NO_PAIR, dtype=np.int64)
     return ExcitonLevels(eb, ib, ed, idk, ed - eb, brightness_verdict(eb, ed))
 
 

@@ -180,6 +180,16 @@ class ModelSettings:
     the gap character's indirect gap, direct margin and extrema labels
     (:func:`lamellume.layers.gap_character` ``indirect``; the dark pair needs
     them whatever this says).
+
+    ``exciton_environments``: the surroundings (indices into
+    ``ModelInputs.kappa``) where the exciton level of the stack is resolved in
+    full, every pair's exciton and every :data:`EXCITON_QUANTITIES` entry;
+    None: all of them. In the others only the bright pairs' excitons are
+    computed, for the lowest bright one: ``bright_exciton_ev``,
+    ``bright_pair_index``, ``optical_gap_ev`` and ``emission_nm`` there are
+    those of the full model, the other exciton-level quantities are NaN
+    (pair indices NO_PAIR, verdict "unknown": not resolved). The Monte Carlo
+    reads the exciton level in the ranking surroundings only.
     """
 
     few_layer_r0_scaling: bool = True
@@ -188,6 +198,7 @@ class ModelSettings:
     bulk: frozenset = BULK_QUANTITIES
     principal_masses: bool = True
     indirect_gap: bool = True
+    exciton_environments: tuple | None = None
 
     @classmethod
     def from_config(cls, settings, **wanted) -> "ModelSettings":
@@ -376,7 +387,8 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     exciton becomes ``optical_gap_ev`` (and the emission) where its energy is
     positive (:func:`lamellume.layers.optical_gap_of_exciton_ev`; NaN where the
     binding reaches the pair's direct gap); the stack and bulk dicts gain
-    :data:`EXCITON_QUANTITIES`.
+    :data:`EXCITON_QUANTITIES` (the stack's in full in the surroundings of
+    ``ModelSettings.exciton_environments``, :func:`_stack_excitons`).
     """
     n = inputs.n_compounds
     pr = inputs.valley_pairs
@@ -391,7 +403,6 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
         mu = np.where(good, masses.inplane_average_mass_me(w), np.nan)
     deg = excitons.pair_degeneracy(pr, np.ones(len(inputs.owner)) if inputs.degeneracy is None
                                    else inputs.degeneracy)
-    f_lay = np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (n,))
     f_bulk = np.broadcast_to(np.asarray(inputs.binding_factor_bulk, dtype=float), (n,))
 
     def fill(out: dict, wanted: frozenset, energy, dimension, compensated=None, rate=None):
@@ -431,39 +442,8 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
         if "emission_nm" in wanted:
             out["emission_nm"] = layer_model.emission_wavelength_nm(out["optical_gap_ev"])
 
-    kappa = np.asarray(inputs.kappa, dtype=float)
-    lay = np.asarray(inputs.layers)
-    nl = lay[:-1].astype(float)
-    scale = nl if settings.few_layer_r0_scaling else np.ones_like(nl)
-    shape = (len(c), nl.size, kappa.size)
-    r0 = r0_1[c][:, None, None] * scale[None, :, None]   # (P, F, 1): the arrays broadcast to shape in the call
-    eb = keldysh.keldysh_binding_ev(mu[:, None, None], r0, kappa[None, None, :], table, state="1s") \
-        * f_lay[c][:, None, None]
-    # Full compensation: the quasiparticle gap shrinks with the surroundings' screening exactly as the
-    # binding falls, so the bright exciton stays where it is in the surroundings the edges belong to.
-    # Where those surroundings are configured ones (suspended, as a rule) their binding is eb's, the
-    # same function of the same numbers; only the others are looked up again.
-    kap_ref = np.broadcast_to(np.asarray(inputs.edge_kappa, dtype=float), (n,))[c]
-    same = kap_ref[:, None] == kappa[None, :]
-    eb_ref = eb[np.arange(len(c)), :, np.argmax(same, axis=1)] if kappa.size else np.empty(shape[:2])
-    other = ~same.any(axis=1)
-    if other.any():
-        eb_ref[other] = keldysh.keldysh_binding_ev(
-            np.broadcast_to(mu[other][:, None], (int(other.sum()), nl.size)), r0[other][:, :, 0],
-            np.broadcast_to(kap_ref[other][:, None], (int(other.sum()), nl.size)), table, state="1s") \
-            * f_lay[c][other][:, None]
-    rate = None
-    if settings.stack & {"radiative_rate_0_per_s"}:
-        # Radiative-rate proxy of every pair's exciton (lamellume.brightness): Kane energy of the
-        # pair's gap and reduced mass, |phi(0)|^2 from the Rytova-Keldysh rms radius, index sqrt(kappa).
-        radius = keldysh.keldysh_radius_angstrom(mu[:, None, None], r0, kappa[None, None, :], table, state="1s")
-        with np.errstate(invalid="ignore", divide="ignore"):
-            rate = brightness.intrinsic_rate_per_s(
-                brightness.kane_energy_ev(gaps[:, :-1, None], mu[:, None, None]), gaps[:, :-1, None] - eb,
-                brightness.origin_density_2d_per_angstrom2(brightness.decay_length_from_rms_angstrom(radius)),
-                np.sqrt(kappa)[None, None, :])
     if settings.stack & _EXCITON_TRIGGERS:
-        fill(result.stack, settings.stack, gaps[:, :-1, None] - eb, 2, gaps[:, :-1] - eb_ref, rate)
+        _stack_excitons(inputs, settings, table, r0_1, result.stack, pr, gaps, mu, fill)
     if settings.bulk & _EXCITON_TRIGGERS:
         eps_bulk = np.asarray(inputs.eps_bulk, dtype=float)[c]
         eb_b = hydrogenic.binding_3d_ev(mu, eps_bulk)
@@ -476,6 +456,82 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
                 np.asarray(inputs.eps_perpendicular, dtype=float)[c][has]).binding_ev
         fill(result.bulk, settings.bulk, gaps[:, -1] - eb_b * f_bulk[c], 3)
     return pr
+
+
+def _stack_excitons(inputs: ModelInputs, settings: ModelSettings, table, r0_1, out: dict, pr, gaps, mu, fill):
+    """The stack's exciton level (:func:`_exciton_level`): Rytova-Keldysh binding of every pair in the
+    surroundings resolved in full (``ModelSettings.exciton_environments``), of the bright pairs in the others."""
+    n = inputs.n_compounds
+    c = pr.compound
+    f_lay = np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (n,))
+    kappa = np.asarray(inputs.kappa, dtype=float)
+    lay = np.asarray(inputs.layers)
+    nl = lay[:-1].astype(float)
+    scale = nl if settings.few_layer_r0_scaling else np.ones_like(nl)
+    envs = np.arange(kappa.size)
+    full = envs if settings.exciton_environments is None else np.unique(np.asarray(settings.exciton_environments,
+                                                                                   dtype=np.int64))
+    part = np.setdiff1d(envs, full)
+    r0 = r0_1[c][:, None, None] * scale[None, :, None]   # (P, F, 1): the arrays broadcast to shape in the call
+    eb = keldysh.keldysh_binding_ev(mu[:, None, None], r0, kappa[full][None, None, :], table, state="1s") \
+        * f_lay[c][:, None, None]                           # (P, F, len(full))
+    # the bright pairs' bindings in every surroundings (a bright pair's exciton gives the optical gap)
+    bp = np.flatnonzero(pr.bright)
+    eb_bright = np.empty((bp.size, nl.size, kappa.size))
+    eb_bright[:, :, full] = eb[bp]
+    if part.size:
+        eb_bright[:, :, part] = keldysh.keldysh_binding_ev(mu[bp][:, None, None], r0[bp], kappa[part][None, None, :],
+                                                          table, state="1s") * f_lay[c[bp]][:, None, None]
+    # Full compensation: the quasiparticle gap shrinks with the surroundings' screening exactly as the
+    # binding falls, so the bright exciton stays where it is in the surroundings the edges belong to.
+    # Where those surroundings are configured ones (suspended, as a rule) their binding is eb's, the
+    # same function of the same numbers; only the others are looked up again. Only the lowest bright
+    # pair's compensated gap is read, so it is computed for the bright pairs.
+    kap_ref = np.broadcast_to(np.asarray(inputs.edge_kappa, dtype=float), (n,))[c[bp]]
+    same = kap_ref[:, None] == kappa[None, :]
+    eb_ref = eb_bright[np.arange(bp.size), :, np.argmax(same, axis=1)] if kappa.size \
+        else np.empty((bp.size, nl.size))
+    other = ~same.any(axis=1)
+    if other.any():
+        eb_ref[other] = keldysh.keldysh_binding_ev(
+            np.broadcast_to(mu[bp][other][:, None], (int(other.sum()), nl.size)), r0[bp][other][:, :, 0],
+            np.broadcast_to(kap_ref[other][:, None], (int(other.sum()), nl.size)), table, state="1s") \
+            * f_lay[c[bp]][other][:, None]
+    compensated = np.full((len(c), nl.size), np.nan)
+    compensated[bp] = gaps[bp, :-1] - eb_ref
+    rate = None
+    if settings.stack & {"radiative_rate_0_per_s"}:
+        # Radiative-rate proxy of every pair's exciton (lamellume.brightness): Kane energy of the
+        # pair's gap and reduced mass, |phi(0)|^2 from the Rytova-Keldysh rms radius, index sqrt(kappa).
+        radius = keldysh.keldysh_radius_angstrom(mu[:, None, None], r0, kappa[full][None, None, :], table, state="1s")
+        with np.errstate(invalid="ignore", divide="ignore"):
+            rate = brightness.intrinsic_rate_per_s(
+                brightness.kane_energy_ev(gaps[:, :-1, None], mu[:, None, None]), gaps[:, :-1, None] - eb,
+                brightness.origin_density_2d_per_angstrom2(brightness.decay_length_from_rms_angstrom(radius)),
+                np.sqrt(kappa[full])[None, None, :])
+    if not part.size:
+        fill(out, settings.stack, gaps[:, :-1, None] - eb, 2, compensated, rate)
+        return
+    resolved: dict[str, np.ndarray] = {}
+    fill(resolved, settings.stack, gaps[:, :-1, None] - eb, 2, compensated, rate)
+    for key, value in resolved.items():
+        out[key] = np.full((n, nl.size, kappa.size), _NOT_RESOLVED.get(key, np.nan), dtype=value.dtype)
+        out[key][:, :, full] = value
+    lev = excitons.lowest_excitons(c[bp], gaps[bp, :-1, None] - eb_bright[:, :, part], np.ones(bp.size, dtype=bool),
+                                   n, dark=False)
+    out["bright_exciton_ev"][:, :, part] = lev.bright_ev
+    out["bright_pair_index"][:, :, part] = np.where(lev.bright_pair >= 0, bp[np.maximum(lev.bright_pair, 0)],
+                                                    excitons.NO_PAIR) if bp.size else excitons.NO_PAIR
+    if "optical_gap_ev" in out:
+        out["optical_gap_ev"][:, :, part] = layer_model.optical_gap_of_exciton_ev(lev.bright_ev)
+    if "emission_nm" in out:
+        out["emission_nm"][:, :, part] = layer_model.emission_wavelength_nm(out["optical_gap_ev"][:, :, part])
+
+
+#: Exciton-level values in the surroundings not resolved in full (ModelSettings.exciton_environments);
+#: every other quantity is NaN there.
+_NOT_RESOLVED = {"bright_pair_index": excitons.NO_PAIR, "dark_pair_index": excitons.NO_PAIR,
+                 "brightness": excitons.VERDICTS[2]}
 
 
 def _bulk(inputs: ModelInputs, settings: ModelSettings, gap, pairs) -> dict[str, np.ndarray]:

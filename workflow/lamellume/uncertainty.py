@@ -509,7 +509,9 @@ def _evaluate_block(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, tabl
         r0_factor=f_r0, edge_kappa=prep.edge_kappa[rep], degeneracy=prep.degeneracy[gp], spin_split_ev=prep.spin_split[gp],
         edge_spin=prep.edge_spin[gp], binding_factor_layers=f_lay, binding_factor_bulk=f_bulk,
         gap_thermal=prep.gap_thermal.take(rep), temperature_k=prep.temperature_k, valley_pairs=pairs),
-        prep.model_settings, table)
+        # the exciton level in full where it is read below (the ranking surroundings); the optical gap and
+        # emission, read in every surroundings, are the full model's everywhere
+        dataclasses.replace(prep.model_settings, exciton_environments=(prep.env_index,)), table)
     gc = res.gap
     ei = prep.env_index
     eb = res.stack["binding_ev"][:, 0, ei]
