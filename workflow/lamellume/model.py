@@ -515,7 +515,8 @@ def _stack_excitons(inputs: ModelInputs, settings: ModelSettings, table, r0_1, o
     resolved: dict[str, np.ndarray] = {}
     fill(resolved, settings.stack, gaps[:, :-1, None] - eb, 2, compensated, rate)
     for key, value in resolved.items():
-        out[key] = np.full((n, nl.size, kappa.size), _NOT_RESOLVED.get(key, np.nan), dtype=value.dtype)
+        out[key] = np.empty((n, nl.size, kappa.size), dtype=value.dtype)
+        out[key].fill(_NOT_RESOLVED.get(key, np.nan))   # (np.full converts a word for every cell: slow)
         out[key][:, :, full] = value
     lev = excitons.lowest_excitons(c[bp], gaps[bp, :-1, None] - eb_bright[:, :, part], np.ones(bp.size, dtype=bool),
                                    n, dark=False)
