@@ -133,6 +133,15 @@ def test_segment_minimum_sorted_path_equals_scatter_path(compound, n_compounds):
     for got, ref in zip(fast, general):
         np.testing.assert_array_equal(got, ref)
     assert np.all(fast[1][~np.isfinite(fast[0])] == X.NO_PAIR)
+    # the bright search alone: the bright fields of the full search, the dark ones as without a dark pair
+    bright = np.array([True, False, True, True, False, True, False, True, False, True])
+    both = X.lowest_excitons(compound, values, bright, n_compounds)
+    alone = X.lowest_excitons(compound, values, bright, n_compounds, dark=False)
+    none = X.lowest_excitons(compound, np.where(bright[:, None], values, np.nan), bright, n_compounds)
+    for field in X.ExcitonLevels._fields:
+        np.testing.assert_array_equal(getattr(alone, field), getattr(none, field), err_msg=field)
+    np.testing.assert_array_equal(alone.bright_ev, both.bright_ev)
+    np.testing.assert_array_equal(alone.bright_pair, both.bright_pair)
 
 
 def test_total_mass_isotropic_and_rotated():

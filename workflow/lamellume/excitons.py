@@ -261,13 +261,14 @@ def repeat_pairs(pairs: Pairs, valley_start, n_repeats: int) -> Pairs:
     k = np.diff(start)                                  # valleys per compound
     per = np.bincount(pairs.compound, minlength=n)      # pairs per compound
     first_pair = np.cumsum(per) - per
-    rows = per * n_repeats
-    src_c = np.repeat(np.arange(n), rows)
-    j = np.arange(src_c.size) - np.repeat(np.cumsum(rows) - rows, rows)
-    per_c = per[src_c]                                  # > 0 on every row
-    r = j // per_c
-    src = first_pair[src_c] + j % per_c
-    shift = start[src_c] * (n_repeats - 1) + r * k[src_c]   # valley v of compound c -> v + shift
+    # one cell per (compound c, repeat r) holding c's pairs: repeats of per-cell numbers (no integer division)
+    cell_c = np.repeat(np.arange(n), n_repeats)
+    cell_r = np.tile(np.arange(n_repeats), n)
+    per_cell = per[cell_c]
+    src = np.repeat(first_pair[cell_c] - (np.cumsum(per_cell) - per_cell), per_cell) + np.arange(int(per_cell.sum()))
+    r = np.repeat(cell_r, per_cell)
+    # valley v of compound c -> v + shift
+    shift = np.repeat(start[cell_c] * (n_repeats - 1) + cell_r * k[cell_c], per_cell)
     return Pairs(pairs.compound[src] * n_repeats + r, pairs.valence[src] + shift, pairs.conduction[src] + shift,
                  *(np.asarray(f)[src] for f in pairs[3:]))
 
@@ -497,8 +498,11 @@ def lowest_excitons(compound, exciton_ev, bright, n_compounds: int, dark: bool =
     if dark:
         ed, idk = _segment_min(np.where(~b, e_ok, np.inf), comp, n_compounds, runs)
         ed = np.where(np.isfinite(ed), ed, np.nan)
-    else:
+    else:   # brightness_verdict without a dark exciton: "unknown" everywhere
         ed, idk = np.full(eb.shape, np.nan), np.full(eb.shape, NO_PAIR, dtype=np.int64)
+        verdict = np.empty(eb.shape, dtype=object)
+        verdict.fill(VERDICTS[2])
+        return ExcitonLevels(eb, ib, ed, idk, ed - eb, verdict)
     return ExcitonLevels(eb, ib, ed, idk, ed - eb, brightness_verdict(eb, ed))
 
 

@@ -421,13 +421,12 @@ def _first_index(mask, layout: Segments, n_groups):
         return np.minimum.reduceat(np.where(mask, np.arange(n_groups).reshape(start.shape), n_groups),
                                    layout.start, axis=0)
     found = np.take(mask, layout.start, axis=0)
-    first = np.where(found, start, n_groups)
+    offset = np.zeros(found.shape, dtype=np.int64)
     for j in range(1, layout.width):
-        rows = _segment_rows(layout, j)
-        hit = np.take(mask, rows, axis=0) & ~found
-        np.copyto(first, rows.reshape(start.shape), where=hit)
+        hit = np.take(mask, _segment_rows(layout, j), axis=0) & ~found
+        np.copyto(offset, j, where=hit)
         found |= hit
-    return first
+    return np.where(found, start + offset, n_groups)
 
 
 def gap_character(owner, label_code, is_conduction, edge_ev, scissor_ev=None,
