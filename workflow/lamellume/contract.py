@@ -177,18 +177,20 @@ class RecordChecker:
             problems.append(Problem(field, reason))
         return problems
 
-    def check(self, record: Any, *, stem: str,
-              structure_problem: Callable[[str], str | None]) -> list[Problem]:
+    def check(self, record: Any, *, stem: str, structure_problem: Callable[[str], str | None],
+              tensors_clear: bool = False) -> list[Problem]:
         """All problems of one record: schema first, physics only on a well-formed record.
 
         ``structure_problem(name)`` tells why the referenced structure file cannot
         be read (``"file not found"``, ``"is a directory, not a file"``, ...) or
-        returns None when it can.
+        returns None when it can. ``tensors_clear``: :func:`clear_tensors` found
+        the record's dielectric tensors free of problems (their checks are skipped).
         """
         problems = self.schema_problems(record)
         if problems:
             return problems
-        return physical_problems(record, stem=stem, structure_problem=structure_problem)
+        return physical_problems(record, stem=stem, structure_problem=structure_problem,
+                                 tensors_clear=tensors_clear)
 
 
 def _finite(value: float) -> bool:
@@ -205,6 +207,53 @@ def tensor_problems(tensor: list[list[float]], *, max_eps: float) -> list[str]:
     if largest > max_eps:
         return [f"has an eigenvalue {largest:.4g} above the plausible limit {max_eps:g}"]
     return []
+
+
+#: Dielectric tensors checked (the order of :func:`physical_problems`) and their plausible limit.
+_TENSOR_LIMITS = (("electronic", MAX_ELECTRONIC_EPS), ("static", MAX_STATIC_EPS))
+
+
+def clear_tensors(records: list[dict]) -> np.ndarray:
+    """Which schema-valid records certainly pass every :func:`tensor_problems` check (all at once).
+
+    A prefilter for a shard of records, never a definition: True only with a
+    margin, so a record it clears has no tensor problem, and every other record
+    is checked one by one (which writes the messages). A tensor is cleared when
+    its components are finite, max |T - T^T| <= SYMMETRY_RTOL/2 x max |T|, and
+    the eigenvalues of its symmetric part lie in [1 + d, max_eps - d] with
+    d = 2 x SYMMETRY_RTOL x max |T|. :func:`tensor_problems` takes the
+    eigenvalues of the symmetric part (positivity, >= 1) and of the lower
+    triangle (the limit); the two matrices differ by (T - T^T)/2 off the
+    diagonal, whose spectral norm is at most max |T - T^T| (two such entries a
+    row), so by Weyl's inequality their eigenvalues differ by less than d/4,
+    and rounding by far less.
+
+    Returns
+    -------
+    numpy.ndarray of bool, one per record.
+    """
+    tensors, owners, limits = [], [], []
+    for i, record in enumerate(records):
+        diel = record["dielectric"]
+        for key, max_eps in _TENSOR_LIMITS:
+            if key in diel:
+                tensors.append(diel[key])
+                owners.append(i)
+                limits.append(max_eps)
+    clear = np.ones(len(records), dtype=bool)
+    if not tensors:
+        return clear
+    t = np.array(tensors, dtype=float)
+    finite = np.all(np.isfinite(t), axis=(-1, -2))
+    t = np.where(finite[:, None, None], t, np.eye(3))
+    scale = np.max(np.abs(t), axis=(-1, -2))
+    asym = np.max(np.abs(t - np.swapaxes(t, -1, -2)), axis=(-1, -2))
+    eig = np.linalg.eigvalsh(0.5 * (t + np.swapaxes(t, -1, -2)))
+    margin = 2.0 * dielectric.SYMMETRY_RTOL * scale
+    ok = (finite & (asym <= 0.5 * dielectric.SYMMETRY_RTOL * scale) & (eig[:, 0] >= 1.0 + margin)
+          & (eig[:, -1] <= np.array(limits) - margin))
+    np.logical_and.at(clear, np.array(owners), ok)
+    return clear
 
 
 def mass_problems(value: float) -> str | None:
@@ -289,16 +338,19 @@ def _samples_problems(samples: dict, path: list) -> list[Problem]:
     return out
 
 
-def physical_problems(record: dict, *, stem: str,
-                      structure_problem: Callable[[str], str | None]) -> list[Problem]:
-    """Physical and cross-field checks of a schema-valid record."""
+def physical_problems(record: dict, *, stem: str, structure_problem: Callable[[str], str | None],
+                      tensors_clear: bool = False) -> list[Problem]:
+    """Physical and cross-field checks of a schema-valid record.
+
+    ``tensors_clear``: the dielectric tensors are known to pass (:func:`clear_tensors`).
+    """
     out: list[Problem] = []
     if record["id"] != stem:
         out.append(Problem("id", f"identifier {record['id']!r} differs from the file name '{stem}.json' (the id must equal the "
                            f"file name without .json)"))
 
     diel = record["dielectric"]
-    for key, max_eps in (("electronic", MAX_ELECTRONIC_EPS), ("static", MAX_STATIC_EPS)):
+    for key, max_eps in () if tensors_clear else _TENSOR_LIMITS:
         if key in diel:
             for reason in tensor_problems(diel[key], max_eps=max_eps):
                 out.append(Problem(f"dielectric.{key}", f"tensor: {reason}"))
