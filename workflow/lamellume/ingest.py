@@ -10,6 +10,7 @@ stage raises :class:`Rejected` with the field and reason.
 
 from __future__ import annotations
 
+import functools
 import math
 import operator
 import warnings
@@ -54,6 +55,12 @@ _SPIN_CODE = {"up": 1, "down": -1, "": 0}
 def edge_column(layers: int) -> str:
     """Column name of the band edge at a layer count (0 = bulk)."""
     return "edge_bulk_ev" if layers == 0 else f"edge_{layers}l_ev"
+
+
+@functools.lru_cache(maxsize=8)
+def _layer_edge_keys(max_layers: int) -> tuple[tuple[str, str], ...]:
+    """(edge column, record key) of the layer counts 1..max_layers."""
+    return tuple((edge_column(n), str(n)) for n in range(1, max_layers + 1))
 
 
 def layer_normal(record: dict, geometry: LayerGeometry | None) -> np.ndarray:
@@ -277,11 +284,14 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
     }
 
     valleys = []
+    layer_edges = _layer_edge_keys(max_layers)
     for i, valley in enumerate(record["valleys"]):
         path = f"valleys[{i}]"
         inv, fit_info = _inverse_mass(valley, path, normal, warnings, None if prepared is None else prepared.get(i))
         mass = valley.get("mass", {})
-        ignored = [k for k in valley["edge_ev"] if k != "bulk" and int(k) > max_layers]
+        (xx, xy), (_, yy) = np.asarray(inv, dtype=float).tolist()
+        edges = valley["edge_ev"]
+        ignored = [k for k in edges if k != "bulk" and int(k) > max_layers]
         if ignored:
             warnings.append(f"{path}.edge_ev: layer counts {', '.join(ignored)} exceed max_layers and are not used")
         row = {
@@ -290,9 +300,9 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
             "input_hash": input_hash,
             "label": valley["label"],
             "band": valley["band"],
-            **{edge_column(n): float(valley["edge_ev"].get(str(n), math.nan)) for n in range(1, max_layers + 1)},
+            **{column: float(edges[key]) if key in edges else math.nan for column, key in layer_edges},
             edge_column(0): float(valley["edge_ev"]["bulk"]),
-            "inv_mass_xx": float(inv[0, 0]), "inv_mass_xy": float(inv[0, 1]), "inv_mass_yy": float(inv[1, 1]),
+            "inv_mass_xx": xx, "inv_mass_xy": xy, "inv_mass_yy": yy,
             **fit_info,
             "mass_rel_unc": float(mass.get("relative_uncertainty", math.nan)),
             "edge_unc_ev": float(valley.get("edge_uncertainty_ev", math.nan)),
