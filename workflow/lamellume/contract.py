@@ -111,14 +111,17 @@ def _lean_gate(code: str) -> Callable[[Any], Any]:
     the generated code formats a message with the failing value and a copy of
     the schema node at every ``raise``, also inside the ``anyOf``/``oneOf``
     branches a valid record tries and leaves: 60 % of the gate's time on valid
-    records. Each ``raise`` line is replaced by a bare raise of the same
-    exception; the control flow, and so the verdict, is unchanged
+    records. Each ``raise`` line is replaced by a raise of one exception of the
+    same class made once (its traceback cleared, so it keeps no old frames);
+    the control flow, and so the verdict, is unchanged
     (tests/unit/test_contract.py checks the gate against jsonschema).
     """
-    lean, count = re.subn(r"(?m)^(\s*)raise JsonSchemaValueException\(.*\)$", r'\1raise JsonSchemaValueException("")', code)
+    lean, count = re.subn(r"(?m)^(\s*)raise JsonSchemaValueException\(.*\)$", r"\1raise _REFUSED.with_traceback(None)", code)
     if not count:
         raise RuntimeError("fastjsonschema's generated code changed form; review RecordChecker's gate")
-    namespace: dict = {}
+    from fastjsonschema import JsonSchemaValueException
+
+    namespace: dict = {"_REFUSED": JsonSchemaValueException("")}
     exec(compile(lean, "<record schema gate>", "exec"), namespace)  # noqa: S102 - code generated from our schema
     return namespace["validate"]
 
@@ -197,6 +200,20 @@ def _finite(value: float) -> bool:
     return isinstance(value, (int, float)) and math.isfinite(value)
 
 
+def _all_within(values, lo: float, hi: float) -> bool:
+    """Every value a finite number in [lo, hi]: ``all(_finite(x) and lo <= x <= hi for x in values)``.
+
+    Decided without a call per value when it holds (a finite sum means no NaN
+    or infinity among numbers); otherwise value by value.
+    """
+    try:
+        if math.isfinite(sum(values)) and lo <= min(values) and max(values) <= hi:
+            return True
+    except (TypeError, ValueError, OverflowError):  # not numbers, no values, an integer sum beyond floats
+        pass
+    return all(_finite(x) and lo <= x <= hi for x in values)
+
+
 def tensor_problems(tensor: list[list[float]], *, max_eps: float) -> list[str]:
     """Reasons a 3x3 dielectric tensor is unusable: those of
     :func:`lamellume.dielectric.validate_tensor` plus an implausibly large eigenvalue."""
@@ -262,6 +279,8 @@ def mass_problems(value: float) -> str | None:
     The same rules as :func:`lamellume.masses.validate_masses` (which works on
     arrays), written for one scalar because records are checked one at a time.
     """
+    if isinstance(value, (int, float)) and masses.MASS_MIN_ME <= value <= masses.MASS_MAX_ME:
+        return None  # finite and positive
     if not _finite(value):
         return "is not finite"
     if value <= 0:
@@ -272,9 +291,11 @@ def mass_problems(value: float) -> str | None:
 
 
 def _range_problem(value: float, window: tuple[float, float], unit: str) -> str | None:
+    lo, hi = window
+    if isinstance(value, (int, float)) and lo <= value <= hi:
+        return None  # finite: the window is
     if not _finite(value):
         return "is not finite"
-    lo, hi = window
     if not lo <= value <= hi:
         return f"{value:g} {unit} is outside the plausible range [{lo:g}, {hi:g}] {unit}"
     return None
@@ -331,9 +352,9 @@ def _samples_problems(samples: dict, path: list) -> list[Problem]:
     if len(k) < MIN_BAND_SAMPLES:
         out.append(Problem(format_path(path + ["k_per_angstrom"]),
                            f"{len(k)} points are too few for a mass fit (need at least {MIN_BAND_SAMPLES})"))
-    if not all(_finite(x) for row in k for x in row):
+    if not _all_within([x for row in k for x in row], -math.inf, math.inf):
         out.append(Problem(format_path(path + ["k_per_angstrom"]), "contains a non-finite value"))
-    if not all(_finite(x) and abs(x) <= MAX_ABS_EDGE_EV for x in e):
+    if not _all_within(e, -MAX_ABS_EDGE_EV, MAX_ABS_EDGE_EV):
         out.append(Problem(format_path(path + ["energy_ev"]), f"contains a non-finite value or one beyond {MAX_ABS_EDGE_EV:g} eV"))
     return out
 
@@ -417,7 +438,8 @@ def physical_problems(record: dict, *, stem: str, structure_problem: Callable[[s
             out.append(Problem(format_path(base + ["label"]),
                                f"{valley['band']} valley {valley['label']!r} already given at valleys[{seen[key]}]"))
         seen.setdefault(key, i)
-        for layer_key, energy in valley["edge_ev"].items():
+        edges = valley["edge_ev"]
+        for layer_key, energy in () if _all_within(edges.values(), -MAX_ABS_EDGE_EV, MAX_ABS_EDGE_EV) else edges.items():
             if not _finite(energy) or abs(energy) > MAX_ABS_EDGE_EV:
                 out.append(Problem(format_path(base + ["edge_ev", layer_key]),
                                    f"edge energy {energy!r} is not finite or beyond {MAX_ABS_EDGE_EV:g} eV"))
