@@ -129,6 +129,25 @@ def _inverse_mass(valley: dict, path: str, normal: np.ndarray, warnings: list[st
         "mass_nonparabolic": bool(fit.nonparabolic), "mass_perp_me": float(fit.perpendicular_mass_me)}
 
 
+def layer_rotations(records: list[dict], normals: list[np.ndarray]) -> list[np.ndarray | None]:
+    """Per record, :func:`lamellume.dielectric.rotation_to_layer_frame` of its normal where its
+    tensors are in the crystal frame (else None), for :func:`normalize`'s ``rotation``.
+
+    One call for all records (each row's rotation is computed alone); all None
+    when a normal cannot be used, so :func:`normalize` meets the problem itself.
+    """
+    crystal = [i for i, record in enumerate(records) if record["dielectric"]["frame"] == "crystal"]
+    out: list[np.ndarray | None] = [None] * len(records)
+    if crystal:
+        try:
+            rotations = dielectric.rotation_to_layer_frame(np.array([normals[i] for i in crystal], dtype=float))
+        except ValueError:
+            return out
+        for i, rotation in zip(crystal, rotations):
+            out[i] = rotation
+    return out
+
+
 def prepare_masses(records: list[dict], normals: list[np.ndarray]) -> list[dict[int, object]]:
     """The per-valley mass results of many records at once, for :func:`normalize`'s ``prepared``.
 
@@ -185,13 +204,13 @@ def prepare_masses(records: list[dict], normals: list[np.ndarray]) -> list[dict[
 def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: int,
               geometry: LayerGeometry | None, structure_hash: str | None,
               non_layered: str, reconcile_rel_tol: float,
-              prepared: dict[int, object] | None = None) -> NormalizedRecord:
+              prepared: dict[int, object] | None = None, rotation: np.ndarray | None = None) -> NormalizedRecord:
     """Flatten a contract-valid record; raise :class:`Rejected` when it cannot be screened.
 
     The gap at layer counts the record does not give is checked afterwards, for
-    many records at once (:func:`without_gapless`). ``prepared``: the record's
-    entry of :func:`prepare_masses` (computed for many records at once), with the
-    normal this record gets here.
+    many records at once (:func:`without_gapless`). ``prepared`` and ``rotation``:
+    the record's entries of :func:`prepare_masses` and :func:`layer_rotations`
+    (computed for many records at once, with the normal this record gets here).
     """
     warnings: list[str] = []
     ident = record["id"]
@@ -230,8 +249,9 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
     eps_inf = np.asarray(diel["electronic"], dtype=float)
     eps_0 = np.asarray(diel["static"], dtype=float) if "static" in diel else None
     if diel["frame"] == "crystal":
-        eps_inf = dielectric.to_layer_frame(eps_inf[None], normal[None])[0]
-        eps_0 = None if eps_0 is None else dielectric.to_layer_frame(eps_0[None], normal[None])[0]
+        r = None if rotation is None else rotation[None]
+        eps_inf = dielectric.to_layer_frame(eps_inf[None], normal[None], rotation=r)[0]
+        eps_0 = None if eps_0 is None else dielectric.to_layer_frame(eps_0[None], normal[None], rotation=r)[0]
 
     screening = record.get("monolayer_screening", {})
     if "screening_length_angstrom" in screening:

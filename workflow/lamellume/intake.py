@@ -76,7 +76,8 @@ def check_and_normalise_many(items: list[Pending], *, checker: contract.RecordCh
     the dielectric tensors pass a shared prefilter
     (:func:`lamellume.contract.clear_tensors`; a record it does not clear is
     checked alone, which writes the messages), and isotropic masses and band
-    fits are computed together (:func:`lamellume.ingest.prepare_masses`).
+    fits are computed together (:func:`lamellume.ingest.prepare_masses`), as are
+    the rotations into the layer frame (:func:`lamellume.ingest.layer_rotations`).
     """
     valid = [item.raw.error is None and checker.is_schema_valid(item.raw.data) for item in items]
     clear = contract.clear_tensors([item.raw.data for item, ok in zip(items, valid) if ok])
@@ -85,8 +86,9 @@ def check_and_normalise_many(items: list[Pending], *, checker: contract.RecordCh
                       tensors_clear=bool(next(flags)) if ok else False) for item, ok in zip(items, valid)]
     waiting = [(n, geometry) for n, (outcome, geometry) in enumerate(checked) if outcome is None]
     records = [items[n].raw.data for n, _ in waiting]
-    prepared = iter(ingest.prepare_masses(records, [ingest.layer_normal(r, g) for r, (_, g) in zip(records, waiting)]))
-    return [outcome or _normalise(item, geometry, settings, next(prepared))
+    normals = [ingest.layer_normal(r, g) for r, (_, g) in zip(records, waiting)]
+    prepared = iter(zip(ingest.prepare_masses(records, normals), ingest.layer_rotations(records, normals)))
+    return [outcome or _normalise(item, geometry, settings, *next(prepared))
             for item, (outcome, geometry) in zip(items, checked)]
 
 
@@ -119,14 +121,16 @@ def _check(item: Pending, *, checker: contract.RecordChecker,
     return None, geometry
 
 
-def _normalise(item: Pending, geometry, settings: Mapping, prepared: dict | None = None) -> Outcome:
+def _normalise(item: Pending, geometry, settings: Mapping, prepared: dict | None = None,
+               rotation=None) -> Outcome:
     """The normalise stage of a record that passed :func:`_check`."""
     try:
         norm = ingest.normalize(item.raw.data, source_file=item.source, input_hash=item.input_hash,
                                 max_layers=settings["layers"]["max_layers"], geometry=geometry,
                                 structure_hash=item.cif_hash or None,
                                 non_layered=settings["structure"]["non_layered"],
-                                reconcile_rel_tol=settings["structure"]["reconcile_rel_tol"], prepared=prepared)
+                                reconcile_rel_tol=settings["structure"]["reconcile_rel_tol"], prepared=prepared,
+                                rotation=rotation)
     except ingest.Rejected as exc:
         return Outcome(problems=exc.problems, stage="normalise")
     return Outcome(entry=norm.entry, valleys=norm.valleys)
