@@ -79,11 +79,23 @@ def check_and_normalise_many(items: list[Pending], *, checker: contract.RecordCh
     fits are computed together (:func:`lamellume.ingest.prepare_masses`), as are
     the rotations into the layer frame (:func:`lamellume.ingest.layer_rotations`).
     """
+    checked = _check_many(items, checker=checker, geometry_of=geometry_of)
+    return _normalise_many(items, checked, settings)
+
+
+def _check_many(items: list[Pending], *, checker: contract.RecordChecker,
+                geometry_of: Callable[[bytes, str], tuple[object, str | None]]) -> list[tuple[Outcome | None, object]]:
+    """:func:`_check` of many records: the schema gate one by one, the tensor prefilter for all at once."""
     valid = [item.raw.error is None and checker.is_schema_valid(item.raw.data) for item in items]
-    clear = contract.clear_tensors([item.raw.data for item, ok in zip(items, valid) if ok])
-    flags = iter(clear)
-    checked = [_check(item, checker=checker, geometry_of=geometry_of, schema_valid=ok,
-                      tensors_clear=bool(next(flags)) if ok else False) for item, ok in zip(items, valid)]
+    flags = iter(contract.clear_tensors([item.raw.data for item, ok in zip(items, valid) if ok]))
+    return [_check(item, checker=checker, geometry_of=geometry_of, schema_valid=ok,
+                   tensors_clear=bool(next(flags)) if ok else False) for item, ok in zip(items, valid)]
+
+
+def _normalise_many(items: list[Pending], checked: list[tuple[Outcome | None, object]],
+                    settings: Mapping) -> list[Outcome]:
+    """The outcome of each record: its check's, else :func:`_normalise` with masses and rotations
+    computed for all records at once."""
     waiting = [(n, geometry) for n, (outcome, geometry) in enumerate(checked) if outcome is None]
     records = [items[n].raw.data for n, _ in waiting]
     normals = [ingest.layer_normal(r, g) for r, (_, g) in zip(records, waiting)]
