@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import importlib.util
 import subprocess
 import sys
 from pathlib import Path
@@ -43,23 +42,14 @@ def test_contract_problem_is_a_contract_reject(record, checker):
     assert out.stage == "contract" and out.problems
 
 
-def _corpus_module():
-    path = REPO / "tests" / "data" / "bad_inputs" / "make_corpus.py"
-    spec = importlib.util.spec_from_file_location("lamellume_bad_input_corpus", path)
-    module = importlib.util.module_from_spec(spec)
-    sys.modules[spec.name] = module  # dataclasses look the module up while the class is built
-    spec.loader.exec_module(module)
-    return module
-
-
 @pytest.fixture(scope="module")
 def campaigns(tmp_path_factory) -> dict[str, Path]:
     """The bad-input corpus, a small synthetic campaign with broken records and CIFs, the demo."""
-    bad = tmp_path_factory.mktemp("bad")
-    _corpus_module().write_corpus(bad, include_huge=False)
-    synthetic = tmp_path_factory.mktemp("synthetic")
-    subprocess.run([sys.executable, str(REPO / "inputs" / "make_campaign.py"), "--out", str(synthetic),
-                    "--count", "120", "--seed", "7", "--cif-fraction", "0.3"], check=True, capture_output=True)
+    bad, synthetic = tmp_path_factory.mktemp("bad"), tmp_path_factory.mktemp("synthetic")
+    for command in ([REPO / "tests" / "data" / "bad_inputs" / "make_corpus.py", "--out", bad, "--no-huge"],
+                    [REPO / "inputs" / "make_campaign.py", "--out", synthetic, "--count", "120", "--seed", "7",
+                     "--cif-fraction", "0.3"]):
+        subprocess.run([sys.executable, *map(str, command)], check=True, capture_output=True)
     return {"bad inputs": bad, "synthetic": synthetic, "demo": REPO / "inputs" / "demo"}
 
 
