@@ -76,7 +76,10 @@ def test_records_checked_together_as_one_by_one(campaigns, name, checker, monkey
         return pipeline.check_records(paths, campaign / "structures", settings, {}, checker, geometry_of)
 
     together = rows()
+    monkeypatch.setattr(pipeline, "RECORDS_TOGETHER", 7)  # many groups, boundaries anywhere
+    in_groups = rows()
     monkeypatch.setattr(intake, "check_and_normalise_many", _one_by_one)
     alone = rows()
     assert repr(together) == repr(alone)
+    assert repr(in_groups) == repr(alone)
     assert together[0] and together[2]  # some records screened, some rejected
