@@ -30,9 +30,10 @@ sys.path.insert(0, str(ROOT / "workflow"))
 
 #: Stage -> (module file, function) whose cumulative time is the stage's.
 STAGES = {
-    "read records (io.read_record)": ("io.py", "read_record"),
-    "contract checks (contract.RecordChecker.check)": ("contract.py", "check"),
-    "normalise (ingest.normalize)": ("ingest.py", "normalize"),
+    "read, check, normalise (pipeline.check_records)": ("pipeline.py", "check_records"),
+    "  of it: read records (io.read_record)": ("io.py", "read_record"),
+    "  of it: contract checks (intake._check_many)": ("intake.py", "_check_many"),
+    "  of it: normalise (intake._normalise_many)": ("intake.py", "_normalise_many"),
     "nominal screen (screen.screen_entries)": ("screen.py", "screen_entries"),
     "survival columns (ranking.add_survival)": ("ranking.py", "add_survival"),
     "Monte Carlo (uncertainty.propagate_uncertainty)": ("uncertainty.py", "propagate_uncertainty"),

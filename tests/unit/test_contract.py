@@ -7,7 +7,9 @@ from __future__ import annotations
 
 import copy
 import json
+import math
 
+import numpy as np
 import pytest
 
 from lamellume import io
@@ -246,3 +248,76 @@ def test_layer_counts_beyond_max_layers_are_not_checked(record):
     norm = ingest.normalize(record, source_file="a.json", input_hash="h", max_layers=4, geometry=None,
                             structure_hash=None, non_layered="warn", reconcile_rel_tol=0.05)
     assert "exceed max_layers" in norm.entry["warnings"]
+
+
+def _tensor_family(rng, kind: str, n: int = 400) -> np.ndarray:
+    """Symmetric tensors R diag(eig) R^T (random rotations), then perturbed per ``kind``."""
+    q, _ = np.linalg.qr(rng.normal(size=(n, 3, 3)))
+    if kind == "eigenvalue near 1":
+        eig = np.stack([1.0 + rng.normal(scale=1e-3, size=n), rng.uniform(2, 20, n), rng.uniform(2, 20, n)], -1)
+    elif kind == "eigenvalue near the limit":
+        eig = np.stack([rng.uniform(2, 20, n), rng.uniform(2, 20, n), 200.0 + rng.normal(scale=0.05, size=n)], -1)
+    elif kind == "indefinite":
+        eig = np.stack([rng.uniform(-3, 0.5, n), rng.uniform(2, 20, n), rng.uniform(2, 20, n)], -1)
+    else:
+        eig = rng.uniform(1.0, 40.0, size=(n, 3))
+    t = q @ (eig[..., None] * np.swapaxes(q, -1, -2))
+    t = 0.5 * (t + np.swapaxes(t, -1, -2))
+    if kind == "asymmetric near the tolerance":
+        scale = np.max(np.abs(t), axis=(-1, -2))
+        t[:, 0, 1] += rng.uniform(0.2, 2.0, n) * 1e-4 * scale
+    if kind == "non-finite":
+        t[np.arange(n), rng.integers(0, 3, n), rng.integers(0, 3, n)] = rng.choice([np.nan, np.inf, -np.inf], n)
+    return t
+
+
+@pytest.mark.parametrize("kind", ["plain", "eigenvalue near 1", "eigenvalue near the limit", "indefinite",
+                                  "asymmetric near the tolerance", "non-finite"])
+def test_tensor_prefilter_clears_only_tensors_without_problems(kind):
+    # common practice: the shard's shared tensor check is a prefilter, never a definition; a
+    # record it clears has no tensor problem (tensor_problems, one tensor at a time, is the
+    # definition), and plainly valid tensors are cleared
+    from lamellume import contract
+
+    tensors = _tensor_family(np.random.default_rng(11), kind)
+    records = [{"dielectric": {"frame": "layer", "electronic": t.tolist()}} for t in tensors]
+    clear = contract.clear_tensors(records)
+    problems = [contract.tensor_problems(t.tolist(), max_eps=contract.MAX_ELECTRONIC_EPS) for t in tensors]
+    assert not any(c and p for c, p in zip(clear, problems))
+    if kind == "plain":
+        assert clear.all()
+    else:
+        assert (~clear).any()
+
+
+def test_tensor_prefilter_judges_both_tensors_of_a_record():
+    # common practice: a record is cleared only when its electronic and its static tensor both pass
+    from lamellume import contract
+
+    good = np.diag([5.0, 5.0, 3.0]).tolist()
+    bad = np.diag([5.0, 0.5, 3.0]).tolist()
+    records = [{"dielectric": {"frame": "layer", "electronic": good, "static": good}},
+               {"dielectric": {"frame": "layer", "electronic": good, "static": bad}},
+               {"dielectric": {"frame": "layer", "electronic": bad}},
+               {"dielectric": {"frame": "layer", "electronic": good}}]
+    assert contract.clear_tensors(records).tolist() == [True, False, False, True]
+    assert contract.clear_tensors([]).tolist() == []
+
+
+@pytest.mark.parametrize("values, lo, hi", [
+    ([0.5, -2.0, 3], -10.0, 10.0),
+    ([0.5, float("nan"), 3.0], -10.0, 10.0),
+    ([0.5, float("inf")], -math.inf, math.inf),
+    ([1e308, 1e308], -math.inf, math.inf),  # the sum overflows, every value is finite
+    ([10**308, 10**308], -math.inf, math.inf),  # an integer sum beyond the float range
+    ([0.5, 10.5], -10.0, 10.0),
+    ([-10.0, 10.0], -10.0, 10.0),
+    ([], -1.0, 1.0),
+    ([True, 0.5], -1.0, 1.0),
+])
+def test_all_within_is_the_per_value_rule(values, lo, hi):
+    # common practice: the fast form answers exactly as the per-value loop it replaces
+    from lamellume import contract
+
+    expected = all(contract._finite(x) and lo <= x <= hi for x in values)
+    assert contract._all_within(values, lo, hi) is expected

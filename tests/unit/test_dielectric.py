@@ -124,3 +124,15 @@ def test_validate_tensor_reasons():
 def test_zero_normal_rejected():
     with pytest.raises(ValueError):
         rotation_to_layer_frame(np.zeros((1, 3)))
+
+
+def test_to_layer_frame_with_a_computed_rotation_is_the_same():
+    # common practice: handing in rotation_to_layer_frame(normal), computed for many normals at
+    # once, gives each tensor exactly the result of the call that computes it alone
+    rng = np.random.default_rng(5)
+    normals = rng.normal(size=(50, 3))
+    tensors = rng.normal(size=(50, 3, 3))
+    rotations = rotation_to_layer_frame(normals)
+    for t, n, r in zip(tensors, normals, rotations):
+        np.testing.assert_array_equal(to_layer_frame(t[None], n[None], rotation=r[None]),
+                                      to_layer_frame(t[None], n[None]))

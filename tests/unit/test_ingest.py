@@ -8,10 +8,12 @@ constant.
 
 from __future__ import annotations
 
+import copy
+
 import numpy as np
 import pytest
 
-from lamellume import ingest
+from lamellume import bandfit, ingest
 
 HBAR_J_S = 1.054571817e-34  # CODATA 2018 (exact in the 2019 SI)
 M_E_KG = 9.1093837015e-31  # CODATA 2018
@@ -74,3 +76,25 @@ def test_two_component_samples_with_tilted_normal_rejected(record):
     (problem,) = info.value.problems
     assert problem.field == "valleys[2].band_samples"
     assert "not along z" in problem.reason
+
+
+def test_masses_and_rotations_prepared_for_many_records_change_nothing(record):
+    # common practice: normalize with the stacked mass fits, isotropic masses and rotations of
+    # prepare_masses / layer_rotations gives exactly the rows it computes alone (repr: exact floats)
+    k, e = _samples_normal_along_y()
+    crystal = _crystal_frame(copy.deepcopy(record), (0.0, 1.0, 0.0))
+    crystal["valleys"][2] = {"label": "K", "band": "conduction", "edge_ev": {"1": -4.1, "bulk": -4.15},
+                             "band_samples": {"k_per_angstrom": k, "energy_ev": e, "extremum_at_origin": True}}
+    tilted = _crystal_frame(copy.deepcopy(crystal), (0.3, 0.2, 0.9))
+    tilted["id"] = "tilted"
+    records = [record, crystal, tilted]
+    normals = [ingest.layer_normal(r, None) for r in records]
+    prepared = ingest.prepare_masses(records, normals)
+    rotations = ingest.layer_rotations(records, normals)
+    assert rotations[0] is None and isinstance(prepared[1][2], bandfit.MassFit)
+    for rec, masses, rotation in zip(records, prepared, rotations):
+        alone = _normalize(rec)
+        together = ingest.normalize(rec, source_file="x.json", input_hash="h", max_layers=6, geometry=None,
+                                    structure_hash=None, non_layered="warn", reconcile_rel_tol=0.05,
+                                    prepared=masses, rotation=rotation)
+        assert repr((together.entry, together.valleys)) == repr((alone.entry, alone.valleys))

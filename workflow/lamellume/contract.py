@@ -111,14 +111,17 @@ def _lean_gate(code: str) -> Callable[[Any], Any]:
     the generated code formats a message with the failing value and a copy of
     the schema node at every ``raise``, also inside the ``anyOf``/``oneOf``
     branches a valid record tries and leaves: 60 % of the gate's time on valid
-    records. Each ``raise`` line is replaced by a bare raise of the same
-    exception; the control flow, and so the verdict, is unchanged
+    records. Each ``raise`` line is replaced by a raise of one exception of the
+    same class made once (its traceback cleared, so it keeps no old frames);
+    the control flow, and so the verdict, is unchanged
     (tests/unit/test_contract.py checks the gate against jsonschema).
     """
-    lean, count = re.subn(r"(?m)^(\s*)raise JsonSchemaValueException\(.*\)$", r'\1raise JsonSchemaValueException("")', code)
+    lean, count = re.subn(r"(?m)^(\s*)raise JsonSchemaValueException\(.*\)$", r"\1raise _REFUSED.with_traceback(None)", code)
     if not count:
         raise RuntimeError("fastjsonschema's generated code changed form; review RecordChecker's gate")
-    namespace: dict = {}
+    from fastjsonschema import JsonSchemaValueException
+
+    namespace: dict = {"_REFUSED": JsonSchemaValueException("")}
     exec(compile(lean, "<record schema gate>", "exec"), namespace)  # noqa: S102 - code generated from our schema
     return namespace["validate"]
 
@@ -177,22 +180,38 @@ class RecordChecker:
             problems.append(Problem(field, reason))
         return problems
 
-    def check(self, record: Any, *, stem: str,
-              structure_problem: Callable[[str], str | None]) -> list[Problem]:
+    def check(self, record: Any, *, stem: str, structure_problem: Callable[[str], str | None],
+              tensors_clear: bool = False) -> list[Problem]:
         """All problems of one record: schema first, physics only on a well-formed record.
 
         ``structure_problem(name)`` tells why the referenced structure file cannot
         be read (``"file not found"``, ``"is a directory, not a file"``, ...) or
-        returns None when it can.
+        returns None when it can. ``tensors_clear``: :func:`clear_tensors` found
+        the record's dielectric tensors free of problems (their checks are skipped).
         """
         problems = self.schema_problems(record)
         if problems:
             return problems
-        return physical_problems(record, stem=stem, structure_problem=structure_problem)
+        return physical_problems(record, stem=stem, structure_problem=structure_problem,
+                                 tensors_clear=tensors_clear)
 
 
 def _finite(value: float) -> bool:
     return isinstance(value, (int, float)) and math.isfinite(value)
+
+
+def _all_within(values, lo: float, hi: float) -> bool:
+    """Every value a finite number in [lo, hi]: ``all(_finite(x) and lo <= x <= hi for x in values)``.
+
+    Decided without a call per value when it holds (a finite sum means no NaN
+    or infinity among numbers); otherwise value by value.
+    """
+    try:
+        if math.isfinite(sum(values)) and lo <= min(values) and max(values) <= hi:
+            return True
+    except (TypeError, ValueError, OverflowError):  # not numbers, no values, an integer sum beyond floats
+        pass
+    return all(_finite(x) and lo <= x <= hi for x in values)
 
 
 def tensor_problems(tensor: list[list[float]], *, max_eps: float) -> list[str]:
@@ -207,12 +226,61 @@ def tensor_problems(tensor: list[list[float]], *, max_eps: float) -> list[str]:
     return []
 
 
+#: Dielectric tensors checked (the order of :func:`physical_problems`) and their plausible limit.
+_TENSOR_LIMITS = (("electronic", MAX_ELECTRONIC_EPS), ("static", MAX_STATIC_EPS))
+
+
+def clear_tensors(records: list[dict]) -> np.ndarray:
+    """Which schema-valid records certainly pass every :func:`tensor_problems` check (all at once).
+
+    A prefilter for a shard of records, never a definition: True only with a
+    margin, so a record it clears has no tensor problem, and every other record
+    is checked one by one (which writes the messages). A tensor is cleared when
+    its components are finite, max |T - T^T| <= SYMMETRY_RTOL/2 x max |T|, and
+    the eigenvalues of its symmetric part lie in [1 + d, max_eps - d] with
+    d = 2 x SYMMETRY_RTOL x max |T|. :func:`tensor_problems` takes the
+    eigenvalues of the symmetric part (positivity, >= 1) and of the lower
+    triangle (the limit); the two matrices differ by (T - T^T)/2 off the
+    diagonal, whose spectral norm is at most max |T - T^T| (two such entries a
+    row), so by Weyl's inequality their eigenvalues differ by less than d/4,
+    and rounding by far less.
+
+    Returns
+    -------
+    numpy.ndarray of bool, one per record.
+    """
+    tensors, owners, limits = [], [], []
+    for i, record in enumerate(records):
+        diel = record["dielectric"]
+        for key, max_eps in _TENSOR_LIMITS:
+            if key in diel:
+                tensors.append(diel[key])
+                owners.append(i)
+                limits.append(max_eps)
+    clear = np.ones(len(records), dtype=bool)
+    if not tensors:
+        return clear
+    t = np.array(tensors, dtype=float)
+    finite = np.all(np.isfinite(t), axis=(-1, -2))
+    t = np.where(finite[:, None, None], t, np.eye(3))
+    scale = np.max(np.abs(t), axis=(-1, -2))
+    asym = np.max(np.abs(t - np.swapaxes(t, -1, -2)), axis=(-1, -2))
+    eig = np.linalg.eigvalsh(0.5 * (t + np.swapaxes(t, -1, -2)))
+    margin = 2.0 * dielectric.SYMMETRY_RTOL * scale
+    ok = (finite & (asym <= 0.5 * dielectric.SYMMETRY_RTOL * scale) & (eig[:, 0] >= 1.0 + margin)
+          & (eig[:, -1] <= np.array(limits) - margin))
+    np.logical_and.at(clear, np.array(owners), ok)
+    return clear
+
+
 def mass_problems(value: float) -> str | None:
     """Reason a mass value (m_e) is unusable, or None.
 
     The same rules as :func:`lamellume.masses.validate_masses` (which works on
     arrays), written for one scalar because records are checked one at a time.
     """
+    if isinstance(value, (int, float)) and masses.MASS_MIN_ME <= value <= masses.MASS_MAX_ME:
+        return None  # finite and positive
     if not _finite(value):
         return "is not finite"
     if value <= 0:
@@ -223,9 +291,11 @@ def mass_problems(value: float) -> str | None:
 
 
 def _range_problem(value: float, window: tuple[float, float], unit: str) -> str | None:
+    lo, hi = window
+    if isinstance(value, (int, float)) and lo <= value <= hi:
+        return None  # finite: the window is
     if not _finite(value):
         return "is not finite"
-    lo, hi = window
     if not lo <= value <= hi:
         return f"{value:g} {unit} is outside the plausible range [{lo:g}, {hi:g}] {unit}"
     return None
@@ -282,23 +352,26 @@ def _samples_problems(samples: dict, path: list) -> list[Problem]:
     if len(k) < MIN_BAND_SAMPLES:
         out.append(Problem(format_path(path + ["k_per_angstrom"]),
                            f"{len(k)} points are too few for a mass fit (need at least {MIN_BAND_SAMPLES})"))
-    if not all(_finite(x) for row in k for x in row):
+    if not _all_within([x for row in k for x in row], -math.inf, math.inf):
         out.append(Problem(format_path(path + ["k_per_angstrom"]), "contains a non-finite value"))
-    if not all(_finite(x) and abs(x) <= MAX_ABS_EDGE_EV for x in e):
+    if not _all_within(e, -MAX_ABS_EDGE_EV, MAX_ABS_EDGE_EV):
         out.append(Problem(format_path(path + ["energy_ev"]), f"contains a non-finite value or one beyond {MAX_ABS_EDGE_EV:g} eV"))
     return out
 
 
-def physical_problems(record: dict, *, stem: str,
-                      structure_problem: Callable[[str], str | None]) -> list[Problem]:
-    """Physical and cross-field checks of a schema-valid record."""
+def physical_problems(record: dict, *, stem: str, structure_problem: Callable[[str], str | None],
+                      tensors_clear: bool = False) -> list[Problem]:
+    """Physical and cross-field checks of a schema-valid record.
+
+    ``tensors_clear``: the dielectric tensors are known to pass (:func:`clear_tensors`).
+    """
     out: list[Problem] = []
     if record["id"] != stem:
         out.append(Problem("id", f"identifier {record['id']!r} differs from the file name '{stem}.json' (the id must equal the "
                            f"file name without .json)"))
 
     diel = record["dielectric"]
-    for key, max_eps in (("electronic", MAX_ELECTRONIC_EPS), ("static", MAX_STATIC_EPS)):
+    for key, max_eps in () if tensors_clear else _TENSOR_LIMITS:
         if key in diel:
             for reason in tensor_problems(diel[key], max_eps=max_eps):
                 out.append(Problem(f"dielectric.{key}", f"tensor: {reason}"))
@@ -365,7 +438,8 @@ def physical_problems(record: dict, *, stem: str,
             out.append(Problem(format_path(base + ["label"]),
                                f"{valley['band']} valley {valley['label']!r} already given at valleys[{seen[key]}]"))
         seen.setdefault(key, i)
-        for layer_key, energy in valley["edge_ev"].items():
+        edges = valley["edge_ev"]
+        for layer_key, energy in () if _all_within(edges.values(), -MAX_ABS_EDGE_EV, MAX_ABS_EDGE_EV) else edges.items():
             if not _finite(energy) or abs(energy) > MAX_ABS_EDGE_EV:
                 out.append(Problem(format_path(base + ["edge_ev", layer_key]),
                                    f"edge energy {energy!r} is not finite or beyond {MAX_ABS_EDGE_EV:g} eV"))

@@ -96,7 +96,7 @@ def rotation_to_layer_frame(normal):
     return np.stack([e1, e2, n], axis=-2)
 
 
-def to_layer_frame(tensor, normal):
+def to_layer_frame(tensor, normal, rotation=None):
     """Express rank-2 tensors in the layer frame, T' = R T R^T.
 
     Parameters
@@ -105,6 +105,9 @@ def to_layer_frame(tensor, normal):
         Tensor in the laboratory frame (e.g. relative permittivity, dimensionless).
     normal : array_like, shape (n, 3)
         Layer normal in the laboratory frame.
+    rotation : array_like, shape (n, 3, 3), optional
+        ``rotation_to_layer_frame(normal)`` when already computed (``normal``
+        is then not used).
 
     Returns
     -------
@@ -118,7 +121,7 @@ def to_layer_frame(tensor, normal):
     Properties of Crystals* (Oxford, 1957), ch. 1.
     """
     t = np.asarray(tensor, dtype=float)
-    r = rotation_to_layer_frame(normal)
+    r = rotation_to_layer_frame(normal) if rotation is None else np.asarray(rotation, dtype=float)
     return r @ t @ np.swapaxes(r, -1, -2)
 
 

@@ -10,6 +10,7 @@ stage raises :class:`Rejected` with the field and reason.
 
 from __future__ import annotations
 
+import functools
 import math
 import operator
 import warnings
@@ -56,6 +57,17 @@ def edge_column(layers: int) -> str:
     return "edge_bulk_ev" if layers == 0 else f"edge_{layers}l_ev"
 
 
+@functools.lru_cache(maxsize=8)
+def _layer_edge_keys(max_layers: int) -> tuple[tuple[str, str], ...]:
+    """(edge column, record key) of the layer counts 1..max_layers."""
+    return tuple((edge_column(n), str(n)) for n in range(1, max_layers + 1))
+
+
+def layer_normal(record: dict, geometry: LayerGeometry | None) -> np.ndarray:
+    """The layer normal :func:`normalize` uses, in the frame of the record's dielectric tensors."""
+    return _normal(record, geometry, [])[0]
+
+
 def _normal(record: dict, geometry: LayerGeometry | None, warnings: list[str]) -> tuple[np.ndarray, str]:
     diel = record["dielectric"]
     if diel["frame"] == "layer":
@@ -76,15 +88,19 @@ def _tensor_columns(prefix: str, tensor: np.ndarray | None) -> dict:
     return {f"{prefix}_{name}": float(tensor[i, j]) for name, i, j in TENSOR_COMPONENTS}
 
 
-def _inverse_mass(valley: dict, path: str, normal: np.ndarray, warnings: list[str]) -> tuple[np.ndarray, dict]:
+def _inverse_mass(valley: dict, path: str, normal: np.ndarray, warnings: list[str],
+                  prepared: object = None) -> tuple[np.ndarray, dict]:
     """In-plane inverse-mass tensor (1/m_e, carrier sign, layer frame) and fit diagnostics.
 
     Band samples are in the frame of ``dielectric.frame``; ``normal`` is the layer
     normal in that frame, so the fit rotates them into the layer frame.
+    ``prepared`` is the valley's result of :func:`prepare_masses` (None: computed here).
     """
     if "mass" in valley:
         m = valley["mass"]
-        if "isotropic_me" in m:
+        if prepared is not None:
+            inv = prepared
+        elif "isotropic_me" in m:
             inv = masses.inverse_mass_tensor_2d_from_scalar(np.array([m["isotropic_me"]]))[0]
         elif "principal_me" in m:
             m1, m2 = m["principal_me"]
@@ -94,14 +110,16 @@ def _inverse_mass(valley: dict, path: str, normal: np.ndarray, warnings: list[st
             inv = masses.inverse_mass_tensor_2d_from_tensor(np.array([m["tensor_me"]], dtype=float))[0]
         return inv, {"mass_source": "given", "mass_fit_rms_ev": math.nan, "mass_nonparabolic": False,
                      "mass_perp_me": float(m.get("perpendicular_me", math.nan))}
-    samples = valley["band_samples"]
-    k = np.asarray(samples["k_per_angstrom"], dtype=float)
-    e = np.asarray(samples["energy_ev"], dtype=float)
-    try:
-        fit = bandfit.fit_effective_mass(k, e, valley["band"], layer_normal=normal,
-                                         fix_k0=bool(samples.get("extremum_at_origin", False)))
-    except bandfit.MassFitError as exc:
-        raise Rejected([Problem(f"{path}.band_samples", f"mass fit failed: {exc}")]) from exc
+    fit = prepared
+    if fit is None:
+        samples = valley["band_samples"]
+        k = np.asarray(samples["k_per_angstrom"], dtype=float)
+        e = np.asarray(samples["energy_ev"], dtype=float)
+        try:
+            fit = bandfit.fit_effective_mass(k, e, valley["band"], layer_normal=normal,
+                                             fix_k0=bool(samples.get("extremum_at_origin", False)))
+        except bandfit.MassFitError as exc:
+            raise Rejected([Problem(f"{path}.band_samples", f"mass fit failed: {exc}")]) from exc
     warnings.extend(f"{path}.band_samples: {note}" for note in fit.warnings if note.startswith("out-of-plane"))
     if fit.nonparabolic:
         warnings.append(f"{path}: band samples show a notable non-parabolic (quartic) term; "
@@ -111,13 +129,88 @@ def _inverse_mass(valley: dict, path: str, normal: np.ndarray, warnings: list[st
         "mass_nonparabolic": bool(fit.nonparabolic), "mass_perp_me": float(fit.perpendicular_mass_me)}
 
 
+def layer_rotations(records: list[dict], normals: list[np.ndarray]) -> list[np.ndarray | None]:
+    """Per record, :func:`lamellume.dielectric.rotation_to_layer_frame` of its normal where its
+    tensors are in the crystal frame (else None), for :func:`normalize`'s ``rotation``.
+
+    One call for all records (each row's rotation is computed alone); all None
+    when a normal cannot be used, so :func:`normalize` meets the problem itself.
+    """
+    crystal = [i for i, record in enumerate(records) if record["dielectric"]["frame"] == "crystal"]
+    out: list[np.ndarray | None] = [None] * len(records)
+    if crystal:
+        try:
+            rotations = dielectric.rotation_to_layer_frame(np.array([normals[i] for i in crystal], dtype=float))
+        except ValueError:
+            return out
+        for i, rotation in zip(crystal, rotations):
+            out[i] = rotation
+    return out
+
+
+def prepare_masses(records: list[dict], normals: list[np.ndarray]) -> list[dict[int, object]]:
+    """The per-valley mass results of many records at once, for :func:`normalize`'s ``prepared``.
+
+    Isotropic given masses go through one call of
+    :func:`lamellume.masses.inverse_mass_tensor_2d_from_scalar` (an element-wise
+    division); band samples of the same band, extremum setting and shape through
+    one call of :func:`lamellume.bandfit.fit_effective_masses` (each valley's
+    least squares is solved alone, so the stack gives each valley's own fit).
+    A stack that raises is left out, as are the other mass forms:
+    :func:`normalize` fits or converts those valleys one by one and reports
+    their errors.
+
+    Parameters
+    ----------
+    records : contract-valid records.
+    normals : each record's layer normal in its dielectric frame (``_normal``).
+
+    Returns
+    -------
+    per record, valley index -> inverse-mass tensor (1/m_e) or :class:`lamellume.bandfit.MassFit`.
+    """
+    out: list[dict[int, object]] = [{} for _ in records]
+    scalar_at, scalar = [], []
+    stacks: dict[tuple, list] = {}
+    for r, (record, normal) in enumerate(zip(records, normals)):
+        for i, valley in enumerate(record["valleys"]):
+            if "isotropic_me" in valley.get("mass", ()):
+                scalar_at.append((r, i))
+                scalar.append(valley["mass"]["isotropic_me"])
+            elif "band_samples" in valley:
+                samples = valley["band_samples"]
+                try:
+                    k = np.asarray(samples["k_per_angstrom"], dtype=float)
+                    e = np.asarray(samples["energy_ev"], dtype=float)
+                except (TypeError, ValueError):
+                    continue  # left to normalize, which reports it
+                key = (valley["band"], bool(samples.get("extremum_at_origin", False)), k.shape, e.shape)
+                stacks.setdefault(key, []).append((r, i, k, e, normal))
+    if scalar:
+        for (r, i), inv in zip(scalar_at, masses.inverse_mass_tensor_2d_from_scalar(np.array(scalar))):
+            out[r][i] = inv
+    for (band, fix_k0, _, _), group in stacks.items():
+        try:
+            fits = bandfit.fit_effective_masses(
+                np.stack([k for _, _, k, _, _ in group]), np.stack([e for _, _, _, e, _ in group]), band,
+                layer_normal=np.stack([n for *_, n in group]), fix_k0=fix_k0)
+        except (bandfit.MassFitError, np.linalg.LinAlgError, ValueError):
+            continue
+        for (r, i, *_), fit in zip(group, fits):
+            out[r][i] = fit
+    return out
+
+
 def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: int,
               geometry: LayerGeometry | None, structure_hash: str | None,
-              non_layered: str, reconcile_rel_tol: float) -> NormalizedRecord:
+              non_layered: str, reconcile_rel_tol: float,
+              prepared: dict[int, object] | None = None, rotation: np.ndarray | None = None) -> NormalizedRecord:
     """Flatten a contract-valid record; raise :class:`Rejected` when it cannot be screened.
 
     The gap at layer counts the record does not give is checked afterwards, for
-    many records at once (:func:`without_gapless`).
+    many records at once (:func:`without_gapless`). ``prepared`` and ``rotation``:
+    the record's entries of :func:`prepare_masses` and :func:`layer_rotations`
+    (computed for many records at once, with the normal this record gets here).
     """
     warnings: list[str] = []
     ident = record["id"]
@@ -156,8 +249,9 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
     eps_inf = np.asarray(diel["electronic"], dtype=float)
     eps_0 = np.asarray(diel["static"], dtype=float) if "static" in diel else None
     if diel["frame"] == "crystal":
-        eps_inf = dielectric.to_layer_frame(eps_inf[None], normal[None])[0]
-        eps_0 = None if eps_0 is None else dielectric.to_layer_frame(eps_0[None], normal[None])[0]
+        r = None if rotation is None else rotation[None]
+        eps_inf = dielectric.to_layer_frame(eps_inf[None], normal[None], rotation=r)[0]
+        eps_0 = None if eps_0 is None else dielectric.to_layer_frame(eps_0[None], normal[None], rotation=r)[0]
 
     screening = record.get("monolayer_screening", {})
     if "screening_length_angstrom" in screening:
@@ -210,11 +304,14 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
     }
 
     valleys = []
+    layer_edges = _layer_edge_keys(max_layers)
     for i, valley in enumerate(record["valleys"]):
         path = f"valleys[{i}]"
-        inv, fit_info = _inverse_mass(valley, path, normal, warnings)
+        inv, fit_info = _inverse_mass(valley, path, normal, warnings, None if prepared is None else prepared.get(i))
         mass = valley.get("mass", {})
-        ignored = [k for k in valley["edge_ev"] if k != "bulk" and int(k) > max_layers]
+        (xx, xy), (_, yy) = np.asarray(inv, dtype=float).tolist()
+        edges = valley["edge_ev"]
+        ignored = [k for k in edges if k != "bulk" and int(k) > max_layers]
         if ignored:
             warnings.append(f"{path}.edge_ev: layer counts {', '.join(ignored)} exceed max_layers and are not used")
         row = {
@@ -223,9 +320,9 @@ def normalize(record: dict, *, source_file: str, input_hash: str, max_layers: in
             "input_hash": input_hash,
             "label": valley["label"],
             "band": valley["band"],
-            **{edge_column(n): float(valley["edge_ev"].get(str(n), math.nan)) for n in range(1, max_layers + 1)},
+            **{column: float(edges[key]) if key in edges else math.nan for column, key in layer_edges},
             edge_column(0): float(valley["edge_ev"]["bulk"]),
-            "inv_mass_xx": float(inv[0, 0]), "inv_mass_xy": float(inv[0, 1]), "inv_mass_yy": float(inv[1, 1]),
+            "inv_mass_xx": xx, "inv_mass_xy": xy, "inv_mass_yy": yy,
             **fit_info,
             "mass_rel_unc": float(mass.get("relative_uncertainty", math.nan)),
             "edge_unc_ev": float(valley.get("edge_uncertainty_ev", math.nan)),

@@ -29,6 +29,19 @@ class Outcome:
     stage: str = ""
 
 
+@dataclass
+class Pending:
+    """A read record waiting for its checks (the arguments of :func:`check_and_normalise`)."""
+
+    raw: object
+    stem: str
+    source: str
+    input_hash: str
+    cif_bytes: bytes | None
+    cif_hash: str
+    cif_problem: str | None
+
+
 def check_and_normalise(raw, *, stem: str, source: str, input_hash: str, cif_bytes: bytes | None,
                         cif_hash: str, cif_problem: str | None, checker: contract.RecordChecker,
                         settings: Mapping, geometry_of: Callable[[bytes, str], tuple[object, str | None]]) -> Outcome:
@@ -50,23 +63,86 @@ def check_and_normalise(raw, *, stem: str, source: str, input_hash: str, cif_byt
     -------
     Outcome
     """
+    item = Pending(raw, stem, source, input_hash, cif_bytes, cif_hash, cif_problem)
+    outcome, geometry = _check(item, checker=checker, geometry_of=geometry_of)
+    return outcome or _normalise(item, geometry, settings)
+
+
+def check_and_normalise_many(items: list[Pending], *, checker: contract.RecordChecker, settings: Mapping,
+                             geometry_of: Callable[[bytes, str], tuple[object, str | None]]) -> list[Outcome]:
+    """:func:`check_and_normalise` of many records, in order, with the same outcomes.
+
+    The numeric work that is the same for every record is done once for all:
+    the dielectric tensors pass a shared prefilter
+    (:func:`lamellume.contract.clear_tensors`; a record it does not clear is
+    checked alone, which writes the messages), and isotropic masses and band
+    fits are computed together (:func:`lamellume.ingest.prepare_masses`), as are
+    the rotations into the layer frame (:func:`lamellume.ingest.layer_rotations`).
+    """
+    checked = _check_many(items, checker=checker, geometry_of=geometry_of)
+    return _normalise_many(items, checked, settings)
+
+
+def _check_many(items: list[Pending], *, checker: contract.RecordChecker,
+                geometry_of: Callable[[bytes, str], tuple[object, str | None]]) -> list[tuple[Outcome | None, object]]:
+    """:func:`_check` of many records: the schema gate one by one, the tensor prefilter for all at once."""
+    valid = [item.raw.error is None and checker.is_schema_valid(item.raw.data) for item in items]
+    flags = iter(contract.clear_tensors([item.raw.data for item, ok in zip(items, valid) if ok]))
+    return [_check(item, checker=checker, geometry_of=geometry_of, schema_valid=ok,
+                   tensors_clear=bool(next(flags)) if ok else False) for item, ok in zip(items, valid)]
+
+
+def _normalise_many(items: list[Pending], checked: list[tuple[Outcome | None, object]],
+                    settings: Mapping) -> list[Outcome]:
+    """The outcome of each record: its check's, else :func:`_normalise` with masses and rotations
+    computed for all records at once."""
+    waiting = [(n, geometry) for n, (outcome, geometry) in enumerate(checked) if outcome is None]
+    records = [items[n].raw.data for n, _ in waiting]
+    normals = [ingest.layer_normal(r, g) for r, (_, g) in zip(records, waiting)]
+    prepared = iter(zip(ingest.prepare_masses(records, normals), ingest.layer_rotations(records, normals)))
+    return [outcome or _normalise(item, geometry, settings, *next(prepared))
+            for item, (outcome, geometry) in zip(items, checked)]
+
+
+def _check(item: Pending, *, checker: contract.RecordChecker,
+           geometry_of: Callable[[bytes, str], tuple[object, str | None]], schema_valid: bool = False,
+           tensors_clear: bool = False) -> tuple[Outcome | None, object]:
+    """The reading, contract and structure stages: (rejecting outcome or None, layer geometry or None).
+
+    ``schema_valid``: the record is known to pass the schema gate; ``tensors_clear``:
+    its tensors are known to pass (:func:`lamellume.contract.clear_tensors`).
+    """
+    raw = item.raw
     if raw.error is not None:
-        return Outcome(problems=[contract.Problem(raw.error_field, raw.error)], stage="read")
-    problems = checker.check(raw.data, stem=stem, structure_problem=lambda _name, why=cif_problem: why)
+        return Outcome(problems=[contract.Problem(raw.error_field, raw.error)], stage="read"), None
+    why = item.cif_problem
+    structure_problem = lambda _name: why  # noqa: E731 - the reason found when the CIF was read
+    if schema_valid:
+        problems = contract.physical_problems(raw.data, stem=item.stem, structure_problem=structure_problem,
+                                              tensors_clear=tensors_clear)
+    else:
+        problems = checker.check(raw.data, stem=item.stem, structure_problem=structure_problem)
     if problems:
-        return Outcome(problems=problems, stage="contract")
+        return Outcome(problems=problems, stage="contract"), None
     geometry = None
-    if cif_bytes is not None:
-        geometry, error = geometry_of(cif_bytes, cif_hash)
+    if item.cif_bytes is not None:
+        geometry, error = geometry_of(item.cif_bytes, item.cif_hash)
         if error:
             return Outcome(problems=[contract.Problem(
-                "structure_file", f"{raw.data['structure_file']}: {error}")], stage="structure")
+                "structure_file", f"{raw.data['structure_file']}: {error}")], stage="structure"), None
+    return None, geometry
+
+
+def _normalise(item: Pending, geometry, settings: Mapping, prepared: dict | None = None,
+               rotation=None) -> Outcome:
+    """The normalise stage of a record that passed :func:`_check`."""
     try:
-        norm = ingest.normalize(raw.data, source_file=source, input_hash=input_hash,
+        norm = ingest.normalize(item.raw.data, source_file=item.source, input_hash=item.input_hash,
                                 max_layers=settings["layers"]["max_layers"], geometry=geometry,
-                                structure_hash=cif_hash or None,
+                                structure_hash=item.cif_hash or None,
                                 non_layered=settings["structure"]["non_layered"],
-                                reconcile_rel_tol=settings["structure"]["reconcile_rel_tol"])
+                                reconcile_rel_tol=settings["structure"]["reconcile_rel_tol"], prepared=prepared,
+                                rotation=rotation)
     except ingest.Rejected as exc:
         return Outcome(problems=exc.problems, stage="normalise")
     return Outcome(entry=norm.entry, valleys=norm.valleys)

@@ -13,6 +13,7 @@ import hashlib
 import json
 import math
 import os
+import re
 import stat
 import sys
 import tempfile
@@ -177,6 +178,10 @@ def read_limited(path: str | os.PathLike, limit: int) -> tuple[bytes | None, str
     return data, None, len(data)
 
 
+#: A run of digits long enough for an integer beyond the float range (10**308 < max float < 10**309).
+_LONG_DIGITS = re.compile(r"[0-9]{309}")
+
+
 def _reject_constant(name: str) -> float:
     raise ValueError(f"non-finite number '{name}' is not allowed")
 
@@ -301,14 +306,18 @@ def read_record(path: str | os.PathLike) -> RawRecord:
     repeated: list[bool] = []
 
     def object_pairs(pairs: list[tuple[str, Any]]) -> dict:
-        obj = _object_pairs(pairs)
-        if obj.repeated:
+        obj = dict(pairs)
+        if len(obj) != len(pairs):
             repeated.append(True)
         return obj
 
     try:
-        data = json.loads(text, parse_constant=_reject_constant, parse_int=_parse_int,
-                          object_pairs_hook=object_pairs)
+        # an integer beyond the float range has at least 309 digits; without one, int() is _parse_int
+        data = json.loads(text, parse_constant=_reject_constant,
+                          parse_int=_parse_int if _LONG_DIGITS.search(text) else None, object_pairs_hook=object_pairs)
+        if repeated:  # parsed again, each object remembering its keys given twice (for the message)
+            data = json.loads(text, parse_constant=_reject_constant, parse_int=_parse_int,
+                              object_pairs_hook=_object_pairs)
     except json.JSONDecodeError as exc:
         return RawRecord(path, digest, error=f"invalid JSON at line {exc.lineno} column {exc.colno}: {exc.msg}")
     except RecursionError:

@@ -21,7 +21,7 @@ from typing import Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from lamellume import contract, ingest, intake, io, provenance, screen
+from lamellume import contract, ingest, intake, io, provenance
 from lamellume.keldysh import KeldyshTable
 from lamellume.tables import stage_words
 from lamellume.shard_cache import (CONTEXT_STAGES, SHARD_TABLES, PropagationCache, ShardCache,  # noqa: F401
@@ -100,6 +100,11 @@ def run_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, tabl
     return screen_shard(entry_paths, campaign, settings, table, cache_dir, outputs)[0]
 
 
+#: Records read, then checked and normalised together by :func:`check_records` (bounds the
+#: parsed records held at once; the shared work pays off well below this).
+RECORDS_TOGETHER = 500
+
+
 def check_records(entry_paths: Sequence[str], structures_dir: Path, settings: Mapping, stamps: Mapping[str, str],
                   checker: contract.RecordChecker, geometry_of, reuse=lambda stem, input_hash: False,
                   ) -> tuple[list[dict], list[dict], list[dict]]:
@@ -118,13 +123,35 @@ def check_records(entry_paths: Sequence[str], structures_dir: Path, settings: Ma
     new_entries, new_valleys, reject_rows = [], [], []
     readable = [p for p in entry_paths if io.skip_reason(os.path.basename(p), "entries") is None]
     siblings = case_variants([Path(p).stem for p in readable])
+    # Read up to RECORDS_TOGETHER records (reject rows kept in file order: a list of rows
+    # or the index of a record to check), then check and normalise the read ones together.
+    slots: list[list[dict] | int] = []
+    pending: list[intake.Pending] = []
+
+    def flush() -> None:
+        outcomes = intake.check_and_normalise_many(pending, checker=checker, settings=settings,
+                                                   geometry_of=geometry_of)
+        for slot in slots:
+            if not isinstance(slot, int):
+                reject_rows.extend(slot)
+                continue
+            item, outcome = pending[slot], outcomes[slot]
+            if outcome.stage:
+                reject_rows.extend(_reject_rows(item.stem, item.source, outcome.problems, outcome.stage,
+                                                item.input_hash, stamps))
+                continue
+            new_entries.append({**outcome.entry, **stamps})
+            new_valleys.extend({**v, **stamps} for v in outcome.valleys)
+        slots.clear()
+        pending.clear()
+
     for path in sorted(entry_paths):
         stem = Path(path).stem
         source = os.path.basename(path)
         skipped = io.skip_reason(source, "entries")
         if skipped:  # listed so the user sees it, never opened
-            reject_rows += _reject_rows(stem, source, [contract.Problem("(file name)", skipped)], "skipped",
-                                        "", stamps)
+            slots.append(_reject_rows(stem, source, [contract.Problem("(file name)", skipped)], "skipped",
+                                      "", stamps))
             continue
         raw = io.read_record(path)
         cif_bytes, cif_hash, cif_problem = None, "", "file not found"
@@ -140,20 +167,17 @@ def check_records(entry_paths: Sequence[str], structures_dir: Path, settings: Ma
 
         if stem in siblings:
             others = ", ".join(f"{s}.json" for s in siblings[stem])
-            reject_rows += _reject_rows(stem, source, [contract.Problem(
+            slots.append(_reject_rows(stem, source, [contract.Problem(
                 "id", f"duplicate identifier: {source} and {others} differ only in letter case; all of them "
-                      "are rejected until one is renamed or removed")], "duplicate", input_hash, stamps)
+                      "are rejected until one is renamed or removed")], "duplicate", input_hash, stamps))
             continue
         if reuse(stem, input_hash):
             continue
-        outcome = intake.check_and_normalise(
-            raw, stem=stem, source=source, input_hash=input_hash, cif_bytes=cif_bytes, cif_hash=cif_hash,
-            cif_problem=cif_problem, checker=checker, settings=settings, geometry_of=geometry_of)
-        if outcome.stage:
-            reject_rows += _reject_rows(stem, source, outcome.problems, outcome.stage, input_hash, stamps)
-            continue
-        new_entries.append({**outcome.entry, **stamps})
-        new_valleys.extend({**v, **stamps} for v in outcome.valleys)
+        slots.append(len(pending))
+        pending.append(intake.Pending(raw, stem, source, input_hash, cif_bytes, cif_hash, cif_problem))
+        if len(pending) == RECORDS_TOGETHER:
+            flush()
+    flush()
 
     new_entries, new_valleys, gapless = ingest.without_gapless(
         new_entries, new_valleys, max_layers=max_layers, fit_exponent=bool(settings["layers"]["fit_exponent"]))
@@ -241,6 +265,8 @@ def screen_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, t
         entry_paths, structures_dir, settings, stamps, checker, cache.structure_geometry, reuse=cache.reuse)
     entries_new = ingest.typed_frame(new_entries, ingest.ENTRY_COLUMNS + list(stamps))
     valleys_new = ingest.typed_frame(new_valleys, ingest.valley_columns(max_layers) + list(stamps))
+    from lamellume import screen  # scipy.special: imported by the shard job only, not by rank or manifest
+
     long_new, wide_new = screen.screen_entries(entries_new, valleys_new, settings, _keldysh_table(table),
                                                temperature_k=temperature_k)
     for frame in (long_new, wide_new):
@@ -327,8 +353,8 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     import pyarrow.compute as pc
 
     targets = []
-    for path in inputs["long"]:
-        part = io.read_arrow(path)
+    for path in inputs["long"]:  # only the columns rank() reads, not the whole of the largest table
+        part = io.read_arrow(path, columns=list(ranking.TARGET_KEYS + ranking.TARGET_COLUMNS))
         chosen = pc.and_(pc.equal(part.column("layers"), target_layers),
                          pc.equal(part.column("environment"), environment))
         targets.append(part.filter(chosen).to_pandas())
