@@ -33,3 +33,4 @@ onsuccess:
 
 
 summary_when_nothing_to_do()
+no_collection_at_exit()

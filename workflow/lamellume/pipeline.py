@@ -21,7 +21,7 @@ from typing import Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from lamellume import contract, ingest, intake, io, provenance, screen
+from lamellume import contract, ingest, intake, io, provenance
 from lamellume.keldysh import KeldyshTable
 from lamellume.tables import stage_words
 from lamellume.shard_cache import (CONTEXT_STAGES, SHARD_TABLES, PropagationCache, ShardCache,  # noqa: F401
@@ -265,6 +265,8 @@ def screen_shard(entry_paths: Sequence[str], campaign: str, settings: Mapping, t
         entry_paths, structures_dir, settings, stamps, checker, cache.structure_geometry, reuse=cache.reuse)
     entries_new = ingest.typed_frame(new_entries, ingest.ENTRY_COLUMNS + list(stamps))
     valleys_new = ingest.typed_frame(new_valleys, ingest.valley_columns(max_layers) + list(stamps))
+    from lamellume import screen  # scipy.special: imported by the shard job only, not by rank or manifest
+
     long_new, wide_new = screen.screen_entries(entries_new, valleys_new, settings, _keldysh_table(table),
                                                temperature_k=temperature_k)
     for frame in (long_new, wide_new):
@@ -351,8 +353,8 @@ def run_rank(inputs: Mapping[str, Sequence[str]], outputs: Mapping[str, str], se
     import pyarrow.compute as pc
 
     targets = []
-    for path in inputs["long"]:
-        part = io.read_arrow(path)
+    for path in inputs["long"]:  # only the columns rank() reads, not the whole of the largest table
+        part = io.read_arrow(path, columns=list(ranking.TARGET_KEYS + ranking.TARGET_COLUMNS))
         chosen = pc.and_(pc.equal(part.column("layers"), target_layers),
                          pc.equal(part.column("environment"), environment))
         targets.append(part.filter(chosen).to_pandas())

@@ -39,7 +39,7 @@ from typing import Mapping
 import numpy as np
 import pandas as pd
 
-from lamellume import brightness, excitons, survival, units
+from lamellume import brightness, survival, units
 
 #: Exciton-level margin (eV) that earns the full margin part (about 8 kT at 300 K).
 MARGIN_FULL_EV = 0.2
@@ -78,6 +78,8 @@ def add_survival(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping) -> p
     The one place these columns are computed (in the shard job, on fresh and
     cached rows alike); columns of an earlier temperature are replaced.
     """
+    from lamellume import excitons  # scipy.special: the shard job's, not rank_candidates' (it never calls this)
+
     lattice = long["entry_id"].map(wide.set_index("entry_id")["lattice_angstrom"]).to_numpy(dtype=float)
     out = long.drop(columns=[c for c in TEMPERATURE_COLUMNS if c in long.columns])
     for name, values in survival.survival_columns(long["binding_ev"], long["mu_inplane_me"], long["radius_angstrom"],
@@ -235,6 +237,18 @@ def ranks_above(meets_all, score, entry_id: str, other_meets_all: bool, other_sc
     return (m & (not om)) | ((m == om) & ((s > osc) | ((s == osc) & (str(entry_id) < str(other_entry_id)))))
 
 
+#: Long-table columns :func:`rank` copies to the wide table as ``target_<name>`` (the row at the
+#: target layer count and environment); with the keys below, every long column it reads.
+TARGET_COLUMNS = ("gap_character", "optical_gap_ev", "emission_nm", "emission_band", "binding_ev",
+                  "binding_over_kt", "direct_margin_ev", "bound_fraction", "wannier_ok", "radius_angstrom",
+                  "brightness", "bright_exciton_ev", "dark_exciton_ev", "exciton_margin_ev", "bright_pair",
+                  "dark_pair", "bright_fraction", "binding_beyond_validity", "spin_given",
+                  "optical_gap_compensated_ev", "emission_compensated_nm", "radiative_rate_0_per_s",
+                  "radiative_rate_thermal_per_s", "brightness_proxy_per_s", "mott_density_per_cm2")
+#: The long-table columns that pick the ranked row of each compound.
+TARGET_KEYS = ("entry_id", "layers", "environment")
+
+
 def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
          probabilities: pd.DataFrame | None = None) -> pd.DataFrame:
     """Wide table with ranking criteria, score components, score and rank.
@@ -254,12 +268,7 @@ def rank(long: pd.DataFrame, wide: pd.DataFrame, settings: Mapping,
 
     out["rank_environment"] = env
     out["rank_layers"] = target
-    for name in ("gap_character", "optical_gap_ev", "emission_nm", "emission_band", "binding_ev",
-                 "binding_over_kt", "direct_margin_ev", "bound_fraction", "wannier_ok", "radius_angstrom",
-                 "brightness", "bright_exciton_ev", "dark_exciton_ev", "exciton_margin_ev", "bright_pair",
-                 "dark_pair", "bright_fraction", "binding_beyond_validity", "spin_given",
-                 "optical_gap_compensated_ev", "emission_compensated_nm", "radiative_rate_0_per_s",
-                 "radiative_rate_thermal_per_s", "brightness_proxy_per_s", "mott_density_per_cm2"):
+    for name in TARGET_COLUMNS:
         out[f"target_{name}"] = at[name].set_axis(out.index)
     e_kt = col("binding_over_kt")
     margin = col("exciton_margin_ev")

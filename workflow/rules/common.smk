@@ -172,6 +172,23 @@ def summary_when_nothing_to_do():
         atexit.register(at_exit)
 
 
+def no_collection_at_exit():
+    """Spare the Snakemake process the garbage collector's passes over its objects at exit.
+
+    Python ends a process by clearing its modules and collecting the garbage among every
+    object still alive: for Snakemake's process (Snakemake, its plugins and this workflow's
+    helpers) about a quarter of a second of every run, no-op and dry runs included, once
+    the run itself is over. An ``atexit`` hook calls ``gc.freeze()``, after which the
+    collector never examines those objects again; the exit status, the other ``atexit``
+    hooks (the log's flush among them) and the streams' flush are as before. DEVELOPERS.md,
+    "State outside the DAG, and why".
+    """
+    import atexit
+    import gc
+
+    atexit.register(gc.freeze)
+
+
 def shard_names():
     """Names of all shards, e.g. ['000', '001', ...]."""
     return [shard_name(i) for i in range(config["sharding"]["shards"])]
