@@ -116,6 +116,34 @@ def test_lowest_over_trailing_axes():
     assert lev.verdict[0].tolist() == [["dark", "bright"], ["bright", "bright"]]
 
 
+@pytest.mark.parametrize("compound, n_compounds", [
+    ([0, 0, 0, 1, 2, 2, 2, 2, 3, 3], 5),      # unequal runs, compound 4 has no pair
+    ([0, 0, 1, 1, 2, 2, 3, 3, 4, 4], 5),      # every compound two pairs (the Monte Carlo's repeats)
+    ([1, 1, 1, 1, 1, 3, 3, 3, 3, 3], 4),      # compounds 0 and 2 have no pair
+])
+def test_segment_minimum_sorted_path_equals_scatter_path(compound, n_compounds):
+    # pairs sorted by compound take the per-segment path; runs=None forces the general ufunc.at scatter,
+    # an independent second code path: same minima, same first rows on ties, NO_PAIR where all inf
+    inf = np.inf
+    values = np.array([[1.0, inf], [0.5, inf], [0.5, 2.0], [inf, inf], [3.0, -1.0],
+                       [3.0, -1.0], [inf, 2.5], [-0.0, 0.0], [0.0, -0.0], [0.0, 4.0]])
+    compound = np.array(compound)
+    fast = X._segment_min(values, compound, n_compounds)
+    general = X._segment_min(values, compound, n_compounds, runs=None)
+    for got, ref in zip(fast, general):
+        np.testing.assert_array_equal(got, ref)
+    assert np.all(fast[1][~np.isfinite(fast[0])] == X.NO_PAIR)
+    # the bright search alone: the bright fields of the full search, the dark ones as without a dark pair
+    bright = np.array([True, False, True, True, False, True, False, True, False, True])
+    both = X.lowest_excitons(compound, values, bright, n_compounds)
+    alone = X.lowest_excitons(compound, values, bright, n_compounds, dark=False)
+    none = X.lowest_excitons(compound, np.where(bright[:, None], values, np.nan), bright, n_compounds)
+    for field in X.ExcitonLevels._fields:
+        np.testing.assert_array_equal(getattr(alone, field), getattr(none, field), err_msg=field)
+    np.testing.assert_array_equal(alone.bright_ev, both.bright_ev)
+    np.testing.assert_array_equal(alone.bright_pair, both.bright_pair)
+
+
 def test_total_mass_isotropic_and_rotated():
     # isotropic: M = m_e + m_h (by hand)
     inv = np.array([np.eye(2) / 0.6, np.eye(2) / 0.5])

@@ -337,6 +337,44 @@ def test_without_indirect_fields_the_direct_ones_are_unchanged(seed):
     np.testing.assert_allclose(part.direct_gap_ev, ref["direct"], atol=1e-13)
 
 
+def _segment_cases():
+    """Hand-made segment layouts and values: ties (0.0 and -0.0 too), +-inf rows, NaN, unequal and equal runs."""
+    inf = np.inf
+    uneven = np.array([[2.0, -inf], [1.0, 5.0], [1.0, 5.0],      # segment 0: tie at the minimum
+                       [inf, inf],                                # segment 1: one row, all inf
+                       [0.0, 3.0], [-0.0, np.nan], [0.0, 3.0], [7.0, -1.0],   # segment 2: signed zeros, NaN
+                       [inf, 4.0], [inf, 4.0]])                   # segment 3: inf in one column
+    equal = np.array([[3.0, 1.0], [3.0, 0.5], [inf, inf], [inf, inf], [-0.0, 2.0], [0.0, 2.0]])
+    long_last = np.concatenate([uneven, uneven[::-1], uneven])   # 27 one-row segments, then one of 3 rows
+    return [(uneven, [0, 3, 4, 8]), (equal, [0, 2, 4]), (equal[:, 0], [0, 2, 4]), (uneven[:, 1], [0, 3, 4, 8]),
+            (uneven, [0, 1, 2, 3, 4, 5, 6, 7, 8, 9]), (long_last, list(range(27))),
+            (long_last, list(range(11)))]   # ten rows, then one of 20: numpy's reduceat itself (by_position False)
+
+
+@pytest.mark.parametrize("values, start", _segment_cases())
+def test_segment_reductions_equal_reduceat(values, start):
+    # the general path: numpy's reduceat over the same segments, compared bit for bit (signs of zero too)
+    lay = L.segments(start, len(values))
+    assert lay.by_position == (len(start) != 11)
+    for ufunc in (np.minimum, np.maximum):
+        got, ref = L.segment_reduce(ufunc, values, lay), ufunc.reduceat(values, start, axis=0)
+        np.testing.assert_array_equal(np.signbit(got), np.signbit(ref))
+        np.testing.assert_array_equal(got, ref)
+    mask = np.isfinite(values) & (values > 0.5)
+    np.testing.assert_array_equal(L.segment_reduce(np.logical_or, mask, lay),
+                                  np.logical_or.reduceat(mask, start, axis=0))
+    best, offset = L.segment_argmin(values, lay)
+    np.testing.assert_array_equal(best, np.minimum.reduceat(values, start, axis=0))
+    # the first row attaining the minimum, by an explicit scan of each segment
+    for s, (a, b) in enumerate(zip(start, list(start[1:]) + [len(values)])):
+        flat = values[a:b].reshape(b - a, -1)
+        for col in range(flat.shape[1]):
+            if np.isnan(best.reshape(len(start), -1)[s, col]):
+                continue
+            first = next(i for i in range(b - a) if flat[i, col] == best.reshape(len(start), -1)[s, col])
+            assert offset.reshape(len(start), -1)[s, col] == first
+
+
 @pytest.mark.parametrize("shift_ev", [-3.0, 0.37, 10.0])
 def test_character_invariant_under_common_energy_shift(shift_ev):
     # physics: only energy differences matter (common practice)

@@ -124,6 +124,66 @@ def test_compensated_gap_keeps_the_exciton_of_the_edges_surroundings(table, edge
     np.testing.assert_allclose(res.stack["optical_gap_compensated_ev"][0, 0], [expected, expected], rtol=1e-5)
 
 
+def _four_compound_inputs() -> model.ModelInputs:
+    """Four compounds in three surroundings, edges from suspended, from the last surroundings or from none.
+
+    0: K/G valence, K conduction (a bright and a momentum-dark pair); 1: the same, heavier, r0 = 30;
+    2: K valence, Q conduction only (no bright pair); 3: spin-split K valleys (bright and spin-dark pairs).
+    """
+    owner = np.array([0, 0, 0, 1, 1, 1, 2, 2, 3, 3])
+    label = np.array([1, 0, 1, 1, 0, 1, 0, 1, 0, 0])
+    cond = np.array([False, False, True, False, False, True, False, True, False, True])
+    mass = np.array([0.5, 3.0, 0.5, 0.9, 2.0, 0.7, 0.6, 0.8, 0.45, 0.4])
+    edges = np.array([-5.0, -5.1, -3.0, -5.0, -5.05, -3.4, -5.0, -3.1, -5.0, -3.2])[:, None] * np.ones((1, 2))
+    return model.ModelInputs(
+        layers=np.array([1, 0]), owner=owner, label_code=label, is_conduction=cond, edges_ev=edges,
+        inv_mass=np.eye(2)[None] / mass[:, None, None], mass_perp_me=np.full(10, np.nan), scissor_ev=np.zeros(4),
+        eps_parallel=np.full(4, 10.0), eps_perpendicular=np.full(4, 5.0), eps_bulk=np.full(4, np.sqrt(50.0)),
+        spacing_angstrom=np.full(4, 6.0), r0_given_angstrom=np.array([1e-6, 30.0, 10.0, 40.0]),
+        kappa=np.array([1.0, 2.45, 4.5]), degeneracy=np.array([2, 1, 2, 2, 1, 2, 1, 6, 2, 2]),
+        spin_split_ev=np.array([np.nan] * 8 + [0.15, 0.03]), edge_spin=np.array([0] * 8 + [1, -1]),
+        edge_kappa=np.array([1.0, 4.5, 3.0, 3.0]))
+
+
+@pytest.mark.parametrize("resolved", [(2,), (0,), (0, 2)])
+def test_exciton_level_resolved_in_some_surroundings_is_the_full_models_there(table, resolved):
+    # the full model (every surroundings resolved) is the reference: where resolved, every exciton-level
+    # quantity is the same number; elsewhere the lowest bright exciton, optical gap and emission are, and
+    # the rest is not resolved (NaN, NO_PAIR, "unknown")
+    inputs = _four_compound_inputs()
+    full = model.evaluate(inputs, model.ModelSettings(), table)
+    part = model.evaluate(inputs, model.ModelSettings(exciton_environments=resolved), table)
+    others = [e for e in range(3) if e not in resolved]
+    assert full.stack["bright_pair_index"][2].max() == excitons.NO_PAIR            # compound 2: no bright pair
+    assert (full.stack["brightness"][3, 0] != "unknown").all()                    # compound 3: a spin-dark competitor
+    for key in model.EXCITON_QUANTITIES + ("optical_gap_ev", "emission_nm"):
+        np.testing.assert_array_equal(part.stack[key][:, :, list(resolved)], full.stack[key][:, :, list(resolved)],
+                                      err_msg=key)
+        if key in ("bright_exciton_ev", "bright_pair_index", "optical_gap_ev", "emission_nm"):
+            np.testing.assert_array_equal(part.stack[key][:, :, others], full.stack[key][:, :, others], err_msg=key)
+        elif key == "brightness":
+            assert (part.stack[key][:, :, others] == "unknown").all()
+        elif key.endswith("_pair_index"):
+            assert (part.stack[key][:, :, others] == excitons.NO_PAIR).all()
+        else:
+            assert np.isnan(part.stack[key][:, :, others]).all(), key
+    for key in full.bulk:
+        np.testing.assert_array_equal(part.bulk[key], full.bulk[key], err_msg=key)
+    # and each compound on its own (no pair of another compound can be picked): the same numbers
+    for c in range(4):
+        v = inputs.owner == c
+        one = model.evaluate(replace(inputs, owner=np.zeros(v.sum(), dtype=int), **{
+            f: getattr(inputs, f)[v] for f in ("label_code", "is_conduction", "edges_ev", "inv_mass", "mass_perp_me",
+                                               "degeneracy", "spin_split_ev", "edge_spin")}, **{
+            f: getattr(inputs, f)[c:c + 1] for f in ("scissor_ev", "eps_parallel", "eps_perpendicular", "eps_bulk",
+                                                     "spacing_angstrom", "r0_given_angstrom", "edge_kappa")}),
+            model.ModelSettings(), table)
+        for key in model.EXCITON_QUANTITIES:
+            if not key.endswith("_pair_index"):
+                np.testing.assert_array_equal(part.stack[key][c][:, list(resolved)], one.stack[key][0][:, list(resolved)],
+                                              err_msg=key)
+
+
 def _small_and_wide_gap_inputs() -> model.ModelInputs:
     """Two compounds, one direct K-K pair each (electron and hole 0.5 m_e), r0 -> 0 (2D hydrogen limit).
 

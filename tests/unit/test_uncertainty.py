@@ -173,13 +173,22 @@ def test_linear_propagation_keldysh_2d_hydrogen_limit(settings, table):
 # --------------------------------------------------------------------------- #
 # Zero uncertainty reproduces the screen and the ranking exactly
 # --------------------------------------------------------------------------- #
-@pytest.mark.parametrize("environment, target", [("encapsulated", 1), ("suspended", 2), ("on_silica", 1)])
-def test_zero_uncertainty_reproduces_screen(demo, settings, table, environment, target):
+def _uneven(valleys):
+    """Every other record without its last valley: records of unequal valley (and pair) counts side by side."""
+    last = valleys.groupby("entry_id")["valley_index"].transform("max") == valleys["valley_index"]
+    every_other = valleys["entry_id"].isin(sorted(set(valleys["entry_id"]))[::2])
+    return valleys[~(last & every_other)].reset_index(drop=True)
+
+
+@pytest.mark.parametrize("environment, target, uneven", [("encapsulated", 1, False), ("suspended", 2, False),
+                                                         ("on_silica", 1, False), ("encapsulated", 1, True)])
+def test_zero_uncertainty_reproduces_screen(demo, settings, table, environment, target, uneven):
     # Reference: lamellume.screen.screen_entries / ranking.rank on the same inputs (point estimate).
-    e, v, s = _zero(demo["entries"], demo["valleys"], settings)
+    valleys = _uneven(demo["valleys"]) if uneven else demo["valleys"]
+    e, v, s = _zero(demo["entries"], valleys, settings)
     s["ranking"].update(environment=environment, target_layers=target)
     out = U.propagate_uncertainty(e, v, s, table, samples=16)
-    long, wide = screen.screen_entries(demo["entries"], demo["valleys"], s, table)
+    long, wide = screen.screen_entries(demo["entries"], valleys, s, table)
     at = long[(long["layers"] == target) & (long["environment"] == environment)]
     at = at.set_index("entry_id").reindex(out["entry_id"])
     for q, ref in (("target_binding_ev", "binding_ev"), ("target_optical_gap_ev", "optical_gap_ev"),

@@ -66,7 +66,7 @@ from typing import NamedTuple
 import numpy as np
 from scipy import special
 
-from lamellume import masses
+from lamellume import layers, masses
 from lamellume.units import thermal_energy_ev
 
 __all__ = [
@@ -261,13 +261,14 @@ def repeat_pairs(pairs: Pairs, valley_start, n_repeats: int) -> Pairs:
     k = np.diff(start)                                  # valleys per compound
     per = np.bincount(pairs.compound, minlength=n)      # pairs per compound
     first_pair = np.cumsum(per) - per
-    rows = per * n_repeats
-    src_c = np.repeat(np.arange(n), rows)
-    j = np.arange(src_c.size) - np.repeat(np.cumsum(rows) - rows, rows)
-    per_c = per[src_c]                                  # > 0 on every row
-    r = j // per_c
-    src = first_pair[src_c] + j % per_c
-    shift = start[src_c] * (n_repeats - 1) + r * k[src_c]   # valley v of compound c -> v + shift
+    # one cell per (compound c, repeat r) holding c's pairs: repeats of per-cell numbers (no integer division)
+    cell_c = np.repeat(np.arange(n), n_repeats)
+    cell_r = np.tile(np.arange(n_repeats), n)
+    per_cell = per[cell_c]
+    src = np.repeat(first_pair[cell_c] - (np.cumsum(per_cell) - per_cell), per_cell) + np.arange(int(per_cell.sum()))
+    r = np.repeat(cell_r, per_cell)
+    # valley v of compound c -> v + shift
+    shift = np.repeat(start[cell_c] * (n_repeats - 1) + cell_r * k[cell_c], per_cell)
     return Pairs(pairs.compound[src] * n_repeats + r, pairs.valence[src] + shift, pairs.conduction[src] + shift,
                  *(np.asarray(f)[src] for f in pairs[3:]))
 
@@ -424,46 +425,43 @@ class ExcitonLevels(NamedTuple):
 
 
 def _runs(compound):
-    """(first row, compound, rows) of each run of equal compounds when ``compound`` is sorted, else None."""
+    """:func:`lamellume.layers.segments` of the runs of equal compounds when ``compound`` is sorted, else None."""
     if not np.all(compound[1:] >= compound[:-1]):
         return None
-    start = np.flatnonzero(np.concatenate([[True], compound[1:] != compound[:-1]]))
-    return start, compound[start], np.diff(np.append(start, len(compound)))
+    return layers.segments(np.flatnonzero(np.concatenate([[True], compound[1:] != compound[:-1]])), len(compound))
 
 
-def _segment_min(values, index, compound, n_compounds, runs=False):
-    """Per compound: minimum of ``values`` over its pairs and the first pair attaining it.
+def _segment_min(values, compound, n_compounds, runs=False):
+    """Per compound: minimum of ``values`` over its pairs and the first pair (smallest row) attaining it.
 
     ``runs``: :func:`_runs` of ``compound`` when the caller has it (False: found here).
     """
     shape = (n_compounds,) + values.shape[1:]
     best = np.full(shape, np.inf)
-    arg = np.full(shape, NO_PAIR, dtype=np.int64)
     if values.shape[0] == 0:
-        return best, arg
-    big = np.iinfo(np.int64).max
-    index = index.reshape((-1,) + (1,) * (values.ndim - 1))
-    first = np.full(shape, big, dtype=np.int64)
+        return best, np.full(shape, NO_PAIR, dtype=np.int64)
     if runs is False:
         runs = _runs(compound)
     if runs is not None:
-        # pairs sorted by compound (as valley_pairs makes them): one reduction per contiguous segment,
-        # several times faster than the unbuffered ufunc.at scatter; the same minima and first indices
-        start, seg, length = runs
+        # pairs sorted by compound (as valley_pairs makes them): the k-th pair of every compound at once,
+        # several times faster than reduceat or the unbuffered ufunc.at scatter; the same minima and first rows
+        seg = compound[runs.start]
         rows = slice(None) if seg.size == n_compounds else seg   # seg is sorted and unique
-        seg_best = np.minimum.reduceat(values, start, axis=0)
+        seg_best, offset = layers.segment_argmin(values, runs)
         best[rows] = seg_best
-        hit = np.isfinite(values) & (values == np.repeat(seg_best, length, axis=0))
-        first[rows] = np.minimum.reduceat(np.where(hit, index, big), start, axis=0)
+        first = np.full(shape, NO_PAIR, dtype=np.int64)
+        first[rows] = runs.start.reshape((-1,) + (1,) * (values.ndim - 1)) + offset
     else:
+        big = np.iinfo(np.int64).max
+        index = np.arange(values.shape[0]).reshape((-1,) + (1,) * (values.ndim - 1))
         np.minimum.at(best, compound, values)
         hit = np.isfinite(values) & (values == best[compound])
+        first = np.full(shape, big, dtype=np.int64)
         np.minimum.at(first, compound, np.where(hit, index, big))
-    arg = np.where(np.isfinite(best), first, NO_PAIR)
-    return best, arg
+    return best, np.where(np.isfinite(best), first, NO_PAIR)
 
 
-def lowest_excitons(compound, exciton_ev, bright, n_compounds: int) -> ExcitonLevels:
+def lowest_excitons(compound, exciton_ev, bright, n_compounds: int, dark: bool = True) -> ExcitonLevels:
     """Lowest bright and lowest dark exciton of every compound.
 
     Parameters
@@ -476,6 +474,10 @@ def lowest_excitons(compound, exciton_ev, bright, n_compounds: int) -> ExcitonLe
     bright : array_like of bool, shape (n_pairs,)
         Whether each pair's exciton is bright (:attr:`Pairs.bright`).
     n_compounds : int
+    dark : bool, optional
+        Also search the dark pairs (default). False: only the lowest bright
+        exciton; the dark fields are then those of a compound without a dark
+        pair (NaN energies, NO_PAIR, verdict "unknown").
 
     Returns
     -------
@@ -490,12 +492,17 @@ def lowest_excitons(compound, exciton_ev, bright, n_compounds: int) -> ExcitonLe
     e = np.asarray(exciton_ev, dtype=float)
     b = np.asarray(bright, dtype=bool).reshape((-1,) + (1,) * (e.ndim - 1))
     e_ok = np.where(np.isfinite(e), e, np.inf)
-    idx = np.arange(comp.size)
     runs = _runs(comp) if comp.size else None   # once for the bright and the dark search
-    eb, ib = _segment_min(np.where(b, e_ok, np.inf), idx, comp, n_compounds, runs)
-    ed, idk = _segment_min(np.where(~b, e_ok, np.inf), idx, comp, n_compounds, runs)
+    eb, ib = _segment_min(np.where(b, e_ok, np.inf), comp, n_compounds, runs)
     eb = np.where(np.isfinite(eb), eb, np.nan)
-    ed = np.where(np.isfinite(ed), ed, np.nan)
+    if dark:
+        ed, idk = _segment_min(np.where(~b, e_ok, np.inf), comp, n_compounds, runs)
+        ed = np.where(np.isfinite(ed), ed, np.nan)
+    else:   # brightness_verdict without a dark exciton: "unknown" everywhere
+        ed, idk = np.full(eb.shape, np.nan), np.full(eb.shape, NO_PAIR, dtype=np.int64)
+        verdict = np.empty(eb.shape, dtype=object)
+        verdict.fill(VERDICTS[2])
+        return ExcitonLevels(eb, ib, ed, idk, ed - eb, verdict)
     return ExcitonLevels(eb, ib, ed, idk, ed - eb, brightness_verdict(eb, ed))
 
 

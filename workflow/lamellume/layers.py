@@ -55,6 +55,10 @@ __all__ = [
     "EdgeFill",
     "GapCharacter",
     "Crossover",
+    "Segments",
+    "segments",
+    "segment_reduce",
+    "segment_argmin",
     "chain_confinement",
     "fill_edges",
     "gap_character",
@@ -339,10 +343,90 @@ class GapCharacter(NamedTuple):
     complete: np.ndarray
 
 
-def _first_index(mask, c_start, n_groups):
+class Segments(NamedTuple):
+    """Contiguous runs of rows (:func:`segments`), laid out for reductions over each run."""
+
+    #: first row of each segment, ascending; every segment holds at least one row
+    start: np.ndarray
+    #: last row of each segment
+    last: np.ndarray
+    #: rows of the longest segment
+    width: int
+    #: every segment is ``width`` rows long
+    equal: bool
+    #: reduce position by position (False: a few segments far longer than the rest, where numpy's
+    #: ``reduceat`` touches fewer rows)
+    by_position: bool
+
+
+#: Largest ratio of (segments x longest segment) to rows for the position-by-position reductions.
+_POSITION_PASSES = 4
+
+
+def segments(start, n_rows: int) -> Segments:
+    """Layout of the segments of ``n_rows`` rows that begin at ``start`` (ascending, ``start[0] == 0``)."""
+    start = np.asarray(start, dtype=np.int64)
+    last = np.append(start[1:], n_rows) - 1
+    length = last - start + 1
+    width = int(length.max()) if length.size else 0
+    return Segments(start, last, width, bool(np.all(length == width)),
+                    width * start.size <= _POSITION_PASSES * n_rows)
+
+
+def _segment_rows(layout: Segments, j: int) -> np.ndarray:
+    """Row j of every segment; the last row of a shorter segment (a repeat: harmless to min, max, or)."""
+    return layout.start + j if layout.equal else np.minimum(layout.start + j, layout.last)
+
+
+def segment_reduce(ufunc, values, layout: Segments) -> np.ndarray:
+    """``ufunc.reduceat(values, layout.start, axis=0)`` for an idempotent ufunc (minimum, maximum, logical_or).
+
+    The same numbers, the rows taken in the same order: one call of the ufunc
+    per row of the longest segment, on the j-th rows of every segment gathered
+    (a shorter segment repeats its last row, which an idempotent ufunc
+    ignores), several times faster than ``reduceat`` for many short segments
+    with trailing axes.
+    """
+    if not layout.by_position:
+        return ufunc.reduceat(values, layout.start, axis=0)
+    out = np.take(values, layout.start, axis=0)
+    for j in range(1, layout.width):
+        ufunc(out, np.take(values, _segment_rows(layout, j), axis=0), out=out)
+    return out
+
+
+def segment_argmin(values, layout: Segments) -> tuple[np.ndarray, np.ndarray]:
+    """Minimum of each segment (:func:`segment_reduce` of ``np.minimum``) and the offset of its first row
+    attaining it, counted from the segment's start (meaningless where the minimum is NaN)."""
+    if not layout.by_position:
+        best = np.minimum.reduceat(values, layout.start, axis=0)
+        n = len(values)
+        row = np.arange(n).reshape((-1,) + (1,) * (np.ndim(values) - 1))
+        length = np.diff(np.append(layout.start, n))
+        at = np.where(values == np.repeat(best, length, axis=0), row, n)
+        return best, np.minimum.reduceat(at, layout.start, axis=0) - layout.start.reshape((-1,) + row.shape[1:])
+    best = np.take(values, layout.start, axis=0)
+    offset = np.zeros(best.shape, dtype=np.int64)
+    for j in range(1, layout.width):
+        row = np.take(values, _segment_rows(layout, j), axis=0)
+        np.copyto(offset, j, where=row < best)
+        np.minimum(best, row, out=best)
+    return best, offset
+
+
+def _first_index(mask, layout: Segments, n_groups):
     """Index of the first True row of each compound segment (n_groups if none)."""
-    idx = np.where(mask, np.arange(n_groups)[:, None], n_groups)
-    return np.minimum.reduceat(idx, c_start, axis=0)
+    start = layout.start.reshape((-1,) + (1,) * (np.ndim(mask) - 1))
+    if not layout.by_position:
+        return np.minimum.reduceat(np.where(mask, np.arange(n_groups).reshape(start.shape), n_groups),
+                                   layout.start, axis=0)
+    found = np.take(mask, layout.start, axis=0)
+    offset = np.zeros(found.shape, dtype=np.int64)
+    for j in range(1, layout.width):
+        hit = np.take(mask, _segment_rows(layout, j), axis=0) & ~found
+        np.copyto(offset, j, where=hit)
+        found |= hit
+    return np.where(found, start + offset, n_groups)
 
 
 def gap_character(owner, label_code, is_conduction, edge_ev, scissor_ev=None,
@@ -350,8 +434,8 @@ def gap_character(owner, label_code, is_conduction, edge_ev, scissor_ev=None,
     """Band-gap extrema and direct/indirect character per compound and layer count.
 
     Valleys are grouped by (compound, label); per group the highest valence and
-    the lowest conduction edge are taken (``np.maximum/minimum.reduceat`` over
-    contiguous segments after a lexsort), then per compound:
+    the lowest conduction edge are taken (reductions over contiguous segments
+    after a lexsort, :func:`segment_reduce`), then per compound:
 
     * VBM, CBM and fundamental gap ``CBM - VBM``;
     * lowest direct gap ``min_l [C(l) - V(l)]`` over labels present in both bands;
@@ -454,8 +538,9 @@ def gap_character(owner, label_code, is_conduction, edge_ev, scissor_ev=None,
     if n_g == n_v:   # one valley per (compound, label) group: the group extrema are the valleys'
         v_g, c_g = np.take(val, order, axis=0), np.take(con, order, axis=0)  # (n_g, n_l)
     else:
-        v_g = np.maximum.reduceat(np.take(val, order, axis=0), g_start, axis=0)
-        c_g = np.minimum.reduceat(np.take(con, order, axis=0), g_start, axis=0)
+        groups = segments(g_start, n_v)
+        v_g = segment_reduce(np.maximum, np.take(val, order, axis=0), groups)
+        c_g = segment_reduce(np.minimum, np.take(con, order, axis=0), groups)
     g_label_ext = np.append(g_label, NO_LABEL)
 
     # compound segments over the groups
@@ -468,14 +553,15 @@ def gap_character(owner, label_code, is_conduction, edge_ev, scissor_ev=None,
     # np.take (and a slice where every compound owns valleys) gives the rows of fancy indexing several
     # times faster for rows of more than one number
     rows = slice(None) if comp.size == n_compounds else comp   # comp is sorted and unique
-    v1 = np.maximum.reduceat(v_g, c_start, axis=0)
-    c1 = np.minimum.reduceat(c_g, c_start, axis=0)
+    by_comp = segments(c_start, n_g)
+    v1 = segment_reduce(np.maximum, v_g, by_comp)
+    c1 = segment_reduce(np.minimum, c_g, by_comp)
     tol = DEGENERACY_TOL_EV
     with np.errstate(invalid="ignore"):
         d_g = c_g - v_g  # +inf where either band is absent at that label
-    dmin = np.minimum.reduceat(d_g, c_start, axis=0)
+    dmin = segment_reduce(np.minimum, d_g, by_comp)
     d_lab = g_label_ext[_first_index(np.isfinite(d_g) & (d_g <= np.take(dmin, g2c, axis=0) + tol),
-                                     c_start, n_g)]
+                                     by_comp, n_g)]
     comp_ok = np.isfinite(v1) & np.isfinite(c1)
     fgap = c1 - v1
     direct = comp_ok & np.isfinite(dmin) & (dmin <= fgap + tol)
@@ -494,19 +580,19 @@ def gap_character(owner, label_code, is_conduction, edge_ev, scissor_ev=None,
         return GapCharacter(vbm, None, cbm, None, fund, is_direct, dgap, dlab, None, None, complete)
 
     # best labels (smallest code on exact ties) for the indirect search
-    lv1 = g_label_ext[_first_index(v_g == np.take(v1, g2c, axis=0), c_start, n_g)]
-    lc1 = g_label_ext[_first_index(c_g == np.take(c1, g2c, axis=0), c_start, n_g)]
-    v2 = np.maximum.reduceat(np.where(g_label[:, None] == np.take(lv1, g2c, axis=0), -np.inf, v_g),
-                             c_start, axis=0)
-    c2 = np.minimum.reduceat(np.where(g_label[:, None] == np.take(lc1, g2c, axis=0), np.inf, c_g),
-                             c_start, axis=0)
+    lv1 = g_label_ext[_first_index(v_g == np.take(v1, g2c, axis=0), by_comp, n_g)]
+    lc1 = g_label_ext[_first_index(c_g == np.take(c1, g2c, axis=0), by_comp, n_g)]
+    v2 = segment_reduce(np.maximum, np.where(g_label[:, None] == np.take(lv1, g2c, axis=0), -np.inf, v_g),
+                        by_comp)
+    c2 = segment_reduce(np.minimum, np.where(g_label[:, None] == np.take(lc1, g2c, axis=0), np.inf, c_g),
+                        by_comp)
     with np.errstate(invalid="ignore"):
         ind = np.where(lv1 != lc1, c1 - v1, np.minimum(c1 - v2, c2 - v1))
         marg = ind - dmin  # inf - finite = inf; finite - inf = -inf
     v_lab = g_label_ext[_first_index(np.isfinite(v_g) & (v_g >= np.take(v1, g2c, axis=0) - tol),
-                                     c_start, n_g)]
+                                     by_comp, n_g)]
     c_lab = g_label_ext[_first_index(np.isfinite(c_g) & (c_g <= np.take(c1, g2c, axis=0) + tol),
-                                     c_start, n_g)]
+                                     by_comp, n_g)]
     v_lab = np.where(direct, d_lab, v_lab)
     c_lab = np.where(direct, d_lab, c_lab)
     vlab[rows] = np.where(np.isfinite(v1), v_lab, NO_LABEL)

@@ -180,6 +180,16 @@ class ModelSettings:
     the gap character's indirect gap, direct margin and extrema labels
     (:func:`lamellume.layers.gap_character` ``indirect``; the dark pair needs
     them whatever this says).
+
+    ``exciton_environments``: the surroundings (indices into
+    ``ModelInputs.kappa``) where the exciton level of the stack is resolved in
+    full, every pair's exciton and every :data:`EXCITON_QUANTITIES` entry;
+    None: all of them. In the others only the bright pairs' excitons are
+    computed, for the lowest bright one: ``bright_exciton_ev``,
+    ``bright_pair_index``, ``optical_gap_ev`` and ``emission_nm`` there are
+    those of the full model, the other exciton-level quantities are NaN
+    (pair indices NO_PAIR, verdict "unknown": not resolved). The Monte Carlo
+    reads the exciton level in the ranking surroundings only.
     """
 
     few_layer_r0_scaling: bool = True
@@ -188,6 +198,7 @@ class ModelSettings:
     bulk: frozenset = BULK_QUANTITIES
     principal_masses: bool = True
     indirect_gap: bool = True
+    exciton_environments: tuple | None = None
 
     @classmethod
     def from_config(cls, settings, **wanted) -> "ModelSettings":
@@ -243,8 +254,10 @@ PAIRS = {
 
 
 class ValleyTable(NamedTuple):
-    """Per (band, compound, label) inverse-mass tensors (2, n, K, 2, 2) and out-of-plane masses (2, n, K)."""
+    """Valley index by (band: 0 valence, 1 conduction; compound; label code), (2, n, K), -1 where the
+    compound has no such valley; and the valleys' inverse-mass tensors (V, 2, 2) and out-of-plane masses (V,)."""
 
+    valley: np.ndarray
     inv_mass: np.ndarray
     mass_perp_me: np.ndarray
 
@@ -278,20 +291,22 @@ def valley_table(inputs: ModelInputs) -> ValleyTable:
     code = np.asarray(inputs.label_code)
     n_labels = int(code.max()) + 1 if code.size else 1
     band = np.asarray(inputs.is_conduction, dtype=bool).astype(int)
-    inv = np.full((2, n, n_labels, 2, 2), np.nan)
-    perp = np.full((2, n, n_labels), np.nan)
-    inv[band, inputs.owner, code] = inputs.inv_mass
-    perp[band, inputs.owner, code] = inputs.mass_perp_me
-    return ValleyTable(inv, perp)
+    valley = np.full((2, n, n_labels), -1, dtype=np.int64)
+    valley[band, inputs.owner, code] = np.arange(code.size)
+    return ValleyTable(valley, np.asarray(inputs.inv_mass, dtype=float), np.asarray(inputs.mass_perp_me, dtype=float))
 
 
-def _pick(table: np.ndarray, labels: np.ndarray) -> np.ndarray:
-    """table[c, labels[c, j]] for every compound c and column j; NaN where NO_LABEL."""
-    n, k = table.shape[:2]
-    # np.take of the flattened (compound, label) axis: the rows of fancy indexing, faster
-    out = np.take(table.reshape((n * k,) + table.shape[2:]), np.arange(n)[:, None] * k + np.where(labels < 0, 0, labels),
-                  axis=0)
-    out[labels < 0] = np.nan
+def _pick(table: ValleyTable, band: int, labels: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """values[valley of (band, c, labels[c, j])] for every compound c and column j; NaN where there is none."""
+    index = table.valley[band]
+    n, k = index.shape
+    # np.take of the flattened (compound, label) axis, then of the valleys' rows: the rows of fancy indexing, faster
+    at = np.take(index.reshape(-1), np.arange(n)[:, None] * k + np.where(labels < 0, 0, labels))
+    at[labels < 0] = -1
+    if not len(values):
+        return np.full(at.shape + values.shape[1:], np.nan)
+    out = np.take(values, np.maximum(at, 0), axis=0)
+    out[at < 0] = np.nan
     return out
 
 
@@ -304,7 +319,7 @@ def pair_masses(table: ValleyTable, valence_label: np.ndarray, conduction_label:
     average is the geometric mean of the principal reduced masses
     (:func:`lamellume.masses.inplane_average_mass_me`).
     """
-    w = _pick(table.inv_mass[1], conduction_label) + _pick(table.inv_mass[0], valence_label)
+    w = _pick(table, 1, conduction_label, table.inv_mass) + _pick(table, 0, valence_label, table.inv_mass)
     good = masses.finite_tensor(w)
     mu = np.where(good, masses.inplane_average_mass_me(w), np.nan)
     small = large = angle = perp = None
@@ -312,8 +327,8 @@ def pair_masses(table: ValleyTable, valence_label: np.ndarray, conduction_label:
         with np.errstate(invalid="ignore", divide="ignore"):
             small, large, angle = (np.where(good, a, np.nan) for a in masses.principal_masses(w))
     if perpendicular:
-        perp = masses.reduced_mass_perpendicular(_pick(table.mass_perp_me[1], conduction_label),
-                                                 _pick(table.mass_perp_me[0], valence_label))
+        perp = masses.reduced_mass_perpendicular(_pick(table, 1, conduction_label, table.mass_perp_me),
+                                                 _pick(table, 0, valence_label, table.mass_perp_me))
     return PairMasses(valence_label, conduction_label, mu, small, large, angle, perp)
 
 
@@ -372,7 +387,8 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
     exciton becomes ``optical_gap_ev`` (and the emission) where its energy is
     positive (:func:`lamellume.layers.optical_gap_of_exciton_ev`; NaN where the
     binding reaches the pair's direct gap); the stack and bulk dicts gain
-    :data:`EXCITON_QUANTITIES`.
+    :data:`EXCITON_QUANTITIES` (the stack's in full in the surroundings of
+    ``ModelSettings.exciton_environments``, :func:`_stack_excitons`).
     """
     n = inputs.n_compounds
     pr = inputs.valley_pairs
@@ -387,10 +403,9 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
         mu = np.where(good, masses.inplane_average_mass_me(w), np.nan)
     deg = excitons.pair_degeneracy(pr, np.ones(len(inputs.owner)) if inputs.degeneracy is None
                                    else inputs.degeneracy)
-    f_lay = np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (n,))
     f_bulk = np.broadcast_to(np.asarray(inputs.binding_factor_bulk, dtype=float), (n,))
 
-    def fill(out: dict, energy, dimension, compensated=None, rate=None):
+    def fill(out: dict, wanted: frozenset, energy, dimension, compensated=None, rate=None):
         lev = excitons.lowest_excitons(c, energy, pr.bright, n)
         pick = np.maximum(lev.bright_pair, 0)
         found = lev.bright_pair >= 0
@@ -422,45 +437,13 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
             out[f"{key}_pair_index"] = idx
         out["bright_exciton_ev"], out["dark_exciton_ev"] = lev.bright_ev, lev.dark_ev
         out["exciton_margin_ev"], out["brightness"] = lev.margin_ev, lev.verdict
-        optical = layer_model.optical_gap_of_exciton_ev(lev.bright_ev)
-        if "optical_gap_ev" in out:
-            out["optical_gap_ev"] = optical
-        if "emission_nm" in out:
-            out["emission_nm"] = layer_model.emission_wavelength_nm(optical)
+        if wanted & {"optical_gap_ev", "emission_nm"}:
+            out["optical_gap_ev"] = layer_model.optical_gap_of_exciton_ev(lev.bright_ev)
+        if "emission_nm" in wanted:
+            out["emission_nm"] = layer_model.emission_wavelength_nm(out["optical_gap_ev"])
 
-    kappa = np.asarray(inputs.kappa, dtype=float)
-    lay = np.asarray(inputs.layers)
-    nl = lay[:-1].astype(float)
-    scale = nl if settings.few_layer_r0_scaling else np.ones_like(nl)
-    shape = (len(c), nl.size, kappa.size)
-    r0 = r0_1[c][:, None, None] * scale[None, :, None]   # (P, F, 1): the arrays broadcast to shape in the call
-    eb = keldysh.keldysh_binding_ev(mu[:, None, None], r0, kappa[None, None, :], table, state="1s") \
-        * f_lay[c][:, None, None]
-    # Full compensation: the quasiparticle gap shrinks with the surroundings' screening exactly as the
-    # binding falls, so the bright exciton stays where it is in the surroundings the edges belong to.
-    # Where those surroundings are configured ones (suspended, as a rule) their binding is eb's, the
-    # same function of the same numbers; only the others are looked up again.
-    kap_ref = np.broadcast_to(np.asarray(inputs.edge_kappa, dtype=float), (n,))[c]
-    same = kap_ref[:, None] == kappa[None, :]
-    eb_ref = eb[np.arange(len(c)), :, np.argmax(same, axis=1)] if kappa.size else np.empty(shape[:2])
-    other = ~same.any(axis=1)
-    if other.any():
-        eb_ref[other] = keldysh.keldysh_binding_ev(
-            np.broadcast_to(mu[other][:, None], (int(other.sum()), nl.size)), r0[other][:, :, 0],
-            np.broadcast_to(kap_ref[other][:, None], (int(other.sum()), nl.size)), table, state="1s") \
-            * f_lay[c][other][:, None]
-    rate = None
-    if settings.stack & {"radiative_rate_0_per_s"}:
-        # Radiative-rate proxy of every pair's exciton (lamellume.brightness): Kane energy of the
-        # pair's gap and reduced mass, |phi(0)|^2 from the Rytova-Keldysh rms radius, index sqrt(kappa).
-        radius = keldysh.keldysh_radius_angstrom(mu[:, None, None], r0, kappa[None, None, :], table, state="1s")
-        with np.errstate(invalid="ignore", divide="ignore"):
-            rate = brightness.intrinsic_rate_per_s(
-                brightness.kane_energy_ev(gaps[:, :-1, None], mu[:, None, None]), gaps[:, :-1, None] - eb,
-                brightness.origin_density_2d_per_angstrom2(brightness.decay_length_from_rms_angstrom(radius)),
-                np.sqrt(kappa)[None, None, :])
     if settings.stack & _EXCITON_TRIGGERS:
-        fill(result.stack, gaps[:, :-1, None] - eb, 2, gaps[:, :-1] - eb_ref, rate)
+        _stack_excitons(inputs, settings, table, r0_1, result.stack, pr, gaps, mu, fill)
     if settings.bulk & _EXCITON_TRIGGERS:
         eps_bulk = np.asarray(inputs.eps_bulk, dtype=float)[c]
         eb_b = hydrogenic.binding_3d_ev(mu, eps_bulk)
@@ -471,8 +454,85 @@ def _exciton_level(inputs: ModelInputs, settings: ModelSettings, table, r0_1, re
             eb_b[has] = hydrogenic.binding_3d_anisotropic(
                 mu[has], mperp[has], np.asarray(inputs.eps_parallel, dtype=float)[c][has],
                 np.asarray(inputs.eps_perpendicular, dtype=float)[c][has]).binding_ev
-        fill(result.bulk, gaps[:, -1] - eb_b * f_bulk[c], 3)
+        fill(result.bulk, settings.bulk, gaps[:, -1] - eb_b * f_bulk[c], 3)
     return pr
+
+
+def _stack_excitons(inputs: ModelInputs, settings: ModelSettings, table, r0_1, out: dict, pr, gaps, mu, fill):
+    """The stack's exciton level (:func:`_exciton_level`): Rytova-Keldysh binding of every pair in the
+    surroundings resolved in full (``ModelSettings.exciton_environments``), of the bright pairs in the others."""
+    n = inputs.n_compounds
+    c = pr.compound
+    f_lay = np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (n,))
+    kappa = np.asarray(inputs.kappa, dtype=float)
+    lay = np.asarray(inputs.layers)
+    nl = lay[:-1].astype(float)
+    scale = nl if settings.few_layer_r0_scaling else np.ones_like(nl)
+    envs = np.arange(kappa.size)
+    full = envs if settings.exciton_environments is None else np.unique(np.asarray(settings.exciton_environments,
+                                                                                   dtype=np.int64))
+    part = np.setdiff1d(envs, full)
+    r0 = r0_1[c][:, None, None] * scale[None, :, None]   # (P, F, 1): the arrays broadcast to shape in the call
+    eb = keldysh.keldysh_binding_ev(mu[:, None, None], r0, kappa[full][None, None, :], table, state="1s") \
+        * f_lay[c][:, None, None]                           # (P, F, len(full))
+    # the bright pairs' bindings in every surroundings (a bright pair's exciton gives the optical gap)
+    bp = np.flatnonzero(pr.bright)
+    eb_bright = np.empty((bp.size, nl.size, kappa.size))
+    eb_bright[:, :, full] = eb[bp]
+    if part.size:
+        eb_bright[:, :, part] = keldysh.keldysh_binding_ev(mu[bp][:, None, None], r0[bp], kappa[part][None, None, :],
+                                                          table, state="1s") * f_lay[c[bp]][:, None, None]
+    # Full compensation: the quasiparticle gap shrinks with the surroundings' screening exactly as the
+    # binding falls, so the bright exciton stays where it is in the surroundings the edges belong to.
+    # Where those surroundings are configured ones (suspended, as a rule) their binding is eb's, the
+    # same function of the same numbers; only the others are looked up again. Only the lowest bright
+    # pair's compensated gap is read, so it is computed for the bright pairs.
+    kap_ref = np.broadcast_to(np.asarray(inputs.edge_kappa, dtype=float), (n,))[c[bp]]
+    same = kap_ref[:, None] == kappa[None, :]
+    eb_ref = eb_bright[np.arange(bp.size), :, np.argmax(same, axis=1)] if kappa.size \
+        else np.empty((bp.size, nl.size))
+    other = ~same.any(axis=1)
+    if other.any():
+        eb_ref[other] = keldysh.keldysh_binding_ev(
+            np.broadcast_to(mu[bp][other][:, None], (int(other.sum()), nl.size)), r0[bp][other][:, :, 0],
+            np.broadcast_to(kap_ref[other][:, None], (int(other.sum()), nl.size)), table, state="1s") \
+            * f_lay[c[bp]][other][:, None]
+    compensated = np.full((len(c), nl.size), np.nan)
+    compensated[bp] = gaps[bp, :-1] - eb_ref
+    rate = None
+    if settings.stack & {"radiative_rate_0_per_s"}:
+        # Radiative-rate proxy of every pair's exciton (lamellume.brightness): Kane energy of the
+        # pair's gap and reduced mass, |phi(0)|^2 from the Rytova-Keldysh rms radius, index sqrt(kappa).
+        radius = keldysh.keldysh_radius_angstrom(mu[:, None, None], r0, kappa[full][None, None, :], table, state="1s")
+        with np.errstate(invalid="ignore", divide="ignore"):
+            rate = brightness.intrinsic_rate_per_s(
+                brightness.kane_energy_ev(gaps[:, :-1, None], mu[:, None, None]), gaps[:, :-1, None] - eb,
+                brightness.origin_density_2d_per_angstrom2(brightness.decay_length_from_rms_angstrom(radius)),
+                np.sqrt(kappa[full])[None, None, :])
+    if not part.size:
+        fill(out, settings.stack, gaps[:, :-1, None] - eb, 2, compensated, rate)
+        return
+    resolved: dict[str, np.ndarray] = {}
+    fill(resolved, settings.stack, gaps[:, :-1, None] - eb, 2, compensated, rate)
+    for key, value in resolved.items():
+        out[key] = np.empty((n, nl.size, kappa.size), dtype=value.dtype)
+        out[key].fill(_NOT_RESOLVED.get(key, np.nan))   # (np.full converts a word for every cell: slow)
+        out[key][:, :, full] = value
+    lev = excitons.lowest_excitons(c[bp], gaps[bp, :-1, None] - eb_bright[:, :, part], np.ones(bp.size, dtype=bool),
+                                   n, dark=False)
+    out["bright_exciton_ev"][:, :, part] = lev.bright_ev
+    out["bright_pair_index"][:, :, part] = np.where(lev.bright_pair >= 0, bp[np.maximum(lev.bright_pair, 0)],
+                                                    excitons.NO_PAIR) if bp.size else excitons.NO_PAIR
+    if "optical_gap_ev" in out:
+        out["optical_gap_ev"][:, :, part] = layer_model.optical_gap_of_exciton_ev(lev.bright_ev)
+    if "emission_nm" in out:
+        out["emission_nm"][:, :, part] = layer_model.emission_wavelength_nm(out["optical_gap_ev"][:, :, part])
+
+
+#: Exciton-level values in the surroundings not resolved in full (ModelSettings.exciton_environments);
+#: every other quantity is NaN there.
+_NOT_RESOLVED = {"bright_pair_index": excitons.NO_PAIR, "dark_pair_index": excitons.NO_PAIR,
+                 "brightness": excitons.VERDICTS[2]}
 
 
 def _bulk(inputs: ModelInputs, settings: ModelSettings, gap, pairs) -> dict[str, np.ndarray]:
@@ -511,10 +571,7 @@ def _bulk(inputs: ModelInputs, settings: ModelSettings, gap, pairs) -> dict[str,
     if want("dark_binding_ev"):
         out["dark_binding_ev"] = np.where(gap.is_direct[:, -1], np.nan,
                                           hydrogenic.binding_3d_ev(pairs["dark"].mu_me[:, -1], eps_bulk))
-    if want("optical_gap_ev") or want("emission_nm"):
-        out["optical_gap_ev"] = layer_model.optical_gap_ev(gap.direct_gap_ev[:, -1], out["binding_ev"])
-    if want("emission_nm"):
-        out["emission_nm"] = layer_model.emission_wavelength_nm(out["optical_gap_ev"])
+    # optical_gap_ev and emission_nm: the lowest bright exciton's (_exciton_level)
     return out
 
 
@@ -528,15 +585,15 @@ def _stack(inputs: ModelInputs, settings: ModelSettings, table, gap, pairs, r0_1
     shape = (inputs.n_compounds, nl.size, kappa.size)
     r0_c = r0_1[:, None, None] * scale[None, :, None]            # (n, F, 1)
     mu_c = pairs["bright"].mu_me[:, :-1, None]                    # (n, F, 1)
-    r0 = r0_c * np.ones((1, 1, kappa.size))
+    r0 = np.broadcast_to(r0_c, shape)
     kap = np.broadcast_to(kappa[None, None, :], shape)
     mu = np.broadcast_to(mu_c, shape)
     out: dict[str, np.ndarray] = {}
     if want("r0_angstrom"):
-        out["r0_angstrom"] = r0
+        out["r0_angstrom"] = r0_c * np.ones((1, 1, kappa.size))
     if want("kappa"):
         out["kappa"] = kap
-    if want("binding_ev") or want("optical_gap_ev") or want("emission_nm"):
+    if want("binding_ev"):
         # the compact arrays: they broadcast in the look-up's last operation
         out["binding_ev"] = keldysh.keldysh_binding_ev(mu_c, r0_c, kappa[None, None, :], table, state="1s") \
             * np.broadcast_to(np.asarray(inputs.binding_factor_layers, dtype=float), (inputs.n_compounds,))[:, None, None]
@@ -555,9 +612,5 @@ def _stack(inputs: ModelInputs, settings: ModelSettings, table, gap, pairs, r0_1
         mu_dark = np.broadcast_to(pairs["dark"].mu_me[:, :-1, None], shape)
         eb_dark = keldysh.keldysh_binding_ev(mu_dark, r0, kap, table, state="1s")
         out["dark_binding_ev"] = np.where(np.broadcast_to(gap.is_direct[:, :-1, None], shape), np.nan, eb_dark)
-    if want("optical_gap_ev") or want("emission_nm"):
-        out["optical_gap_ev"] = layer_model.optical_gap_ev(
-            np.broadcast_to(gap.direct_gap_ev[:, :-1, None], shape), out["binding_ev"])
-    if want("emission_nm"):
-        out["emission_nm"] = layer_model.emission_wavelength_nm(out["optical_gap_ev"])
+    # optical_gap_ev and emission_nm: the lowest bright exciton's (_exciton_level)
     return out

@@ -436,17 +436,17 @@ def _truncate_below(z, p_lo):
     Rows with p_lo == 0 are returned unchanged. Both tails are mapped through
     the CDF on their own side, so no precision is lost for large |z|.
     """
-    p = np.broadcast_to(p_lo[:, None], z.shape)
-    act = p > 0.0
-    if not act.any():
+    rows = np.flatnonzero(p_lo > 0.0)
+    if not rows.size:
         return z
     out = z.copy()
-    za, pa = z[act], p[act]
+    za = z[rows]
+    pa = np.broadcast_to(p_lo[rows, None], za.shape)
     upper = za > 0
     res = np.empty_like(za)
     res[upper] = -special.ndtri((1.0 - pa[upper]) * special.ndtr(-za[upper]))
     res[~upper] = special.ndtri(pa[~upper] + (1.0 - pa[~upper]) * special.ndtr(za[~upper]))
-    out[act] = np.maximum(res, special.ndtri(pa))
+    out[rows] = np.maximum(res, special.ndtri(p_lo[rows])[:, None])   # the truncation point, once per row
     return out
 
 
@@ -467,16 +467,14 @@ def _evaluate_block(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, tabl
     off = prep.vstart[a:b] - prep.vstart[a]
     v0 = prep.vstart[a]
 
-    # valleys repeated per sample, ordered (entry, sample, valley): owner sorted ascending
-    per_entry = k * n_s
-    ent = np.repeat(np.arange(n_e), per_entry)
-    first = np.repeat(np.cumsum(per_entry) - per_entry, per_entry)
-    r = np.arange(ent.size) - first
-    kk = k[ent]
-    s = r // np.maximum(kk, 1)
-    p = off[ent] + r % np.maximum(kk, 1)             # valley index within the block
+    # valleys repeated per sample, ordered (entry, sample, valley): owner sorted ascending; each (entry,
+    # sample) cell holds its entry's k valleys (repeats of per-cell numbers: no integer division)
+    per_cell = np.repeat(k, n_s)
+    owner = np.repeat(np.arange(n_c), per_cell)
+    s = np.repeat(np.tile(np.arange(n_s), n_e), per_cell)
+    p = np.repeat(np.repeat(off, n_s) - (np.cumsum(per_cell) - per_cell), per_cell) \
+        + np.arange(owner.size)                       # valley index within the block
     gp = v0 + p                                       # valley index within the shard
-    owner = ent * n_s + s
     # np.take along the first axis: the rows fancy indexing would give, several times faster for
     # rows of more than one number
     cell = p * n_s + s                                # (valley, sample) in the draws' flat layout
@@ -509,7 +507,9 @@ def _evaluate_block(prep: _Prepared, a: int, b: int, z_ent, z_mass, z_edge, tabl
         r0_factor=f_r0, edge_kappa=prep.edge_kappa[rep], degeneracy=prep.degeneracy[gp], spin_split_ev=prep.spin_split[gp],
         edge_spin=prep.edge_spin[gp], binding_factor_layers=f_lay, binding_factor_bulk=f_bulk,
         gap_thermal=prep.gap_thermal.take(rep), temperature_k=prep.temperature_k, valley_pairs=pairs),
-        prep.model_settings, table)
+        # the exciton level in full where it is read below (the ranking surroundings); the optical gap and
+        # emission, read in every surroundings, are the full model's everywhere
+        dataclasses.replace(prep.model_settings, exciton_environments=(prep.env_index,)), table)
     gc = res.gap
     ei = prep.env_index
     eb = res.stack["binding_ev"][:, 0, ei]
