@@ -83,9 +83,16 @@ def _normal(record: dict, geometry: LayerGeometry | None, warnings: list[str]) -
 
 
 def _tensor_columns(prefix: str, tensor: np.ndarray | None) -> dict:
+    names = _tensor_names(prefix)
     if tensor is None:
-        return {f"{prefix}_{name}": math.nan for name, _, _ in TENSOR_COMPONENTS}
-    return {f"{prefix}_{name}": float(tensor[i, j]) for name, i, j in TENSOR_COMPONENTS}
+        return dict.fromkeys(names, math.nan)
+    t = tensor.tolist()
+    return {name: float(t[i][j]) for name, (_, i, j) in zip(names, TENSOR_COMPONENTS)}
+
+
+@functools.lru_cache(maxsize=4)
+def _tensor_names(prefix: str) -> tuple[str, ...]:
+    return tuple(f"{prefix}_{name}" for name, _, _ in TENSOR_COMPONENTS)
 
 
 def _inverse_mass(valley: dict, path: str, normal: np.ndarray, warnings: list[str],

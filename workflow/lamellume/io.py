@@ -13,7 +13,6 @@ import hashlib
 import json
 import math
 import os
-import re
 import stat
 import sys
 import tempfile
@@ -178,10 +177,6 @@ def read_limited(path: str | os.PathLike, limit: int) -> tuple[bytes | None, str
     return data, None, len(data)
 
 
-#: A run of digits long enough for an integer beyond the float range (10**308 < max float < 10**309).
-_LONG_DIGITS = re.compile(r"[0-9]{309}")
-
-
 def _reject_constant(name: str) -> float:
     raise ValueError(f"non-finite number '{name}' is not allowed")
 
@@ -312,9 +307,8 @@ def read_record(path: str | os.PathLike) -> RawRecord:
         return obj
 
     try:
-        # an integer beyond the float range has at least 309 digits; without one, int() is _parse_int
-        data = json.loads(text, parse_constant=_reject_constant,
-                          parse_int=_parse_int if _LONG_DIGITS.search(text) else None, object_pairs_hook=object_pairs)
+        data = json.loads(text, parse_constant=_reject_constant, parse_int=_parse_int,
+                          object_pairs_hook=object_pairs)
         if repeated:  # parsed again, each object remembering its keys given twice (for the message)
             data = json.loads(text, parse_constant=_reject_constant, parse_int=_parse_int,
                               object_pairs_hook=_object_pairs)
@@ -896,10 +890,23 @@ def end_job() -> None:
     scipy takes about 0.1 s: measurable on a re-run that revises one record,
     where two such jobs sit on the critical path. Call it as the last
     statement of an adapter only (nothing after it runs; no atexit handlers).
+
+    First it logs the job's CPU seconds and peak memory (the process's own
+    accounting; the sharded rules carry no ``benchmark:`` directive, see
+    DEVELOPERS.md, "State outside the DAG, and why").
     """
     import logging
     import sys
 
+    try:
+        import resource
+    except ImportError:  # not on this platform: nothing to log
+        pass
+    else:
+        usage = resource.getrusage(resource.RUSAGE_SELF)
+        peak_bytes = usage.ru_maxrss * (1 if sys.platform == "darwin" else 1024)  # macOS counts bytes, Linux KiB
+        logging.getLogger("lamellume").info("job resources: %.2f s CPU (user + system), peak memory %.0f MiB",
+                                            usage.ru_utime + usage.ru_stime, peak_bytes / 2**20)
     logging.shutdown()
     for stream in (sys.stdout, sys.stderr):
         try:
