@@ -54,7 +54,9 @@ function the nominal screen calls), with the entry x sample cells as its
 compound axis, the layer counts ``[ranking.target_layers, bulk]`` and every
 configured surroundings; it is asked only for the Rytova-Keldysh binding,
 optical gap, emission and exciton levels at the target layer count and the bulk
-3D hydrogenic binding. The criteria use the ranking surroundings
+3D hydrogenic binding, with the exciton level resolved in full only in the
+ranking surroundings (``ModelSettings.exciton_environments``; elsewhere it
+reads the emission alone). The criteria use the ranking surroundings
 (``ranking.environment``); the emission of every surroundings is summarised as
 ``emission_nm_p16__<env>`` / ``emission_nm_p84__<env>`` (the cards' expected
 ranges). The bound criterion uses the 2D Saha bound fraction at
