@@ -182,6 +182,19 @@ def job_seconds(work: Path, since: float = 0.0) -> dict:
     return out
 
 
+def job_cpu_seconds(work: Path, since: float = 0.0) -> dict:
+    """Sum per rule of the CPU seconds the jobs logged as they ended (``io.end_job``: the
+    sharded rules have no benchmark files), from the logs written after ``since``."""
+    out: dict[str, float] = {}
+    for log in (work / "results" / "logs").rglob("*.log"):
+        if log.stat().st_mtime < since:
+            continue
+        found = re.findall(r"job resources: ([0-9.]+) s CPU", log.read_text(errors="replace"))
+        if found:  # a log gathers every run of its job: the last line is this run's
+            out[log.parent.name] = out.get(log.parent.name, 0.0) + float(found[-1])
+    return out
+
+
 def bench_size(n: int, shards: int, out: Path, bare: bool = True) -> dict:
     base = out / f"n{n}"
     if base.exists():
@@ -205,6 +218,7 @@ def bench_size(n: int, shards: int, out: Path, bare: bool = True) -> dict:
     full = timed(snakemake_cmd(work), work, base / "full.log")
     row["full"] = {k: v for k, v in full.items() if k != "stdout"}
     row["full_jobs_s"] = job_seconds(work)
+    row["full_job_cpu_s"] = job_cpu_seconds(work)
     print(f"[n={n}] no-op re-run ...", flush=True)
     noop = timed(snakemake_cmd(work), work, base / "noop.log", sample_memory=False)
     row["noop"] = {k: v for k, v in noop.items() if k != "stdout"}
@@ -214,6 +228,7 @@ def bench_size(n: int, shards: int, out: Path, bare: bool = True) -> dict:
     rev = timed(snakemake_cmd(work), work, base / "revise.log", sample_memory=False)
     row["revise"] = {k: v for k, v in rev.items() if k != "stdout"}
     row["revise_jobs_s"] = job_seconds(work, since=start)
+    row["revise_job_cpu_s"] = job_cpu_seconds(work, since=start)
 
     if not bare:   # the workflow's cases only (the bare bound holds every table at once: minutes and GiB at 100k)
         row["load_avg_1min_at_end"] = os.getloadavg()[0]

@@ -890,10 +890,23 @@ def end_job() -> None:
     scipy takes about 0.1 s: measurable on a re-run that revises one record,
     where two such jobs sit on the critical path. Call it as the last
     statement of an adapter only (nothing after it runs; no atexit handlers).
+
+    First it logs the job's CPU seconds and peak memory (the process's own
+    accounting; the sharded rules carry no ``benchmark:`` directive, see
+    DEVELOPERS.md, "State outside the DAG, and why").
     """
     import logging
     import sys
 
+    try:
+        import resource
+    except ImportError:  # not on this platform: nothing to log
+        pass
+    else:
+        usage = resource.getrusage(resource.RUSAGE_SELF)
+        peak_bytes = usage.ru_maxrss * (1 if sys.platform == "darwin" else 1024)  # macOS counts bytes, Linux KiB
+        logging.getLogger("lamellume").info("job resources: %.2f s CPU (user + system), peak memory %.0f MiB",
+                                            usage.ru_utime + usage.ru_stime, peak_bytes / 2**20)
     logging.shutdown()
     for stream in (sys.stdout, sys.stderr):
         try:

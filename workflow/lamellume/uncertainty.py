@@ -553,34 +553,33 @@ def _iter_entry_samples(prep: _Prepared, table, samples: int, seed: int,
                         block_cells: int) -> Iterator[tuple[int, int, dict[str, np.ndarray]]]:
     """Yield (a, b, per-sample arrays (b-a, samples)) for consecutive entry ranges."""
     n = len(prep.ids)
-    gens: dict[int, np.random.Generator] = {}
-    model_gens: dict[int, np.random.Generator] = {}
+    gens: dict[int, tuple[np.random.Generator, np.random.Generator]] = {}
     pending: list[dict[str, np.ndarray]] = []
     for a, b, s0, s1 in _blocks(n, samples, block_cells):
-        n_s = s1 - s0
+        n_s, n_e = s1 - s0, b - a
         k = np.diff(prep.vstart[a:b + 1])
-        z_ent = np.empty((3, b - a, n_s))
-        z_mass = np.empty((int(k.sum()), n_s))
-        z_edge = np.empty_like(z_mass)
-        pos = 0
+        width = 3 + 2 * k                                  # draws per sample: eps, r0, scissor, k masses, k edges
+        at = np.concatenate([[0], np.cumsum(width * n_s)])  # each entry's (samples, width) draws, one after another
+        z = np.empty(int(at[-1]))
+        z_model = np.empty((n_e, n_s, 2))
         for i, e in enumerate(range(a, b)):
             if s0 == 0:
-                gens[e] = np.random.default_rng(entry_seed_sequence(seed, prep.ids[e]))
-            ke = int(k[i])
-            z = gens[e].standard_normal((n_s, 3 + 2 * ke))
-            z_ent[:, i, :] = z[:, :3].T
-            z_mass[pos:pos + ke] = z[:, 3:3 + ke].T
-            z_edge[pos:pos + ke] = z[:, 3 + ke:].T
-            pos += ke
+                gens[e] = (np.random.default_rng(entry_seed_sequence(seed, prep.ids[e])),
+                           np.random.default_rng(model_error_seed_sequence(seed, prep.ids[e])))
+            gen, model_gen = gens[e]
+            gen.standard_normal(out=z[at[i]:at[i + 1]].reshape(n_s, width[i]))   # the stream of (n_s, width)
+            model_gen.standard_normal(out=z_model[i])
             if s1 == samples:
                 del gens[e]
-        z_model = np.empty((2, b - a, n_s))
-        for i, e in enumerate(range(a, b)):
-            if s0 == 0:
-                model_gens[e] = np.random.default_rng(model_error_seed_sequence(seed, prep.ids[e]))
-            z_model[:, i, :] = model_gens[e].standard_normal((n_s, 2)).T
-            if s1 == samples:
-                del model_gens[e]
+        # the draws' columns gathered at once: first draw of every (entry, sample), then the columns
+        first = at[:-1, None] + np.arange(n_s)[None, :] * width[:, None]          # (n_e, n_s)
+        z_ent = np.stack([np.take(z, first + q) for q in range(3)])               # (3, n_e, n_s)
+        owner = np.repeat(np.arange(n_e), k)
+        column = 3 + np.arange(owner.size) - np.repeat(np.cumsum(k) - k, k)       # mass column of each valley
+        mass_at = np.take(first, owner, axis=0) + column[:, None]                 # (V, n_s)
+        z_mass = np.take(z, mass_at)
+        z_edge = np.take(z, mass_at + k[owner][:, None])
+        z_model = z_model.transpose(2, 0, 1)                                     # (2, n_e, n_s)
         res = _evaluate_block(prep, a, b, z_ent, z_mass, z_edge, table, z_model)
         if s0 == 0 and s1 == samples:
             yield a, b, res

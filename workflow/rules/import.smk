@@ -18,8 +18,8 @@ rule import_calculations:
         report="results/imported/{shard}/report.parquet",
     log:
         "results/logs/import_calculations/{shard}.log",
-    benchmark:
-        "results/benchmarks/import_calculations/{shard}.tsv"
+    # No benchmark: directive (DEVELOPERS.md, "State outside the DAG, and why"): the job logs its
+    # own CPU seconds and peak memory as it ends (io.end_job).
     threads: 1
     conda:
         "../../envs/lamellume.yaml"

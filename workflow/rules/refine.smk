@@ -23,8 +23,8 @@ rule attribute_shard:
         attribution="results/shards/{shard}/attribution.parquet",
     log:
         "results/logs/attribute_shard/{shard}.log",
-    benchmark:
-        "results/benchmarks/attribute_shard/{shard}.tsv"
+    # No benchmark: directive (DEVELOPERS.md, "State outside the DAG, and why"): the job logs its
+    # own CPU seconds and peak memory as it ends (io.end_job).
     threads: 1
     conda:
         "../../envs/lamellume.yaml"

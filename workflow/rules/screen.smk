@@ -26,8 +26,8 @@ rule screen_shard:
         counts="results/shards/{shard}/counts.json",
     log:
         "results/logs/screen_shard/{shard}.log",
-    benchmark:
-        "results/benchmarks/screen_shard/{shard}.tsv"
+    # No benchmark: directive (DEVELOPERS.md, "State outside the DAG, and why"): the job logs its
+    # own CPU seconds and peak memory as it ends (io.end_job).
     threads: 1
     conda:
         "../../envs/lamellume.yaml"
