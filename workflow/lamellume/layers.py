@@ -415,18 +415,10 @@ def segment_argmin(values, layout: Segments) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _first_index(mask, layout: Segments, n_groups):
-    """Index of the first True row of each compound segment (n_groups if none)."""
-    start = layout.start.reshape((-1,) + (1,) * (np.ndim(mask) - 1))
-    if not layout.by_position:
-        return np.minimum.reduceat(np.where(mask, np.arange(n_groups).reshape(start.shape), n_groups),
-                                   layout.start, axis=0)
-    found = np.take(mask, layout.start, axis=0)
-    offset = np.zeros(found.shape, dtype=np.int64)
-    for j in range(1, layout.width):
-        hit = np.take(mask, _segment_rows(layout, j), axis=0) & ~found
-        np.copyto(offset, j, where=hit)
-        found |= hit
-    return np.where(found, start + offset, n_groups)
+    """Index of the first True row of each compound segment (n_groups if none): the first row where
+    ``~mask`` attains its minimum (:func:`segment_argmin`; False < True), where that minimum is False."""
+    none, offset = segment_argmin(~np.asarray(mask, dtype=bool), layout)
+    return np.where(none, n_groups, layout.start.reshape((-1,) + (1,) * (np.ndim(mask) - 1)) + offset)
 
 
 def gap_character(owner, label_code, is_conduction, edge_ev, scissor_ev=None,
